@@ -1,0 +1,180 @@
+"""Typed, SI-unit descriptions of a run: what the scenario parser produces and the engine takes.
+
+Everything here is already validated and in SI units (m, s, kg, m2 s-1, s-1); the checks at the door
+live in ``walkers.scenario`` (for TOML files) and in the constructors' ``__post_init__`` for values
+that would break the engine whatever their origin.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Literal
+
+import numpy as np
+
+from walkers.errors import InputError
+
+EDGE_NAMES = ("west", "east", "south", "north")
+EdgeMode = Literal["reflecting", "absorbing"]
+
+
+@dataclass(frozen=True)
+class Dispersion:
+    """Horizontal dispersion coefficients (m2 s-1).
+
+    ``mode``:
+      - ``"axes"``: ``k1`` along x, ``k2`` along y (isotropic when equal);
+      - ``"aligned"``: ``k1`` longitudinal (along the local flow), ``k2`` transverse.
+
+    ``k1``/``k2`` are constants, or gridded fields (ny, nx) on the flow's cell grid given in
+    ``k1_field``/``k2_field`` (then ``k1``/``k2`` are ignored). ``multiplier`` scales both (used by
+    ensembles for an uncertain coefficient). In 1-D only ``k1`` is used.
+    """
+
+    k1: float = 1.0
+    k2: float = 1.0
+    mode: Literal["axes", "aligned"] = "axes"
+    k1_field: np.ndarray | None = None
+    k2_field: np.ndarray | None = None
+    multiplier: float = 1.0
+
+    def __post_init__(self) -> None:
+        for name in ("k1", "k2", "multiplier"):
+            value = getattr(self, name)
+            if not np.isfinite(value) or value < 0:
+                raise InputError(
+                    f"dispersion {name} = {value!r}: must be a finite number >= 0 (m2/s)"
+                )
+        for name in ("k1_field", "k2_field"):
+            arr = getattr(self, name)
+            if arr is not None and (not np.all(np.isfinite(arr)) or np.any(arr < 0)):
+                raise InputError(f"dispersion {name}: every value must be finite and >= 0 (m2/s)")
+        if self.mode not in ("axes", "aligned"):
+            raise InputError(f"dispersion mode {self.mode!r}: expected 'axes' or 'aligned'")
+
+
+@dataclass(frozen=True)
+class Transport:
+    """How particles move: time step, scheme, dispersion, decay and edge behaviour.
+
+    dt : time step (s).
+    scheme : ``"euler"`` or ``"rk4"`` for the advective (deterministic) part.
+    decay_rate : first-order decay rate k (s-1); mass m <- m exp(-k dt) each step.
+    edges : behaviour of each domain edge (west, east, south, north).
+    substeps : sub-steps per step (1 = none); set by the time-step check when asked to sub-step.
+    bridge : correct absorbing edges for crossings inside a step (Brownian-bridge probability).
+    max_reflections : reflections tried on a gridded coast before a particle is kept in place.
+    """
+
+    dt: float
+    dispersion: Dispersion = field(default_factory=Dispersion)
+    scheme: Literal["euler", "rk4"] = "euler"
+    decay_rate: float = 0.0
+    edges: dict[str, EdgeMode] = field(
+        default_factory=lambda: dict.fromkeys(EDGE_NAMES, "absorbing")
+    )
+    substeps: int = 1
+    bridge: bool = True
+    max_reflections: int = 8
+
+    def __post_init__(self) -> None:
+        if not (np.isfinite(self.dt) and self.dt > 0):
+            raise InputError(f"time step {self.dt!r} s: must be a finite number > 0")
+        if not (np.isfinite(self.decay_rate) and self.decay_rate >= 0):
+            raise InputError(f"decay rate {self.decay_rate!r} 1/s: must be finite and >= 0")
+        if self.scheme not in ("euler", "rk4"):
+            raise InputError(f"scheme {self.scheme!r}: expected 'euler' or 'rk4'")
+        for name, mode in self.edges.items():
+            if name not in EDGE_NAMES:
+                raise InputError(f"edge {name!r}: expected one of {', '.join(EDGE_NAMES)}")
+            if mode not in ("reflecting", "absorbing"):
+                raise InputError(f"edge {name} = {mode!r}: expected 'reflecting' or 'absorbing'")
+        if int(self.substeps) < 1:
+            raise InputError(f"substeps {self.substeps!r}: must be a whole number >= 1")
+
+
+@dataclass(frozen=True)
+class Release:
+    """One release of mass into the water.
+
+    shape : ``"point"``, ``"line"``, ``"circle"`` or ``"polygon"``.
+    coords : (n, 2) vertices in grid coordinates: one point; line ends; circle centre; polygon ring.
+    radius : circle radius (m).
+    start : release start time (s, in the run's time frame).
+    duration : 0 for an instantaneous release (s).
+    mass : total mass released (kg), for instantaneous or constant-rate releases.
+    rate_times, rates : a time-series rate (s, kg s-1) for continuous releases; mass follows from
+        integrating it (trapezoidal) over [start, start + duration].
+    particles : number of particles this release uses.
+    name : label for outputs.
+    """
+
+    shape: Literal["point", "line", "circle", "polygon"]
+    coords: np.ndarray
+    particles: int
+    start: float = 0.0
+    duration: float = 0.0
+    mass: float = 1.0
+    radius: float = 0.0
+    rate_times: np.ndarray | None = None
+    rates: np.ndarray | None = None
+    name: str = "release"
+
+    def __post_init__(self) -> None:
+        if self.shape not in ("point", "line", "circle", "polygon"):
+            raise InputError(
+                f"release {self.name!r}: shape {self.shape!r}; expected point, line, circle "
+                "or polygon"
+            )
+        if int(self.particles) < 1:
+            raise InputError(f"release {self.name!r}: particles must be >= 1")
+        if not (np.isfinite(self.duration) and self.duration >= 0):
+            raise InputError(f"release {self.name!r}: duration must be >= 0 s")
+        if self.rates is None and not (np.isfinite(self.mass) and self.mass > 0):
+            raise InputError(f"release {self.name!r}: mass must be > 0 kg")
+        if self.shape == "circle" and not self.radius > 0:
+            raise InputError(f"release {self.name!r}: a circle needs a radius > 0 m")
+
+
+@dataclass(frozen=True)
+class OutputGrid:
+    """A regular output grid, independent of the flow grid (grid coordinates: m or degrees).
+
+    x0, y0 : centre of the first cell; dx, dy : cell size; nx, ny : number of cells.
+    bandwidth : Gaussian kernel bandwidth (m) for a smoothed estimate; 0 = box counting only.
+    """
+
+    x0: float
+    dx: float
+    nx: int
+    y0: float = 0.0
+    dy: float = 1.0
+    ny: int = 1
+    bandwidth: float = 0.0
+
+    def __post_init__(self) -> None:
+        if not (self.dx > 0 and self.dy > 0 and self.nx >= 1 and self.ny >= 1):
+            raise InputError("output grid: cell sizes must be > 0 and cell counts >= 1")
+
+    @property
+    def x(self) -> np.ndarray:
+        return float(self.x0) + float(self.dx) * np.arange(self.nx, dtype=np.float64)
+
+    @property
+    def y(self) -> np.ndarray:
+        return float(self.y0) + float(self.dy) * np.arange(self.ny, dtype=np.float64)
+
+
+@dataclass(frozen=True)
+class Receptor:
+    """A place where concentration is recorded over time.
+
+    x, y : position (grid coordinates); radius : averaging radius (m), 0 = the output-grid cell that
+    holds the point; thresholds : concentrations of concern (kg m-3).
+    """
+
+    name: str
+    x: float
+    y: float = 0.0
+    radius: float = 0.0
+    thresholds: tuple[float, ...] = ()

@@ -1,0 +1,232 @@
+"""Prepare a window of flow frames for the step kernels and call them.
+
+The mover turns a :class:`~walkers.fields.base.FlowWindow` and the run's
+:class:`~walkers.config.Transport` into the plain arrays the kernels take: velocity frames on their
+own axes, the wet mask on the cell grid, and the dispersion coefficients with the drift
+(1/h) ∇·(h K) on cell centres, computed once per frame by finite differences.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Literal
+
+import numpy as np
+
+from walkers.config import EDGE_NAMES, Transport
+from walkers.engine import kernels, twin
+from walkers.engine.state import ParticleState
+from walkers.fields.base import FlowField, FlowWindow, centre_to_edges
+
+MIN_DRIFT_DEPTH = 0.05  # m; depths are floored here when dividing by h (drying cells).
+
+
+def metres_per_grid_unit(flow: FlowField) -> tuple[np.ndarray, np.ndarray]:
+    """Metres per grid unit along x (per row, shape (ny,)) and along y (per row).
+
+    1 on projected grids; WGS84 radii of curvature on geographic grids (NIMA TR8350.2, 2000):
+    N = a / sqrt(1 - e² sin²φ), M = a (1 - e²) / (1 - e² sin²φ)^{3/2}.
+    """
+    y = flow.y
+    if not flow.geographic:
+        return np.ones_like(y), np.ones_like(y)
+    s = np.sin(np.radians(y))
+    q = 1.0 - kernels.WGS84_E2 * s * s
+    n_rad = kernels.WGS84_A / np.sqrt(q)
+    m_rad = kernels.WGS84_A * (1.0 - kernels.WGS84_E2) / (q * np.sqrt(q))
+    return n_rad * np.cos(np.radians(y)) * kernels.DEG, m_rad * kernels.DEG
+
+
+def _fill_land(a: np.ndarray, wet: np.ndarray) -> np.ndarray:
+    """Copy values of wet neighbours onto land cells (a few sweeps), so that finite differences
+    across a coast see no jump: no diffusive flux through walls."""
+    out = np.where(wet, a, np.nan)
+    for _ in range(3):
+        missing = np.isnan(out)
+        if not missing.any():
+            break
+        padded = np.pad(out, 1, mode="edge")
+        neighbours = np.stack(
+            [padded[:-2, 1:-1], padded[2:, 1:-1], padded[1:-1, :-2], padded[1:-1, 2:]]
+        )
+        count = np.sum(~np.isnan(neighbours), axis=0)
+        mean = np.nansum(neighbours, axis=0) / np.maximum(count, 1)
+        out = np.where(missing & (count > 0), mean, out)
+    return np.where(np.isnan(out), np.nanmean(out) if np.isfinite(out).any() else 0.0, out)
+
+
+def _gradient(a: np.ndarray, coord_m: np.ndarray, axis: int) -> np.ndarray:
+    if a.shape[axis] < 2:
+        return np.zeros_like(a)
+    return np.gradient(a, coord_m, axis=axis)
+
+
+@dataclass
+class DispersionFrames:
+    """Drift and dispersion coefficients on cell centres for a window of frames."""
+
+    drift_x: np.ndarray  # (nf, ny, nx) m s-1
+    drift_y: np.ndarray
+    k1: np.ndarray  # (nf or 1, ny, nx) m2 s-1, or (1, 1, 1) when constant
+    k2: np.ndarray
+    constant: bool
+    has_drift: bool
+
+
+def dispersion_frames(flow: FlowField, window: FlowWindow, transport: Transport) -> DispersionFrames:
+    """K on cell centres and the drift (1/h) ∇·(h K) for each frame of the window.
+
+    Hunter, Craig & Phillips 1993 (J. Comput. Phys. 106) and Visser 1997 (Mar. Ecol. Prog. Ser.
+    158) give the drift for varying K; Dimou & Adams 1993 (Estuar. Coast. Shelf Sci. 37) the depth
+    term (all from memory). In 1-D the depth is the cross-section area A and the drift is
+    (1/A) d(A K)/dx.
+    """
+    d = transport.dispersion
+    ny, nx = flow.depth.data.shape[1:]
+    nf = max(window.u.shape[0], window.depth.shape[0])
+    gridded = d.k1_field is not None or d.k2_field is not None
+    k1 = np.broadcast_to(d.k1_field if d.k1_field is not None else d.k1, (ny, nx))
+    k2 = np.broadcast_to(d.k2_field if d.k2_field is not None else d.k2, (ny, nx))
+    mx, my = metres_per_grid_unit(flow)
+    x_m = flow.x * (mx.mean() if flow.geographic else 1.0)
+    y_m = flow.y * my if flow.geographic else flow.y
+    drift_x = np.zeros((nf, ny, nx))
+    drift_y = np.zeros((nf, ny, nx))
+    depth_varies = window.depth.shape[0] > 1 or np.ptp(window.depth[0][window.wet[0] > 0]) > 0
+    if not (gridded or d.mode == "aligned" or depth_varies):
+        return DispersionFrames(
+            drift_x, drift_y, np.full((1, 1, 1), d.k1), np.full((1, 1, 1), d.k2), True, False
+        )
+    for f in range(nf):
+        wet = window.wet[min(f, window.wet.shape[0] - 1)] > 0
+        h = _fill_land(window.depth[min(f, window.depth.shape[0] - 1)], wet)
+        h = np.maximum(h, MIN_DRIFT_DEPTH)
+        if d.mode == "aligned":
+            u, v = _velocity_at_centres(flow, window, f)
+            speed2 = u * u + v * v
+            moving = speed2 > 0.0
+            safe = np.where(moving, speed2, 1.0)
+            kl = np.where(moving, k1, k2)
+            kxx = k2 + (kl - k2) * np.where(moving, u * u / safe, 1.0)
+            kyy = k2 + (kl - k2) * np.where(moving, v * v / safe, 0.0)
+            kxy = (kl - k2) * np.where(moving, u * v / safe, 0.0)
+        else:
+            kxx, kyy, kxy = k1, k2, np.zeros((ny, nx))
+        hkxx = _fill_land(h * kxx, wet)
+        hkyy = _fill_land(h * kyy, wet)
+        hkxy = _fill_land(h * kxy, wet)
+        if flow.geographic:
+            dx_row = mx[:, None]
+            gx = lambda a: np.gradient(a, flow.x, axis=1) / dx_row if nx > 1 else 0 * a  # noqa: E731
+        else:
+            gx = lambda a: _gradient(a, x_m, 1)  # noqa: E731
+        drift_x[f] = (gx(hkxx) + _gradient(hkxy, y_m, 0)) / h
+        drift_y[f] = (gx(hkxy) + _gradient(hkyy, y_m, 0)) / h
+    if flow.ndim == 1:
+        drift_y[:] = 0.0
+    k1f = np.ascontiguousarray(k1, dtype=np.float64)[None]
+    k2f = np.ascontiguousarray(k2, dtype=np.float64)[None]
+    constant = not gridded
+    if constant:
+        k1f = np.full((1, 1, 1), d.k1)
+        k2f = np.full((1, 1, 1), d.k2)
+    return DispersionFrames(drift_x, drift_y, k1f, k2f, constant, True)
+
+
+def _velocity_at_centres(flow: FlowField, window: FlowWindow, f: int):
+    """u and v of frame f interpolated to cell centres (for the flow-aligned tensor)."""
+    from scipy.interpolate import RegularGridInterpolator
+
+    X, Y = np.meshgrid(flow.x, flow.y)
+    pts = np.stack([Y.ravel(), X.ravel()], axis=-1)
+    out = []
+    for var, arr in ((flow.u, window.u), (flow.v, window.v)):
+        frame = arr[min(f, arr.shape[0] - 1)]
+        if frame.shape == X.shape and np.array_equal(var.x, flow.x) and np.array_equal(var.y, flow.y):
+            out.append(frame)
+            continue
+        ys = var.y if var.y.size > 1 else np.array([var.y[0] - 1.0, var.y[0] + 1.0])
+        grid = frame if var.y.size > 1 else np.vstack([frame, frame])
+        interp = RegularGridInterpolator(
+            (ys, var.x), grid, bounds_error=False, fill_value=None, method="linear"
+        )
+        out.append(interp(pts).reshape(X.shape))
+    return out[0], out[1]
+
+
+@dataclass
+class KernelInputs:
+    """The argument tuples of ``kernels.advance`` for one window."""
+
+    flow: tuple
+    cells: tuple
+    disp: tuple
+    times: np.ndarray
+    opts: np.ndarray
+    edges_mode: np.ndarray
+    decay_rate: float
+
+
+def kernel_inputs(flow: FlowField, window: FlowWindow, transport: Transport) -> KernelInputs:
+    """Build the kernel argument tuples for a window of frames."""
+    inv = kernels.axis_inverse_spacing
+    ux, uy, vx, vy = (np.ascontiguousarray(a, np.float64) for a in (
+        flow.u.x, flow.u.y, flow.v.x, flow.v.y))
+    xe, ye = centre_to_edges(flow.x), centre_to_edges(flow.y)
+    cx, cy = np.ascontiguousarray(flow.x, np.float64), np.ascontiguousarray(flow.y, np.float64)
+    disp = dispersion_frames(flow, window, transport)
+    kconst = np.array(
+        [
+            transport.dispersion.k1 if disp.constant else -1.0,
+            transport.dispersion.k2 if disp.constant else -1.0,
+            transport.dispersion.multiplier,
+        ]
+    )
+    d = transport.dispersion
+    opts = np.array(
+        [
+            flow.ndim,
+            1 if transport.scheme == "rk4" else 0,
+            1 if d.mode == "aligned" else 0,
+            1 if disp.has_drift else 0,
+            1 if transport.bridge else 0,
+            transport.max_reflections,
+            1 if flow.geographic else 0,
+        ],
+        dtype=np.int64,
+    )
+    edges_mode = np.array(
+        [1 if transport.edges.get(e, "absorbing") == "absorbing" else 0 for e in EDGE_NAMES],
+        dtype=np.int64,
+    )
+    flow_t = (
+        ux, uy, window.u, vx, vy, window.v,
+        np.array([inv(ux), inv(uy), inv(vx), inv(vy)]),
+    )
+    cells_t = (xe, ye, window.wet, cx, cy, np.array([inv(xe), inv(ye), inv(cx), inv(cy)]))
+    disp_t = (
+        disp.drift_x * d.multiplier, disp.drift_y * d.multiplier, disp.k1, disp.k2, kconst
+    )
+    return KernelInputs(
+        flow_t, cells_t, disp_t, window.times, opts, edges_mode, transport.decay_rate
+    )
+
+
+def advance(
+    state: ParticleState,
+    inputs: KernelInputs,
+    t0: float,
+    dt: float,
+    nsteps: int,
+    step0: int,
+    key: int,
+    engine: Literal["compiled", "numpy"] = "compiled",
+) -> None:
+    """Advance all particles in place by nsteps steps of dt seconds from t0 (s)."""
+    mod = kernels if engine == "compiled" else twin
+    mod.advance(
+        state.x, state.y, state.mass, state.initial_mass, state.release_time, state.exit_time,
+        state.status, inputs.flow, inputs.cells, inputs.disp, inputs.times, inputs.opts,
+        inputs.edges_mode, float(t0), float(dt), int(nsteps), int(step0), np.uint64(key),
+        float(inputs.decay_rate),
+    )

@@ -1,0 +1,287 @@
+"""The plain-numpy twin of the compiled step: same arithmetic, same random numbers.
+
+It is vectorised over particles and loops over steps, the way an engineer would write a mover in
+numpy. It serves as the oracle the compiled kernel is tested against (to 1e-12) and as the
+baseline of the benchmark. Arguments are those of :func:`walkers.engine.kernels.advance`.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from walkers.engine.kernels import (
+    COMP_BRIDGE_X,
+    COMP_BRIDGE_Y,
+    COMP_NORMAL,
+    COMPONENTS,
+    DECAYED_FRACTION,
+    DEG,
+    STATUS_DECAYED,
+    STATUS_LEFT,
+    STATUS_STRANDED,
+    STATUS_WAITING,
+    STATUS_WATER,
+    WGS84_A,
+    WGS84_E2,
+)
+
+_GOLDEN = np.uint64(0x9E3779B97F4A7C15)
+_MIX1 = np.uint64(0xBF58476D1CE4E5B9)
+_MIX2 = np.uint64(0x94D049BB133111EB)
+
+
+def mix64(z: np.ndarray) -> np.ndarray:
+    """SplitMix64 output function on uint64 arrays (wrapping arithmetic)."""
+    z = (z ^ (z >> np.uint64(30))) * _MIX1
+    z = (z ^ (z >> np.uint64(27))) * _MIX2
+    return z ^ (z >> np.uint64(31))
+
+
+def particle_streams(key: int, particles: np.ndarray) -> np.ndarray:
+    p = np.asarray(particles).astype(np.uint64)
+    return mix64(np.uint64(key) ^ (p * _GOLDEN))
+
+
+def uniforms(streams: np.ndarray, step: int, comp: int) -> np.ndarray:
+    """Uniform deviates in (0, 1] for each stream at (step, component)."""
+    counter = np.uint64(step) * np.uint64(COMPONENTS) + np.uint64(comp)
+    z = mix64(streams + np.full_like(streams, counter) * _GOLDEN)
+    return ((z >> np.uint64(11)).astype(np.float64) + 1.0) * (1.0 / 9007199254740992.0)
+
+
+def normal_pairs(streams: np.ndarray, step: int) -> tuple[np.ndarray, np.ndarray]:
+    u1 = uniforms(streams, step, COMP_NORMAL)
+    u2 = uniforms(streams, step, COMP_NORMAL + 1)
+    r = np.sqrt(-2.0 * np.log(u1))
+    a = 2.0 * np.pi * u2
+    return r * np.cos(a), r * np.sin(a)
+
+
+def _locate(c: np.ndarray, v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    n = c.shape[0]
+    if n < 2:
+        return np.zeros(v.shape, np.int64), np.zeros(v.shape)
+    i = np.clip(np.searchsorted(c, v, side="right") - 1, 0, n - 2)
+    w = (v - c[i]) / (c[i + 1] - c[i])
+    low = v <= c[0]
+    high = v >= c[-1]
+    w = np.where(low, 0.0, np.where(high, 1.0, w))
+    return i, w
+
+
+def _cell(edges: np.ndarray, v: np.ndarray) -> np.ndarray:
+    return np.clip(np.searchsorted(edges, v, side="right") - 1, 0, edges.shape[0] - 2)
+
+
+def _time_weight(times: np.ndarray, t: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    return _locate(times, t)
+
+
+def _sample(arr, ax, ay, it, wt, x, y):
+    nf, ny, nx = arr.shape
+    i, wx = _locate(ax, x)
+    j, wy = _locate(ay, y)
+    i1 = np.minimum(i + 1, nx - 1)
+    j1 = np.minimum(j + 1, ny - 1)
+    if nf == 1:
+        it = np.zeros_like(it)
+        wt = np.zeros_like(wt)
+
+    def at(k):
+        return (1.0 - wy) * ((1.0 - wx) * arr[k, j, i] + wx * arr[k, j, i1]) + wy * (
+            (1.0 - wx) * arr[k, j1, i] + wx * arr[k, j1, i1]
+        )
+
+    f = at(it)
+    later = wt > 0.0
+    if np.any(later):
+        g = at(np.minimum(it + 1, nf - 1))
+        f = np.where(later, f + wt * (g - f), f)
+    return f
+
+
+def _metres_to_grid(geographic, y):
+    if not geographic:
+        one = np.ones_like(y)
+        return one, one
+    s = np.sin(y * DEG)
+    q = 1.0 - WGS84_E2 * s * s
+    n_rad = WGS84_A / np.sqrt(q)
+    m_rad = WGS84_A * (1.0 - WGS84_E2) / (q * np.sqrt(q))
+    return 1.0 / (n_rad * np.cos(y * DEG) * DEG), 1.0 / (m_rad * DEG)
+
+
+def _velocity(flow, times, t, x, y):
+    ux, uy, U, vx, vy, V = flow[:6]
+    it, wt = _time_weight(times, t)
+    return _sample(U, ux, uy, it, wt, x, y), _sample(V, vx, vy, it, wt, x, y)
+
+
+def _advect(flow, times, scheme, geographic, x, y, t, h):
+    u1, v1 = _velocity(flow, times, t, x, y)
+    sx, sy = _metres_to_grid(geographic, y)
+    if scheme == 0:
+        return u1 * h * sx, v1 * h * sy
+    u2, v2 = _velocity(flow, times, t + 0.5 * h, x + 0.5 * h * u1 * sx, y + 0.5 * h * v1 * sy)
+    u3, v3 = _velocity(flow, times, t + 0.5 * h, x + 0.5 * h * u2 * sx, y + 0.5 * h * v2 * sy)
+    u4, v4 = _velocity(flow, times, t + h, x + h * u3 * sx, y + h * v3 * sy)
+    return (
+        h * sx * (u1 + 2.0 * u2 + 2.0 * u3 + u4) / 6.0,
+        h * sy * (v1 + 2.0 * v2 + 2.0 * v3 + v4) / 6.0,
+    )
+
+
+def advance(
+    x, y, m, m0, trel, texit, status, flow, cells, disp, times, opts, edges_mode, t0, dt,
+    nsteps, step0, key, decay_rate,
+):
+    """Numpy twin of :func:`walkers.engine.kernels.advance` (same arguments, in place)."""
+    ndim, scheme, aligned, has_drift, bridge, max_refl, geographic = (int(o) for o in opts)
+    xe, ye, wet, cx, cy = cells[:5]
+    DX, DY, K1, K2, kconst = disp
+    x_w, x_e, y_s, y_n = xe[0], xe[-1], ye[0], ye[-1]
+    streams_all = particle_streams(key, np.arange(x.shape[0]))
+    for s in range(nsteps):
+        t = t0 + s * dt
+        t_end = t + dt
+        new = (status == STATUS_WAITING) & (trel < t_end)
+        status[new] = STATUS_WATER
+        act = np.flatnonzero(((status == STATUS_WATER) | (status == STATUS_STRANDED)))
+        if act.size == 0:
+            continue
+        tstart = np.where(new[act], np.maximum(t, trel[act]), t)
+        h = t_end - tstart
+        keep = h > 0.0
+        act, tstart, h = act[keep], tstart[keep], h[keep]
+        px, py = x[act], y[act]
+        it, wt = _time_weight(times, tstart)
+        iw = np.where(wt < 0.5, it, it + 1)
+        if wet.shape[0] == 1:
+            iw = np.zeros_like(iw)
+        wet_here = wet[iw, _cell(ye, py), _cell(xe, px)] != 0
+        st = status[act]
+        st = np.where(~wet_here, STATUS_STRANDED, np.where(st == STATUS_STRANDED, STATUS_WATER, st))
+        if decay_rate > 0.0:
+            pm = m[act] * np.exp(-decay_rate * h)
+            m[act] = pm
+            gone = pm <= DECAYED_FRACTION * m0[act]
+            st = np.where(gone, STATUS_DECAYED, st)
+        status[act] = st
+        moving = st == STATUS_WATER
+        act, tstart, h, px, py, it, wt, iw = (
+            a[moving] for a in (act, tstart, h, px, py, it, wt, iw)
+        )
+        if act.size == 0:
+            continue
+        streams = streams_all[act]
+        ax_, ay_ = _advect(flow, times, scheme, geographic, px, py, tstart, h)
+        if kconst[0] >= 0.0:
+            k1 = np.full(act.size, kconst[0])
+            k2 = np.full(act.size, kconst[1])
+        else:
+            k1 = _sample(K1, cx, cy, it, wt, px, py)
+            k2 = _sample(K2, cx, cy, it, wt, px, py)
+        k1 = k1 * kconst[2]
+        k2 = k2 * kconst[2]
+        z1, z2 = normal_pairs(streams, step0 + s)
+        sx, sy = _metres_to_grid(geographic, py)
+        if aligned:
+            u, v = _velocity(flow, times, tstart, px, py)
+            speed = np.sqrt(u * u + v * v)
+            moving_flow = speed > 0.0
+            safe = np.where(moving_flow, speed, 1.0)
+            ex = np.where(moving_flow, u / safe, 1.0)
+            ey = np.where(moving_flow, v / safe, 0.0)
+            k1 = np.where(moving_flow, k1, k2)
+            aL = np.sqrt(2.0 * k1 * h) * z1
+            aT = np.sqrt(2.0 * k2 * h) * z2
+            nxm = aL * ex - aT * ey
+            nym = aL * ey + aT * ex
+            kxx = k2 + (k1 - k2) * ex * ex
+            kyy = k2 + (k1 - k2) * ey * ey
+        else:
+            nxm = np.sqrt(2.0 * k1 * h) * z1
+            nym = np.sqrt(2.0 * k2 * h) * z2
+            kxx, kyy = k1, k2
+        dxm, dym = nxm, nym
+        if has_drift:
+            dxm = dxm + _sample(DX, cx, cy, it, wt, px, py) * h
+            dym = dym + _sample(DY, cx, cy, it, wt, px, py) * h
+        qx = px + ax_ + dxm * sx
+        qy = py + ay_ + dym * sy if ndim == 2 else py.copy()
+        iw_cells = iw if wet.shape[0] > 1 else np.zeros_like(iw)
+        left = np.full(act.size, -1)
+        tcross = np.full(act.size, t_end)
+        placed = np.zeros(act.size, dtype=bool)
+        pi, pj = _cell(xe, px), _cell(ye, py)
+        for _ in range(max_refl):
+            todo = (left < 0) & ~placed
+            if not np.any(todo):
+                break
+            for e, bound, sign in ((0, x_w, -1.0), (1, x_e, 1.0), (2, y_s, -1.0), (3, y_n, 1.0)):
+                if e >= 2 and ndim != 2:
+                    continue
+                q = qx if e < 2 else qy
+                pp = px if e < 2 else py
+                out = todo & (left < 0) & (sign * (q - bound) > 0.0)
+                if edges_mode[e] == 1:
+                    frac = (pp - bound) / (pp - q)
+                    tcross = np.where(out, tstart + h * frac, tcross)
+                    left = np.where(out, e, left)
+                else:
+                    q[out] = 2.0 * bound - q[out]
+            todo = todo & (left < 0)
+            inside = (qx >= x_w) & (qx <= x_e) & (qy >= y_s) & (qy <= y_n)
+            check = todo & inside
+            ci, cj = _cell(xe, qx), _cell(ye, qy)
+            ok = check & (wet[iw_cells, cj, ci] != 0)
+            placed |= ok
+            bad = check & ~ok
+            if not np.any(bad):
+                continue
+            xf = np.where(ci > pi, xe[np.minimum(pi + 1, xe.size - 1)], xe[pi])
+            yf = np.where(cj > pj, ye[np.minimum(pj + 1, ye.size - 1)], ye[pj])
+            refl_x = bad & (ci != pi) & (wet[iw_cells, pj, ci] == 0)
+            refl_y = bad & (cj != pj) & (wet[iw_cells, cj, pi] == 0)
+            neither = bad & ~refl_x & ~refl_y
+            refl_x |= neither & (ci != pi)
+            refl_y |= neither & (cj != pj)
+            qx = np.where(refl_x, 2.0 * xf - qx, qx)
+            qy = np.where(refl_y, 2.0 * yf - qy, qy)
+        if bridge:
+            cand = (left < 0) & placed
+            bx = np.full(act.size, -1)
+            ux_ = uniforms(streams, step0 + s, COMP_BRIDGE_X)
+            for e, d0, d1 in (
+                (0, (px - x_w) / sx, (qx - x_w) / sx),
+                (1, (x_e - px) / sx, (x_e - qx) / sx),
+            ):
+                if edges_mode[e] != 1:
+                    continue
+                near = cand & (bx < 0) & (kxx > 0.0) & (d0 * d1 < 20.0 * kxx * h)
+                kh = np.where(near, kxx * h, 1.0)
+                hit = near & (ux_ < np.exp(-d0 * d1 / kh))
+                bx = np.where(near & (bx < 0), np.where(hit, e, -2), bx)
+            left = np.where(bx >= 0, bx, left)
+            if ndim == 2:
+                by = np.full(act.size, -1)
+                uy_ = uniforms(streams, step0 + s, COMP_BRIDGE_Y)
+                cand = cand & (left < 0)
+                for e, d0, d1 in (
+                    (2, (py - y_s) / sy, (qy - y_s) / sy),
+                    (3, (y_n - py) / sy, (y_n - qy) / sy),
+                ):
+                    if edges_mode[e] != 1:
+                        continue
+                    near = cand & (by < 0) & (kyy > 0.0) & (d0 * d1 < 20.0 * kyy * h)
+                    kh = np.where(near, kyy * h, 1.0)
+                    hit = near & (uy_ < np.exp(-d0 * d1 / kh))
+                    by = np.where(near & (by < 0), np.where(hit, e, -2), by)
+                left = np.where(by >= 0, by, left)
+            tcross = np.where((bx >= 0) | ((left >= 0) & cand), tstart + 0.5 * h, tcross)
+        gone = left >= 0
+        status[act[gone]] = (STATUS_LEFT + left[gone]).astype(status.dtype)
+        texit[act[gone]] = tcross[gone]
+        moved = gone | placed
+        x[act[moved]] = qx[moved]
+        y[act[moved]] = qy[moved]

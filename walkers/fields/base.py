@@ -1,0 +1,150 @@
+"""What a flow reader hands the engine: plain arrays on rectilinear grids, in SI units.
+
+The engine never sees NetCDF. A reader (``walkers.fields.netcdf``) or an analytic flow
+(``walkers.fields.analytic``) builds a :class:`FlowField`; the driver asks it for windows of frames
+(:meth:`FlowField.window`) one output interval at a time, so files larger than memory run.
+
+Contract of a flow source (what every reader must deliver):
+
+1. Coordinates are 1-D, strictly ascending float64 arrays (a reader flips descending axes and
+   reorders data to ``(time, y, x)``). Projected grids are in metres; geographic grids are in
+   degrees east / north with ``geographic=True`` (the engine then converts metric steps to degrees
+   with the local WGS84 radii of curvature).
+2. ``u`` and ``v`` are velocities in m s-1, each on its own coordinates (staggered grids allowed).
+3. ``depth`` is the water depth in metres at cell centres (2-D), or the wetted cross-section area
+   in m2 (1-D), on the cell grid. ``wet`` says, per frame and cell, whether water is there; dry and
+   land cells are walls. The cell grid is given by its centres ``x``/``y``; cell edges are midway
+   between centres and half a cell beyond the outer centres.
+4. ``times`` are frame times in seconds, ascending, in the frame ``time_units`` / ``calendar``
+   (CF conventions); a steady flow has one frame.
+5. ``data`` of each :class:`GriddedVariable` may be lazy: anything with ``shape`` and
+   ``__getitem__`` that returns a float64 numpy array in SI units for a slice of frames.
+6. A 1-D channel is a grid with one row: ``y == [0.0]``, ``v`` zero, ``depth`` the cross-section.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+
+@dataclass(frozen=True)
+class GriddedVariable:
+    """A variable on a rectilinear grid, possibly time-varying.
+
+    Attributes
+    ----------
+    x, y : ascending coordinates of the points where ``data`` is given (m, or degrees).
+    data : array-like of shape (nt, ny, nx), in SI units; ``nt == 1`` means steady.
+    name : the variable's name in its source (for messages).
+    units : SI units of ``data`` after conversion (for messages and outputs).
+    """
+
+    x: np.ndarray
+    y: np.ndarray
+    data: Any
+    name: str = ""
+    units: str = ""
+
+    @property
+    def steady(self) -> bool:
+        return int(self.data.shape[0]) == 1
+
+    def frames(self, i0: int, i1: int) -> np.ndarray:
+        """Frames ``i0`` to ``i1`` inclusive as a C-contiguous float64 array (nf, ny, nx).
+
+        A steady variable returns its single frame whatever is asked.
+        """
+        if self.steady:
+            block = self.data[0:1]
+        else:
+            block = self.data[i0 : i1 + 1]
+        return np.ascontiguousarray(np.asarray(block, dtype=np.float64))
+
+
+@dataclass
+class FlowWindow:
+    """Frames ``i0..i1`` of a flow field as in-memory arrays, ready for the engine."""
+
+    times: np.ndarray  # (nf,) s
+    u: np.ndarray  # (nf or 1, nyu, nxu) m s-1
+    v: np.ndarray  # (nf or 1, nyv, nxv) m s-1
+    depth: np.ndarray  # (nf or 1, ny, nx) m (2-D) or m2 (1-D)
+    wet: np.ndarray  # (nf or 1, ny, nx) uint8, 1 where water
+
+
+@dataclass
+class FlowField:
+    """A gridded, possibly time-varying depth-averaged (2-D) or cross-section-averaged (1-D) flow.
+
+    See the module docstring for the contract every reader meets.
+    """
+
+    u: GriddedVariable
+    v: GriddedVariable
+    depth: GriddedVariable
+    wet: GriddedVariable
+    times: np.ndarray
+    time_units: str = "seconds since 2000-01-01T00:00:00+00:00"
+    calendar: str = "standard"
+    geographic: bool = False
+    crs_wkt: str | None = None
+    ndim: int = 2
+    source: str = "analytic"
+    attrs: dict[str, Any] = field(default_factory=dict)
+
+    @property
+    def x(self) -> np.ndarray:
+        """Cell-centre x coordinates (m or degrees east)."""
+        return self.depth.x
+
+    @property
+    def y(self) -> np.ndarray:
+        """Cell-centre y coordinates (m or degrees north); ``[0.0]`` in 1-D."""
+        return self.depth.y
+
+    @property
+    def steady(self) -> bool:
+        return len(self.times) == 1
+
+    def cell_edges(self) -> tuple[np.ndarray, np.ndarray]:
+        """Cell edges along x and y (midway between centres, half a cell beyond the ends)."""
+        return centre_to_edges(self.x), centre_to_edges(self.y)
+
+    def extent(self) -> tuple[float, float, float, float]:
+        """(west, east, south, north) of the domain, in grid coordinates."""
+        xe, ye = self.cell_edges()
+        return float(xe[0]), float(xe[-1]), float(ye[0]), float(ye[-1])
+
+    def frame_range(self, t0: float, t1: float) -> tuple[int, int]:
+        """Indices (i0, i1) of the frames whose span covers the times [t0, t1] (s)."""
+        if self.steady:
+            return 0, 0
+        i0 = int(np.searchsorted(self.times, t0, side="right")) - 1
+        i1 = int(np.searchsorted(self.times, t1, side="left"))
+        return max(i0, 0), min(i1, len(self.times) - 1)
+
+    def window(self, t0: float, t1: float) -> FlowWindow:
+        """The frames needed to interpolate in time anywhere in [t0, t1] (s), loaded in memory."""
+        i0, i1 = self.frame_range(t0, t1)
+        return FlowWindow(
+            times=np.ascontiguousarray(self.times[i0 : i1 + 1], dtype=np.float64),
+            u=self.u.frames(i0, i1),
+            v=self.v.frames(i0, i1),
+            depth=self.depth.frames(i0, i1),
+            wet=np.ascontiguousarray(self.wet.frames(i0, i1) > 0.5, dtype=np.uint8),
+        )
+
+
+def centre_to_edges(centres: np.ndarray) -> np.ndarray:
+    """Cell edges for ascending cell centres: midpoints, and half a cell beyond each end.
+
+    A single centre (the y axis of a 1-D channel) gets edges at -0.5 and +0.5 around it.
+    """
+    c = np.asarray(centres, dtype=np.float64)
+    if c.size == 1:
+        return np.array([c[0] - 0.5, c[0] + 0.5])
+    mid = 0.5 * (c[1:] + c[:-1])
+    return np.concatenate([[c[0] - (mid[0] - c[0])], mid, [c[-1] + (c[-1] - mid[-1])]])

@@ -1,0 +1,291 @@
+"""Run one simulation: release particles, move them through the flow, reduce at output times.
+
+This is the Python entry point of a single run; the command line and the ensemble call it. It
+returns an :class:`xarray.Dataset` (layout in ``docs/outputs.md``) holding the concentration
+fields, receptor series, mass budget and cloud moments at every output time.
+"""
+
+from __future__ import annotations
+
+import warnings
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
+from typing import Literal
+
+import numpy as np
+import xarray as xr
+
+import walkers
+from walkers import reduce
+from walkers.config import EDGE_NAMES, OutputGrid, Receptor, Release, Transport
+from walkers.engine import mover
+from walkers.engine.state import ParticleState
+from walkers.engine.timestep import check_time_step
+from walkers.errors import InputError
+from walkers.fields.base import FlowField, centre_to_edges
+from walkers.randomness import run_streams
+from walkers.releases import make_particles
+
+ProgressCallback = Callable[[float, float, int], None]
+
+
+@dataclass
+class RunState:
+    """Everything needed to continue a run: the particles, the index of the next output and the
+    reductions recorded so far."""
+
+    particles: ParticleState
+    owner: np.ndarray
+    next_output: int
+    results: _Accumulator
+
+
+def _check_window(flow: FlowField, start: float, end: float) -> None:
+    if flow.steady:
+        return
+    lo, hi = float(flow.times[0]), float(flow.times[-1])
+    if start < lo - 1e-6 or end > hi + 1e-6:
+        raise InputError(
+            f"the run [{start:g} s, {end:g} s] lies outside the flow frames [{lo:g} s, {hi:g} s] "
+            f"({flow.time_units}); shorten the run or supply frames that cover it"
+        )
+
+
+def output_times(start: float, end: float, interval: float, dt: float) -> np.ndarray:
+    """Output times (s) from start to end every interval; interval must be a multiple of dt."""
+    if not end > start:
+        raise InputError(f"run end ({end:g} s) must be after its start ({start:g} s)")
+    ratio = interval / dt
+    if abs(ratio - round(ratio)) > 1e-9 * ratio or round(ratio) < 1:
+        raise InputError(
+            f"output interval {interval:g} s must be a whole multiple of the time step {dt:g} s"
+        )
+    n = (end - start) / interval
+    if abs(n - round(n)) > 1e-9 * max(n, 1):
+        raise InputError(
+            f"run length {end - start:g} s must be a whole multiple of the output interval "
+            f"{interval:g} s"
+        )
+    return float(start) + float(interval) * np.arange(int(round(n)) + 1, dtype=np.float64)
+
+
+def simulate(
+    flow: FlowField,
+    transport: Transport,
+    releases: Sequence[Release],
+    *,
+    start: float,
+    end: float,
+    output_interval: float,
+    output_grid: OutputGrid,
+    receptors: Sequence[Receptor] = (),
+    seed: int = 0,
+    member: int | None = None,
+    tracks: int = 0,
+    time_step_check: Literal["fail", "substep", "warn", "off"] = "fail",
+    engine: Literal["compiled", "numpy"] = "compiled",
+    progress: ProgressCallback | None = None,
+    title: str = "",
+    scenario_text: str = "",
+    resume: RunState | None = None,
+    on_output: Callable[[RunState], None] | None = None,
+) -> xr.Dataset:
+    """Run one simulation and return its result Dataset.
+
+    Parameters
+    ----------
+    flow : the flow field (from a reader or an analytic flow).
+    transport : time step, scheme, dispersion, decay and edges.
+    releases : what is released where and when (times in the flow's seconds).
+    start, end : run window (s, in the flow's time frame ``flow.time_units``).
+    output_interval : time between outputs (s), a whole multiple of ``transport.dt``.
+    output_grid : where concentration is estimated.
+    receptors : places where concentration is recorded at every output time.
+    seed : the run's seed; ``member`` selects an ensemble member's independent streams.
+    tracks : number of particles whose positions are kept at every output time.
+    time_step_check : on a too-long time step, fail, sub-step, warn, or skip the check.
+    engine : the compiled kernels, or their numpy twin (same numbers, slower).
+    progress : called as progress(simulated seconds, total seconds, particles in water).
+    resume : continue from a saved :class:`RunState` (same arguments otherwise).
+    on_output : called with the :class:`RunState` after each output time (for checkpoints).
+    """
+    if not releases:
+        raise InputError("no releases: a run needs at least one release")
+    times = output_times(start, end, output_interval, transport.dt)
+    _check_window(flow, start, end)
+    substeps = int(transport.substeps)
+    if time_step_check != "off":
+        report = check_time_step(flow, transport, start, end)
+        if not report.ok:
+            if time_step_check == "fail":
+                raise InputError(report.message())
+            if time_step_check == "substep":
+                substeps = max(substeps, report.substeps_needed)
+            else:
+                warnings.warn(report.message(), stacklevel=2)
+    dt = transport.dt / substeps
+    steps_per_output = int(round(output_interval / dt))
+    walk_key, release_rng = run_streams(seed, member)
+    mx, my = mover.metres_per_grid_unit(flow)
+    acc = _Accumulator(len(times), output_grid, len(receptors), tracks)
+    if resume is None:
+        centre = np.mean([np.atleast_2d(r.coords)[0] for r in releases], axis=0)
+        j = int(np.clip(np.searchsorted(flow.y, centre[1]), 0, flow.y.size - 1))
+        particles, owner = make_particles(releases, release_rng, (float(mx[j]), float(my[j])))
+        first = 0
+    else:
+        particles, owner, first = resume.particles, resume.owner, resume.next_output
+        acc = resume.results
+    xe, ye = centre_to_edges(flow.x), centre_to_edges(flow.y)
+    measure = reduce.cell_measure(output_grid, flow.geographic, flow.ndim)
+    mpu = (float(mx.mean()), float(my.mean()))
+    track_index = (
+        np.linspace(0, len(particles) - 1, tracks).round().astype(np.int64) if tracks else None
+    )
+    for k in range(first, len(times)):
+        t = float(times[k])
+        if k > 0:
+            t_prev = float(times[k - 1])
+            window = flow.window(t_prev, t)
+            inputs = mover.kernel_inputs(flow, window, transport)
+            step0 = (k - 1) * steps_per_output
+            mover.advance(particles, inputs, t_prev, dt, steps_per_output, step0, walk_key, engine)
+        window_now = flow.window(t, t)
+        frame = 0 if window_now.depth.shape[0] == 1 else int(
+            np.argmin(np.abs(window_now.times - t))
+        )
+        depths = reduce.particle_depths(particles, window_now.depth[frame], xe, ye)
+        conc, count = reduce.concentration(particles, depths, output_grid, measure)
+        acc.record(
+            k, particles, depths, conc, count, receptors, output_grid, flow, mpu, track_index
+        )
+        if progress is not None:
+            progress(t - start, end - start, int(acc.in_water[k]))
+        if on_output is not None:
+            on_output(RunState(particles, owner, k + 1, acc))
+    return acc.dataset(
+        times, flow, output_grid, receptors, releases, seed, member, title, scenario_text
+    )
+
+
+class _Accumulator:
+    """Holds the reductions at each output time while the run goes on."""
+
+    def __init__(self, nt: int, grid: OutputGrid, nrec: int, tracks: int):
+        self.conc = np.zeros((nt, grid.ny, grid.nx))
+        self.smooth = np.zeros((nt, grid.ny, grid.nx)) if grid.bandwidth > 0 else None
+        self.count = np.zeros((nt, grid.ny, grid.nx), dtype=np.int32)
+        self.receptor = np.zeros((nrec, nt))
+        self.budget = {
+            k: np.zeros(nt)
+            for k in ("mass_released", "mass_in_water", "mass_decayed", "mass_stranded")
+        }
+        self.left = np.zeros((len(EDGE_NAMES), nt))
+        self.in_water = np.zeros(nt, dtype=np.int32)
+        self.moments = {
+            k: np.full(nt, np.nan)
+            for k in ("centroid_x", "centroid_y", "variance_x", "variance_y", "covariance_xy")
+        }
+        self.track_x = np.full((tracks, nt), np.nan) if tracks else None
+        self.track_y = np.full((tracks, nt), np.nan) if tracks else None
+
+    def record(self, k, particles, depths, conc, count, receptors, grid, flow, mpu, track_index):
+        self.conc[k] = conc
+        self.count[k] = count
+        if self.smooth is not None:
+            self.smooth[k] = reduce.smoothed(conc, grid, mpu)
+        if receptors:
+            self.receptor[:, k] = reduce.receptor_values(
+                particles, depths, receptors, conc, grid, flow.geographic, flow.ndim
+            )
+        b = reduce.mass_budget(particles)
+        for name in self.budget:
+            self.budget[name][k] = b[name]
+        self.left[:, k] = b["mass_left"]
+        self.in_water[k] = b["particles_in_water"]
+        for name, value in reduce.cloud_moments(particles, flow.geographic).items():
+            self.moments[name][k] = value
+        if track_index is not None:
+            visible = particles.status[track_index] == 1
+            self.track_x[:, k] = np.where(visible, particles.x[track_index], np.nan)
+            self.track_y[:, k] = np.where(visible, particles.y[track_index], np.nan)
+
+    def dataset(self, times, flow, grid, receptors, releases, seed, member, title, text):
+        geo = flow.geographic
+        xunits, yunits = ("degrees_east", "degrees_north") if geo else ("m", "m")
+        coords = {
+            "time": ("time", times, {"units": flow.time_units, "calendar": flow.calendar,
+                                     "standard_name": "time", "axis": "T"}),
+            "x": ("x", grid.x, {"units": xunits, "axis": "X", "long_name": "output cell centre"}),
+            "y": ("y", grid.y, {"units": yunits, "axis": "Y", "long_name": "output cell centre"}),
+            "edge": ("edge", np.array(EDGE_NAMES), {"long_name": "domain edge"}),
+            "receptor": ("receptor", np.array([r.name for r in receptors], dtype=object),
+                         {"long_name": "receptor name"}),
+            "receptor_x": ("receptor", np.array([r.x for r in receptors], dtype=float),
+                           {"units": xunits, "long_name": "receptor position x"}),
+            "receptor_y": ("receptor", np.array([r.y for r in receptors], dtype=float),
+                           {"units": yunits, "long_name": "receptor position y"}),
+            "receptor_radius": ("receptor", np.array([r.radius for r in receptors], dtype=float),
+                                {"units": "m", "long_name": "receptor averaging radius"}),
+        }
+        kgm3 = "kg m-3"
+        data = {
+            "concentration": (("time", "y", "x"), self.conc,
+                              {"units": kgm3, "long_name": "concentration (box counting)"}),
+            "particle_count": (("time", "y", "x"), self.count,
+                               {"units": "1", "long_name": "number of particles in the cell"}),
+            "concentration_max": (("y", "x"), self.conc.max(axis=0),
+                                  {"units": kgm3, "long_name": "maximum concentration over time"}),
+            "receptor_concentration": (("receptor", "time"), self.receptor,
+                                       {"units": kgm3, "long_name": "concentration at receptor"}),
+            "mass_left": (("edge", "time"), self.left,
+                          {"units": "kg", "long_name": "mass that left through the edge"}),
+            "particles_in_water": ("time", self.in_water,
+                                   {"units": "1", "long_name": "particles in water"}),
+        }
+        if self.smooth is not None:
+            data["concentration_smoothed"] = (
+                ("time", "y", "x"), self.smooth,
+                {"units": kgm3, "long_name": "concentration (Gaussian kernel)",
+                 "bandwidth_m": grid.bandwidth},
+            )
+        long_names = {
+            "mass_released": "mass released so far",
+            "mass_in_water": "mass in the water",
+            "mass_decayed": "mass lost to decay",
+            "mass_stranded": "mass held in dry cells",
+        }
+        for name, values in self.budget.items():
+            data[name] = ("time", values, {"units": "kg", "long_name": long_names[name]})
+        for name, values in self.moments.items():
+            units = (xunits if name.endswith("x") else yunits) if "centroid" in name else "m2"
+            data[name] = ("time", values, {"units": units, "long_name": name.replace("_", " ")})
+        thresholds = [r.thresholds for r in receptors]
+        if any(thresholds):
+            width = max(len(t) for t in thresholds)
+            table = np.full((len(receptors), width), np.nan)
+            for k, t in enumerate(thresholds):
+                table[k, : len(t)] = t
+            data["receptor_threshold"] = (
+                ("receptor", "threshold"), table,
+                {"units": kgm3, "long_name": "concentration threshold of concern"},
+            )
+        if self.track_x is not None:
+            data["track_x"] = (("trajectory", "time"), self.track_x,
+                               {"units": xunits, "long_name": "sampled particle position x"})
+            data["track_y"] = (("trajectory", "time"), self.track_y,
+                               {"units": yunits, "long_name": "sampled particle position y"})
+        attrs = {
+            "title": title,
+            "seed": int(seed),
+            "walkers_version": walkers.__version__,
+            "scenario": text,
+            "crs_wkt": flow.crs_wkt or "",
+            "geographic": int(geo),
+            "caution": walkers.CAUTION,
+            "source": flow.source,
+            "releases": "; ".join(r.name for r in releases),
+        }
+        if member is not None:
+            attrs["member"] = int(member)
+        return xr.Dataset(data, coords=coords, attrs=attrs)
