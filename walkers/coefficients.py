@@ -52,19 +52,19 @@ def shear_velocity(
     Give exactly one roughness: ``manning_n`` (s m^-1/3), u* = n |U| sqrt(g) / h^(1/6), or
     ``drag_coefficient`` (dimensionless), u* = sqrt(C_d) |U|. Where h <= 0 (dry) u* is 0.
     """
-    if (manning_n is None) == (drag_coefficient is None):
-        raise InputError("dispersion: give exactly one of manning_n or drag_coefficient")
     h = np.asarray(depth, dtype=np.float64)
     s = np.abs(np.asarray(speed, dtype=np.float64))
-    if drag_coefficient is not None:
+    if drag_coefficient is not None and manning_n is None:
         if not (np.isfinite(drag_coefficient) and drag_coefficient > 0):
             raise InputError(f"dispersion.drag_coefficient = {drag_coefficient!r}: must be > 0")
         return np.where(h > 0, np.sqrt(drag_coefficient) * s, 0.0)
-    if not (np.isfinite(manning_n) and manning_n > 0):
-        raise InputError(f"dispersion.manning_n = {manning_n!r}: must be > 0 (s m^-1/3)")
-    wet = h > 0
-    root = np.where(wet, h, 1.0) ** (1.0 / 6.0)
-    return np.where(wet, manning_n * s * np.sqrt(GRAVITY) / root, 0.0)
+    if manning_n is not None and drag_coefficient is None:
+        if not (np.isfinite(manning_n) and manning_n > 0):
+            raise InputError(f"dispersion.manning_n = {manning_n!r}: must be > 0 (s m^-1/3)")
+        wet = h > 0
+        root = np.where(wet, h, 1.0) ** (1.0 / 6.0)
+        return np.where(wet, manning_n * s * np.sqrt(GRAVITY) / root, 0.0)
+    raise InputError("dispersion: give exactly one of manning_n or drag_coefficient")
 
 
 def estimate_dispersion(

@@ -64,6 +64,8 @@ class Transport:
     substeps : sub-steps per step (1 = none); set by the time-step check when asked to sub-step.
     bridge : correct absorbing edges for crossings inside a step (Brownian-bridge probability).
     max_reflections : reflections tried on a gridded coast before a particle is kept in place.
+    drift_correction : include the drift (1/h)∇·(hK). Always on in practice; switching it off
+        exists only to show what goes wrong without it (the well-mixed verification's twin).
     """
 
     dt: float
@@ -76,6 +78,7 @@ class Transport:
     substeps: int = 1
     bridge: bool = True
     max_reflections: int = 8
+    drift_correction: bool = True
 
     def __post_init__(self) -> None:
         if not (np.isfinite(self.dt) and self.dt > 0):

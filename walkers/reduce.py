@@ -54,8 +54,18 @@ def concentration(
     total = np.zeros((grid.ny, grid.nx))
     count = np.zeros((grid.ny, grid.nx), dtype=np.int64)
     kernels.grid_mass(
-        state.x, state.y, weight, state.status, grid.x0, grid.dx, grid.nx, grid.y0, grid.dy,
-        grid.ny, total, count,
+        state.x,
+        state.y,
+        weight,
+        state.status,
+        grid.x0,
+        grid.dx,
+        grid.nx,
+        grid.y0,
+        grid.dy,
+        grid.ny,
+        total,
+        count,
     )
     return total / measure, count
 

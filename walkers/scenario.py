@@ -222,7 +222,7 @@ SCHEMA = Section(
                     "quantity",
                     "Cells shallower than this are dry (walls).",
                     dimension="length",
-                    default="0.1 m",
+                    default="0.05 m",
                     bound="nonnegative",
                     only_when="files",
                 ),
@@ -282,11 +282,18 @@ SCHEMA = Section(
                         ),
                         "depth": Key(
                             "quantity",
-                            "Water depth (m), or cross-section area in m2 for 1-D channels "
-                            "given as a length squared in m2 number.",
+                            "Water depth (2-D flows).",
                             dimension="length",
                             default="10 m",
                             bound="positive",
+                            only_when="dimensions=2",
+                        ),
+                        "area": Key(
+                            "quantity",
+                            "Wetted cross-section area of the channel (1-D flows).",
+                            dimension="area",
+                            bound="positive",
+                            only_when="dimensions=1",
                         ),
                         "extent": Key(
                             "quantities",
@@ -651,6 +658,7 @@ class FlowSpec:
     constant_depth : water depth (m) for files without one, or None.
     analytic : keyword arguments of :func:`walkers.fields.analytic.analytic_flow`.
     time_origin : ISO 8601 time of an analytic flow's time 0 (the run start).
+    time_range : (run start, run end) in ISO 8601: flow files keep only the frames covering it.
     """
 
     kind: Literal["files", "analytic"]
@@ -658,10 +666,11 @@ class FlowSpec:
     variables: dict[str, str] = dataclasses.field(default_factory=dict)
     units: dict[str, str] = dataclasses.field(default_factory=dict)
     crs: str | None = None
-    min_depth: float = 0.1
+    min_depth: float = 0.05
     constant_depth: float | None = None
     analytic: dict[str, Any] = dataclasses.field(default_factory=dict)
     time_origin: str = ""
+    time_range: tuple[str, str] | None = None
 
     def build(self) -> FlowField:
         """Open the flow files, or lay the analytic flow on its grid (time 0 = run start)."""
@@ -675,6 +684,7 @@ class FlowSpec:
                 crs=self.crs,
                 min_depth=self.min_depth,
                 constant_depth=self.constant_depth,
+                time_range=self.time_range,
             )
         from walkers.fields.analytic import analytic_flow
 
@@ -924,12 +934,14 @@ def _condition_met(condition: str, data: dict[str, Any], section: Section) -> bo
         return key in data
     spec = section.keys[key]
     value = data.get(key, spec.default if isinstance(spec, Key) else None)
-    return value == wanted
+    return isinstance(value, str | int) and not isinstance(value, bool) and str(value) == wanted
 
 
 def _condition_text(condition: str) -> str:
     key, _, wanted = condition.partition("=")
-    return f"{key} = {wanted!r}" if wanted else f"{key} is given"
+    if not wanted:
+        return f"{key} is given"
+    return f"{key} = {wanted}" if wanted.isdigit() else f"{key} = {wanted!r}"
 
 
 def _alternatives_text(choice: Choice) -> str:
@@ -1028,6 +1040,25 @@ def _is_number(value: object) -> bool:
     return isinstance(value, int | float) and not isinstance(value, bool)
 
 
+def _finite(value: object) -> bool:
+    """Whether ``value`` is a number (not a boolean) that converts to a finite float."""
+    if not isinstance(value, int | float) or isinstance(value, bool):
+        return False
+    try:
+        return math.isfinite(float(value))
+    except OverflowError:
+        return False
+
+
+def _resolve_path(name: str, base: Path, where: str) -> Path:
+    """``name`` as an absolute path; relative paths are taken from ``base``."""
+    try:
+        path = Path(name).expanduser()
+    except RuntimeError:
+        raise InputError(f"{where} = {name!r}: cannot expand '~' in this path") from None
+    return path if path.is_absolute() else base / path
+
+
 def _parse_time(value: object, where: str) -> datetime:
     example = 'expected an ISO 8601 date-time with a zone, e.g. "2026-05-04T06:00:00Z"'
     if isinstance(value, datetime):
@@ -1050,7 +1081,7 @@ def _convert(spec: Key, raw: object, where: str) -> Any:
     """Convert one value of kind ``spec.kind``; raise InputError naming ``where`` if it is bad."""
     kind = spec.kind
     if kind in ("text", "choice"):
-        if not isinstance(raw, str) or not raw.strip():
+        if not isinstance(raw, str) or not raw.strip() or "\x00" in raw:
             raise InputError(f"{where} = {raw!r}: expected {KINDS[kind]}, got {_type_name(raw)}")
         if kind == "choice" and raw not in spec.allowed:
             hint = difflib.get_close_matches(raw, spec.allowed, n=1, cutoff=0.6)
@@ -1066,7 +1097,7 @@ def _convert(spec: Key, raw: object, where: str) -> Any:
         _check_bound(raw, spec, where, raw)
         return raw
     if kind == "number":
-        if not _is_number(raw) or not math.isfinite(float(raw)):
+        if not isinstance(raw, int | float) or not _finite(raw):
             raise InputError(f"{where} = {raw!r}: expected a finite number without units")
         _check_bound(float(raw), spec, where, raw)
         return float(raw)
@@ -1093,7 +1124,7 @@ def _convert(spec: Key, raw: object, where: str) -> Any:
             )
         return raw
     if kind == "degrees":
-        if not _is_number(raw) or not math.isfinite(float(raw)):
+        if not isinstance(raw, int | float) or not _finite(raw):
             raise InputError(f"{where} = {raw!r}: expected a number of degrees")
         return float(raw)
     if kind == "paths":
@@ -1101,7 +1132,7 @@ def _convert(spec: Key, raw: object, where: str) -> Any:
         if (
             not isinstance(items, list)
             or not items
-            or not all(isinstance(p, str) and p.strip() for p in items)
+            or not all(isinstance(p, str) and p.strip() and "\x00" not in p for p in items)
         ):
             raise InputError(
                 f"{where} = {raw!r}: expected a file path or a non-empty list of file paths"
@@ -1160,7 +1191,7 @@ def _coordinate(raw: object, where: str, geographic: bool) -> float:
     """A grid coordinate: metres (number or length) on projected grids, degrees on geographic."""
     if not geographic:
         return parse_quantity(raw, "length", where)
-    if _is_number(raw) and math.isfinite(float(raw)):
+    if isinstance(raw, int | float) and _finite(raw):
         return float(raw)
     if isinstance(raw, str):
         number, _, unit = raw.strip().partition(" ")
@@ -1175,6 +1206,13 @@ def _coordinate(raw: object, where: str, geographic: bool) -> float:
         f"{where} = {raw!r}: positions are lon/lat, so grid coordinates are degrees: give a "
         'number (or "<number> deg")'
     )
+
+
+def _check_lonlat(lon: float, lat: float, where: str) -> None:
+    if not (-180.0 <= lon <= 360.0 and -90.0 <= lat <= 90.0):
+        raise InputError(
+            f"{where}: lon = {lon!r}, lat = {lat!r}: need -180 <= lon <= 360 and -90 <= lat <= 90"
+        )
 
 
 def _geographic(raw: dict[str, Any]) -> bool:
@@ -1223,6 +1261,7 @@ def _build_releases(
                 [_coordinate(r["x"], f"{where}.x", False), _coordinate(r["y"], f"{where}.y", False)]
             ]
         elif r["lon"] is not None:
+            _check_lonlat(r["lon"], r["lat"], where)
             coords = [[r["lon"], r["lat"]]]
         else:
             key = "points" if r["points"] is not None else "points_lonlat"
@@ -1230,6 +1269,9 @@ def _build_releases(
                 [_coordinate(c, f"{where}.{key}[{j}]", geographic) for c in pair]
                 for j, pair in enumerate(r[key])
             ]
+        if geographic:
+            for j, (lon, lat) in enumerate(coords):
+                _check_lonlat(lon, lat, f"{where} position {j}")
         if shape in ("point", "circle") and len(coords) != 1:
             raise InputError(
                 f"{where}: a {shape} release takes one position (x, y or lon, lat), not points"
@@ -1348,8 +1390,14 @@ def _build_output_grid(g: dict[str, Any], bandwidth: float, geographic: bool) ->
             raise InputError(
                 "output.grid: east must be greater than west and north greater than south"
             )
-        nx = math.ceil((east - west) / dx - 1e-9)
-        ny = math.ceil((north - south) / dy - 1e-9)
+        fx, fy = (east - west) / dx, (north - south) / dy
+        if not fx * fy <= MAX_OUTPUT_CELLS:
+            raise InputError(
+                f"output.grid: about {fx:.3g} x {fy:.3g} cells is more than "
+                f"{MAX_OUTPUT_CELLS:.0e}; use larger cells or a smaller extent"
+            )
+        nx = math.ceil(fx - 1e-9)
+        ny = math.ceil(fy - 1e-9)
         x0, y0 = west + 0.5 * dx, south + 0.5 * dy
     else:
         x0, y0 = coord("x_origin"), coord("y_origin")
@@ -1362,7 +1410,7 @@ def _build_output_grid(g: dict[str, Any], bandwidth: float, geographic: bool) ->
     return OutputGrid(x0=x0, dx=dx, nx=nx, y0=y0, dy=dy, ny=ny, bandwidth=bandwidth)
 
 
-def _build_receptors(items: list[dict[str, Any]], geographic: bool) -> list[Receptor]:
+def _build_receptors(items: list[dict[str, Any]]) -> list[Receptor]:
     receptors = []
     names: set[str] = set()
     for i, r in enumerate(items):
@@ -1375,6 +1423,7 @@ def _build_receptors(items: list[dict[str, Any]], geographic: bool) -> list[Rece
             x = _coordinate(r["x"], f"{where}.x", False)
             y = _coordinate(r["y"], f"{where}.y", False)
         else:
+            _check_lonlat(r["lon"], r["lat"], where)
             x, y = r["lon"], r["lat"]
         receptors.append(
             Receptor(
@@ -1398,6 +1447,7 @@ def _build_dispersion(d: dict[str, Any]) -> DispersionSpec:
             transverse_factor=factor,
             multiplier=d["multiplier"],
         )
+    mode: Literal["axes", "aligned"]
     if d["coefficient"] is not None:
         k1 = k2 = d["coefficient"]
         mode = "axes"
@@ -1412,19 +1462,27 @@ def _build_dispersion(d: dict[str, Any]) -> DispersionSpec:
     )
 
 
-def _build_flow(f: dict[str, Any], base_dir: Path, start: datetime, duration: float) -> FlowSpec:
+def _is_file(path: Path) -> bool:
+    try:
+        return path.is_file()
+    except OSError:
+        return False
+
+
+def _build_flow(
+    f: dict[str, Any], base_dir: Path, start: datetime, end: datetime, duration: float
+) -> FlowSpec:
     if f["files"] is not None:
         paths: list[Path] = []
         for i, name in enumerate(f["files"]):
             where = f"flow.files[{i}]" if len(f["files"]) > 1 else "flow.files"
-            pattern = Path(name).expanduser()
-            pattern = pattern if pattern.is_absolute() else base_dir / pattern
+            pattern = _resolve_path(name, base_dir, where)
             if any(c in name for c in "*?["):
                 found = sorted(Path(p) for p in glob.glob(str(pattern)))
                 if not found:
                     raise InputError(f"{where} = {name!r}: no file matches {pattern}")
                 paths.extend(found)
-            elif not pattern.is_file():
+            elif not _is_file(pattern):
                 raise InputError(
                     f"{where} = {name!r}: no such file {pattern} (paths are relative to the "
                     "scenario file)"
@@ -1450,17 +1508,23 @@ def _build_flow(f: dict[str, Any], base_dir: Path, start: datetime, duration: fl
             crs=crs,
             min_depth=f["minimum_depth"],
             constant_depth=f["depth"],
+            time_range=(start.isoformat(), end.isoformat()),
         )
     a = f["analytic"]
     west, east, south, north = a["extent"]
     nx, ny = a["cells"]
-    if not (east > west and north > south):
+    if not (east > west and (north > south or a["dimensions"] == 1)):
         raise InputError(
             "flow.analytic.extent: give [west, east, south, north] with east > west and "
             "north > south"
         )
     if a["dimensions"] not in (1, 2):
         raise InputError(f"flow.analytic.dimensions = {a['dimensions']!r}: expected 1 or 2")
+    if a["dimensions"] == 1 and a["area"] is None:
+        raise InputError(
+            "flow.analytic.area: a 1-D channel (dimensions = 1) needs its cross-section area, "
+            'e.g. "120 m2"'
+        )
     if nx < 2 or (a["dimensions"] == 2 and ny < 2) or nx * ny > MAX_OUTPUT_CELLS:
         raise InputError(
             f"flow.analytic.cells = {a['cells']!r}: need at least 2 cells along each axis and "
@@ -1479,7 +1543,7 @@ def _build_flow(f: dict[str, Any], base_dir: Path, start: datetime, duration: fl
             "y_range": (south, north),
             "nx": nx,
             "ny": ny,
-            "depth": a["depth"],
+            "depth": a["depth"] if a["dimensions"] == 2 else a["area"],
             "u": a["u"],
             "v": a["v"],
             "shear": a["shear"],
@@ -1632,15 +1696,15 @@ def _build(
         raise InputError(f"run.time_step: {dt:g} s is longer than the run ({run_length:g} s)")
     if run_length / dt > 10**9:
         raise InputError(f"run.time_step: {dt:g} s makes more than 10^9 steps; use a longer one")
+    if interval > run_length:
+        raise InputError(
+            f"run.output_interval: {interval:g} s is longer than the run ({run_length:g} s)"
+        )
     ratio = interval / dt
     if abs(ratio - round(ratio)) > 1e-9 * max(ratio, 1.0) or round(ratio) < 1:
         raise InputError(
             f"run.output_interval = {interval:g} s is not a whole multiple of run.time_step = "
             f"{dt:g} s; choose e.g. {max(round(ratio), 1) * dt:g} s"
-        )
-    if interval > run_length:
-        raise InputError(
-            f"run.output_interval: {interval:g} s is longer than the run ({run_length:g} s)"
         )
     releases = _build_releases(s["releases"], start, end, geographic)
     total = sum(r.particles for r in releases)
@@ -1652,7 +1716,7 @@ def _build(
         raise InputError(
             "flow.analytic: analytic flows are laid out in metres; give positions as x/y"
         )
-    flow = _build_flow(s["flow"], base, start, run_length)
+    flow = _build_flow(s["flow"], base, start, end, run_length)
     dispersion = _build_dispersion(s["dispersion"])
     decay = s["decay"] or {"rate": None, "half_life": None}
     if decay["half_life"] is not None:
@@ -1674,9 +1738,8 @@ def _build(
     )
     out = s["output"]
     grid = _build_output_grid(out["grid"], out["bandwidth"], geographic)
-    receptors = _build_receptors(s["receptors"], geographic)
-    output_path = Path(out["file"]).expanduser() if out["file"] else Path(f"{stem}.nc")
-    output_path = output_path if output_path.is_absolute() else base / output_path
+    receptors = _build_receptors(s["receptors"])
+    output_path = _resolve_path(out["file"] or f"{stem}.nc", base, "output.file")
     if output_path.suffix != ".nc":
         raise InputError(f"output.file = {str(output_path)!r}: the name must end in .nc")
     if source_path is not None and output_path.resolve() == source_path:
@@ -1772,9 +1835,9 @@ def _section_markdown(section: Section, path: str, level: int) -> list[str]:
         when = f" (when {_condition_text(choice.only_when)})" if choice.only_when else ""
         groups = ", ".join(" + ".join(f"`{k}`" for k in g) for g in choice.alternatives)
         lines += [f"- {rule}{when}: {groups}.", ""]
-    for name, spec in section.keys.items():
-        if isinstance(spec, Section):
-            lines += _section_markdown(spec, f"{path}.{name}" if path else name, level + 1)
+    for name, sub in section.keys.items():
+        if isinstance(sub, Section):
+            lines += _section_markdown(sub, f"{path}.{name}" if path else name, level + 1)
     return lines
 
 

@@ -151,8 +151,8 @@ def simulate(
             step0 = (k - 1) * steps_per_output
             mover.advance(particles, inputs, t_prev, dt, steps_per_output, step0, walk_key, engine)
         window_now = flow.window(t, t)
-        frame = 0 if window_now.depth.shape[0] == 1 else int(
-            np.argmin(np.abs(window_now.times - t))
+        frame = (
+            0 if window_now.depth.shape[0] == 1 else int(np.argmin(np.abs(window_now.times - t)))
         )
         depths = reduce.particle_depths(particles, window_now.depth[frame], xe, ye)
         conc, count = reduce.concentration(particles, depths, output_grid, measure)
@@ -214,40 +214,82 @@ class _Accumulator:
         geo = flow.geographic
         xunits, yunits = ("degrees_east", "degrees_north") if geo else ("m", "m")
         coords = {
-            "time": ("time", times, {"units": flow.time_units, "calendar": flow.calendar,
-                                     "standard_name": "time", "axis": "T"}),
+            "time": (
+                "time",
+                times,
+                {
+                    "units": flow.time_units,
+                    "calendar": flow.calendar,
+                    "standard_name": "time",
+                    "axis": "T",
+                },
+            ),
             "x": ("x", grid.x, {"units": xunits, "axis": "X", "long_name": "output cell centre"}),
             "y": ("y", grid.y, {"units": yunits, "axis": "Y", "long_name": "output cell centre"}),
             "edge": ("edge", np.array(EDGE_NAMES), {"long_name": "domain edge"}),
-            "receptor": ("receptor", np.array([r.name for r in receptors], dtype=object),
-                         {"long_name": "receptor name"}),
-            "receptor_x": ("receptor", np.array([r.x for r in receptors], dtype=float),
-                           {"units": xunits, "long_name": "receptor position x"}),
-            "receptor_y": ("receptor", np.array([r.y for r in receptors], dtype=float),
-                           {"units": yunits, "long_name": "receptor position y"}),
-            "receptor_radius": ("receptor", np.array([r.radius for r in receptors], dtype=float),
-                                {"units": "m", "long_name": "receptor averaging radius"}),
+            "receptor": (
+                "receptor",
+                np.array([r.name for r in receptors], dtype=object),
+                {"long_name": "receptor name"},
+            ),
+            "receptor_x": (
+                "receptor",
+                np.array([r.x for r in receptors], dtype=float),
+                {"units": xunits, "long_name": "receptor position x"},
+            ),
+            "receptor_y": (
+                "receptor",
+                np.array([r.y for r in receptors], dtype=float),
+                {"units": yunits, "long_name": "receptor position y"},
+            ),
+            "receptor_radius": (
+                "receptor",
+                np.array([r.radius for r in receptors], dtype=float),
+                {"units": "m", "long_name": "receptor averaging radius"},
+            ),
         }
         kgm3 = "kg m-3"
         data = {
-            "concentration": (("time", "y", "x"), self.conc,
-                              {"units": kgm3, "long_name": "concentration (box counting)"}),
-            "particle_count": (("time", "y", "x"), self.count,
-                               {"units": "1", "long_name": "number of particles in the cell"}),
-            "concentration_max": (("y", "x"), self.conc.max(axis=0),
-                                  {"units": kgm3, "long_name": "maximum concentration over time"}),
-            "receptor_concentration": (("receptor", "time"), self.receptor,
-                                       {"units": kgm3, "long_name": "concentration at receptor"}),
-            "mass_left": (("edge", "time"), self.left,
-                          {"units": "kg", "long_name": "mass that left through the edge"}),
-            "particles_in_water": ("time", self.in_water,
-                                   {"units": "1", "long_name": "particles in water"}),
+            "concentration": (
+                ("time", "y", "x"),
+                self.conc,
+                {"units": kgm3, "long_name": "concentration (box counting)"},
+            ),
+            "particle_count": (
+                ("time", "y", "x"),
+                self.count,
+                {"units": "1", "long_name": "number of particles in the cell"},
+            ),
+            "concentration_max": (
+                ("y", "x"),
+                self.conc.max(axis=0),
+                {"units": kgm3, "long_name": "maximum concentration over time"},
+            ),
+            "receptor_concentration": (
+                ("receptor", "time"),
+                self.receptor,
+                {"units": kgm3, "long_name": "concentration at receptor"},
+            ),
+            "mass_left": (
+                ("edge", "time"),
+                self.left,
+                {"units": "kg", "long_name": "mass that left through the edge"},
+            ),
+            "particles_in_water": (
+                "time",
+                self.in_water,
+                {"units": "1", "long_name": "particles in water"},
+            ),
         }
         if self.smooth is not None:
             data["concentration_smoothed"] = (
-                ("time", "y", "x"), self.smooth,
-                {"units": kgm3, "long_name": "concentration (Gaussian kernel)",
-                 "bandwidth_m": grid.bandwidth},
+                ("time", "y", "x"),
+                self.smooth,
+                {
+                    "units": kgm3,
+                    "long_name": "concentration (Gaussian kernel)",
+                    "bandwidth_m": grid.bandwidth,
+                },
             )
         long_names = {
             "mass_released": "mass released so far",
@@ -267,14 +309,21 @@ class _Accumulator:
             for k, t in enumerate(thresholds):
                 table[k, : len(t)] = t
             data["receptor_threshold"] = (
-                ("receptor", "threshold"), table,
+                ("receptor", "threshold"),
+                table,
                 {"units": kgm3, "long_name": "concentration threshold of concern"},
             )
         if self.track_x is not None:
-            data["track_x"] = (("trajectory", "time"), self.track_x,
-                               {"units": xunits, "long_name": "sampled particle position x"})
-            data["track_y"] = (("trajectory", "time"), self.track_y,
-                               {"units": yunits, "long_name": "sampled particle position y"})
+            data["track_x"] = (
+                ("trajectory", "time"),
+                self.track_x,
+                {"units": xunits, "long_name": "sampled particle position x"},
+            )
+            data["track_y"] = (
+                ("trajectory", "time"),
+                self.track_y,
+                {"units": yunits, "long_name": "sampled particle position y"},
+            )
         attrs = {
             "title": title,
             "seed": int(seed),

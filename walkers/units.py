@@ -32,7 +32,18 @@ UNIT_TABLE: dict[str, tuple[str, str, dict[str, float]]] = {
     "length": (
         "m",
         "a length",
-        {"m": 1.0, "km": 1e3, "cm": 1e-2, "mm": 1e-3, "ft": 0.3048, "nmi": 1852.0},
+        {
+            "m": 1.0,
+            "km": 1e3,
+            "cm": 1e-2,
+            "mm": 1e-3,
+            "ft": 0.3048,
+            "nmi": 1852.0,
+            "meter": 1.0,
+            "meters": 1.0,
+            "metre": 1.0,
+            "metres": 1.0,
+        },
     ),
     "time": (
         "s",
@@ -73,6 +84,10 @@ UNIT_TABLE: dict[str, tuple[str, str, dict[str, float]]] = {
             "kn": _KNOT,
             "m s-1": 1.0,
             "cm s-1": 1e-2,
+            "m s^-1": 1.0,
+            "m s**-1": 1.0,
+            "m.s-1": 1.0,
+            "cm s^-1": 1e-2,
         },
     ),
     "diffusivity": (
@@ -130,7 +145,11 @@ UNIT_TABLE: dict[str, tuple[str, str, dict[str, float]]] = {
             "kg m-3": 1.0,
         },
     ),
-    "area": ("m2", "an area", {"m2": 1.0, "km2": 1e6, "ha": 1e4, "cm2": 1e-4, "m^2": 1.0}),
+    "area": (
+        "m2",
+        "an area",
+        {"m2": 1.0, "km2": 1e6, "ha": 1e4, "cm2": 1e-4, "m^2": 1.0, "m**2": 1.0},
+    ),
 }
 
 DIMENSIONS = tuple(UNIT_TABLE)

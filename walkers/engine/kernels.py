@@ -224,12 +224,36 @@ def advect(flow, times, scheme, geographic, x, y, t, h):
 
 @nb.njit(**JIT)
 def move_one(
-    p, x, y, m, m0, trel, texit, status, flow, cells, disp, times, opts, edges_mode, t0, dt,
-    nsteps, step0, key, decay_rate,
+    p,
+    x,
+    y,
+    m,
+    m0,
+    trel,
+    texit,
+    status,
+    flow,
+    cells,
+    disp,
+    times,
+    opts,
+    edges_mode,
+    t0,
+    dt,
+    nsteps,
+    step0,
+    key,
+    decay_rate,
 ):
     """Advance particle p over nsteps steps of dt from t0. See ``advance`` for the arguments."""
     ndim, scheme, aligned, has_drift, bridge, max_refl, geographic = (
-        opts[0], opts[1], opts[2], opts[3], opts[4], opts[5], opts[6],
+        opts[0],
+        opts[1],
+        opts[2],
+        opts[3],
+        opts[4],
+        opts[5],
+        opts[6],
     )
     xe, ye, wet, cx, cy = cells[0], cells[1], cells[2], cells[3], cells[4]
     invc = cells[5]
@@ -379,14 +403,10 @@ def move_one(
                 dxe = (x_e - px) / sx
                 dqe = (x_e - qx) / sx
                 if edges_mode[0] == 1 and kxx > 0.0 and dxw * dqw < 20.0 * kxx * h:
-                    if uniform(stream, step0 + s, COMP_BRIDGE_X) < math.exp(
-                        -dxw * dqw / (kxx * h)
-                    ):
+                    if uniform(stream, step0 + s, COMP_BRIDGE_X) < math.exp(-dxw * dqw / (kxx * h)):
                         left = 0
                 elif edges_mode[1] == 1 and kxx > 0.0 and dxe * dqe < 20.0 * kxx * h:
-                    if uniform(stream, step0 + s, COMP_BRIDGE_X) < math.exp(
-                        -dxe * dqe / (kxx * h)
-                    ):
+                    if uniform(stream, step0 + s, COMP_BRIDGE_X) < math.exp(-dxe * dqe / (kxx * h)):
                         left = 1
                 if left < 0 and ndim == 2:
                     dys = (py - y_s) / sy
@@ -422,8 +442,25 @@ def move_one(
 
 @nb.njit(parallel=True, **JIT)
 def advance(
-    x, y, m, m0, trel, texit, status, flow, cells, disp, times, opts, edges_mode, t0, dt,
-    nsteps, step0, key, decay_rate,
+    x,
+    y,
+    m,
+    m0,
+    trel,
+    texit,
+    status,
+    flow,
+    cells,
+    disp,
+    times,
+    opts,
+    edges_mode,
+    t0,
+    dt,
+    nsteps,
+    step0,
+    key,
+    decay_rate,
 ):
     """Advance every particle by ``nsteps`` steps of ``dt`` seconds from time ``t0``.
 
@@ -447,8 +484,26 @@ def advance(
     """
     for p in nb.prange(x.shape[0]):
         move_one(
-            p, x, y, m, m0, trel, texit, status, flow, cells, disp, times, opts, edges_mode,
-            t0, dt, nsteps, step0, key, decay_rate,
+            p,
+            x,
+            y,
+            m,
+            m0,
+            trel,
+            texit,
+            status,
+            flow,
+            cells,
+            disp,
+            times,
+            opts,
+            edges_mode,
+            t0,
+            dt,
+            nsteps,
+            step0,
+            key,
+            decay_rate,
         )
 
 

@@ -73,7 +73,9 @@ class DispersionFrames:
     has_drift: bool
 
 
-def dispersion_frames(flow: FlowField, window: FlowWindow, transport: Transport) -> DispersionFrames:
+def dispersion_frames(
+    flow: FlowField, window: FlowWindow, transport: Transport
+) -> DispersionFrames:
     """K on cell centres and the drift (1/h) ∇·(h K) for each frame of the window.
 
     Hunter, Craig & Phillips 1993 (J. Comput. Phys. 106) and Visser 1997 (Mar. Ecol. Prog. Ser.
@@ -142,7 +144,11 @@ def _velocity_at_centres(flow: FlowField, window: FlowWindow, f: int):
     out = []
     for var, arr in ((flow.u, window.u), (flow.v, window.v)):
         frame = arr[min(f, arr.shape[0] - 1)]
-        if frame.shape == X.shape and np.array_equal(var.x, flow.x) and np.array_equal(var.y, flow.y):
+        if (
+            frame.shape == X.shape
+            and np.array_equal(var.x, flow.x)
+            and np.array_equal(var.y, flow.y)
+        ):
             out.append(frame)
             continue
         ys = var.y if var.y.size > 1 else np.array([var.y[0] - 1.0, var.y[0] + 1.0])
@@ -170,8 +176,9 @@ class KernelInputs:
 def kernel_inputs(flow: FlowField, window: FlowWindow, transport: Transport) -> KernelInputs:
     """Build the kernel argument tuples for a window of frames."""
     inv = kernels.axis_inverse_spacing
-    ux, uy, vx, vy = (np.ascontiguousarray(a, np.float64) for a in (
-        flow.u.x, flow.u.y, flow.v.x, flow.v.y))
+    ux, uy, vx, vy = (
+        np.ascontiguousarray(a, np.float64) for a in (flow.u.x, flow.u.y, flow.v.x, flow.v.y)
+    )
     xe, ye = centre_to_edges(flow.x), centre_to_edges(flow.y)
     cx, cy = np.ascontiguousarray(flow.x, np.float64), np.ascontiguousarray(flow.y, np.float64)
     disp = dispersion_frames(flow, window, transport)
@@ -188,7 +195,7 @@ def kernel_inputs(flow: FlowField, window: FlowWindow, transport: Transport) -> 
             flow.ndim,
             1 if transport.scheme == "rk4" else 0,
             1 if d.mode == "aligned" else 0,
-            1 if disp.has_drift else 0,
+            1 if disp.has_drift and transport.drift_correction else 0,
             1 if transport.bridge else 0,
             transport.max_reflections,
             1 if flow.geographic else 0,
@@ -200,13 +207,16 @@ def kernel_inputs(flow: FlowField, window: FlowWindow, transport: Transport) -> 
         dtype=np.int64,
     )
     flow_t = (
-        ux, uy, window.u, vx, vy, window.v,
+        ux,
+        uy,
+        window.u,
+        vx,
+        vy,
+        window.v,
         np.array([inv(ux), inv(uy), inv(vx), inv(vy)]),
     )
     cells_t = (xe, ye, window.wet, cx, cy, np.array([inv(xe), inv(ye), inv(cx), inv(cy)]))
-    disp_t = (
-        disp.drift_x * d.multiplier, disp.drift_y * d.multiplier, disp.k1, disp.k2, kconst
-    )
+    disp_t = (disp.drift_x * d.multiplier, disp.drift_y * d.multiplier, disp.k1, disp.k2, kconst)
     return KernelInputs(
         flow_t, cells_t, disp_t, window.times, opts, edges_mode, transport.decay_rate
     )
@@ -225,8 +235,53 @@ def advance(
     """Advance all particles in place by nsteps steps of dt seconds from t0 (s)."""
     mod = kernels if engine == "compiled" else twin
     mod.advance(
-        state.x, state.y, state.mass, state.initial_mass, state.release_time, state.exit_time,
-        state.status, inputs.flow, inputs.cells, inputs.disp, inputs.times, inputs.opts,
-        inputs.edges_mode, float(t0), float(dt), int(nsteps), int(step0), np.uint64(key),
+        state.x,
+        state.y,
+        state.mass,
+        state.initial_mass,
+        state.release_time,
+        state.exit_time,
+        state.status,
+        inputs.flow,
+        inputs.cells,
+        inputs.disp,
+        inputs.times,
+        inputs.opts,
+        inputs.edges_mode,
+        float(t0),
+        float(dt),
+        int(nsteps),
+        int(step0),
+        np.uint64(key),
         float(inputs.decay_rate),
     )
+
+
+def advect_points(
+    flow: FlowField,
+    x: np.ndarray,
+    y: np.ndarray,
+    t0: float,
+    t1: float,
+    dt: float,
+    scheme: Literal["euler", "rk4"] = "rk4",
+) -> tuple[np.ndarray, np.ndarray]:
+    """Carry points with the flow alone (no dispersion) from t0 to t1 (s); returns (x, y).
+
+    Edges reflect, coasts reflect; useful to compare paths through different file layouts.
+    """
+    from walkers.config import Dispersion
+
+    n = int(round((t1 - t0) / dt))
+    transport = Transport(
+        dt=dt,
+        dispersion=Dispersion(k1=0.0, k2=0.0),
+        scheme=scheme,
+        edges=dict.fromkeys(EDGE_NAMES, "reflecting"),
+    )
+    x = np.atleast_1d(np.asarray(x, dtype=np.float64)).copy()
+    y = np.atleast_1d(np.asarray(y, dtype=np.float64)).copy()
+    state = ParticleState.from_arrays(x, y, np.ones(x.size), np.full(x.size, t0))
+    inputs = kernel_inputs(flow, flow.window(t0, t1), transport)
+    advance(state, inputs, t0, dt, n, 0, 0)
+    return state.x, state.y

@@ -76,7 +76,8 @@ class TimeStepReport:
         if not parts:
             return f"time step {self.dt:g} s is within all limits"
         return (
-            f"time step {self.dt:g} s is too long {self.where}: " + "; ".join(parts)
+            f"time step {self.dt:g} s is too long {self.where}: "
+            + "; ".join(parts)
             + f". Use a time step of at most {self.dt / self.substeps_needed:.4g} s, or allow "
             f"sub-steps ({self.substeps_needed} per step)."
         )

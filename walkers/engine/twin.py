@@ -132,8 +132,25 @@ def _advect(flow, times, scheme, geographic, x, y, t, h):
 
 
 def advance(
-    x, y, m, m0, trel, texit, status, flow, cells, disp, times, opts, edges_mode, t0, dt,
-    nsteps, step0, key, decay_rate,
+    x,
+    y,
+    m,
+    m0,
+    trel,
+    texit,
+    status,
+    flow,
+    cells,
+    disp,
+    times,
+    opts,
+    edges_mode,
+    t0,
+    dt,
+    nsteps,
+    step0,
+    key,
+    decay_rate,
 ):
     """Numpy twin of :func:`walkers.engine.kernels.advance` (same arguments, in place)."""
     ndim, scheme, aligned, has_drift, bridge, max_refl, geographic = (int(o) for o in opts)

@@ -101,6 +101,14 @@ _NAME_HINTS = {
         ("water depth", "depth of water", "total depth", "total water depth"),
     ),
     "area": (set(), ("cross-section", "cross section", "cross_section")),
+    "water_level": (
+        {"zeta", "eta", "ssh", "water_level", "waterlevel", "wl", "elev"},
+        ("water level", "surface elevation", "water surface"),
+    ),
+    "bed_level": (
+        {"bed", "bed_level", "bedlevel", "zb", "bathymetry", "bottom"},
+        ("bed level", "bed elevation", "bottom elevation", "bathymetry"),
+    ),
 }
 _LENGTH_UNITS = {
     "m": 1.0,
@@ -367,9 +375,10 @@ class _FileSchema:
             hint_names, hint_words = _NAME_HINTS.get(role, (set(), ()))
             extra = ""
             if hint_words:
+                shown = "m s-1 or cm s-1" if role in ("u", "v") else _ROLE_SI.get(role, "")
                 extra = (
-                    f", or units {' / '.join(sorted(set(_ROLE_UNITS[role]))[:4])} with a "
-                    f"long_name containing {' / '.join(repr(w) for w in hint_words[:3])}"
+                    f", or units {shown} with a long_name containing "
+                    f"{' / '.join(repr(w) for w in hint_words[:3])}"
                 )
             raise InputError(
                 f"flow file {path!r}: no {_ROLE_WORDS[role]} ({role}) found. Variables in the "
@@ -396,10 +405,7 @@ class _FileSchema:
     def _axis_kind(self, dim: str, var_name: str) -> str:
         coord = self.ds.variables.get(dim)
         if coord is None or coord.ndim != 1:
-            raise InputError(
-                f"flow file {self.path!r}: dimension {dim!r} of variable {var_name!r} has no "
-                "coordinate variable; add one (CF: a 1-D variable named like the dimension)"
-            )
+            return ""
         std, axis = _attr(coord, "standard_name").lower(), _attr(coord, "axis").upper()
         unit = _norm_units(_attr(coord, "units")).replace(" ", "")
         if std in _X_NAMES or axis == "X" or unit in _DEG_EAST:
@@ -437,14 +443,14 @@ class _FileSchema:
             if np.any(step == 0):
                 i = int(np.flatnonzero(step == 0)[0])
                 raise InputError(
-                    f"{where} repeats the value {values[i]!r} at indices {i} and {i + 1}; "
+                    f"{where} repeats the value {values[i]:.10g} at indices {i} and {i + 1}; "
                     "coordinates must be strictly increasing or decreasing, with no duplicates"
                 )
             if not (np.all(step > 0) or np.all(step < 0)):
                 i = int(np.flatnonzero(np.sign(step) != np.sign(step[0]))[0])
                 raise InputError(
-                    f"{where} is not monotonic: {values[i + 1]!r} at index {i + 1} follows "
-                    f"{values[i]!r}; coordinates must be strictly increasing or decreasing"
+                    f"{where} is not monotonic: {values[i + 1]:.10g} at index {i + 1} follows "
+                    f"{values[i]:.10g}; coordinates must be strictly increasing or decreasing"
                 )
         flip = values.size > 1 and values[1] < values[0]
         return _Axis(dim=dim, values=values[::-1].copy() if flip else values, flip=flip)
@@ -492,7 +498,9 @@ class _FileSchema:
                 raise InputError(
                     f"flow file {self.path!r}: variable {name!r} has a dimension {d!r} "
                     f"(size {size}) besides time, x and y; give depth-averaged fields on one "
-                    "horizontal grid (mark coordinates with axis = 'X' / 'Y' if that is what it is)"
+                    "horizontal grid. Each x and y dimension needs a 1-D coordinate variable of "
+                    "the same name with standard_name projection_x_coordinate / "
+                    "projection_y_coordinate (or longitude / latitude) or axis = 'X' / 'Y'"
                 )
         if x_dim is None or (self.ndim == 2 and y_dim is None):
             raise InputError(
@@ -624,7 +632,8 @@ class _FlowSource:
         frame_file: np.ndarray,
         frame_local: np.ndarray,
         times: np.ndarray,
-        time_iso: Any,
+        time_units: str,
+        calendar: str,
         cell: tuple[np.ndarray, np.ndarray],
         ndim: int,
         min_depth: float,
@@ -635,7 +644,8 @@ class _FlowSource:
         self.frame_file = frame_file
         self.frame_local = frame_local
         self.times = times
-        self.time_iso = time_iso
+        self.time_units = time_units
+        self.calendar = calendar
         self.cell_x, self.cell_y = cell
         self.ndim = ndim
         self.min_depth = min_depth
@@ -654,6 +664,16 @@ class _FlowSource:
         self.wet_steady = not (wet_inputs & set(self.varying))
         self.depth_steady = not (depth_roles & set(self.varying))
         self.nt = max(1, frame_file.size)
+
+    def time_iso(self, k: int) -> str:
+        """ISO 8601 time of frame k (for messages)."""
+        return _seconds_iso(self.times[k], self.time_units, self.calendar)
+
+    def __getstate__(self) -> dict[str, Any]:
+        # sent to other processes without the cached block; files are reopened there
+        state = dict(self.__dict__)
+        state["_cache"] = None
+        return state
 
     def _read_raw(self, i0: int, i1: int) -> dict[str, np.ndarray]:
         """Time-varying roles for frames i0..i1 (inclusive), arranged, straight from the files."""
@@ -695,7 +715,7 @@ class _FlowSource:
         elif "water_level" in self.layouts:
             depth = self._depth_from_levels(raw)
         else:
-            depth = np.full(shape, float(self.constant_depth))
+            depth = np.full(shape, float(self.constant_depth or 0.0))
         if self.wet_from_file:
             wet = np.isfinite(depth) & (depth >= self.min_depth if self.ndim == 2 else depth > 0)
             if "mask" in self.layouts:
@@ -723,11 +743,17 @@ class _FlowSource:
         down = positive == "down" or (positive != "up" and std.startswith("sea_floor_depth"))
         return level + bed if down else level - bed
 
-    def _velocity_brackets(self, role: str):
+    def _velocity_brackets(self, role: str, *, around_cells: bool = False):
+        """Bracketing indices: cells around each velocity point, or (``around_cells``) velocity
+        points around each cell centre."""
         lay = self.layouts[role]
         vy = np.array([0.0]) if lay.y is None else lay.y.values
-        ly, hy = _bracket(self.cell_y, vy)
-        lx, hx = _bracket(self.cell_x, lay.x.values)
+        if around_cells:
+            ly, hy = _bracket(vy, self.cell_y)
+            lx, hx = _bracket(lay.x.values, self.cell_x)
+        else:
+            ly, hy = _bracket(self.cell_y, vy)
+            lx, hx = _bracket(self.cell_x, lay.x.values)
         return ly, hy, lx, hx
 
     def _check_velocity_in_water(self, vel: np.ndarray, role: str, wet: np.ndarray, i0: int):
@@ -744,18 +770,19 @@ class _FlowSource:
             yv = 0.0 if lay.y is None else lay.y.values[j]
             raise InputError(
                 f"flow file(s) {', '.join(repr(p) for p in self.paths)}: variable {lay.name!r} "
-                f"({role}) is missing (fill value or NaN) at frame {self.time_iso(frame)}, point "
-                f"x={xv:g}, y={yv:g} (row {j}, column {i} after sorting axes ascending), where "
-                "the depth/mask says there is water. Fix the file, or mark the cell as land in "
-                "the mask or with a depth below the minimum depth"
+                f"({role}) is missing (fill value or NaN) at frame {self.time_iso(frame)}, "
+                f"point x={xv:.10g}, y={yv:.10g} (row {j}, column {i} after sorting axes "
+                "ascending), where the depth/mask says there is water. Fix the file, or mark "
+                "the cell as land in the mask or with a depth below the minimum depth"
             )
 
     def _wet_from_velocity(self, u: np.ndarray, v: np.ndarray) -> np.ndarray:
-        fu = _corners(np.isfinite(u), *self._velocity_brackets("u"))
+        fu = _corners(np.isfinite(u), *self._velocity_brackets("u", around_cells=True))
         if self.ndim == 1:
             return np.logical_or.reduce(fu)
-        fv = _corners(np.isfinite(v), *self._velocity_brackets("v"))
+        fv = _corners(np.isfinite(v), *self._velocity_brackets("v", around_cells=True))
         lu, lv = self.layouts["u"], self.layouts["v"]
+        assert lu.y is not None and lv.y is not None
         collocated = all(
             a.size == b.size and np.allclose(a, b)
             for a, b in (
@@ -794,18 +821,20 @@ class _LazyFrames:
         if self.shape[0] == 1:
             # steady: the same frame whatever the time, from any block already derived
             cached = self.source._cache
-            block = cached[1] if cached is not None else self.source.block(0, 0)
-            return np.asarray(block[self.key][:1][(slice(None), *rest)])
+            frames = (cached[1] if cached is not None else self.source.block(0, 0))[self.key]
+            if isinstance(head, (int, np.integer)):
+                return np.asarray(frames[(0, *rest)])
+            return np.asarray(frames[:1][(head, *rest)])
         if isinstance(head, (int, np.integer)):
             k = int(head) % self.shape[0]
             return self.source.block(k, k)[self.key][(0, *rest)]
         start, stop, step = head.indices(self.shape[0])
         if stop <= start:
             return np.empty((0, *self.shape[1:]))
-        block = self.source.block(start, stop - 1)[self.key]
-        if block.shape[0] == 1 and self.shape[0] > 1:
-            block = np.broadcast_to(block, (stop - start, *block.shape[1:]))
-        return np.asarray(block[(slice(None, None, step), *rest)])
+        data = self.source.block(start, stop - 1)[self.key]
+        if data.shape[0] == 1:
+            data = np.broadcast_to(data, (stop - start, *data.shape[1:]))
+        return np.asarray(data[(slice(None, None, step), *rest)])
 
     def __array__(self, dtype: Any = None, copy: Any = None) -> np.ndarray:
         out = self[:]
@@ -869,7 +898,7 @@ def _to_seconds(when: Any, time_units: str, calendar: str) -> float:
             when.second,
             when.microsecond,
         )
-        offset = when.utcoffset()
+        offset = when.utcoffset() or _dt.timedelta(0)
     elif isinstance(when, str):
         m = _ISO_RE.match(when.strip())
         if m is None:
@@ -955,7 +984,7 @@ def check_points_in_water(
     unit = "degrees" if flow.geographic else "m"
     for n, (x, y) in enumerate(zip(xs, ys, strict=True)):
         label = what if xs.size == 1 else f"{what} point {n}"
-        where = f"({x:g}, {y:g})" if flow.ndim == 2 else f"x = {x:g}"
+        where = f"({x:.10g}, {y:.10g})" if flow.ndim == 2 else f"x = {x:.10g}"
         if not (np.isfinite(x) and np.isfinite(y)):
             raise InputError(f"{label}: position {where} is not a finite number")
         inside_x = xe[0] <= x <= xe[-1]
@@ -963,7 +992,8 @@ def check_points_in_water(
         if not (inside_x and inside_y):
             raise InputError(
                 f"{label} at {where} lies outside the flow grid of {flow.source} "
-                f"(x {xe[0]:g} to {xe[-1]:g}, y {ye[0]:g} to {ye[-1]:g} {unit}); move it inside"
+                f"(x {xe[0]:.10g} to {xe[-1]:.10g}, y {ye[0]:.10g} to {ye[-1]:.10g} {unit}); "
+                "move it inside"
             )
         i = min(int(np.searchsorted(xe, x, side="right")) - 1, flow.x.size - 1)
         j = (
@@ -974,7 +1004,7 @@ def check_points_in_water(
         if wet[j, i] < 0.5:
             raise InputError(
                 f"{label} at {where} lies on land or in a dry cell of {flow.source} (cell centred "
-                f"at x={flow.x[i]:g}, y={flow.y[j]:g} {unit}); move it into the water"
+                f"at x={flow.x[i]:.10g}, y={flow.y[j]:.10g} {unit}); move it into the water"
             )
 
 
@@ -1054,8 +1084,8 @@ def _check_shapes(schema: _FileSchema, cell: tuple[np.ndarray, np.ndarray]) -> N
                 )
                 raise InputError(
                     f"flow file {schema.path!r}: the grids disagree: {lay.name!r} ({role}) has "
-                    f"{vals.size} points along {axis} from {vals[0]:g} to {vals[-1]:g}, the cell "
-                    f"grid has {centres.size} from {centres[0]:g} to {centres[-1]:g} "
+                    f"{vals.size} points along {axis} from {vals[0]:.10g} to {vals[-1]:.10g}, the "
+                    f"cell grid has {centres.size} from {centres[0]:.10g} to {centres[-1]:.10g} "
                     f"(shapes y x: {shapes}). Velocities may sit on cell faces (at most one point "
                     "more or fewer); other variables must share the cell grid"
                 )
@@ -1198,7 +1228,8 @@ def open_flow(
         frame_file,
         frame_local,
         seconds,
-        lambda k: _seconds_iso(seconds[k], time_units, calendar),
+        time_units,
+        calendar,
         cell,
         first.ndim,
         float(min_depth),

@@ -1,0 +1,180 @@
+"""The compiled step against its numpy twin, thread independence, walls, drying and releases."""
+
+import numba
+import numpy as np
+import pytest
+
+from walkers.config import Dispersion, OutputGrid, Release, Transport
+from walkers.engine import kernels, mover, twin
+from walkers.engine.state import IN_WATER, LEFT, STRANDED, WAITING, ParticleState
+from walkers.errors import InputError
+from walkers.fields.analytic import analytic_flow, grid_flow
+from walkers.fields.base import centre_to_edges
+from walkers.simulate import simulate
+
+
+def harbour_flow():
+    """A time-varying, non-uniform flow with land, a drying bank and varying depth (invented)."""
+    xc = np.linspace(0.0, 4000.0, 81)
+    yc = np.linspace(0.0, 2000.0, 41)
+    times = np.arange(0.0, 7200.0 + 1, 900.0)
+    X, Y = np.meshgrid(xc, yc)
+    land = (Y > 1500.0) & (X > 1000.0) & (X < 2500.0)
+    land |= (X > 3000.0) & (Y < 400.0)
+
+    def velocity(X, Y, t):
+        phase = np.cos(2 * np.pi * t / 7200.0)
+        return 0.4 * phase + 0.1 * np.sin(Y / 400.0), 0.05 * np.cos(X / 700.0) * phase
+
+    base = 6.0 + 4.0 * np.sin(X / 900.0) * np.cos(Y / 600.0)
+    depth = np.stack([base - 5.0 * (1 + np.cos(2 * np.pi * t / 7200.0)) / 2 * (Y < 300)
+                      for t in times])
+    flow = grid_flow(xc, yc, times, velocity, depth=depth, wet=~land)
+    wet = (~land)[None] & (depth > 0.5)
+    flow.wet.data[...] = 0.0
+    object.__setattr__(flow.wet, "data", wet.astype(np.float64))
+    return flow
+
+
+def state_for(n, rng, t_spread=1800.0):
+    x = rng.uniform(200.0, 900.0, n)
+    y = rng.uniform(500.0, 1400.0, n)
+    return ParticleState.from_arrays(x, y, np.full(n, 0.1), rng.uniform(0.0, t_spread, n))
+
+
+@pytest.mark.parametrize("mode,scheme", [("axes", "euler"), ("aligned", "rk4")])
+def test_compiled_kernel_equals_numpy_twin(mode, scheme):
+    """Same random numbers, same arithmetic: positions agree to 1e-12 (DESIGN.md §4.7)."""
+    flow = harbour_flow()
+    kfield = 1.0 + 0.5 * np.cos(flow.x / 500.0)[None, :] * np.ones((flow.y.size, 1))
+    tr = Transport(
+        dt=30.0, scheme=scheme, decay_rate=2e-4,
+        dispersion=Dispersion(k1_field=3 * kfield, k2_field=kfield, mode=mode),
+        edges={"west": "reflecting", "east": "absorbing", "south": "reflecting",
+               "north": "absorbing"},
+    )
+    rng = np.random.default_rng(7)
+    a = state_for(3000, rng)
+    a.x[::10] = 3980.0  # some start beside the absorbing east edge
+    b = a.copy()
+    inputs = mover.kernel_inputs(flow, flow.window(0.0, 3600.0), tr)
+    mover.advance(a, inputs, 0.0, 30.0, 120, 11, 99, engine="compiled")
+    mover.advance(b, inputs, 0.0, 30.0, 120, 11, 99, engine="numpy")
+    np.testing.assert_array_equal(a.status, b.status)
+    np.testing.assert_allclose(a.x, b.x, rtol=0, atol=1e-12 * 4000)
+    np.testing.assert_allclose(a.y, b.y, rtol=0, atol=1e-12 * 4000)
+    np.testing.assert_allclose(a.mass, b.mass, rtol=1e-12)
+    np.testing.assert_allclose(a.exit_time, b.exit_time, rtol=1e-12)
+    assert {IN_WATER, LEFT + 1} <= set(np.unique(a.status))
+
+
+def test_twin_check_can_fail():
+    """A different key gives different numbers: the equality above is not vacuous."""
+    flow = analytic_flow("uniform", u=0.1)
+    tr = Transport(dt=60.0, dispersion=Dispersion(k1=1.0, k2=1.0))
+    a = ParticleState.from_arrays(np.zeros(10), np.zeros(10), np.ones(10), np.zeros(10))
+    b = a.copy()
+    inputs = mover.kernel_inputs(flow, flow.window(0, 600), tr)
+    mover.advance(a, inputs, 0.0, 60.0, 10, 0, 1, engine="compiled")
+    mover.advance(b, inputs, 0.0, 60.0, 10, 0, 2, engine="numpy")
+    assert np.abs(a.x - b.x).max() > 1.0
+
+
+def test_one_thread_equals_two_threads_bitwise():
+    flow = harbour_flow()
+    tr = Transport(dt=30.0, dispersion=Dispersion(k1=2.0, k2=0.5, mode="aligned"))
+    rng = np.random.default_rng(3)
+    a = state_for(20000, rng)
+    b = a.copy()
+    inputs = mover.kernel_inputs(flow, flow.window(0.0, 3600.0), tr)
+    before = numba.get_num_threads()
+    try:
+        numba.set_num_threads(1)
+        mover.advance(a, inputs, 0.0, 30.0, 120, 0, 5)
+        numba.set_num_threads(min(2, numba.config.NUMBA_NUM_THREADS))
+        mover.advance(b, inputs, 0.0, 30.0, 120, 0, 5)
+    finally:
+        numba.set_num_threads(before)
+    for name, arr in a.arrays().items():
+        assert np.array_equal(arr, b.arrays()[name], equal_nan=True), name
+
+
+def test_no_particle_on_land_outside_or_nan():
+    flow = harbour_flow()
+    tr = Transport(dt=60.0, dispersion=Dispersion(k1=20.0, k2=20.0),
+                   edges=dict.fromkeys(("west", "east", "south", "north"), "reflecting"))
+    rng = np.random.default_rng(11)
+    st = state_for(20000, rng, t_spread=0.0)
+    xe, ye = centre_to_edges(flow.x), centre_to_edges(flow.y)
+    for k in range(8):
+        t0 = 900.0 * k
+        win = flow.window(t0, t0 + 900.0)
+        mover.advance(st, mover.kernel_inputs(flow, win, tr), t0, 60.0, 15, 15 * k, 8)
+        assert np.all(np.isfinite(st.x)) and np.all(np.isfinite(st.y))
+        assert st.x.min() >= xe[0] and st.x.max() <= xe[-1]
+        assert st.y.min() >= ye[0] and st.y.max() <= ye[-1]
+        i = np.searchsorted(xe, st.x, side="right") - 1
+        j = np.searchsorted(ye, st.y, side="right") - 1
+        land = flow.wet.data[0][j, i] == 0  # permanent land: wet in no frame
+        never_wet = ~np.any(flow.wet.data[:, j, i] > 0, axis=0)
+        assert not np.any(land & never_wet)
+
+
+def test_drying_cell_holds_particles_and_budget_counts_them():
+    xc = np.arange(5.0, 1000.0, 10.0)
+    yc = np.arange(5.0, 200.0, 10.0)
+    times = np.array([0.0, 3600.0, 7200.0])
+    depth = np.stack([np.full((yc.size, xc.size), d) for d in (2.0, 0.01, 2.0)])
+    flow = grid_flow(xc, yc, times, lambda X, Y, t: (0 * X, 0 * X), depth=depth)
+    wet = (depth > 0.05).astype(np.float64)
+    object.__setattr__(flow.wet, "data", wet)
+    tr = Transport(dt=60.0, dispersion=Dispersion(k1=0.1, k2=0.1),
+                   edges=dict.fromkeys(("west", "east", "south", "north"), "reflecting"))
+    rel = [Release("point", np.array([[500.0, 100.0]]), 500, mass=5.0)]
+    grid = OutputGrid(x0=5.0, dx=10.0, nx=100, y0=5.0, dy=10.0, ny=20)
+    ds = simulate(flow, tr, rel, start=0.0, end=7200.0, output_interval=1800.0,
+                  output_grid=grid, seed=1)
+    at_low = ds.sel(time=3600.0)
+    assert float(at_low.mass_stranded) == pytest.approx(5.0)
+    assert float(at_low.mass_in_water) == 0.0
+    assert float(ds.mass_in_water[-1]) == pytest.approx(5.0)
+    assert float(ds.mass_stranded[-1]) == 0.0
+
+
+def test_particle_released_inside_a_step_moves_only_after_release():
+    flow = analytic_flow("uniform", u=1.0)
+    tr = Transport(dt=60.0, dispersion=Dispersion(k1=0.0, k2=0.0))
+    st = ParticleState.from_arrays(np.zeros(3), np.zeros(3), np.ones(3), np.array([0.0, 30.0, 59.0]))
+    mover.advance(st, mover.kernel_inputs(flow, flow.window(0, 60), tr), 0.0, 60.0, 1, 0, 0)
+    np.testing.assert_allclose(st.x, [60.0, 30.0, 1.0], atol=1e-12)
+    waiting = ParticleState.from_arrays(np.zeros(1), np.zeros(1), np.ones(1), np.array([60.0]))
+    mover.advance(waiting, mover.kernel_inputs(flow, flow.window(0, 60), tr), 0.0, 60.0, 1, 0, 0)
+    assert waiting.status[0] == WAITING and waiting.x[0] == 0.0
+
+
+def test_time_step_check_fails_or_substeps():
+    flow = analytic_flow("uniform", u=2.0, nx=101, ny=11, x_range=(0, 1000), y_range=(0, 100))
+    tr = Transport(dt=60.0, dispersion=Dispersion(k1=0.1, k2=0.1))
+    rel = [Release("point", np.array([[100.0, 50.0]]), 10, mass=1.0)]
+    grid = OutputGrid(x0=5.0, dx=10.0, nx=100, y0=5.0, dy=10.0, ny=10)
+    args = dict(start=0.0, end=600.0, output_interval=600.0, output_grid=grid)
+    with pytest.raises(InputError, match=r"\|u\|·dt = 120 m exceeds the smallest cell"):
+        simulate(flow, tr, rel, **args)
+    ds = simulate(flow, tr, rel, time_step_check="substep", **args)
+    assert float(ds.mass_left.sel(edge="east")[-1]) == pytest.approx(1.0)
+
+
+def test_random_deviates_are_standard_normal():
+    """Box-Muller on the SplitMix64 counter stream: KS against N(0, 1) (scipy.stats);
+    5-sigma critical value."""
+    from scipy import stats
+
+    z = kernels.normals_for(np.uint64(123), np.arange(200000, dtype=np.int64), 7).ravel()
+    crit = stats.kstwo.ppf(1 - 5.7e-7, z.size)
+    assert stats.kstest(z, "norm").statistic < crit
+    assert abs(np.corrcoef(z[0::2], z[1::2])[0, 1]) < 5 / np.sqrt(z.size / 2)
+    streams = twin.particle_streams(123, np.arange(5))
+    np.testing.assert_allclose(
+        np.stack(twin.normal_pairs(streams, 7), axis=1),
+        kernels.normals_for(np.uint64(123), np.arange(5, dtype=np.int64), 7), rtol=1e-14,
+    )

@@ -1,0 +1,226 @@
+"""Look at a flow field before a run: a plain-text report and a speed map.
+
+``describe_flow`` tells what the reader made of a file (grid, CRS, times, the variable behind each
+role, land and dry cells, speeds) and the largest time step that keeps both the advective step
+|u| dt and the dispersive step √(2K dt) under one cell. ``draw_speed_map`` draws the speed of one
+frame with land and dry cells in grey.
+"""
+
+from __future__ import annotations
+
+import os
+from typing import Any
+
+import numpy as np
+from scipy.interpolate import interp1d
+
+from walkers import CAUTION
+from walkers.fields.base import FlowField, GriddedVariable
+from walkers.fields.geo import cell_sizes
+from walkers.fields.netcdf import flow_time_iso, open_flow
+
+_CHUNK = 24  # frames read at a time when scanning a whole file
+
+
+def _on_centres(var: GriddedVariable, block: np.ndarray, cx: np.ndarray, cy: np.ndarray):
+    """Linear interpolation of a (nf, ny_v, nx_v) block from its own points to the cell centres.
+
+    Outside the variable's points the nearest end value is used (staggered edges).
+    """
+    out = block
+    if var.x.size > 1 and not (var.x.size == cx.size and np.allclose(var.x, cx)):
+        out = interp1d(var.x, out, axis=2)(np.clip(cx, var.x[0], var.x[-1]))
+    if var.y.size > 1 and not (var.y.size == cy.size and np.allclose(var.y, cy)):
+        out = interp1d(var.y, out, axis=1)(np.clip(cy, var.y[0], var.y[-1]))
+    return out
+
+
+def frame_speed(flow: FlowField, i0: int, i1: int) -> tuple[np.ndarray, np.ndarray]:
+    """Speed (m s-1) at the cell centres and the wet mask for frames i0..i1, each (nf, ny, nx)."""
+    cx, cy = flow.x, flow.y
+    u = _on_centres(flow.u, flow.u.frames(i0, i1), cx, cy)
+    v = _on_centres(flow.v, flow.v.frames(i0, i1), cx, cy)
+    wet = flow.wet.frames(i0, i1) > 0.5
+    speed = np.hypot(u, v)
+    nf = max(speed.shape[0], wet.shape[0])
+    shape = (nf, cy.size, cx.size)
+    return np.broadcast_to(speed, shape), np.broadcast_to(wet, shape)
+
+
+def _iso_duration(seconds: float) -> str:
+    """ISO 8601 duration (e.g. PT1H30M) of a number of seconds."""
+    s = round(float(seconds), 3)
+    days, rest = divmod(s, 86400.0)
+    hours, rest = divmod(rest, 3600.0)
+    minutes, secs = divmod(rest, 60.0)
+    out = "P" + (f"{int(days)}D" if days else "")
+    clock = (
+        (f"{int(hours)}H" if hours else "")
+        + (f"{int(minutes)}M" if minutes else "")
+        + (f"{secs:.10g}S" if secs else "")
+    )
+    if clock:
+        out += "T" + clock
+    return out if out != "P" else "PT0S"
+
+
+def _crs_text(flow: FlowField) -> str:
+    if not flow.crs_wkt:
+        return "none stated (local grid in metres)"
+    from pyproj import CRS
+
+    crs = CRS.from_wkt(flow.crs_wkt)
+    code = crs.to_epsg()
+    return f"{crs.name}" + (f" (EPSG:{code})" if code else "")
+
+
+def stable_time_step(min_cell: float, max_speed: float, dispersion: float) -> float:
+    """Largest time step (s) with |u| dt <= cell and √(2K dt) <= cell.
+
+    min(cell / |u|max, cell² / (2K)); cell in m, speed in m s-1, K in m2 s-1 (common practice for
+    random-walk models: no step longer than a grid cell).
+    """
+    limits = []
+    if max_speed > 0:
+        limits.append(min_cell / max_speed)
+    if dispersion > 0:
+        limits.append(min_cell**2 / (2.0 * dispersion))
+    return min(limits) if limits else float("inf")
+
+
+def describe_flow(
+    path_or_flow: str | os.PathLike | FlowField | list,
+    *,
+    dispersion: float = 1.0,
+    dt: float | None = None,
+    **open_options: Any,
+) -> str:
+    """A plain-text report of a flow field.
+
+    Parameters
+    ----------
+    path_or_flow : flow file(s) (opened with :func:`walkers.fields.netcdf.open_flow` and
+        ``open_options``) or an open :class:`FlowField`.
+    dispersion : dispersion coefficient K (m2 s-1) for the time-step advice.
+    dt : a time step (s) to check against the advice, or None.
+    """
+    flow = (
+        path_or_flow
+        if isinstance(path_or_flow, FlowField)
+        else open_flow(path_or_flow, **open_options)
+    )
+    unit = "degrees" if flow.geographic else "m"
+    lines = [f"Flow field: {flow.source}"]
+    nx, ny = flow.x.size, flow.y.size
+    lines.append(
+        f"  grid: {nx} x {ny} cells (x by y), {'1-D channel' if flow.ndim == 1 else '2-D'}, "
+        f"{'geographic (longitude/latitude)' if flow.geographic else 'projected'}"
+    )
+    wx, wy = cell_sizes(flow.x, flow.y, geographic=flow.geographic)
+    dxg = np.diff(flow.cell_edges()[0])
+    lines.append(f"  spacing x: {dxg.min():.10g} to {dxg.max():.10g} {unit}")
+    if flow.ndim == 2:
+        dyg = np.diff(flow.cell_edges()[1])
+        lines.append(f"  spacing y: {dyg.min():.10g} to {dyg.max():.10g} {unit}")
+    if flow.geographic:
+        lines.append(
+            f"  cell size: {np.nanmin(wx):.1f} to {np.nanmax(wx):.1f} m along x, "
+            f"{np.nanmin(wy):.1f} to {np.nanmax(wy):.1f} m along y"
+        )
+    west, east, south, north = flow.extent()
+    lines.append(f"  extent: x {west:.10g} to {east:.10g}, y {south:.10g} to {north:.10g} {unit}")
+    lines.append(f"  CRS: {_crs_text(flow)}")
+    nt = flow.times.size
+    if flow.steady:
+        lines.append("  time: steady (one frame)")
+    else:
+        steps = np.diff(flow.times)
+        step = (
+            _iso_duration(steps[0])
+            if np.allclose(steps, steps[0])
+            else f"{_iso_duration(steps.min())} to {_iso_duration(steps.max())}"
+        )
+        lines.append(
+            f"  time: {flow_time_iso(flow, flow.times[0])} to "
+            f"{flow_time_iso(flow, flow.times[-1])}, {nt} frames every {step} "
+            f"(calendar {flow.calendar})"
+        )
+    roles = flow.attrs.get("roles", {})
+    file_units = flow.attrs.get("file_units", {})
+    if roles:
+        lines.append("  variables:")
+        for role, name in roles.items():
+            fu = file_units.get(role, "")
+            lines.append(f"    {role:<12} {name}" + (f"  [{fu}]" if fu else ""))
+        if flow.attrs.get("constant_depth") is not None:
+            lines.append(f"    depth        constant {flow.attrs['constant_depth']:.10g}")
+
+    dry_min, dry_max, vmin, vmax = 1.0, 0.0, np.inf, 0.0
+    for i0 in range(0, nt, _CHUNK):
+        i1 = min(i0 + _CHUNK - 1, nt - 1)
+        speed, wet = frame_speed(flow, i0, i1)
+        dry = 1.0 - wet.reshape(wet.shape[0], -1).mean(axis=1)
+        dry_min, dry_max = min(dry_min, dry.min()), max(dry_max, dry.max())
+        if np.any(wet):
+            vmin, vmax = min(vmin, float(speed[wet].min())), max(vmax, float(speed[wet].max()))
+    lines.append(
+        f"  land or dry cells: {100 * dry_min:.1f} % to {100 * dry_max:.1f} % of the grid "
+        "(min and max over frames)"
+    )
+    lines.append(f"  speed in water: {vmin:.4g} to {vmax:.4g} m s-1")
+
+    widths = wx if flow.ndim == 1 else np.fmin(wx, wy)
+    cell = float(np.nanmin(widths))
+    dt_max = stable_time_step(cell, vmax, dispersion)
+    lines.append(
+        f"  largest stable time step: {dt_max:.4g} s for K = {dispersion:.10g} m2 s-1 "
+        f"(smallest cell {cell:.4g} m; |u| dt and sqrt(2 K dt) each under one cell)"
+    )
+    if dt is not None:
+        adv, disp = vmax * dt / cell, np.sqrt(2.0 * dispersion * dt) / cell
+        verdict = "fits" if max(adv, disp) <= 1.0 else "is too long: shorten it or sub-step"
+        lines.append(
+            f"  time step {dt:.10g} s {verdict} (|u| dt = {adv:.3g} cells, "
+            f"sqrt(2 K dt) = {disp:.3g} cells)"
+        )
+    lines.append(f"  Caution: {CAUTION}")
+    return "\n".join(lines)
+
+
+def draw_speed_map(flow: FlowField, png_path: str | os.PathLike, frame: int = 0) -> None:
+    """Draw the speed (m s-1) of one frame to a PNG, land and dry cells in grey."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    nt = flow.times.size
+    k = min(max(int(frame), 0), nt - 1)
+    speed, wet = frame_speed(flow, k, k)
+    fig = Figure(figsize=(8, 6) if flow.ndim == 2 else (8, 4), dpi=100)
+    FigureCanvasAgg(fig)
+    ax = fig.add_subplot(1, 1, 1)
+    when = "steady" if flow.steady else flow_time_iso(flow, flow.times[k])
+    if flow.ndim == 1:
+        s = np.where(wet[0, 0], speed[0, 0], np.nan)
+        ax.plot(flow.x, s, color="tab:blue")
+        ax.set_xlabel("distance along the channel (m)")
+        ax.set_ylabel("speed (m s-1)")
+    else:
+        import matplotlib
+
+        xe, ye = flow.cell_edges()
+        data = np.ma.masked_where(~wet[0], speed[0])
+        cmap = matplotlib.colormaps["viridis"].with_extremes(bad="0.7")
+        mesh = ax.pcolormesh(xe, ye, data, cmap=cmap, shading="flat")
+        fig.colorbar(mesh, ax=ax, label="speed (m s-1)")
+        if flow.geographic:
+            ax.set_xlabel("longitude (degrees east)")
+            ax.set_ylabel("latitude (degrees north)")
+            ax.set_aspect(1.0 / np.cos(np.radians(0.5 * (ye[0] + ye[-1]))))
+        else:
+            ax.set_xlabel("x (m)")
+            ax.set_ylabel("y (m)")
+            ax.set_aspect("equal")
+    ax.set_title(f"Flow speed, {when} (grey: land or dry)")
+    fig.text(0.01, 0.01, CAUTION, fontsize=6, wrap=True, va="bottom")
+    fig.subplots_adjust(bottom=0.18)
+    fig.savefig(os.fspath(png_path))
