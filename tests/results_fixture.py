@@ -6,8 +6,11 @@ coefficient K, with first-order decay k. Its depth-averaged concentration is the
 
     C(x, y, t) = M exp(-k t) / (4 pi K t h) * exp(-((x - x_s - u t)^2 + (y - y_s)^2) / (4 K t))
 
-(Fischer et al. 1979, Mixing in Inland and Coastal Waters, ch. 2 — from memory). Cells where fewer
-than one particle would fall are set to zero, as box counting leaves them. The place is invented.
+(Fischer et al. 1979, Mixing in Inland and Coastal Waters, ch. 2 — from memory); with one row
+(``ny == 1``) it is the 1-D puff in a channel of cross-section A. The spread is counted from a
+virtual origin 600 s before the first output, so the first map is not a single cell. Cells where
+fewer than one particle would fall are set to zero, as box counting leaves them. The place is
+invented.
 """
 
 from __future__ import annotations
@@ -21,6 +24,7 @@ from walkers.config import EDGE_NAMES
 
 MASS = 500.0  # kg released
 DEPTH = 4.0  # m
+SECTION = 120.0  # m2, cross-section of the channel in a 1-D run
 SPEED = 0.2  # m s-1 along x
 DISPERSION = 2.0  # m2 s-1
 DECAY = 1.0e-5  # s-1
@@ -55,16 +59,29 @@ def gaussian_puff_results(
     xc = xs + SPEED * time
     sigma2 = 2.0 * DISPERSION * t_eff
     mass_in_water_ideal = MASS * np.exp(-DECAY * time)
-    conc = (
-        mass_in_water_ideal[:, None, None]
-        / (2.0 * np.pi * sigma2[:, None, None] * DEPTH)
-        * np.exp(
-            -((x_m[None, None, :] - xc[:, None, None]) ** 2 + (y_m[None, :, None] - ys) ** 2)
-            / (2.0 * sigma2[:, None, None])
+    dist2 = (x_m[None, None, :] - xc[:, None, None]) ** 2
+    if ny == 1:
+        # a 1-D channel of cross-section A: C = M exp(-kt) / (A sqrt(2 pi s2)) exp(-x'^2 / (2 s2))
+        cell_volume = SECTION * dx
+        conc = (
+            mass_in_water_ideal[:, None, None]
+            / (SECTION * np.sqrt(2.0 * np.pi * sigma2[:, None, None]))
+            * np.exp(-dist2 / (2.0 * sigma2[:, None, None]))
         )
-    )
+    else:
+        cell_volume = dx * dx * DEPTH
+        conc = (
+            mass_in_water_ideal[:, None, None]
+            / (2.0 * np.pi * sigma2[:, None, None] * DEPTH)
+            * np.exp(-(dist2 + (y_m[None, :, None] - ys) ** 2) / (2.0 * sigma2[:, None, None]))
+        )
+    frac = np.zeros((ny, nx))
+    if land:
+        frac[-3:, :] = 1.0  # a northern shore
+        frac[-4, nx // 2 :] = 1.0
+        conc[:, frac >= 0.5] = 0.0  # no tracer on land (the puff barely reaches the shore)
     particle_mass = MASS / PARTICLES
-    counts = np.floor(conc * dx * dx * DEPTH / particle_mass).astype(np.int32)
+    counts = np.floor(conc * cell_volume / particle_mass).astype(np.int32)
     conc = np.where(counts > 0, conc, 0.0)
 
     if geographic:
@@ -185,9 +202,6 @@ def gaussian_puff_results(
         ds["track_y"] = (("trajectory", "time"), ty, dict(y_attrs, long_name="track y"))
 
     if land:
-        frac = np.zeros((ny, nx))
-        frac[-3:, :] = 1.0  # a northern shore
-        frac[-4, nx // 2 :] = 1.0
         ds["land_fraction"] = (
             ("y", "x"),
             frac,

@@ -152,6 +152,7 @@ def _with_units(attrs: dict, units: str, long_name: str) -> dict:
 
 def _to_cf(ds: xr.Dataset, history: str) -> tuple[xr.Dataset, dict]:
     """The on-disk form of a result Dataset (without tracks) and its NetCDF encoding."""
+    time_encoding = ds["time"].encoding
     out = ds.drop_vars([v for v in ("track_x", "track_y") if v in ds.variables])
     if "trajectory" in out.dims:
         out = out.drop_dims("trajectory")
@@ -167,6 +168,8 @@ def _to_cf(ds: xr.Dataset, history: str) -> tuple[xr.Dataset, dict]:
         )
     if "edge_name" in out.coords:
         out["edge_name"].attrs["long_name"] = "domain edge name"
+    for var in out.variables.values():
+        var.encoding = {}  # stale encodings of a file read back (times: see _encoding)
     crs = _crs_of(ds)
     geographic = bool(int(ds.attrs.get("geographic", 0)))
 
@@ -174,9 +177,12 @@ def _to_cf(ds: xr.Dataset, history: str) -> tuple[xr.Dataset, dict]:
     out["y"].attrs = _with_units(out["y"].attrs, "m", "y coordinate of cell centre")
     for name in ("x", "y"):
         out[name].attrs["axis"] = name.upper()
-    out["time"].attrs = _with_units(out["time"].attrs, "s", "time")
+    if np.issubdtype(out["time"].dtype, np.number):
+        out["time"].attrs = _with_units(out["time"].attrs, "s", "time")
+        out["time"].attrs.setdefault("calendar", "standard")
+    else:  # decoded times (a file read back): xarray encodes them with their own units
+        out["time"].attrs.setdefault("long_name", "time")
     out["time"].attrs["axis"] = "T"
-    out["time"].attrs.setdefault("calendar", "standard")
 
     has_receptors = "receptor_concentration" in out and out.sizes.get("receptor", 0) > 0
     if has_receptors and crs is not None and not crs.is_geographic and not geographic:
@@ -186,30 +192,39 @@ def _to_cf(ds: xr.Dataset, history: str) -> tuple[xr.Dataset, dict]:
             receptor_lon=(
                 "receptor",
                 np.asarray(lon, dtype=np.float64),
-                {"units": "degrees_east", "standard_name": "longitude", "long_name": "receptor"
-                 " longitude (WGS84)"},
+                {
+                    "units": "degrees_east",
+                    "standard_name": "longitude",
+                    "long_name": "receptor longitude (WGS84)",
+                },
             ),
             receptor_lat=(
                 "receptor",
                 np.asarray(lat, dtype=np.float64),
-                {"units": "degrees_north", "standard_name": "latitude", "long_name": "receptor"
-                 " latitude (WGS84)"},
+                {
+                    "units": "degrees_north",
+                    "standard_name": "latitude",
+                    "long_name": "receptor latitude (WGS84)",
+                },
             ),
         )
 
     if crs is not None:
         out[GRID_MAPPING] = xr.DataArray(np.int32(0), attrs=_grid_mapping_attrs(crs))
-    for name, var in out.data_vars.items():
+    for key, data in out.data_vars.items():
+        name = str(key)
         if name == GRID_MAPPING:
             continue
-        if "units" not in var.attrs or "long_name" not in var.attrs:
+        if "units" not in data.attrs or "long_name" not in data.attrs:
             raise InputError(
                 f"result variable {name!r}: needs 'units' and 'long_name' attributes before it "
                 "can be written"
             )
-        spatial = {"x", "y"} <= set(var.dims) or (has_receptors and "receptor" in var.dims)
+        spatial = {"x", "y"} <= set(data.dims) or (
+            has_receptors and name == "receptor_concentration"
+        )
         if crs is not None and spatial:
-            var.attrs["grid_mapping"] = GRID_MAPPING
+            data.attrs["grid_mapping"] = GRID_MAPPING
     if has_receptors:
         coords = ["time", "receptor_name", "receptor_x", "receptor_y"]
         coords += [c for c in ("receptor_lon", "receptor_lat", "receptor_radius") if c in out]
@@ -237,14 +252,20 @@ def _to_cf(ds: xr.Dataset, history: str) -> tuple[xr.Dataset, dict]:
     for key, value in ds.attrs.items():
         attrs.setdefault(key, value)
     out.attrs = attrs
-    return out, _encoding(out)
+    return out, _encoding(out, time_encoding)
 
 
-def _encoding(out: xr.Dataset) -> dict:
-    """Chunks (one time step per chunk for 3-D fields), zlib compression, fill values."""
+def _encoding(out: xr.Dataset, time_encoding: dict) -> dict:
+    """Chunks (one time step per chunk for 3-D fields), zlib compression, fill values.
+
+    Decoded times (a file read back) keep the units and calendar they were read with.
+    """
     encoding: dict[str, dict] = {}
-    for name, var in out.variables.items():
+    for key, var in out.variables.items():
+        name = str(key)
         enc: dict[str, object] = {}
+        if name == "time" and not np.issubdtype(var.dtype, np.number):
+            enc.update({k: v for k, v in time_encoding.items() if k in ("units", "calendar")})
         if var.dtype.kind in "US":
             enc.update({"dtype": "S1", "char_dim_name": f"{name}_strlen"})
         elif var.ndim >= 1:
@@ -253,9 +274,10 @@ def _encoding(out: xr.Dataset) -> dict:
                 1 if dim == "time" and var.ndim == 3 else size
                 for dim, size in zip(var.dims, var.shape, strict=True)
             )
-        # NaN only marks missing thresholds; elsewhere a fill value would be a false promise
+        # NaN marks missing data (e.g. moments before any release, padded thresholds);
+        # coordinates must not have missing values (CF §5)
         if var.dtype.kind == "f":
-            enc["_FillValue"] = np.nan if name == "receptor_threshold" else None
+            enc["_FillValue"] = np.nan if name in out.data_vars else None
         elif var.dtype.kind in "iu":
             enc["_FillValue"] = None
         encoding[name] = enc
@@ -276,7 +298,7 @@ def _tracks_to_cf(ds: xr.Dataset, history: str) -> tuple[xr.Dataset, dict]:
             ),
         }
     )
-    out["time"].attrs = _with_units(out["time"].attrs, "s", "time")
+    out["time"].attrs.setdefault("long_name", "time")
     out["time"].attrs["axis"] = "T"
     for name, axis in (("track_x", "x"), ("track_y", "y")):
         attrs = dict(ds[axis].attrs)
@@ -311,7 +333,9 @@ def _tracks_to_cf(ds: xr.Dataset, history: str) -> tuple[xr.Dataset, dict]:
         "caution": str(ds.attrs.get("caution", walkers.CAUTION)),
         "crs_wkt": crs.to_wkt() if crs is not None else "",
     }
-    encoding = _encoding(out)
+    for var in out.variables.values():
+        var.encoding = {}
+    encoding = _encoding(out, ds["time"].encoding)
     for name in ("track_x", "track_y"):
         encoding[name]["_FillValue"] = np.nan  # a track that has left is NaN from then on
     return out, encoding
@@ -322,14 +346,16 @@ def _tracks_to_cf(ds: xr.Dataset, history: str) -> tuple[xr.Dataset, dict]:
 # --------------------------------------------------------------------------------------------
 
 
-def _check_target(path: Path, overwrite: bool) -> None:
+def check_target(path: Path, overwrite: bool) -> None:
     folder = path.parent
     if not folder.is_dir():
         raise InputError(f"output directory {str(folder)!r} does not exist; create it first")
     if not os.access(folder, os.W_OK | os.X_OK):
         raise InputError(f"output directory {str(folder)!r} is not writable; choose another")
     if path.exists() and not overwrite:
-        raise InputError(f"output file {str(path)!r} exists; pass --overwrite or choose another name")
+        raise InputError(
+            f"output file {str(path)!r} exists; pass --overwrite or choose another name"
+        )
 
 
 def _fsync_file(path: Path) -> None:
@@ -390,7 +416,7 @@ def _temporary_names(finals: list[Path]) -> Iterator[list[Path]]:
 def _write_atomic(items: list[tuple[xr.Dataset, dict, Path]], overwrite: bool) -> None:
     finals = [path for _, _, path in items]
     for path in finals:
-        _check_target(path, overwrite)
+        check_target(path, overwrite)
     placed: list[Path] = []
     with _temporary_names(finals) as temps:
         try:
@@ -501,7 +527,7 @@ def receptors_to_csv(ds: xr.Dataset, path: str | os.PathLike, *, overwrite: bool
     path = Path(path)
     if "receptor_concentration" not in ds or ds.sizes.get("receptor", 0) == 0:
         raise InputError("result has no receptors; add receptors to the scenario to export them")
-    _check_target(path, overwrite)
+    check_target(path, overwrite)
     series = ds["receptor_concentration"].transpose("receptor", "time")
     units = series.attrs.get("units", "kg m-3")
     header = ["time"] + [f"{name} ({units})" for name in ds["receptor"].values]

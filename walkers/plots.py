@@ -23,6 +23,7 @@ from matplotlib.axes import Axes
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.colors import ListedColormap, LogNorm
 from matplotlib.figure import Figure
+from matplotlib.layout_engine import ConstrainedLayoutEngine
 from matplotlib.ticker import MaxNLocator, ScalarFormatter
 
 import walkers
@@ -75,8 +76,8 @@ def _load(ds_or_path: xr.Dataset | str | os.PathLike, land: xr.DataArray | None)
                 f"({ds.sizes['y']}, {ds.sizes['x']}), the output grid"
             )
         mask = np.asarray(land.values, dtype=bool)
-    elif "land_fraction" in ds:
-        mask = np.asarray(ds["land_fraction"].values) >= 0.5
+    elif "land" in ds:
+        mask = np.asarray(ds["land"].values) == 1
     conc = np.asarray(ds["concentration"].values)
     positive = conc[conc > 0]
     vmax = float(positive.max()) if positive.size else 1.0
@@ -96,9 +97,9 @@ def _load(ds_or_path: xr.Dataset | str | os.PathLike, land: xr.DataArray | None)
 
 
 def _figure(width: float, height: float) -> Figure:
-    fig = Figure(figsize=(width, height), dpi=110, layout="constrained")
+    layout = ConstrainedLayoutEngine(rect=(0.0, FOOTER_HEIGHT, 1.0, 1.0 - FOOTER_HEIGHT))
+    fig = Figure(figsize=(width, height), dpi=110, layout=layout)
     FigureCanvasAgg(fig)
-    fig.get_layout_engine().set(rect=(0.0, FOOTER_HEIGHT, 1.0, 1.0 - FOOTER_HEIGHT))
     return fig
 
 
@@ -141,24 +142,45 @@ def _draw_receptors(run: _Run, ax: Axes, one_d: bool = False) -> None:
     ):
         if one_d:
             ax.axvline(x, color=RECEPTOR_COLOUR, lw=0.8, ls=":")
-            ax.annotate(str(name), (x, 1.0), xycoords=("data", "axes fraction"), fontsize=7,
-                        color=RECEPTOR_COLOUR, ha="left", va="top", xytext=(2, -2),
-                        textcoords="offset points")
+            ax.annotate(
+                str(name),
+                (x, 1.0),
+                xycoords=("data", "axes fraction"),
+                fontsize=7,
+                color=RECEPTOR_COLOUR,
+                ha="left",
+                va="top",
+                xytext=(2, -2),
+                textcoords="offset points",
+            )
             continue
         ax.plot(x, y, marker="^", ms=7, mfc=RECEPTOR_COLOUR, mec="white", mew=0.8, ls="none")
-        ax.annotate(str(name), (x, y), xytext=(5, 4), textcoords="offset points", fontsize=7,
-                    color="black", path_effects=halo)
+        ax.annotate(
+            str(name),
+            (x, y),
+            xytext=(5, 4),
+            textcoords="offset points",
+            fontsize=7,
+            color="black",
+            path_effects=halo,
+        )
 
 
 def _draw_map(run: _Run, ax: Axes, field: np.ndarray):
     """Land, the concentration field (log scale, empty cells blank) and the receptors."""
     xe, ye = _edges(run.ds["x"].values), _edges(run.ds["y"].values)
     if run.land is not None:
-        ax.pcolormesh(xe, ye, np.ma.masked_where(~run.land, run.land.astype(float)),
-                      cmap=ListedColormap([LAND_COLOUR]), shading="flat")
+        ax.pcolormesh(
+            xe,
+            ye,
+            np.ma.masked_where(~run.land, run.land.astype(float)),
+            cmap=ListedColormap([LAND_COLOUR]),
+            shading="flat",
+        )
     cmap = colormaps[CONC_CMAP].with_extremes(bad=(0, 0, 0, 0), under=(0, 0, 0, 0))
-    mesh = ax.pcolormesh(xe, ye, np.ma.masked_less_equal(field, 0.0), cmap=cmap, norm=run.norm,
-                         shading="flat")
+    mesh = ax.pcolormesh(
+        xe, ye, np.ma.masked_less_equal(field, 0.0), cmap=cmap, norm=run.norm, shading="flat"
+    )
     _style_map_axes(run, ax)
     _draw_receptors(run, ax)
     ax.set_xlim(xe[0], xe[-1])
@@ -175,7 +197,13 @@ def _map_size(run: _Run, width: float) -> tuple[float, float]:
     if run.geographic:
         ratio /= np.cos(np.deg2rad(float(run.ds["y"].mean())))
     panel = width - 2.3  # room for the y labels and the colour bar
-    return width, float(np.clip(panel * ratio + 1.4, 3.2, 1.4 * width)) / (1.0 - 2 * FOOTER_HEIGHT)
+    return width, float(np.clip(panel * ratio + 1.4, 3.2, 1.4 * width)) / (1.0 - FOOTER_HEIGHT)
+
+
+def _colour_bar(run: _Run, fig: Figure, ax: Axes, mesh) -> None:
+    """A colour bar as tall as the map itself (an inset follows the aspect-fixed axes)."""
+    cax = ax.inset_axes((1.03, 0.0, 0.035, 1.0))
+    fig.colorbar(mesh, cax=cax).set_label(f"concentration ({run.units})")
 
 
 def _map_figure(run: _Run, field: np.ndarray, title: str, when: str, path: Path) -> Path:
@@ -185,8 +213,7 @@ def _map_figure(run: _Run, field: np.ndarray, title: str, when: str, path: Path)
         _draw_profile(run, ax, field[0])
     else:
         mesh = _draw_map(run, ax, field)
-        bar = fig.colorbar(mesh, ax=ax)
-        bar.set_label(f"concentration ({run.units})")
+        _colour_bar(run, fig, ax, mesh)
     ax.set_title(title, fontsize=10)
     _footer(fig, when)
     fig.savefig(path)
@@ -195,10 +222,16 @@ def _map_figure(run: _Run, field: np.ndarray, title: str, when: str, path: Path)
 
 def _draw_profile(run: _Run, ax: Axes, profile: np.ndarray):
     """A 1-D run: concentration along the channel on a log axis; empty cells are gaps."""
-    (line,) = ax.plot(run.ds["x"].values, np.where(profile > 0, profile, np.nan),
-                      color=colormaps[CONC_CMAP](0.35), lw=1.4)
+    (line,) = ax.plot(
+        run.ds["x"].values,
+        np.where(profile > 0, profile, np.nan),
+        color=colormaps[CONC_CMAP](0.35),
+        lw=1.4,
+    )
     ax.set_yscale("log")
-    ax.set_ylim(run.norm.vmin, run.norm.vmax * 2.0)
+    xe = _edges(run.ds["x"].values)
+    ax.set_xlim(xe[0], xe[-1])
+    ax.set_ylim(float(run.norm.vmin or 0.0), float(run.norm.vmax or 1.0) * 2.0)
     ax.set_xlabel(run.axis_label("x") if run.geographic else "distance along channel x (m)")
     ax.set_ylabel(f"concentration ({run.units})")
     ax.grid(True, which="major", lw=0.4, color="0.85")
@@ -221,16 +254,30 @@ def _receptor_figure(run: _Run, path: Path) -> Path:
         ax.plot(run.hours, series[i], color=colours[i], lw=1.5, label=str(name))
         for level in thresholds[i][np.isfinite(thresholds[i])]:
             ax.axhline(level, color=colours[i], lw=0.9, ls="--")
-            ax.annotate(f"threshold {name}", (1.0, level), xycoords=("axes fraction", "data"),
-                        xytext=(-3, 2), textcoords="offset points", ha="right", va="bottom",
-                        fontsize=6.5, color=colours[i])
+            ax.annotate(
+                f"threshold {name}",
+                (1.0, level),
+                xycoords=("axes fraction", "data"),
+                xytext=(-3, 2),
+                textcoords="offset points",
+                ha="right",
+                va="bottom",
+                fontsize=6.5,
+                color=colours[i],
+            )
     ax.set_xlabel(run.time_label)
     ax.set_ylabel(f"concentration ({run.units})")
     ax.set_ylim(bottom=0.0)
     ax.set_xlim(run.hours[0], run.hours[-1])
     ax.grid(True, lw=0.4, color="0.88")
-    ax.legend(title="receptor (dashed: thresholds)", fontsize=7, title_fontsize=7,
-              loc="upper left", frameon=False)
+    ax.legend(
+        title="receptor\n(dashed: threshold)",
+        fontsize=7,
+        title_fontsize=7,
+        loc="center left",
+        bbox_to_anchor=(1.01, 0.5),
+        frameon=False,
+    )
     ax.set_title("Concentration at the receptors", fontsize=10)
     _footer(fig, f"{run.stamps[0]} to {run.stamps[-1]}")
     fig.savefig(path)
@@ -251,10 +298,15 @@ def _budget_figure(run: _Run, path: Path) -> Path:
     fig = _figure(7.5, 4.4)
     ax = fig.add_subplot()
     colours = colormaps["viridis"](np.linspace(0.15, 0.95, len(parts)))
-    ax.stackplot(run.hours, *[p[1] for p in parts], labels=[p[0] for p in parts], colors=colours,
-                 alpha=0.9, lw=0)
-    ax.plot(run.hours, ds["mass_released"].values, color="black", lw=1.3, ls="--",
-            label="released")
+    ax.stackplot(
+        run.hours,
+        *[p[1] for p in parts],
+        labels=[p[0] for p in parts],
+        colors=colours,
+        alpha=0.9,
+        lw=0,
+    )
+    ax.plot(run.hours, ds["mass_released"].values, color="black", lw=1.3, ls="--", label="released")
     ax.set_xlabel(run.time_label)
     ax.set_ylabel(f"mass ({ds['mass_released'].attrs.get('units', 'kg')})")
     ax.set_xlim(run.hours[0], run.hours[-1])
@@ -267,7 +319,7 @@ def _budget_figure(run: _Run, path: Path) -> Path:
     return path
 
 
-def _animation(run: _Run, path: Path, fps: float) -> Path:
+def _animation(run: _Run, path: Path, fps: int) -> Path:
     conc = np.asarray(run.ds["concentration"].values)
     fig = _figure(*_map_size(run, 6.4))
     fig.set_dpi(80)
@@ -276,14 +328,13 @@ def _animation(run: _Run, path: Path, fps: float) -> Path:
         artist = _draw_profile(run, ax, conc[0, 0])
     else:
         artist = _draw_map(run, ax, conc[0])
-        bar = fig.colorbar(artist, ax=ax)
-        bar.set_label(f"concentration ({run.units})")
-    title = ax.set_title("", fontsize=10)
+        _colour_bar(run, fig, ax, artist)
+    title = ax.set_title(f"Concentration at {run.stamps[0]}", fontsize=10)
     _footer(fig, f"{run.stamps[0]} to {run.stamps[-1]}")
 
     fig.canvas.draw()
     fig.set_layout_engine("none")  # freeze the layout: solving it anew for every frame is slow
-    writer = PillowWriter(fps=fps)
+    writer = PillowWriter(fps=max(1, int(fps)))
     stride = max(1, -(-conc.shape[0] // MAX_FRAMES))
     with writer.saving(fig, path, dpi=fig.dpi):
         for i in range(0, conc.shape[0], stride):
@@ -318,7 +369,7 @@ def plot_results(
     *,
     times: Sequence[float] | None = None,
     land: xr.DataArray | None = None,
-    fps: float = 4.0,
+    fps: int = 4,
 ) -> list[Path]:
     """Draw the figures of a run into ``outdir``; return the files written.
 
@@ -341,6 +392,7 @@ def plot_results(
     if not os.access(folder, os.W_OK | os.X_OK):
         raise InputError(f"figure directory {str(folder)!r} is not writable; choose another")
     run = _load(ds_or_path, land)
+    chosen = _chosen_indices(run, times)
     written: list[Path] = []
     cmax = (
         run.ds["concentration_max"].values
@@ -348,14 +400,23 @@ def plot_results(
         else run.ds["concentration"].max("time").values
     )
     written.append(
-        _map_figure(run, np.asarray(cmax), "Maximum concentration over the run",
-                    f"{run.stamps[0]} to {run.stamps[-1]}", folder / "concentration_max.png")
+        _map_figure(
+            run,
+            np.asarray(cmax),
+            "Maximum concentration over the run",
+            f"{run.stamps[0]} to {run.stamps[-1]}",
+            folder / "concentration_max.png",
+        )
     )
-    for i in _chosen_indices(run, times):
+    for i in chosen:
         written.append(
-            _map_figure(run, np.asarray(run.ds["concentration"].isel(time=i).values),
-                        f"Concentration at {run.stamps[i]}", run.stamps[i],
-                        folder / f"concentration_t{i:04d}.png")
+            _map_figure(
+                run,
+                np.asarray(run.ds["concentration"].isel(time=i).values),
+                f"Concentration at {run.stamps[i]}",
+                run.stamps[i],
+                folder / f"concentration_t{i:04d}.png",
+            )
         )
     if "receptor_concentration" in run.ds and run.ds.sizes.get("receptor", 0) > 0:
         written.append(_receptor_figure(run, folder / "receptors.png"))

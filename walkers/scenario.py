@@ -385,6 +385,16 @@ SCHEMA = Section(
                     allowed=("straight", "meandering"),
                     only_when="method=estimated",
                 ),
+                "minimum": Key(
+                    "quantity",
+                    "Background coefficient: estimated values below it are raised to it, so that "
+                    "slack or still water (harbour basins) still mixes (common practice: "
+                    "0.1-1 m2/s).",
+                    dimension="diffusivity",
+                    default="0 m2/s",
+                    bound="nonnegative",
+                    only_when="method=estimated",
+                ),
                 "multiplier": Key(
                     "number",
                     "Factor applied to the coefficients.",
@@ -700,6 +710,7 @@ class DispersionSpec:
     constant : the coefficients when constant (m2 s-1).
     manning_n (s m^-1/3) / drag_coefficient : bed roughness when estimated.
     transverse_factor : K_T / (h u*), 0.15 straight or 0.6 meandering (Fischer et al. 1979, ch. 5).
+    minimum : background coefficient (m2 s-1) that estimated values are raised to, in wet cells.
     multiplier : factor on the coefficients.
     """
 
@@ -708,6 +719,7 @@ class DispersionSpec:
     manning_n: float | None = None
     drag_coefficient: float | None = None
     transverse_factor: float = 0.6
+    minimum: float = 0.0
     multiplier: float = 1.0
 
     def resolve(self, flow: FlowField) -> Dispersion:
@@ -745,8 +757,8 @@ class DispersionSpec:
                 drag_coefficient=self.drag_coefficient,
                 transverse_factor=self.transverse_factor,
             )
-            k_l += kl / n
-            k_t += kt / n
+            k_l += np.where(wet, np.maximum(kl, self.minimum), 0.0) / n
+            k_t += np.where(wet, np.maximum(kt, self.minimum), 0.0) / n
         return Dispersion(
             k1=float(k_l.max(initial=0.0)),
             k2=float(k_t.max(initial=0.0)),
@@ -1445,6 +1457,7 @@ def _build_dispersion(d: dict[str, Any]) -> DispersionSpec:
             manning_n=d["manning_n"],
             drag_coefficient=d["drag_coefficient"],
             transverse_factor=factor,
+            minimum=d["minimum"],
             multiplier=d["multiplier"],
         )
     mode: Literal["axes", "aligned"]

@@ -1,0 +1,231 @@
+"""The ``walkers`` command line: a thin layer over the Python API.
+
+Every command turns :class:`walkers.errors.InputError` into a one-line message on stderr and exit
+code 2; a run that fails for another known reason exits 1; anything unexpected is reported as a
+defect (exit 3) with the traceback only when WALKERS_DEBUG=1 is set.
+"""
+
+from __future__ import annotations
+
+import functools
+import os
+import sys
+import time
+import traceback
+from pathlib import Path
+
+import click
+
+import walkers
+from walkers.errors import InputError, WalkersError
+
+EXIT_INPUT = 2
+EXIT_FAILURE = 1
+EXIT_DEFECT = 3
+
+
+def friendly_errors(func):
+    """Report walkers' own errors as clean messages with their exit codes; no tracebacks."""
+
+    @functools.wraps(func)
+    def wrapper(*args, **kwargs):
+        try:
+            return func(*args, **kwargs)
+        except WalkersError as exc:
+            click.echo(f"walkers: error: {exc}", err=True)
+            sys.exit(exc.exit_code)
+        except KeyboardInterrupt:
+            click.echo("walkers: interrupted; nothing was written under the output name", err=True)
+            sys.exit(130)
+        except (click.exceptions.Exit, click.ClickException, SystemExit):
+            raise
+        except Exception as exc:  # a defect of the tool, not of the input
+            if os.environ.get("WALKERS_DEBUG"):
+                traceback.print_exc()
+            click.echo(
+                f"walkers: unexpected failure ({type(exc).__name__}: {exc}). This is a defect of "
+                "walkers; rerun with WALKERS_DEBUG=1 to see the traceback and report it.",
+                err=True,
+            )
+            sys.exit(EXIT_DEFECT)
+
+    return wrapper
+
+
+class Progress:
+    """Progress on stderr: simulated time, particles in water and an estimated time left."""
+
+    def __init__(self, label: str, quiet: bool = False):
+        self.label = label
+        self.quiet = quiet
+        self.started = time.monotonic()
+        self.last = -1.0
+        self.tty = sys.stderr.isatty()
+
+    def __call__(self, done: float, total: float, in_water: int) -> None:
+        if self.quiet:
+            return
+        now = time.monotonic()
+        fraction = done / total if total > 0 else 1.0
+        if not self.tty and fraction < 1.0 and now - self.last < 5.0:
+            return
+        self.last = now
+        elapsed = now - self.started
+        eta = elapsed * (1 - fraction) / fraction if fraction > 0 else float("nan")
+        line = (
+            f"{self.label}: {done / 3600:.2f} h of {total / 3600:.2f} h simulated "
+            f"({100 * fraction:3.0f} %), {in_water} particles in water, "
+            f"about {eta:.0f} s left"
+        )
+        click.echo(("\r" + line) if self.tty else line, err=True, nl=not self.tty)
+        if self.tty and fraction >= 1.0:
+            click.echo("", err=True)
+
+
+@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(walkers.__version__, prog_name="walkers")
+def main() -> None:
+    """Random-walk particle tracking for releases into estuaries, canals and rivers.
+
+    A planning and screening aid: results are only as good as the flow field and the dispersion
+    coefficients behind them.
+    """
+
+
+@main.command("new")
+@click.argument("path", type=click.Path(dir_okay=False, path_type=Path))
+@click.option("--overwrite", is_flag=True, help="Replace PATH if it exists.")
+@friendly_errors
+def new_command(path: Path, overwrite: bool) -> None:
+    """Write a commented scenario template to PATH (TOML)."""
+    from walkers.scenario import template_text
+
+    if path.exists() and not overwrite:
+        raise InputError(f"{str(path)!r} exists; pass --overwrite or choose another name")
+    if not path.parent.is_dir():
+        raise InputError(f"directory {str(path.parent)!r} does not exist; create it first")
+    path.write_text(template_text())
+    click.echo(f"wrote {path}; edit it, then: walkers run {path}")
+
+
+@main.command("run")
+@click.argument("scenario", type=click.Path(dir_okay=False, path_type=Path))
+@click.option("-o", "--output", type=click.Path(dir_okay=False, path_type=Path),
+              help="Output NetCDF file (default: from the scenario, next to it).")
+@click.option("--overwrite", is_flag=True, help="Replace existing output files.")
+@click.option("--plot/--no-plot", default=True, show_default=True,
+              help="Draw the figures next to the output.")
+@click.option("--engine", type=click.Choice(["compiled", "numpy"]), default="compiled",
+              show_default=True, help="Compiled kernels, or their (slow) numpy twin.")
+@click.option("-q", "--quiet", is_flag=True, help="No progress messages.")
+@friendly_errors
+def run_command(scenario: Path, output: Path | None, overwrite: bool, plot: bool, engine: str,
+                quiet: bool) -> None:
+    """Run SCENARIO (TOML) and write CF-NetCDF output, figures and a summary."""
+    from walkers.runner import run_scenario
+    from walkers.scenario import load_scenario
+
+    sc = load_scenario(scenario)
+    outcome = run_scenario(
+        sc, output=output, overwrite=overwrite, engine=engine,  # type: ignore[arg-type]
+        progress=Progress(scenario.name, quiet),
+    )
+    click.echo(outcome.summary)
+    click.echo(f"\nwrote {outcome.path}")
+    if plot:
+        from walkers.plots import plot_results
+
+        figdir = outcome.path.with_name(outcome.path.stem + "_figures")
+        figdir.mkdir(exist_ok=True)
+        for p in plot_results(outcome.path, figdir):
+            click.echo(f"wrote {p}")
+
+
+@main.command("inspect")
+@click.argument("files", nargs=-1, required=True)
+@click.option("--dispersion", default=1.0, show_default=True, type=float,
+              help="Dispersion coefficient K (m2/s) for the time-step advice.")
+@click.option("--time-step", "dt", type=float, default=None, help="A time step (s) to check.")
+@click.option("--map", "map_png", type=click.Path(dir_okay=False, path_type=Path),
+              help="Draw the speed field with land to this PNG.")
+@click.option("--frame", default=0, show_default=True, help="Frame drawn by --map.")
+@friendly_errors
+def inspect_command(files, dispersion: float, dt: float | None, map_png: Path | None,
+                    frame: int) -> None:
+    """Describe flow FILES: grid, CRS, times, variables found, land, speeds, time step."""
+    from walkers.fields.netcdf import open_flow
+    from walkers.inspect import describe_flow, draw_speed_map
+
+    flow = open_flow(list(files))
+    click.echo(describe_flow(flow, dispersion=dispersion, dt=dt))
+    if map_png is not None:
+        draw_speed_map(flow, map_png, frame=frame)
+        click.echo(f"wrote {map_png}")
+
+
+@main.command("verify")
+@click.option("--case", "cases", multiple=True, help="Run only these cases (repeatable).")
+@click.option("--particles", type=int, default=None,
+              help="Particles per case (default: each case's own).")
+@click.option("--seed", type=int, default=20261201, show_default=True)
+@click.option("--report", type=click.Path(dir_okay=False, path_type=Path),
+              help="Also write the results as Markdown (e.g. docs/verification.md).")
+@friendly_errors
+def verify_command(cases, particles: int | None, seed: int, report: Path | None) -> None:
+    """Run the verification cases against published solutions; exit 1 on any failure."""
+    from walkers.verify import CASES, report_markdown, run_case
+
+    names = list(cases) or list(CASES)
+    unknown = [n for n in names if n not in CASES]
+    if unknown:
+        raise InputError(f"unknown case(s) {', '.join(unknown)}; known: {', '.join(CASES)}")
+    results = []
+    for name in names:
+        started = time.monotonic()
+        r = run_case(name, particles=particles, seed=seed)
+        results.append(r)
+        click.echo(f"{'PASS' if r.passed else 'FAIL'}  {name} ({r.particles} particles, "
+                   f"{time.monotonic() - started:.1f} s): {r.title}")
+        for c in r.checks:
+            mark = "ok " if c.passed else "BAD"
+            click.echo(f"   {mark} {c.name}: {c.measured:.6g} (expected {c.expected:.6g}, "
+                       f"tolerance {c.tolerance:.3g}) — {c.source}")
+    if report is not None:
+        report.write_text(report_markdown(results))
+        click.echo(f"wrote {report}")
+    failed = [r.name for r in results if not r.passed]
+    if failed:
+        click.echo(f"{len(failed)} case(s) failed: {', '.join(failed)}", err=True)
+        sys.exit(EXIT_FAILURE)
+    click.echo(f"all {len(results)} cases within tolerance")
+
+
+@main.command("plot")
+@click.argument("result", type=click.Path(dir_okay=False, path_type=Path))
+@click.option("--outdir", type=click.Path(file_okay=False, path_type=Path),
+              help="Folder for the figures (default: <result>_figures).")
+@click.option("--time", "times", multiple=True, type=float,
+              help="Also map these times (hours after the first output; repeatable).")
+@friendly_errors
+def plot_command(result: Path, outdir: Path | None, times) -> None:
+    """Draw maps, receptor series, the mass budget and an animation from a RESULT file."""
+    from walkers.plots import plot_results
+
+    outdir = outdir or result.with_name(result.stem + "_figures")
+    outdir.mkdir(parents=True, exist_ok=True)
+    chosen = [3600.0 * t for t in times] or None
+    for p in plot_results(result, outdir, times=chosen):
+        click.echo(f"wrote {p}")
+
+
+@main.command("export")
+@click.argument("result", type=click.Path(dir_okay=False, path_type=Path))
+@click.argument("csv", type=click.Path(dir_okay=False, path_type=Path))
+@click.option("--overwrite", is_flag=True, help="Replace CSV if it exists.")
+@friendly_errors
+def export_command(result: Path, csv: Path, overwrite: bool) -> None:
+    """Write the receptor series of a RESULT file to CSV (for spreadsheets)."""
+    from walkers.io import open_results, receptors_to_csv
+
+    receptors_to_csv(open_results(result), csv, overwrite=overwrite)
+    click.echo(f"wrote {csv}")

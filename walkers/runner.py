@@ -1,0 +1,227 @@
+"""A scenario from start to finish: build the flow, run, write the outputs, summarise.
+
+The command line's ``walkers run`` is a thin layer over :func:`run_scenario`; from Python the same
+run is ``run_scenario(load_scenario("case.toml"))``, or :func:`simulate_scenario` for the Dataset
+alone without writing anything.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import hashlib
+import json
+import os
+from collections.abc import Callable
+from dataclasses import dataclass
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any, Literal
+
+import numpy as np
+import xarray as xr
+
+import walkers
+from walkers.config import Release
+from walkers.errors import InputError
+from walkers.fields.base import FlowField
+from walkers.scenario import Scenario, load_scenario
+from walkers.simulate import RunState, simulate
+
+
+@dataclass
+class RunOutcome:
+    """What a run produced: the result Dataset, the file written (if any) and the summary text."""
+
+    results: xr.Dataset
+    path: Path | None
+    summary: str
+
+
+def flow_offset(scenario: Scenario, flow: FlowField) -> float:
+    """Seconds of the run start in the flow's time frame (0 for analytic flows)."""
+    if scenario.flow.kind == "analytic":
+        return 0.0
+    from walkers.fields.netcdf import to_flow_seconds
+
+    return float(to_flow_seconds(scenario.start_iso, flow))
+
+
+def shift_release(release: Release, offset: float) -> Release:
+    """A release with its times moved into the flow's frame (seconds)."""
+    rate_times = None if release.rate_times is None else np.asarray(release.rate_times) + offset
+    return dataclasses.replace(release, start=release.start + offset, rate_times=rate_times)
+
+
+def check_places(scenario: Scenario, flow: FlowField, offset: float) -> None:
+    """Releases and receptors must be in water at the run start; the grid must overlap."""
+    scenario.check_flow(flow)
+    if scenario.flow.kind != "files":
+        return
+    from walkers.fields.netcdf import check_points_in_water
+
+    for i, rel in enumerate(scenario.releases):
+        pts = np.atleast_2d(rel.coords)
+        check_points_in_water(
+            flow, pts[:1, 0], pts[:1, 1], f"releases[{i}] ({rel.name})", t=offset + rel.start
+        )
+    for i, rec in enumerate(scenario.receptors):
+        check_points_in_water(
+            flow, np.array([rec.x]), np.array([rec.y]), f"receptors[{i}] ({rec.name})", t=offset
+        )
+
+
+def land_on_output_grid(flow: FlowField, scenario: Scenario, t0: float, t1: float) -> np.ndarray:
+    """1 where the output cell centre lies in a flow cell that is dry in every frame of the run."""
+    g = scenario.output
+    xe = np.concatenate([[-np.inf], 0.5 * (flow.x[1:] + flow.x[:-1]), [np.inf]])
+    ye = np.concatenate([[-np.inf], 0.5 * (flow.y[1:] + flow.y[:-1]), [np.inf]])
+    i = np.searchsorted(xe, g.x, side="right") - 1
+    j = np.searchsorted(ye, g.y, side="right") - 1
+    ever_wet = np.zeros((flow.y.size, flow.x.size), dtype=bool)
+    i0, i1 = flow.frame_range(t0, t1)
+    for k in range(i0, i1 + 1):
+        ever_wet |= flow.wet.frames(k, k)[0] > 0.5
+    return (~ever_wet[np.ix_(j, i)]).astype(np.int8)
+
+
+def input_provenance(scenario: Scenario) -> list[dict[str, Any]]:
+    """Name, size, modification time and SHA-256 of every input file of the scenario."""
+    paths = list(scenario.flow.paths)
+    if scenario.source_path is not None:
+        paths.insert(0, Path(scenario.source_path))
+    records = []
+    for p in paths:
+        p = Path(p)
+        digest = hashlib.sha256()
+        with open(p, "rb") as fh:
+            for block in iter(lambda fh=fh: fh.read(1 << 20), b""):
+                digest.update(block)
+        st = p.stat()
+        records.append(
+            {
+                "path": str(p),
+                "bytes": st.st_size,
+                "modified": datetime.fromtimestamp(st.st_mtime, UTC).isoformat(timespec="seconds"),
+                "sha256": digest.hexdigest(),
+            }
+        )
+    return records
+
+
+def simulate_scenario(
+    scenario: Scenario,
+    *,
+    engine: Literal["compiled", "numpy"] = "compiled",
+    progress: Callable[[float, float, int], None] | None = None,
+    resume: RunState | None = None,
+    on_output: Callable[[RunState], None] | None = None,
+    flow: FlowField | None = None,
+) -> xr.Dataset:
+    """Run a scenario and return its result Dataset (nothing is written)."""
+    flow = scenario.flow.build() if flow is None else flow
+    offset = flow_offset(scenario, flow)
+    check_places(scenario, flow, offset)
+    transport = scenario.transport_for(flow)
+    releases = [shift_release(r, offset) for r in scenario.releases]
+    ds = simulate(
+        flow,
+        transport,
+        releases,
+        start=offset,
+        end=offset + scenario.duration,
+        output_interval=scenario.output_interval,
+        output_grid=scenario.output,
+        receptors=scenario.receptors,
+        seed=scenario.seed,
+        tracks=scenario.tracks,
+        time_step_check="substep" if scenario.substep else "fail",
+        engine=engine,
+        progress=progress,
+        title=scenario.title,
+        scenario_text=scenario.text or "",
+        resume=resume,
+        on_output=on_output,
+    )
+    ds["land"] = (
+        ("y", "x"),
+        land_on_output_grid(flow, scenario, offset, offset + scenario.duration),
+        {"units": "1", "long_name": "land or never-wet cell (1) in the flow",
+         "flag_values": np.array([0, 1], dtype=np.int8), "flag_meanings": "water land"},
+    )
+    ds.attrs["input_files"] = json.dumps(input_provenance(scenario))
+    ds.attrs["run_start"] = scenario.start_iso
+    ds.attrs["run_end"] = scenario.end_iso
+    return ds
+
+
+def run_scenario(
+    scenario: Scenario | str | os.PathLike,
+    *,
+    output: str | os.PathLike | None = None,
+    overwrite: bool = False,
+    engine: Literal["compiled", "numpy"] = "compiled",
+    progress: Callable[[float, float, int], None] | None = None,
+    resume: RunState | None = None,
+    on_output: Callable[[RunState], None] | None = None,
+) -> RunOutcome:
+    """Run a scenario, write its CF-NetCDF output atomically and return the outcome.
+
+    The target is checked before the run starts, so a long run never ends on "file exists".
+    """
+    from walkers import io
+
+    if not isinstance(scenario, Scenario):
+        scenario = load_scenario(scenario)
+    path = Path(output) if output is not None else Path(scenario.output_path)
+    io.check_target(path, overwrite)
+    ds = simulate_scenario(
+        scenario, engine=engine, progress=progress, resume=resume, on_output=on_output
+    )
+    io.write_results(ds, path, overwrite=overwrite)
+    return RunOutcome(ds, path, summary_text(ds))
+
+
+def _iso(ds: xr.Dataset, seconds: float) -> str:
+    from walkers.io import iso_times
+
+    t = xr.DataArray([seconds], dims="time", attrs=ds.time.attrs)
+    return iso_times(t)[0]
+
+
+def summary_text(ds: xr.Dataset) -> str:
+    """The end-of-run summary: mass budget, and per receptor the peak, arrival and exceedance."""
+    t = ds.time.values
+    lines = [f"{ds.attrs.get('title') or 'walkers run'}", ""]
+    released = float(ds.mass_released[-1])
+    lines.append(f"Mass budget at {_iso(ds, float(t[-1]))} (kg):")
+    lines.append(f"  released        {released:12.6g}")
+    lines.append(f"  in water        {float(ds.mass_in_water[-1]):12.6g}")
+    for e in ds.edge.values:
+        lines.append(f"  left via {str(e):7s}{float(ds.mass_left.sel(edge=e)[-1]):12.6g}")
+    lines.append(f"  decayed         {float(ds.mass_decayed[-1]):12.6g}")
+    lines.append(f"  stranded (dry)  {float(ds.mass_stranded[-1]):12.6g}")
+    residual = released - float(
+        ds.mass_in_water[-1] + ds.mass_left[:, -1].sum() + ds.mass_decayed[-1]
+        + ds.mass_stranded[-1]
+    )
+    lines.append(f"  closure error   {residual:12.3g}")
+    if ds.sizes.get("receptor", 0):
+        lines += ["", "Receptors (concentration in mg/L = g/m3 = 1e-3 kg/m3):"]
+        dt = float(t[1] - t[0]) if len(t) > 1 else 0.0
+        for k, name in enumerate(ds.receptor.values):
+            series = ds.receptor_concentration.values[k]
+            peak = float(np.nanmax(series)) if np.isfinite(series).any() else float("nan")
+            when = _iso(ds, float(t[int(np.nanargmax(series))])) if peak > 0 else "-"
+            lines.append(f"  {name}: peak {peak * 1e3:.4g} mg/L at {when}")
+            if "receptor_threshold" in ds:
+                for thr in ds.receptor_threshold.values[k]:
+                    if not np.isfinite(thr):
+                        continue
+                    above = series > thr
+                    first = _iso(ds, float(t[np.argmax(above)])) if above.any() else "never"
+                    lines.append(
+                        f"    above {thr * 1e3:.4g} mg/L: first at {first}, for about "
+                        f"{above.sum() * dt / 3600.0:.3g} h (output interval {dt / 60:.3g} min)"
+                    )
+    lines += ["", f"Caution: {walkers.CAUTION}"]
+    return "\n".join(lines)
