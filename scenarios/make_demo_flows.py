@@ -437,6 +437,9 @@ def write_flow(ds: xr.Dataset, path: Path) -> None:
         enc: dict[str, object] = {"_FillValue": None}
         if var.ndim >= 2:
             enc.update(zlib=True, complevel=6, shuffle=True)
+        if var.ndim == 3 and "time" in var.dims:
+            # one frame a chunk: a reader that asks for a few frames decompresses only those
+            enc["chunksizes"] = (1, *var.shape[1:])
         encoding[name] = enc
     tmp = path.with_name(path.name + ".part")
     ds.to_netcdf(tmp, format="NETCDF4", engine="netcdf4", encoding=encoding)

@@ -652,6 +652,7 @@ class _FlowSource:
         self.constant_depth = constant_depth
         self.frames_read = 0
         self._cache: tuple[tuple[int, int], dict[str, np.ndarray]] | None = None
+        self._handles: dict[int, netCDF4.Dataset] = {}
         self.static: dict[str, np.ndarray] = {}
         with netCDF4.Dataset(paths[int(frame_file[0]) if frame_file.size else 0]) as ds:
             for role, lay in layouts.items():
@@ -673,7 +674,20 @@ class _FlowSource:
         # sent to other processes without the cached block; files are reopened there
         state = dict(self.__dict__)
         state["_cache"] = None
+        state["_handles"] = {}
         return state
+
+    def _dataset(self, f: int) -> netCDF4.Dataset:
+        """File f, kept open between reads (its chunk cache then serves neighbouring frames)."""
+        if f not in self._handles:
+            self._handles[f] = netCDF4.Dataset(self.paths[f])
+        return self._handles[f]
+
+    def close(self) -> None:
+        """Close the files kept open for reading frames."""
+        for ds in self._handles.values():
+            ds.close()
+        self._handles.clear()
 
     def _read_raw(self, i0: int, i1: int) -> dict[str, np.ndarray]:
         """Time-varying roles for frames i0..i1 (inclusive), arranged, straight from the files."""
@@ -689,10 +703,10 @@ class _FlowSource:
             ):
                 k_end += 1
             a, b = int(self.frame_local[k]), int(self.frame_local[k_end]) + 1
-            with netCDF4.Dataset(self.paths[f]) as ds:
-                for role in self.varying:
-                    lay = self.layouts[role]
-                    out[role].append(lay.arrange(ds.variables[lay.name][lay.index(a, b)]))
+            ds = self._dataset(f)
+            for role in self.varying:
+                lay = self.layouts[role]
+                out[role].append(lay.arrange(ds.variables[lay.name][lay.index(a, b)]))
             k = k_end + 1
         self.frames_read += i1 - i0 + 1
         return {r: np.concatenate(parts, axis=0) for r, parts in out.items()}
