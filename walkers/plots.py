@@ -34,7 +34,7 @@ CONC_CMAP = "viridis"
 LAND_COLOUR = "#cfc8b8"
 RECEPTOR_COLOUR = "#d1495b"
 FOOTER_HEIGHT = 0.09  # fraction of the figure height kept free for the time and the caution
-MAX_FRAMES = 120  # longer runs are animated on every n-th output time
+MAX_FRAMES = 25  # frames in the animated GIF at most (every k-th output time)
 DECADES = 4  # decades of concentration shown below the maximum on the log colour scale
 
 
@@ -167,25 +167,35 @@ def _draw_receptors(run: _Run, ax: Axes, one_d: bool = False) -> None:
 
 
 def _draw_map(run: _Run, ax: Axes, field: np.ndarray):
-    """Land, the concentration field (log scale, empty cells blank) and the receptors."""
+    """Land, the concentration field (log scale, empty cells blank) and the receptors.
+
+    The output grid is regular, so both layers are images (far faster to draw than meshes,
+    which matters for the animation).
+    """
     xe, ye = _edges(run.ds["x"].values), _edges(run.ds["y"].values)
+    extent = (xe[0], xe[-1], ye[0], ye[-1])
     if run.land is not None:
-        ax.pcolormesh(
-            xe,
-            ye,
+        ax.imshow(
             np.ma.masked_where(~run.land, run.land.astype(float)),
             cmap=ListedColormap([LAND_COLOUR]),
-            shading="flat",
+            extent=extent,
+            origin="lower",
+            interpolation="nearest",
         )
     cmap = colormaps[CONC_CMAP].with_extremes(bad=(0, 0, 0, 0), under=(0, 0, 0, 0))
-    mesh = ax.pcolormesh(
-        xe, ye, np.ma.masked_less_equal(field, 0.0), cmap=cmap, norm=run.norm, shading="flat"
+    image = ax.imshow(
+        np.ma.masked_less_equal(field, 0.0),
+        cmap=cmap,
+        norm=run.norm,
+        extent=extent,
+        origin="lower",
+        interpolation="nearest",
     )
     _style_map_axes(run, ax)
     _draw_receptors(run, ax)
     ax.set_xlim(xe[0], xe[-1])
     ax.set_ylim(ye[0], ye[-1])
-    return mesh
+    return image
 
 
 def _map_size(run: _Run, width: float) -> tuple[float, float]:
@@ -341,7 +351,7 @@ def _animation(run: _Run, path: Path, fps: int) -> Path:
             if run.one_dimensional:
                 artist.set_ydata(np.where(conc[i, 0] > 0, conc[i, 0], np.nan))
             else:
-                artist.set_array(np.ma.masked_less_equal(conc[i], 0.0))
+                artist.set_data(np.ma.masked_less_equal(conc[i], 0.0))
             title.set_text(f"Concentration at {run.stamps[i]}")
             writer.grab_frame()
     return path
