@@ -1,0 +1,121 @@
+"""The command line end to end: demo scenarios, GIS and CF checks on real outputs, exit codes.
+
+External references: the CF checker (cfchecker, CF Conventions 1.8, Eaton et al. 2020) and GDAL's
+netCDF driver through rasterio, as in tests/test_io.py.
+"""
+
+import tomllib
+import warnings
+from pathlib import Path
+
+import numpy as np
+import pytest
+import xarray as xr
+from click.testing import CliRunner
+from test_io import cf_errors
+
+import walkers
+from walkers.cli import main
+from walkers.runner import run_scenario
+from walkers.scenario import load_scenario
+
+SCENARIOS = Path(__file__).resolve().parents[1] / "scenarios"
+
+
+def short_demo(name: str, hours: float, particles: int) -> dict:
+    """A demo scenario cut short, as a dict (so tests stay quick)."""
+    data = tomllib.loads((SCENARIOS / name).read_text())
+    start = np.datetime64(data["run"]["start"].replace("Z", ""))
+    end = start + np.timedelta64(int(hours * 3600), "s")
+    data["run"]["end"] = str(end) + "Z"
+    for rel in data["releases"]:
+        rel["particles"] = particles
+        rel_start = np.datetime64(rel["start"].replace("Z", ""))
+        rel["start"] = str(min(rel_start, start + np.timedelta64(1800, "s"))) + "Z"
+    return data
+
+
+@pytest.fixture(scope="module")
+def estuary_output(tmp_path_factory):
+    data = short_demo("saltmarsh_estuary.toml", hours=6.0, particles=3000)
+    scenario = load_scenario(data, base_dir=SCENARIOS)
+    path = tmp_path_factory.mktemp("estuary") / "estuary.nc"
+    outcome = run_scenario(scenario, output=path)
+    return outcome
+
+
+def test_demo_output_passes_the_cf_checker(estuary_output):
+    errors, report = cf_errors(estuary_output.path)
+    assert errors == 0, report
+
+
+def test_demo_output_opens_in_gdal_with_the_same_georeferencing(estuary_output):
+    rasterio = pytest.importorskip("rasterio")
+    ds = xr.open_dataset(estuary_output.path)
+    x, y = ds.x.values, ds.y.values
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        with rasterio.open(f'NETCDF:"{estuary_output.path}":concentration_max') as src:
+            assert src.crs.to_epsg() == 32630  # the demo flow's CRS, carried through
+            assert src.transform.c == pytest.approx(x[0] - 50.0)
+            assert src.transform.f == pytest.approx(y[-1] + 50.0)
+            np.testing.assert_array_equal(src.read(1), ds.concentration_max.values[::-1])
+
+
+def test_demo_mass_budget_closes_and_summary_carries_the_caution(estuary_output):
+    ds = estuary_output.results
+    residual = (ds.mass_released - ds.mass_in_water - ds.mass_left.sum("edge")
+                - ds.mass_decayed - ds.mass_stranded)
+    assert float(abs(residual).max()) <= 1e-12 * float(ds.mass_released.max())
+    assert float(ds.mass_released[-1]) == pytest.approx(500.0, rel=1e-12)  # all of it by 05:30
+    assert walkers.CAUTION in estuary_output.summary
+    assert "bathing beach" in estuary_output.summary
+
+
+def test_run_command_writes_output_figures_and_keeps_existing_files(tmp_path):
+    runner = CliRunner()
+    case = tmp_path / "case.toml"
+    assert runner.invoke(main, ["new", str(case)]).exit_code == 0
+    text = case.read_text().replace("particles = 20000", "particles = 500")
+    case.write_text(text)
+    result = runner.invoke(main, ["run", str(case), "-q"])
+    assert result.exit_code == 0, result.output
+    out = tmp_path / "case.nc"
+    assert out.is_file() and (tmp_path / "case_figures" / "concentration_max.png").is_file()
+    assert walkers.CAUTION in result.output
+    before = out.read_bytes()
+    again = runner.invoke(main, ["run", str(case), "-q", "--no-plot"])
+    assert again.exit_code == 2 and "--overwrite" in again.output
+    assert out.read_bytes() == before
+    assert "Traceback" not in again.output
+    replaced = runner.invoke(main, ["run", str(case), "-q", "--no-plot", "--overwrite"])
+    assert replaced.exit_code == 0
+
+
+def test_export_writes_receptor_csv(estuary_output, tmp_path):
+    result = CliRunner().invoke(main, ["export", str(estuary_output.path), str(tmp_path / "r.csv")])
+    assert result.exit_code == 0, result.output
+    header = (tmp_path / "r.csv").read_text().splitlines()[0]
+    assert "bathing beach (kg m-3)" in header
+
+
+def test_version_is_shown():
+    result = CliRunner().invoke(main, ["--version"])
+    assert walkers.__version__ in result.output
+
+
+def test_verify_command_reports_and_fails_on_unknown_case():
+    runner = CliRunner()
+    ok = runner.invoke(main, ["verify", "--case", "rotation"])
+    assert ok.exit_code == 0 and "PASS" in ok.output and "Butcher" in ok.output
+    bad = runner.invoke(main, ["verify", "--case", "nonsense"])
+    assert bad.exit_code == 2 and "known:" in bad.output
+
+
+def test_inspect_command_describes_the_demo_flow(tmp_path):
+    result = CliRunner().invoke(
+        main, ["inspect", str(SCENARIOS / "millbrook_canal_flow.nc"), "--map",
+               str(tmp_path / "speed.png")]
+    )
+    assert result.exit_code == 0, result.output
+    assert "EPSG:32630" in result.output and (tmp_path / "speed.png").is_file()
