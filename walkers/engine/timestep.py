@@ -31,7 +31,7 @@ class TimeStepReport:
     """Outcome of the check for a time step dt (s)."""
 
     dt: float
-    max_speed: float  # m s-1
+    max_speed: float  # m s-1 (largest velocity component)
     min_cell: float  # m
     max_k: float  # m2 s-1
     max_k_curvature: float  # s-1 (|∂²K/∂x²| in m2 s-1 per m2)
@@ -92,11 +92,19 @@ def check_time_step(flow: FlowField, transport: Transport, t0: float, t1: float)
     min_cell = float(min(dxs.min(), dys.min()))
     i0, i1 = flow.frame_range(t0, t1)
     max_speed = 0.0
+    fastest = ""
     for i in range(i0, i1 + 1):
         w = flow.window(flow.times[i], flow.times[i])
-        u = np.abs(w.u[0]).max() if w.u.size else 0.0
-        v = np.abs(w.v[0]).max() if w.v.size else 0.0
-        max_speed = max(max_speed, float(math.hypot(u, v)))
+        for var, arr in ((flow.u, w.u[0]), (flow.v, w.v[0])):
+            if not arr.size:
+                continue
+            j, k = np.unravel_index(int(np.argmax(np.abs(arr))), arr.shape)
+            if abs(arr[j, k]) > max_speed:
+                max_speed = float(abs(arr[j, k]))
+                fastest = (
+                    f"at x = {var.x[k]:.6g}, y = {var.y[j]:.6g} (frame time {flow.times[i]:g} s, "
+                    f"{flow.time_units})"
+                )
     d = transport.dispersion
     fields = [f for f in (d.k1_field, d.k2_field) if f is not None]
     ks = [np.max(f) for f in fields] + [d.k1 if d.k1_field is None else 0.0]
@@ -121,6 +129,6 @@ def check_time_step(flow: FlowField, transport: Transport, t0: float, t1: float)
         advection_ratio=max_speed * dt / min_cell,
         dispersion_ratio=math.sqrt(2.0 * max_k * dt) / min_cell,
         curvature_ratio=dt * curvature / VISSER_FACTOR,
-        where=f"for this grid (smallest cell {min_cell:.3g} m) and flow (max speed "
-        f"{max_speed:.3g} m/s)",
+        where=f"for this grid (smallest cell {min_cell:.3g} m) and flow (fastest "
+        f"{max_speed:.3g} m/s {fastest})",
     )
