@@ -15,7 +15,6 @@ import numpy as np
 from walkers.errors import InputError
 
 EDGE_NAMES = ("west", "east", "south", "north")
-EdgeMode = Literal["reflecting", "absorbing"]
 
 
 @dataclass(frozen=True)
@@ -70,9 +69,9 @@ class Transport:
 
     dt: float
     dispersion: Dispersion = field(default_factory=Dispersion)
-    scheme: Literal["euler", "rk4"] = "euler"
+    scheme: str = "euler"
     decay_rate: float = 0.0
-    edges: dict[str, EdgeMode] = field(
+    edges: dict[str, str] = field(
         default_factory=lambda: dict.fromkeys(EDGE_NAMES, "absorbing")
     )
     substeps: int = 1

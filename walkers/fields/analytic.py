@@ -11,6 +11,7 @@ from __future__ import annotations
 from collections.abc import Callable
 
 import numpy as np
+import numpy.typing as npt
 
 from walkers.errors import InputError
 from walkers.fields.base import FlowField, GriddedVariable
@@ -19,12 +20,12 @@ FLOW_KINDS = ("uniform", "shear", "rotation", "tidal")
 
 
 def grid_flow(
-    x: np.ndarray,
-    y: np.ndarray,
-    times: np.ndarray,
+    x: npt.ArrayLike,
+    y: npt.ArrayLike,
+    times: npt.ArrayLike,
     velocity: Callable[[np.ndarray, np.ndarray, float], tuple[np.ndarray, np.ndarray]],
-    depth: float | np.ndarray = 10.0,
-    wet: np.ndarray | None = None,
+    depth: npt.ArrayLike = 10.0,
+    wet: npt.ArrayLike | None = None,
     time_units: str = "seconds since 2000-01-01T00:00:00+00:00",
     ndim: int = 2,
 ) -> FlowField:
