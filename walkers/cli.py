@@ -118,18 +118,93 @@ def new_command(path: Path, overwrite: bool) -> None:
 @click.option("--engine", type=click.Choice(["compiled", "numpy"]), default="compiled",
               show_default=True, help="Compiled kernels, or their (slow) numpy twin.")
 @click.option("-q", "--quiet", is_flag=True, help="No progress messages.")
+@click.option("--checkpoint-every", "checkpoint_every", metavar="DURATION",
+              help='Save the run state every DURATION of simulated time (e.g. "2 h"; at output '
+                   "times) to <output>.checkpoint.npz, so an interrupted run can be resumed.")
+@click.option("--resume", is_flag=True,
+              help="Continue an interrupted run from its checkpoint (same scenario and seed); "
+                   "the result is bitwise that of an uninterrupted run.")
 @friendly_errors
 def run_command(scenario: Path, output: Path | None, overwrite: bool, plot: bool, engine: str,
-                quiet: bool) -> None:
-    """Run SCENARIO (TOML) and write CF-NetCDF output, figures and a summary."""
+                quiet: bool, checkpoint_every: str | None, resume: bool) -> None:
+    """Run SCENARIO (TOML) and write CF-NetCDF output, figures and a summary.
+
+    Ctrl-C or SIGTERM stops the run at once, writes nothing under the output name and says how
+    to resume when a checkpoint was saved.
+    """
+    import datetime as dt
+    import signal
+    import threading
+
+    from walkers.checkpoint import (
+        Checkpointer,
+        checkpoint_path,
+        load_checkpoint,
+        read_checkpoint_meta,
+        remove_checkpoint,
+        run_fingerprint,
+    )
     from walkers.runner import run_scenario
     from walkers.scenario import load_scenario
+    from walkers.units import parse_quantity
 
-    sc = load_scenario(scenario)
-    outcome = run_scenario(
-        sc, output=output, overwrite=overwrite, engine=engine,  # type: ignore[arg-type]
-        progress=Progress(scenario.name, quiet),
-    )
+    def terminate(signum, frame):
+        raise KeyboardInterrupt
+
+    main_thread = threading.current_thread() is threading.main_thread()
+    previous = signal.signal(signal.SIGTERM, terminate) if main_thread else None
+    try:
+        sc = load_scenario(scenario)
+        target = Path(output) if output is not None else Path(sc.output_path)
+        ckpt = checkpoint_path(target)
+        fingerprint = run_fingerprint(sc, engine)
+        every = None
+        if checkpoint_every is not None:
+            every = parse_quantity(checkpoint_every, "time", "--checkpoint-every")
+        state = load_checkpoint(ckpt, fingerprint) if resume else None
+        if state is None and ckpt.exists():
+            raise InputError(
+                f"{str(ckpt)!r}: a checkpoint of an interrupted run of this output exists; "
+                "continue that run with --resume, or delete the checkpoint to start afresh"
+            )
+        saver = None
+        if every is not None:
+            outputs = int(round(sc.duration / sc.output_interval)) + 1
+            saver = Checkpointer(
+                ckpt, fingerprint, every, sc.output_interval, outputs,
+                time_of=lambda k: (sc.start + dt.timedelta(seconds=k * sc.output_interval))
+                .isoformat(),
+            )
+        try:
+            outcome = run_scenario(
+                sc, output=target, overwrite=overwrite, engine=engine,  # type: ignore[arg-type]
+                progress=Progress(scenario.name, quiet), resume=state, on_output=saver,
+            )
+        except KeyboardInterrupt:
+            if ckpt.exists():
+                again = [f"walkers run {scenario}"]
+                if output is not None:
+                    again.append(f"-o {output}")
+                if engine != "compiled":
+                    again.append(f"--engine {engine}")
+                again.append("--resume")
+                if checkpoint_every is not None:
+                    again.append(f'--checkpoint-every "{checkpoint_every}"')
+                last = read_checkpoint_meta(ckpt).get("time") or "an output time"
+                click.echo(
+                    f"walkers: the run state at {last} is saved in {ckpt}; continue with: "
+                    f"{' '.join(again)}", err=True,
+                )
+            else:
+                click.echo(
+                    "walkers: no checkpoint was saved; to be able to resume an interrupted run, "
+                    'pass --checkpoint-every (e.g. "2 h")', err=True,
+                )
+            raise
+        remove_checkpoint(ckpt)
+    finally:
+        if main_thread:
+            signal.signal(signal.SIGTERM, signal.SIG_DFL if previous is None else previous)
     click.echo(outcome.summary)
     click.echo(f"\nwrote {outcome.path}")
     if plot:
@@ -229,3 +304,92 @@ def export_command(result: Path, csv: Path, overwrite: bool) -> None:
 
     receptors_to_csv(open_results(result), csv, overwrite=overwrite)
     click.echo(f"wrote {csv}")
+
+
+@main.command("bench")
+@click.option("--quick", is_flag=True,
+              help="Smaller sizes and fewer repeats (under 30 s); the peak memory of 10 M "
+                   "particles is then projected from 1 M.")
+@click.option("--json", "as_json", is_flag=True, help="Print the figures as one JSON object.")
+@click.option("--particles", type=click.IntRange(min=100), default=None,
+              help="Particles moved [default: 200000; 20000 with --quick].")
+@click.option("--repeats", type=click.IntRange(min=1), default=None,
+              help="Timed repeats per figure; medians are reported [default: 5; 3 with --quick].")
+@friendly_errors
+def bench_command(quick: bool, as_json: bool, particles: int | None, repeats: int | None) -> None:
+    """Measure the engine's speed, memory and start-up on a reference workload."""
+    import json
+
+    from walkers.bench import format_report, run_benchmark
+
+    progress = None if as_json else (lambda note: click.echo(f"... {note}", err=True))
+    result = run_benchmark(quick=quick, particles=particles, repeats=repeats, progress=progress)
+    click.echo(json.dumps(result, indent=2) if as_json else format_report(result))
+
+
+@main.command("ensemble")
+@click.argument("scenario", type=click.Path(dir_okay=False, path_type=Path))
+@click.option("-o", "--output", type=click.Path(dir_okay=False, path_type=Path),
+              help="Output NetCDF file (default: the scenario's output file with _ensemble).")
+@click.option("--members", type=int, default=None,
+              help="Number of members (default: ensemble.members of the scenario).")
+@click.option("--workers", type=int, default=0, show_default=True,
+              help="0 runs in this process; N starts a local Dask cluster of N workers.")
+@click.option("--scheduler", default=None,
+              help="Address of a running Dask scheduler, e.g. tcp://10.0.0.5:8786.")
+@click.option("--threshold", "thresholds", multiple=True,
+              help='Extra concentration threshold, e.g. "0.05 mg/L" (repeatable).')
+@click.option("--overwrite", is_flag=True, help="Replace an existing output file.")
+@click.option("--plot/--no-plot", default=True, show_default=True,
+              help="Draw the ensemble figures next to the output.")
+@click.option("-q", "--quiet", is_flag=True, help="No progress messages.")
+@friendly_errors
+def ensemble_command(scenario: Path, output: Path | None, members: int | None, workers: int,
+                     scheduler: str | None, thresholds, overwrite: bool, plot: bool,
+                     quiet: bool) -> None:
+    """Run the ensemble of SCENARIO (TOML with an [ensemble] table): exceedance probabilities,
+    receptor distributions and the member table, written as CF-NetCDF with figures."""
+    from walkers.ensemble import run_ensemble, summary_text, write_ensemble
+    from walkers.io import check_target
+    from walkers.scenario import load_scenario
+    from walkers.units import parse_quantity
+
+    sc = load_scenario(scenario)
+    if sc.ensemble is None:
+        raise InputError(f"{scenario}: no [ensemble] table; add one with at least 'members'")
+    extra = [parse_quantity(t, "concentration", f"--threshold {t!r}") for t in thresholds]
+    if output is None:
+        stem = sc.output_path.stem
+        output = sc.output_path.with_name(
+            f"{stem}.nc" if stem.endswith("_ensemble") else f"{stem}_ensemble.nc"
+        )
+    check_target(output, overwrite)
+    started = time.monotonic()
+    last = [0.0]
+
+    def progress(done: int, total: int) -> None:
+        now = time.monotonic()
+        if quiet or (done < total and now - last[0] < 5.0):
+            return
+        last[0] = now
+        elapsed = now - started
+        left = elapsed * (total - done) / done if done else float("nan")
+        click.echo(f"{scenario.name}: {done} of {total} members ({100 * done / total:3.0f} %), "
+                   f"about {left:.0f} s left", err=True)
+
+    ds = run_ensemble(sc, members=members, workers=workers, scheduler=scheduler,
+                      progress=progress, thresholds=extra)
+    elapsed = time.monotonic() - started
+    write_ensemble(ds, output, overwrite=overwrite)
+    click.echo(summary_text(ds))
+    click.echo(f"\n{ds.sizes['member']} members, {ds.attrs['particle_steps']:.3g} "
+               f"member-particle-steps in {elapsed:.1f} s "
+               f"({ds.attrs['particle_steps'] / elapsed:.3g} per second)")
+    click.echo(f"wrote {output}")
+    if plot:
+        from walkers.plots_ensemble import plot_ensemble
+
+        figdir = output.with_name(output.stem + "_figures")
+        figdir.mkdir(exist_ok=True)
+        for p in plot_ensemble(ds, figdir):
+            click.echo(f"wrote {p}")

@@ -22,10 +22,16 @@ import xarray as xr
 
 import walkers
 from walkers.config import Release
+from walkers.engine.state import BYTES_PER_PARTICLE
 from walkers.errors import InputError
 from walkers.fields.base import FlowField
 from walkers.scenario import Scenario, load_scenario
 from walkers.simulate import RunState, simulate
+
+#: Bytes of memory a particle takes during a run: its state (BYTES_PER_PARTICLE), its release index
+#: (int32) and the temporaries of the reductions at output times (depth, weight and two selections
+#: of masses, float64 each).
+PARTICLE_WORKING_BYTES = BYTES_PER_PARTICLE + 4 + 4 * 8
 
 
 @dataclass
@@ -84,6 +90,59 @@ def land_on_output_grid(flow: FlowField, scenario: Scenario, t0: float, t1: floa
     return (~ever_wet[np.ix_(j, i)]).astype(np.int8)
 
 
+def memory_estimate(scenario: Scenario, flow: FlowField) -> tuple[int, int]:
+    """(bytes per particle, bytes of everything else) a run of ``scenario`` on ``flow`` needs.
+
+    Everything else: the output arrays kept for every output time (concentration float64, counts
+    int32, smoothed concentration float64 if asked, receptor series and sampled tracks), counted
+    twice because the file writer holds a copy, and the window of flow frames in memory (about
+    ten float64 arrays per frame on the flow grid: velocities, depth, wet mask, drift and
+    dispersion coefficients).
+    """
+    g = scenario.output
+    nt = int(round(scenario.duration / scenario.output_interval)) + 1
+    per_time = g.nx * g.ny * (8 + 4 + (8 if g.bandwidth > 0 else 0))
+    per_time += 8 * len(scenario.receptors) + 2 * 8 * scenario.tracks
+    outputs = 2 * nt * per_time
+    frames = 1
+    if not flow.steady:
+        spacing = float(np.median(np.diff(flow.times)))
+        frames = min(len(flow.times), int(np.ceil(scenario.output_interval / spacing)) + 2)
+    window = 10 * 8 * frames * flow.x.size * flow.y.size
+    return PARTICLE_WORKING_BYTES, outputs + window
+
+
+def check_memory(scenario: Scenario, flow: FlowField) -> None:
+    """Refuse, before the run, a run that would not fit in the memory available now.
+
+    Compares :func:`memory_estimate` with ``psutil.virtual_memory().available`` and says how many
+    particles would fit.
+    """
+    import psutil
+
+    per_particle, fixed = memory_estimate(scenario, flow)
+    particles = scenario.total_particles
+    need = particles * per_particle + fixed
+    available = int(psutil.virtual_memory().available)
+    if need <= available:
+        return
+    nt = int(round(scenario.duration / scenario.output_interval)) + 1
+    cells = scenario.output.nx * scenario.output.ny
+    if fixed >= available:
+        raise InputError(
+            f"output: {nt} output times of {cells} cells need about {fixed / 1e9:.3g} GB of "
+            f"memory, more than the {available / 1e9:.3g} GB available; use a coarser "
+            "output.grid (larger cell_size or a smaller area) or a longer run.output_interval"
+        )
+    fit = (available - fixed) // per_particle
+    raise InputError(
+        f"releases: {particles} particles need about {particles * per_particle / 1e9:.3g} GB of "
+        f"memory ({per_particle} bytes each) and the outputs about {fixed / 1e9:.3g} GB, but only "
+        f"{available / 1e9:.3g} GB is available: about {fit} particles would fit. Use fewer "
+        "particles (releases[].particles), a coarser output.grid, or a machine with more memory"
+    )
+
+
 def input_provenance(scenario: Scenario) -> list[dict[str, Any]]:
     """Name, size, modification time and SHA-256 of every input file of the scenario."""
     paths = list(scenario.flow.paths)
@@ -121,6 +180,7 @@ def simulate_scenario(
     flow = scenario.flow.build() if flow is None else flow
     offset = flow_offset(scenario, flow)
     check_places(scenario, flow, offset)
+    check_memory(scenario, flow)
     transport = scenario.transport_for(flow)
     releases = [shift_release(r, offset) for r in scenario.releases]
     ds = simulate(
@@ -145,8 +205,12 @@ def simulate_scenario(
     ds["land"] = (
         ("y", "x"),
         land_on_output_grid(flow, scenario, offset, offset + scenario.duration),
-        {"units": "1", "long_name": "land or never-wet cell (1) in the flow",
-         "flag_values": np.array([0, 1], dtype=np.int8), "flag_meanings": "water land"},
+        {
+            "units": "1",
+            "long_name": "land or never-wet cell (1) in the flow",
+            "flag_values": np.array([0, 1], dtype=np.int8),
+            "flag_meanings": "water land",
+        },
     )
     ds.attrs["input_files"] = json.dumps(input_provenance(scenario))
     ds.attrs["run_start"] = scenario.start_iso
@@ -201,7 +265,9 @@ def summary_text(ds: xr.Dataset) -> str:
     lines.append(f"  decayed         {float(ds.mass_decayed[-1]):12.6g}")
     lines.append(f"  stranded (dry)  {float(ds.mass_stranded[-1]):12.6g}")
     residual = released - float(
-        ds.mass_in_water[-1] + ds.mass_left[:, -1].sum() + ds.mass_decayed[-1]
+        ds.mass_in_water[-1]
+        + ds.mass_left[:, -1].sum()
+        + ds.mass_decayed[-1]
         + ds.mass_stranded[-1]
     )
     lines.append(f"  closure error   {residual:12.3g}")

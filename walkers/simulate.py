@@ -3,10 +3,22 @@
 This is the Python entry point of a single run; the command line and the ensemble call it. It
 returns an :class:`xarray.Dataset` (layout in ``docs/outputs.md``) holding the concentration
 fields, receptor series, mass budget and cloud moments at every output time.
+
+Guards on the way (each names the time and, where there is one, the place):
+
+- every window of flow frames is checked for non-finite velocity in wet cells before particles
+  move through it (flow readers check their files; this catches any other flow source);
+- after every call of the engine, a non-finite particle position stops the run with
+  :class:`~walkers.errors.RunFailure`;
+- a run whose mass budget could not hold to :data:`BUDGET_PRECISION` is refused at the door
+  (see :func:`check_budget_precision`);
+- the engine is called for at most :data:`PARTICLE_STEPS_PER_CALL` particle-steps at a time, so
+  Ctrl-C (or SIGTERM turned into KeyboardInterrupt) is handled promptly between calls.
 """
 
 from __future__ import annotations
 
+import math
 import warnings
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
@@ -21,12 +33,28 @@ from walkers.config import EDGE_NAMES, OutputGrid, Receptor, Release, Transport
 from walkers.engine import mover
 from walkers.engine.state import ParticleState
 from walkers.engine.timestep import check_time_step
-from walkers.errors import InputError
-from walkers.fields.base import FlowField, centre_to_edges
+from walkers.errors import InputError, RunFailure
+from walkers.fields.base import FlowField, FlowWindow, centre_to_edges
 from walkers.randomness import run_streams
 from walkers.releases import make_particles
 
 ProgressCallback = Callable[[float, float, int], None]
+
+#: Unit roundoff of IEEE 754 binary64 arithmetic, 2**-53.
+UNIT_ROUNDOFF = 2.0**-53
+#: Relative precision (of the mass released) to which the mass budget must close and the decayed
+#: mass be known.
+BUDGET_PRECISION = 1e-9
+#: Most steps of a run with decay. Each step multiplies every particle's mass by the rounded factor
+#: exp(-k dt) and rounds the product, so after S steps the relative error of a particle's mass is
+#: at most about 2 S u (u = :data:`UNIT_ROUNDOFF`; the factor's own rounding repeats, so the errors
+#: add up rather than average out; Higham 2002, Accuracy and Stability of Numerical Algorithms,
+#: 2nd ed., §3.1, from memory). 2 S u <= 1e-9 gives S <= 4.5e6 steps.
+MAX_DECAY_STEPS = int(BUDGET_PRECISION / (2.0 * UNIT_ROUNDOFF))
+#: Most particle-steps handed to the engine in one call: about 0.1 s at the design speed of 40 M
+#: particle-steps per second. Python handles signals only between calls, so this bounds the delay
+#: of Ctrl-C. Runs with fewer particle-steps per output interval make one call per interval.
+PARTICLE_STEPS_PER_CALL = 4_000_000
 
 
 @dataclass
@@ -51,6 +79,108 @@ def _check_window(flow: FlowField, start: float, end: float) -> None:
         )
 
 
+def check_budget_precision(particles: int, steps: int, decay_rate: float, dt: float) -> None:
+    """Refuse a run whose mass budget could not hold to :data:`BUDGET_PRECISION` (relative).
+
+    Two sources of rounding error (u = 2**-53):
+
+    - the budget's terms are float64 sums over at most N particles; numpy sums pairwise, with a
+      relative error below about (log2 N + 16) u (Higham 2002, §4.2, from memory): below 5e-15
+      for the N <= 1e8 particles a run may hold (:data:`walkers.scenario.MAX_PARTICLES`, which
+      memory sets, not precision);
+    - with decay, each particle's mass is multiplied once per step: after S steps its relative
+      error is at most about 2 S u, so S is capped at :data:`MAX_DECAY_STEPS` (4.5e6).
+
+    particles, steps : the run's particle count and number of steps of ``dt`` seconds.
+
+    Raises InputError naming the count and what to change.
+    """
+    from walkers.scenario import MAX_PARTICLES
+
+    if particles > MAX_PARTICLES:
+        raise InputError(
+            f"releases: {particles} particles in all; at most {MAX_PARTICLES:.0e} per run "
+            "(memory and the precision of the mass budget); use fewer particles or an ensemble"
+        )
+    if decay_rate > 0.0 and steps > MAX_DECAY_STEPS:
+        raise InputError(
+            f"run.time_step: this run with decay takes {steps} steps; rounding in the per-step "
+            f"decay of each particle's mass (up to 2 x 2^-53 a step) could then exceed "
+            f"{BUDGET_PRECISION:g} of the mass budget, so at most {MAX_DECAY_STEPS} steps are "
+            f"allowed; use a time step of at least {math.ceil(steps * dt / MAX_DECAY_STEPS)} s "
+            f"(this one is {dt:g} s, after any sub-steps) or a shorter run"
+        )
+
+
+def _when(flow: FlowField, t: float) -> str:
+    """Time ``t`` (s, flow frame) as ISO 8601 for messages; seconds if the units are unusual."""
+    from walkers.io import iso_times
+
+    try:
+        stamp = xr.DataArray(
+            [t], dims="time", attrs={"units": flow.time_units, "calendar": flow.calendar}
+        )
+        return iso_times(stamp)[0]
+    except (InputError, ValueError, TypeError):
+        return f"{t:g} s ({flow.time_units})"
+
+
+def _cells_of(points: np.ndarray, centres: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Indices of the cells on either side of each point (the same cell unless on an edge)."""
+    edges = centre_to_edges(centres)
+    top = centres.size - 1
+    left = np.clip(np.searchsorted(edges, points, side="left") - 1, 0, top)
+    right = np.clip(np.searchsorted(edges, points, side="right") - 1, 0, top)
+    return left, right
+
+
+def check_window_velocity(flow: FlowField, window: FlowWindow) -> None:
+    """Raise InputError naming variable, place and frame time of any non-finite velocity that
+    lies in a wet cell (on a cell edge: between two wet cells) of the window's frames."""
+    for var, frames in ((flow.u, window.u), (flow.v, window.v)):
+        if np.isfinite(frames).all():
+            continue
+        il, ir = _cells_of(var.x, flow.x)
+        jl, jr = _cells_of(var.y, flow.y)
+        for f in range(frames.shape[0]):
+            wet = window.wet[min(f, window.wet.shape[0] - 1)] > 0
+            inside = wet[np.ix_(jl, il)] & wet[np.ix_(jr, ir)] & wet[np.ix_(jl, ir)]
+            inside &= wet[np.ix_(jr, il)]
+            bad = ~np.isfinite(frames[f]) & inside
+            if bad.any():
+                j, i = (int(n[0]) for n in np.nonzero(bad))
+                t = float(
+                    window.times[f] if frames.shape[0] == window.times.size else window.times[0]
+                )
+                raise InputError(
+                    f"flow {flow.source!r}: velocity {var.name or 'u/v'!r} is {frames[f, j, i]} "
+                    f"at x={var.x[i]:.10g}, y={var.y[j]:.10g} in the frame at {_when(flow, t)}, "
+                    "where the cell is wet; fix the flow there, or mark the cell as land or dry"
+                )
+
+
+def _check_positions(
+    particles: ParticleState,
+    owner: np.ndarray,
+    releases: Sequence[Release],
+    flow: FlowField,
+    t0: float,
+    t1: float,
+) -> None:
+    """Raise RunFailure if a particle position became NaN or infinite between t0 and t1 (s)."""
+    bad = ~(np.isfinite(particles.x) & np.isfinite(particles.y))
+    if not bad.any():
+        return
+    p = int(np.flatnonzero(bad)[0])
+    raise RunFailure(
+        f"{int(bad.sum())} particle(s) got a non-finite position while moving between "
+        f"{_when(flow, t0)} and {_when(flow, t1)} (first: particle {p} of release "
+        f"{releases[int(owner[p])].name!r}); the flow, depth or dispersion met there is not "
+        "finite. Check the flow with 'walkers inspect' and the dispersion coefficients; "
+        "nothing was written"
+    )
+
+
 def output_times(start: float, end: float, interval: float, dt: float) -> np.ndarray:
     """Output times (s) from start to end every interval; interval must be a multiple of dt."""
     if not end > start:
@@ -62,9 +192,11 @@ def output_times(start: float, end: float, interval: float, dt: float) -> np.nda
         )
     n = (end - start) / interval
     if abs(n - round(n)) > 1e-9 * max(n, 1):
+        short = (end - start) - math.floor(n) * interval
         raise InputError(
-            f"run length {end - start:g} s must be a whole multiple of the output interval "
-            f"{interval:g} s"
+            f"run length {end - start:g} s (run.end - run.start) must be a whole multiple of the "
+            f"output interval {interval:g} s (run.output_interval); end the run {short:g} s "
+            f"earlier or {interval - short:g} s later"
         )
     return float(start) + float(interval) * np.arange(int(round(n)) + 1, dtype=np.float64)
 
@@ -125,6 +257,12 @@ def simulate(
                 warnings.warn(report.message(), stacklevel=2)
     dt = transport.dt / substeps
     steps_per_output = int(round(output_interval / dt))
+    check_budget_precision(
+        sum(int(r.particles) for r in releases),
+        steps_per_output * (len(times) - 1),
+        transport.decay_rate,
+        dt,
+    )
     walk_key, release_rng = run_streams(seed, member)
     mx, my = mover.metres_per_grid_unit(flow)
     acc = _Accumulator(len(times), output_grid, len(receptors), tracks)
@@ -135,6 +273,11 @@ def simulate(
         first = 0
     else:
         particles, owner, first = resume.particles, resume.owner, resume.next_output
+        if resume.results.conc.shape != acc.conc.shape or not 0 < first <= len(times):
+            raise InputError(
+                "the saved run state does not fit this run (different output times or grid); "
+                "start the run afresh"
+            )
         acc = resume.results
     xe, ye = centre_to_edges(flow.x), centre_to_edges(flow.y)
     measure = reduce.cell_measure(output_grid, flow.geographic, flow.ndim)
@@ -147,9 +290,15 @@ def simulate(
         if k > 0:
             t_prev = float(times[k - 1])
             window = flow.window(t_prev, t)
+            check_window_velocity(flow, window)
             inputs = mover.kernel_inputs(flow, window, transport)
             step0 = (k - 1) * steps_per_output
-            mover.advance(particles, inputs, t_prev, dt, steps_per_output, step0, walk_key, engine)
+            per_call = max(1, PARTICLE_STEPS_PER_CALL // max(len(particles), 1))
+            for s in range(0, steps_per_output, per_call):
+                n = min(per_call, steps_per_output - s)
+                t_call = t_prev + s * dt
+                mover.advance(particles, inputs, t_call, dt, n, step0 + s, walk_key, engine)
+                _check_positions(particles, owner, releases, flow, t_call, t_call + n * dt)
         window_now = flow.window(t, t)
         frame = (
             0 if window_now.depth.shape[0] == 1 else int(np.argmin(np.abs(window_now.times - t)))
@@ -188,6 +337,41 @@ class _Accumulator:
         }
         self.track_x = np.full((tracks, nt), np.nan) if tracks else None
         self.track_y = np.full((tracks, nt), np.nan) if tracks else None
+
+    def arrays(self) -> dict[str, np.ndarray]:
+        """Every array held, by a flat name (for checkpoints); see :meth:`from_arrays`."""
+        out = {
+            "conc": self.conc,
+            "count": self.count,
+            "receptor": self.receptor,
+            "left": self.left,
+            "in_water": self.in_water,
+        }
+        if self.smooth is not None:
+            out["smooth"] = self.smooth
+        if self.track_x is not None and self.track_y is not None:
+            out["track_x"], out["track_y"] = self.track_x, self.track_y
+        out.update({f"budget.{k}": v for k, v in self.budget.items()})
+        out.update({f"moment.{k}": v for k, v in self.moments.items()})
+        return out
+
+    @classmethod
+    def from_arrays(cls, arrays: dict[str, np.ndarray]) -> _Accumulator:
+        """The accumulator whose :meth:`arrays` were ``arrays`` (KeyError if one is missing)."""
+        acc = cls.__new__(cls)
+        acc.conc, acc.count, acc.receptor = arrays["conc"], arrays["count"], arrays["receptor"]
+        acc.left, acc.in_water = arrays["left"], arrays["in_water"]
+        acc.smooth = arrays.get("smooth")
+        acc.track_x, acc.track_y = arrays.get("track_x"), arrays.get("track_y")
+        acc.budget = {
+            k: arrays[f"budget.{k}"]
+            for k in ("mass_released", "mass_in_water", "mass_decayed", "mass_stranded")
+        }
+        acc.moments = {
+            k: arrays[f"moment.{k}"]
+            for k in ("centroid_x", "centroid_y", "variance_x", "variance_y", "covariance_xy")
+        }
+        return acc
 
     def record(self, k, particles, depths, conc, count, receptors, grid, flow, mpu, track_index):
         self.conc[k] = conc
