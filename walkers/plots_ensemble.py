@@ -1,0 +1,223 @@
+"""Figures of an ensemble: exceedance-probability maps and receptor distributions.
+
+Each figure carries a title, axis labels with units, the time span it covers (ISO 8601 with zone)
+and the caution in small print, like the figures of a single run (``walkers.plots``). Probability
+maps colour the probability from 0 to 1 and draw contour lines at :data:`PROBABILITY_LEVELS`;
+cells that no member reached stay blank. Receptor figures show, per receptor, the histogram of the
+members' peak concentrations (thresholds dashed) and the empirical CDF of the arrival time for each
+threshold; members that never cross a threshold keep the CDF below 1 at the end of the run.
+"""
+
+from __future__ import annotations
+
+import os
+from pathlib import Path
+
+import numpy as np
+import xarray as xr
+from matplotlib import colormaps
+from matplotlib.colors import ListedColormap
+
+from walkers.errors import InputError
+from walkers.io import elapsed_seconds, iso_times, open_results
+from walkers.plots import LAND_COLOUR, RECEPTOR_COLOUR, _edges, _figure, _footer
+
+#: Probabilities drawn as contour lines on the maps.
+PROBABILITY_LEVELS = (0.1, 0.5, 0.9)
+PROBABILITY_CMAP = "YlOrRd"
+
+
+def _load(ds_or_path: xr.Dataset | str | os.PathLike) -> xr.Dataset:
+    ds = ds_or_path if isinstance(ds_or_path, xr.Dataset) else open_results(ds_or_path)
+    if "member" not in ds.dims or "concentration_mean" not in ds:
+        raise InputError("not an ensemble result: no 'member' dimension or 'concentration_mean'")
+    return ds
+
+
+def _span(ds: xr.Dataset) -> str:
+    stamps = iso_times(ds["time"])
+    return f"{stamps[0]} to {stamps[-1]}"
+
+
+def _axis_label(ds: xr.Dataset, axis: str) -> str:
+    units = ds[axis].attrs.get("units", "m")
+    if units == "degrees_east":
+        return "longitude (degrees east)"
+    if units == "degrees_north":
+        return "latitude (degrees north)"
+    return f"{axis} ({units})"
+
+
+def _mg_per_litre(kg_m3: float) -> str:
+    return f"{kg_m3 * 1e3:.3g} mg/L"
+
+
+def plot_probability_map(
+    ds_or_path: xr.Dataset | str | os.PathLike,
+    path: str | os.PathLike,
+    *,
+    threshold: int = 0,
+    time_index: int | None = None,
+) -> Path:
+    """Map the probability that the concentration exceeds threshold number ``threshold``.
+
+    time_index : an output time; None maps the probability over the whole run (the concentration
+    exceeds the threshold at some output time). Contour lines at :data:`PROBABILITY_LEVELS`. A 1-D
+    run is drawn as a profile along the channel.
+    """
+    ds = _load(ds_or_path)
+    if "threshold" not in ds.dims:
+        raise InputError("the ensemble has no thresholds: give receptor thresholds to map them")
+    if not 0 <= threshold < ds.sizes["threshold"]:
+        raise InputError(f"threshold {threshold}: expected 0 to {ds.sizes['threshold'] - 1}")
+    stamps = iso_times(ds["time"])
+    level = float(ds["threshold"].values[threshold])
+    if time_index is None:
+        field = ds["window_exceedance_probability"].values[threshold]
+        when, at = _span(ds), "at some time of the run"
+    else:
+        if not 0 <= time_index < ds.sizes["time"]:
+            raise InputError(f"time index {time_index}: expected 0 to {ds.sizes['time'] - 1}")
+        field = ds["exceedance_probability"].values[threshold, time_index]
+        when, at = stamps[time_index], f"at {stamps[time_index]}"
+    n = int(ds.sizes["member"])
+    title = f"Probability that concentration exceeds {_mg_per_litre(level)} {at} ({n} members)"
+    x, y = ds["x"].values, ds["y"].values
+    if ds.sizes["y"] == 1:
+        fig = _figure(7.5, 4.2)
+        ax = fig.add_subplot()
+        ax.plot(x, field[0], color=colormaps[PROBABILITY_CMAP](0.8), lw=1.5)
+        for p in PROBABILITY_LEVELS:
+            ax.axhline(p, color="0.6", lw=0.7, ls=":")
+        ax.set_ylim(0.0, 1.02)
+        ax.set_xlabel(_axis_label(ds, "x"))
+        ax.set_ylabel("exceedance probability (1)")
+        ax.grid(True, lw=0.4, color="0.88")
+    else:
+        ratio = (y[-1] - y[0] + 1e-12) / (x[-1] - x[0] + 1e-12)
+        fig = _figure(7.0, float(np.clip(5.6 * ratio + 1.6, 3.4, 10.0)))
+        ax = fig.add_subplot()
+        if "land" in ds:
+            land = np.where(ds["land"].values > 0, 1.0, np.nan)
+            ax.pcolormesh(_edges(x), _edges(y), land, cmap=ListedColormap([LAND_COLOUR]))
+        shown = np.where(field > 0, field, np.nan)
+        mesh = ax.pcolormesh(_edges(x), _edges(y), shown, cmap=PROBABILITY_CMAP, vmin=0.0, vmax=1.0)
+        if np.nanmax(field, initial=0.0) > min(PROBABILITY_LEVELS):
+            lines = ax.contour(x, y, field, levels=PROBABILITY_LEVELS, colors="k", linewidths=0.8)
+            ax.clabel(lines, fmt="%.1f", fontsize=7)
+        cax = ax.inset_axes((1.03, 0.0, 0.035, 1.0))
+        fig.colorbar(mesh, cax=cax).set_label("exceedance probability (1)")
+        if "receptor_x" in ds and ds.sizes.get("receptor", 0):
+            ax.plot(
+                ds["receptor_x"].values,
+                ds["receptor_y"].values,
+                "o",
+                mfc="none",
+                mec=RECEPTOR_COLOUR,
+                mew=1.4,
+                ms=7,
+            )
+            for name, rx, ry in zip(
+                ds["receptor"].values, ds["receptor_x"].values, ds["receptor_y"].values, strict=True
+            ):
+                ax.annotate(
+                    str(name),
+                    (rx, ry),
+                    xytext=(5, 4),
+                    textcoords="offset points",
+                    fontsize=7,
+                    color=RECEPTOR_COLOUR,
+                )
+        ax.set_xlabel(_axis_label(ds, "x"))
+        ax.set_ylabel(_axis_label(ds, "y"))
+        ax.set_aspect("equal" if ds["x"].attrs.get("units", "m") == "m" else "auto")
+        ax.ticklabel_format(useOffset=False, style="plain")
+    ax.set_title(title, fontsize=9)
+    _footer(fig, f"{when}; contours at P = {', '.join(f'{p:g}' for p in PROBABILITY_LEVELS)}")
+    fig.savefig(path)
+    return Path(path)
+
+
+def plot_receptor_distributions(
+    ds_or_path: xr.Dataset | str | os.PathLike, path: str | os.PathLike
+) -> Path:
+    """Per receptor: histogram of the members' peak concentration (kg m-3, thresholds dashed) and
+    the empirical CDF of the arrival time (h after the run start) for each threshold."""
+    ds = _load(ds_or_path)
+    nrec = int(ds.sizes.get("receptor", 0))
+    if nrec == 0 or "member_receptor_peak" not in ds:
+        raise InputError("the ensemble has no receptors: nothing to draw")
+    n = int(ds.sizes["member"])
+    thresholds = ds["threshold"].values if "threshold" in ds.dims else np.empty(0)
+    colours = colormaps["cividis"](np.linspace(0.0, 0.8, max(len(thresholds), 1)))
+    fig = _figure(8.0, 2.3 * nrec + 1.2)
+    axes = fig.subplots(nrec, 2, squeeze=False)
+    run_hours = float(elapsed_seconds(ds["time"])[-1]) / 3600.0
+    for r, name in enumerate(ds["receptor"].values):
+        peaks = ds["member_receptor_peak"].values[:, r]
+        ax = axes[r, 0]
+        ax.hist(peaks, bins=min(30, max(5, n // 4)), color="0.55", edgecolor="white")
+        for k, level in enumerate(thresholds):
+            ax.axvline(
+                level,
+                color=colours[k],
+                ls="--",
+                lw=1.0,
+                label=f"threshold {_mg_per_litre(float(level))}",
+            )
+        top = max(float(peaks.max(initial=0.0)), float(np.max(thresholds, initial=0.0)))
+        ax.set_xlim(0.0, 1.05 * top if top > 0 else 1.0)
+        ax.set_xlabel("peak concentration (kg m-3)")
+        ax.set_ylabel("members")
+        ax.set_title(f"{name}: peak concentration", fontsize=9)
+        ax.ticklabel_format(axis="x", style="sci", scilimits=(-3, 3))
+        if len(thresholds):
+            ax.legend(fontsize=6, frameon=False)
+        ax = axes[r, 1]
+        for k, level in enumerate(thresholds):
+            hours = np.sort(ds["member_arrival_time"].values[:, r, k] / 3600.0)
+            hours = hours[np.isfinite(hours)]
+            share = len(hours) / n
+            steps = np.concatenate([[0.0], hours, [run_hours]])
+            cdf = np.concatenate([[0.0], np.arange(1, len(hours) + 1) / n, [share]])
+            ax.step(
+                steps,
+                cdf,
+                where="post",
+                color=colours[k],
+                lw=1.4,
+                label=f"> {_mg_per_litre(float(level))} ({share:.0%} of members)",
+            )
+        ax.set_xlim(0.0, run_hours)
+        ax.set_ylim(0.0, 1.02)
+        ax.set_xlabel("arrival time after the run start (h)")
+        ax.set_ylabel("fraction of members arrived")
+        ax.set_title(f"{name}: arrival time (empirical CDF)", fontsize=9)
+        ax.grid(True, lw=0.4, color="0.88")
+        if len(thresholds):
+            ax.legend(fontsize=6, frameon=False, loc="upper left")
+    fig.suptitle(f"Receptor distributions over {n} members", fontsize=10)
+    _footer(fig, _span(ds))
+    fig.savefig(path)
+    return Path(path)
+
+
+def plot_ensemble(
+    ds_or_path: xr.Dataset | str | os.PathLike, outdir: str | os.PathLike
+) -> list[Path]:
+    """Draw the ensemble figures into the existing directory ``outdir``; return the files.
+
+    Files: ``probability_thrK.png`` for each threshold K (probability over the whole run) and
+    ``receptor_distributions.png`` when there are receptors.
+    """
+    folder = Path(outdir)
+    if not folder.is_dir():
+        raise InputError(f"figure directory {str(folder)!r} does not exist; create it first")
+    ds = _load(ds_or_path)
+    written = [
+        plot_probability_map(ds, folder / f"probability_thr{k}.png", threshold=k)
+        for k in range(ds.sizes.get("threshold", 0) if "threshold" in ds.dims else 0)
+    ]
+    if ds.sizes.get("receptor", 0) and "member_receptor_peak" in ds:
+        written.append(plot_receptor_distributions(ds, folder / "receptor_distributions.png"))
+    return written
