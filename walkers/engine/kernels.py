@@ -14,8 +14,17 @@ added once per step. The drift (1/h)∇·(hK) arrives precomputed on the cell gr
 Random numbers are counter-based: the deviates of particle p at step s are a hash of
 (key, p, s), so they do not depend on how particles are split over threads, blocks or workers, and a
 run resumed from a checkpoint continues with the same numbers. The hash is the SplitMix64 output
-function (Steele, Lea & Flood 2014, "Fast splittable pseudorandom number generators", OOPSLA);
-normal deviates come from the Box–Muller transform (Box & Muller 1958, Ann. Math. Stat. 29).
+function (Steele, Lea & Flood 2014, "Fast splittable pseudorandom number generators", OOPSLA).
+Normal deviates come from the ziggurat method with 256 layers (Marsaglia & Tsang 2000, "The
+ziggurat method for generating random variables", J. Stat. Softw. 5(8)), one 64-bit hash per
+deviate on the fast path, with the index and the uniform taken from separate bits (Doornik 2005,
+"An improved ziggurat method to generate normal random samples", from memory); the tail beyond r
+uses Marsaglia's 1964 method. Rejections draw further hashes by chaining z -> mix64(z + golden).
+
+Performance layout (see docs/performance.md): particles are moved in blocks of ``BLOCK``; inside a
+block the loop runs over steps, then over particles, so consecutive iterations are independent and
+the CPU overlaps them; each particle's current cell and random stream are kept in per-block scratch
+arrays; time weights of every step are computed once per call.
 """
 
 from __future__ import annotations
@@ -30,11 +39,10 @@ JIT = {"cache": True, "error_model": "numpy", "nogil": True}
 GOLDEN = np.uint64(0x9E3779B97F4A7C15)
 MIX1 = np.uint64(0xBF58476D1CE4E5B9)
 MIX2 = np.uint64(0x94D049BB133111EB)
-TWO_PI = 2.0 * math.pi
 INV_2_53 = 1.0 / 9007199254740992.0
 
 # Random-number components per particle step.
-COMP_NORMAL = 0  # and 1: the two uniforms of the Box-Muller pair
+COMP_NORMAL = 0  # and 1: the hashes of the two normal deviates
 COMP_BRIDGE_X = 2
 COMP_BRIDGE_Y = 3
 COMPONENTS = 4
@@ -50,6 +58,31 @@ STATUS_STRANDED = 2
 STATUS_DECAYED = 3
 STATUS_LEFT = 4
 DECAYED_FRACTION = 1e-15
+
+# Particles per block of the step kernel (state of a block stays in the L1 cache).
+BLOCK = 256
+
+# Ziggurat of 256 layers of equal area under f(x) = exp(-x²/2) (Marsaglia & Tsang 2000): r is the
+# start of the tail, v = r f(r) + ∫_r^∞ f the area of each layer. ZIG_X[i] is the width of layer
+# i (ZIG_X[0] = v / f(r) for the base strip, ZIG_X[1] = r, ZIG_X[256] = 0), ZIG_F = f(ZIG_X).
+ZIG_R = 3.6541528853610088
+
+
+def _ziggurat_tables() -> tuple[np.ndarray, np.ndarray]:
+    def f(x: float) -> float:
+        return math.exp(-0.5 * x * x)
+
+    area = ZIG_R * f(ZIG_R) + math.sqrt(math.pi / 2.0) * math.erfc(ZIG_R / math.sqrt(2.0))
+    xs = [0.0] * 257
+    xs[0] = area / f(ZIG_R)
+    xs[1] = ZIG_R
+    for i in range(1, 255):
+        xs[i + 1] = math.sqrt(-2.0 * math.log(f(xs[i]) + area / xs[i]))
+    xs[256] = 0.0
+    return np.array(xs), np.array([f(v) for v in xs])
+
+
+ZIG_X, ZIG_F = _ziggurat_tables()
 
 
 @nb.njit(**JIT)
@@ -67,21 +100,68 @@ def particle_stream(key, particle):
 
 
 @nb.njit(**JIT)
-def uniform(stream, step, comp):
-    """A uniform deviate in (0, 1] for (particle stream, step, component)."""
+def hash_at(stream, step, comp):
+    """The 64-bit hash for (particle stream, step, component)."""
     counter = np.uint64(step) * np.uint64(COMPONENTS) + np.uint64(comp)
-    z = mix64(stream + counter * GOLDEN)
+    return mix64(stream + counter * GOLDEN)
+
+
+@nb.njit(**JIT)
+def open_unit(z):
+    """A uniform deviate in (0, 1] from the top 53 bits of a hash."""
     return (float(z >> np.uint64(11)) + 1.0) * INV_2_53
 
 
 @nb.njit(**JIT)
+def uniform(stream, step, comp):
+    """A uniform deviate in (0, 1] for (particle stream, step, component)."""
+    return open_unit(hash_at(stream, step, comp))
+
+
+@nb.njit(**JIT)
+def ziggurat_rest(z):
+    """The ziggurat after the fast test failed on hash z: wedge or tail, then fresh draws."""
+    while True:
+        i = int(z & np.uint64(255))
+        negative = (z >> np.uint64(8)) & np.uint64(1)
+        x = float(z >> np.uint64(11)) * INV_2_53 * ZIG_X[i]
+        if x < ZIG_X[i + 1]:
+            return -x if negative else x
+        if i == 0:
+            while True:
+                z = mix64(z + GOLDEN)
+                a = -math.log(open_unit(z)) / ZIG_R
+                z = mix64(z + GOLDEN)
+                b = -math.log(open_unit(z))
+                if b + b > a * a:
+                    x = ZIG_R + a
+                    return -x if negative else x
+        z = mix64(z + GOLDEN)
+        yv = ZIG_F[i] + open_unit(z) * (ZIG_F[i + 1] - ZIG_F[i])
+        if yv < math.exp(-0.5 * x * x):
+            return -x if negative else x
+        z = mix64(z + GOLDEN)
+
+
+@nb.njit(**JIT)
+def normal_from(z):
+    """A standard normal deviate from hash z (ziggurat fast path inline, the rest out of line):
+    bits 0-7 pick the layer, bit 8 the sign, bits 11-63 the uniform."""
+    i = int(z & np.uint64(255))
+    x = float(z >> np.uint64(11)) * INV_2_53 * ZIG_X[i]
+    if x < ZIG_X[i + 1]:
+        # The sign by a product, not a branch: the CPU cannot predict a random sign.
+        return x * float(1 - 2 * int((z >> np.uint64(8)) & np.uint64(1)))
+    return ziggurat_rest(z)
+
+
+@nb.njit(**JIT)
 def normal_pair(stream, step):
-    """Two independent standard normal deviates (Box-Muller)."""
-    u1 = uniform(stream, step, COMP_NORMAL)
-    u2 = uniform(stream, step, COMP_NORMAL + 1)
-    r = math.sqrt(-2.0 * math.log(u1))
-    a = TWO_PI * u2
-    return r * math.cos(a), r * math.sin(a)
+    """Two independent standard normal deviates of a particle at a step."""
+    return (
+        normal_from(hash_at(stream, step, COMP_NORMAL)),
+        normal_from(hash_at(stream, step, COMP_NORMAL + 1)),
+    )
 
 
 @nb.njit(**JIT)
@@ -99,7 +179,9 @@ def axis_inverse_spacing(c):
 
 @nb.njit(**JIT)
 def locate(c, inv, v):
-    """Interval index i and weight w with v ≈ c[i] + w (c[i+1] - c[i]), clamped to the axis."""
+    """Interval index i and weight w with v ≈ c[i] + w (c[i+1] - c[i]), clamped to the axis.
+
+    On a uniformly spaced axis (inv = 1/spacing > 0) the weight is (v - c[i]) * inv."""
     n = c.shape[0]
     if n < 2 or v <= c[0]:
         return 0, 0.0
@@ -109,27 +191,45 @@ def locate(c, inv, v):
         i = int((v - c[0]) * inv)
         if i > n - 2:
             i = n - 2
-    else:
-        lo = 0
-        hi = n - 1
-        while hi - lo > 1:
-            mid = (lo + hi) >> 1
-            if c[mid] <= v:
-                lo = mid
-            else:
-                hi = mid
-        i = lo
-    return i, (v - c[i]) / (c[i + 1] - c[i])
+        return i, (v - c[i]) * inv
+    lo = 0
+    hi = n - 1
+    while hi - lo > 1:
+        mid = (lo + hi) >> 1
+        if c[mid] <= v:
+            lo = mid
+        else:
+            hi = mid
+    return lo, (v - c[lo]) / (c[lo + 1] - c[lo])
 
 
 @nb.njit(**JIT)
 def cell_index(edges, inv, v):
-    """Index of the cell (between consecutive edges) that holds v, clamped to the grid."""
+    """Index i of the cell with edges[i] <= v < edges[i+1], clamped to the grid (the rule of
+    ``numpy.searchsorted(edges, v, 'right') - 1``, so the twin finds the same cell)."""
     n = edges.shape[0] - 1
-    i, w = locate(edges, inv, v)
-    if w >= 1.0 and i + 1 < n:
-        return i + 1
-    return i
+    if n < 2 or v < edges[1]:
+        return 0
+    if v >= edges[n - 1]:
+        return n - 1
+    if inv > 0.0:
+        i = int((v - edges[0]) * inv)
+        if i > n - 1:
+            i = n - 1
+        if v < edges[i]:
+            i -= 1
+        elif v >= edges[i + 1]:
+            i += 1
+        return i
+    lo = 1
+    hi = n - 1
+    while hi - lo > 1:
+        mid = (lo + hi) >> 1
+        if edges[mid] <= v:
+            lo = mid
+        else:
+            hi = mid
+    return lo
 
 
 @nb.njit(**JIT)
@@ -147,28 +247,33 @@ def time_weight(times, t):
 
 
 @nb.njit(**JIT)
-def sample(arr, ax, ay, invx, invy, it, wt, x, y):
-    """Bilinear in space on (ax, ay), linear in time between frames it and it+1."""
+def bilinear(arr, it, wt, i, j, wx, wy):
+    """Bilinear in space at interval (i, j) with weights (wx, wy), linear in time between frames
+    it and it+1 (a single frame is used as is)."""
     nx = arr.shape[2]
     ny = arr.shape[1]
-    i, wx = locate(ax, invx, x)
-    j, wy = locate(ay, invy, y)
     i1 = min(i + 1, nx - 1)
     j1 = min(j + 1, ny - 1)
     if arr.shape[0] == 1:
         it = 0
         wt = 0.0
-    a = arr[it]
-    f = (1.0 - wy) * ((1.0 - wx) * a[j, i] + wx * a[j, i1]) + wy * (
-        (1.0 - wx) * a[j1, i] + wx * a[j1, i1]
+    f = (1.0 - wy) * ((1.0 - wx) * arr[it, j, i] + wx * arr[it, j, i1]) + wy * (
+        (1.0 - wx) * arr[it, j1, i] + wx * arr[it, j1, i1]
     )
     if wt > 0.0:
-        b = arr[it + 1]
-        g = (1.0 - wy) * ((1.0 - wx) * b[j, i] + wx * b[j, i1]) + wy * (
-            (1.0 - wx) * b[j1, i] + wx * b[j1, i1]
+        g = (1.0 - wy) * ((1.0 - wx) * arr[it + 1, j, i] + wx * arr[it + 1, j, i1]) + wy * (
+            (1.0 - wx) * arr[it + 1, j1, i] + wx * arr[it + 1, j1, i1]
         )
         f = f + wt * (g - f)
     return f
+
+
+@nb.njit(**JIT)
+def sample(arr, ax, ay, invx, invy, it, wt, x, y):
+    """Bilinear in space on (ax, ay), linear in time between frames it and it+1."""
+    i, wx = locate(ax, invx, x)
+    j, wy = locate(ay, invy, y)
+    return bilinear(arr, it, wt, i, j, wx, wy)
 
 
 @nb.njit(**JIT)
@@ -184,47 +289,380 @@ def metres_to_grid(geographic, y):
 
 
 @nb.njit(**JIT)
-def velocity(flow, it, wt, x, y):
-    """Interpolated (u, v) in m s-1."""
-    ux, uy, U, vx, vy, V = flow[0], flow[1], flow[2], flow[3], flow[4], flow[5]
-    inv = flow[6]
-    u = sample(U, ux, uy, inv[0], inv[1], it, wt, x, y)
-    v = sample(V, vx, vy, inv[2], inv[3], it, wt, x, y)
-    return u, v
+def velocity(ux, uy, U, vx, vy, V, inv, shared, it, wt, x, y):
+    """Interpolated (u, v) in m s-1; when u and v share their axes they are located once."""
+    i, wx = locate(ux, inv[0], x)
+    j, wy = locate(uy, inv[1], y)
+    u = bilinear(U, it, wt, i, j, wx, wy)
+    if not shared:
+        i, wx = locate(vx, inv[2], x)
+        j, wy = locate(vy, inv[3], y)
+    return u, bilinear(V, it, wt, i, j, wx, wy)
 
 
 @nb.njit(**JIT)
-def is_wet(wet, xe, ye, invxe, invye, iw, x, y):
-    """True when the cell holding (x, y) is water at wet-frame iw."""
+def step_tables(times, t0, dt, nsteps, out_i, out_w):
+    """Time weights of every step of a call: at the start t, the middle t + h/2 and the end t + h
+    of each step (columns 0, 1, 2), with t and h computed as the step kernel computes them."""
+    for s in range(nsteps):
+        t = t0 + s * dt
+        h = (t + dt) - t
+        out_i[s, 0], out_w[s, 0] = time_weight(times, t)
+        out_i[s, 1], out_w[s, 1] = time_weight(times, t + 0.5 * h)
+        out_i[s, 2], out_w[s, 2] = time_weight(times, t + h)
+
+
+@nb.njit(**JIT)
+def reflect_and_place(
+    qx,
+    qy,
+    px,
+    py,
+    pi,
+    pj,
+    tstart,
+    h,
+    t_end,
+    ndim,
+    max_refl,
+    edges_mode,
+    xe,
+    ye,
+    wet_now,
+    invex,
+    invey,
+):
+    """Edges and coast for a step from (px, py) in cell (pi, pj) to the candidate (qx, qy).
+
+    Open edges absorb (the particle leaves, with the crossing time by linear interpolation);
+    closed edges and dry cells reflect the candidate, up to ``max_refl`` times. Returns
+    (edge left through or -1, crossing time, placed, qx, qy, cell i, cell j).
+    """
+    x_w = xe[0]
+    x_e = xe[xe.shape[0] - 1]
+    y_s = ye[0]
+    y_n = ye[ye.shape[0] - 1]
+    left = -1
+    tcross = t_end
+    placed = False
+    ci = pi
+    cj = pj
+    for _ in range(max_refl):
+        if qx < x_w:
+            if edges_mode[0] == 1:
+                left = 0
+                tcross = tstart + h * (px - x_w) / (px - qx)
+                break
+            qx = 2.0 * x_w - qx
+        if qx > x_e:
+            if edges_mode[1] == 1:
+                left = 1
+                tcross = tstart + h * (x_e - px) / (qx - px)
+                break
+            qx = 2.0 * x_e - qx
+        if ndim == 2:
+            if qy < y_s:
+                if edges_mode[2] == 1:
+                    left = 2
+                    tcross = tstart + h * (py - y_s) / (py - qy)
+                    break
+                qy = 2.0 * y_s - qy
+            if qy > y_n:
+                if edges_mode[3] == 1:
+                    left = 3
+                    tcross = tstart + h * (y_n - py) / (qy - py)
+                    break
+                qy = 2.0 * y_n - qy
+        # Written so that a NaN position is never placed: the particle then stays.
+        if not (qx >= x_w and qx <= x_e and qy >= y_s and qy <= y_n):
+            continue
+        ci = cell_index(xe, invex, qx)
+        cj = cell_index(ye, invey, qy)
+        if wet_now[cj, ci] != 0:
+            placed = True
+            break
+        reflected = False
+        if ci != pi and wet_now[pj, ci] == 0:
+            xf = xe[pi + 1] if ci > pi else xe[pi]
+            qx = 2.0 * xf - qx
+            reflected = True
+        if cj != pj and wet_now[cj, pi] == 0:
+            yf = ye[pj + 1] if cj > pj else ye[pj]
+            qy = 2.0 * yf - qy
+            reflected = True
+        if not reflected:
+            if ci != pi:
+                xf = xe[pi + 1] if ci > pi else xe[pi]
+                qx = 2.0 * xf - qx
+            if cj != pj:
+                yf = ye[pj + 1] if cj > pj else ye[pj]
+                qy = 2.0 * yf - qy
+    return left, tcross, placed, qx, qy, ci, cj
+
+
+@nb.njit(**JIT)
+def bridge_exit(
+    stream, step, px, py, qx, qy, sx, sy, kxx, kyy, h, ndim, edges_mode, x_w, x_e, y_s, y_n
+):
+    """Brownian-bridge test of a crossing of an absorbing edge inside the step: the path from
+    d0 to d1 metres from the edge crossed it with probability exp(-d0 d1 / (K h)) (Lépingle 1995,
+    Math. Comput. Simul. 38, from memory). Returns the edge crossed or -1."""
+    dxw = (px - x_w) / sx
+    dqw = (qx - x_w) / sx
+    dxe = (x_e - px) / sx
+    dqe = (x_e - qx) / sx
+    if edges_mode[0] == 1 and kxx > 0.0 and dxw * dqw < 20.0 * kxx * h:
+        if uniform(stream, step, COMP_BRIDGE_X) < math.exp(-dxw * dqw / (kxx * h)):
+            return 0
+    elif edges_mode[1] == 1 and kxx > 0.0 and dxe * dqe < 20.0 * kxx * h:
+        if uniform(stream, step, COMP_BRIDGE_X) < math.exp(-dxe * dqe / (kxx * h)):
+            return 1
+    if ndim == 2:
+        dys = (py - y_s) / sy
+        dqs = (qy - y_s) / sy
+        dyn = (y_n - py) / sy
+        dqn = (y_n - qy) / sy
+        if edges_mode[2] == 1 and kyy > 0.0 and dys * dqs < 20.0 * kyy * h:
+            if uniform(stream, step, COMP_BRIDGE_Y) < math.exp(-dys * dqs / (kyy * h)):
+                return 2
+        elif edges_mode[3] == 1 and kyy > 0.0 and dyn * dqn < 20.0 * kyy * h:
+            if uniform(stream, step, COMP_BRIDGE_Y) < math.exp(-dyn * dqn / (kyy * h)):
+                return 3
+    return -1
+
+
+@nb.njit(**JIT)
+def step_one(
+    p,
+    k,
+    s,
+    x,
+    y,
+    m,
+    m0,
+    trel,
+    texit,
+    status,
+    flow,
+    cells,
+    disp,
+    times,
+    opts,
+    edges_mode,
+    t0,
+    dt,
+    step0,
+    decay_rate,
+    tab_i,
+    tab_w,
+    shared,
+    cell_i,
+    cell_j,
+    streams,
+):
+    """One step of particle p (slot k of its block) at step s: the general case of every option.
+
+    See ``advance`` for the arguments; tab_i, tab_w are the time tables of ``step_tables``,
+    ``shared`` says that u and v lie on the same axes, cell_i, cell_j and streams hold the cell
+    and random stream of each particle of the block.
+    """
+    ndim, scheme, aligned, has_drift, bridge, max_refl, geographic = (
+        opts[0],
+        opts[1],
+        opts[2],
+        opts[3],
+        opts[4],
+        opts[5],
+        opts[6],
+    )
+    ux, uy, U, vx, vy, V, invu = flow[0], flow[1], flow[2], flow[3], flow[4], flow[5], flow[6]
+    xe, ye, wet, cx, cy = cells[0], cells[1], cells[2], cells[3], cells[4]
+    invc = cells[5]
+    DX, DY, K1, K2 = disp[0], disp[1], disp[2], disp[3]
+    kconst = disp[4]
+    t = t0 + s * dt
+    t_end = t + dt
+    st = status[p]
+    if st == STATUS_WAITING:
+        if trel[p] >= t_end:
+            return
+        st = STATUS_WATER
+        tstart = max(t, trel[p])
+    elif st == STATUS_WATER or st == STATUS_STRANDED:
+        tstart = t
+    else:
+        return
+    h = t_end - tstart
+    if h <= 0.0:
+        status[p] = st
+        return
+    own_time = tstart != t
+    if own_time:
+        it, wt = time_weight(times, tstart)
+    else:
+        it = tab_i[s, 0]
+        wt = tab_w[s, 0]
+    iw = it if wt < 0.5 else it + 1
     if wet.shape[0] == 1:
         iw = 0
-    i = cell_index(xe, invxe, x)
-    j = cell_index(ye, invye, y)
-    return wet[iw, j, i] != 0
-
-
-@nb.njit(**JIT)
-def advect(flow, times, scheme, geographic, x, y, t, h):
-    """Deterministic displacement over h seconds from (x, y, t), in grid units."""
-    it, wt = time_weight(times, t)
-    u1, v1 = velocity(flow, it, wt, x, y)
-    sx, sy = metres_to_grid(geographic, y)
+    wet_now = wet[iw]
+    pi = cell_i[k]
+    pj = cell_j[k]
+    if wet_now[pj, pi] == 0:
+        st = STATUS_STRANDED
+    elif st == STATUS_STRANDED:
+        st = STATUS_WATER
+    if decay_rate > 0.0:
+        pm = m[p] * math.exp(-decay_rate * h)
+        m[p] = pm
+        if pm <= DECAYED_FRACTION * m0[p]:
+            status[p] = STATUS_DECAYED
+            return
+    if st == STATUS_STRANDED:
+        status[p] = st
+        return
+    px = x[p]
+    py = y[p]
+    # Deterministic part.
+    u1, v1 = velocity(ux, uy, U, vx, vy, V, invu, shared, it, wt, px, py)
+    sx, sy = metres_to_grid(geographic, py)
     if scheme == 0:
-        return u1 * h * sx, v1 * h * sy
-    itm, wtm = time_weight(times, t + 0.5 * h)
-    u2, v2 = velocity(flow, itm, wtm, x + 0.5 * h * u1 * sx, y + 0.5 * h * v1 * sy)
-    u3, v3 = velocity(flow, itm, wtm, x + 0.5 * h * u2 * sx, y + 0.5 * h * v2 * sy)
-    ite, wte = time_weight(times, t + h)
-    u4, v4 = velocity(flow, ite, wte, x + h * u3 * sx, y + h * v3 * sy)
-    return (
-        h * sx * (u1 + 2.0 * u2 + 2.0 * u3 + u4) / 6.0,
-        h * sy * (v1 + 2.0 * v2 + 2.0 * v3 + v4) / 6.0,
+        ax_ = u1 * h * sx
+        ay_ = v1 * h * sy
+    else:
+        if own_time:
+            itm, wtm = time_weight(times, tstart + 0.5 * h)
+            ite, wte = time_weight(times, tstart + h)
+        else:
+            itm = tab_i[s, 1]
+            wtm = tab_w[s, 1]
+            ite = tab_i[s, 2]
+            wte = tab_w[s, 2]
+        xm = px + 0.5 * h * u1 * sx
+        ym = py + 0.5 * h * v1 * sy
+        u2, v2 = velocity(ux, uy, U, vx, vy, V, invu, shared, itm, wtm, xm, ym)
+        xm = px + 0.5 * h * u2 * sx
+        ym = py + 0.5 * h * v2 * sy
+        u3, v3 = velocity(ux, uy, U, vx, vy, V, invu, shared, itm, wtm, xm, ym)
+        u4, v4 = velocity(
+            ux, uy, U, vx, vy, V, invu, shared, ite, wte, px + h * u3 * sx, py + h * v3 * sy
+        )
+        ax_ = h * sx * (u1 + 2.0 * u2 + 2.0 * u3 + u4) / 6.0
+        ay_ = h * sy * (v1 + 2.0 * v2 + 2.0 * v3 + v4) / 6.0
+    # Dispersion tensor at the start point.
+    if kconst[0] >= 0.0:
+        k1 = kconst[0]
+        k2 = kconst[1]
+    else:
+        k1 = sample(K1, cx, cy, invc[2], invc[3], it, wt, px, py)
+        k2 = sample(K2, cx, cy, invc[2], invc[3], it, wt, px, py)
+    k1 *= kconst[2]
+    k2 *= kconst[2]
+    stream = streams[k]
+    z1, z2 = normal_pair(stream, step0 + s)
+    if aligned:
+        speed = math.sqrt(u1 * u1 + v1 * v1)
+        if speed > 0.0:
+            ex = u1 / speed
+            ey = v1 / speed
+        else:
+            ex = 1.0
+            ey = 0.0
+            k1 = k2
+        aL = math.sqrt(2.0 * k1 * h) * z1
+        aT = math.sqrt(2.0 * k2 * h) * z2
+        nxm = aL * ex - aT * ey
+        nym = aL * ey + aT * ex
+        kxx = k2 + (k1 - k2) * ex * ex
+        kyy = k2 + (k1 - k2) * ey * ey
+    else:
+        nxm = math.sqrt(2.0 * k1 * h) * z1
+        nym = math.sqrt(2.0 * k2 * h) * z2
+        kxx = k1
+        kyy = k2
+    dxm = nxm
+    dym = nym
+    if has_drift:
+        dxm += sample(DX, cx, cy, invc[2], invc[3], it, wt, px, py) * h
+        dym += sample(DY, cx, cy, invc[2], invc[3], it, wt, px, py) * h
+    qx = px + ax_ + dxm * sx
+    qy = py
+    if ndim == 2:
+        qy = py + ay_ + dym * sy
+    left, tcross, placed, qx, qy, ci, cj = reflect_and_place(
+        qx,
+        qy,
+        px,
+        py,
+        pi,
+        pj,
+        tstart,
+        h,
+        t_end,
+        ndim,
+        max_refl,
+        edges_mode,
+        xe,
+        ye,
+        wet_now,
+        invc[0],
+        invc[1],
     )
+    if left < 0 and bridge and placed:
+        left = bridge_exit(
+            stream,
+            step0 + s,
+            px,
+            py,
+            qx,
+            qy,
+            sx,
+            sy,
+            kxx,
+            kyy,
+            h,
+            ndim,
+            edges_mode,
+            xe[0],
+            xe[xe.shape[0] - 1],
+            ye[0],
+            ye[ye.shape[0] - 1],
+        )
+        if left >= 0:
+            tcross = tstart + 0.5 * h
+    if left >= 0:
+        status[p] = STATUS_LEFT + left
+        texit[p] = tcross
+        x[p] = qx
+        y[p] = qy
+        return
+    if placed:
+        x[p] = qx
+        y[p] = qy
+        cell_i[k] = ci
+        cell_j[k] = cj
+    status[p] = st
 
 
 @nb.njit(**JIT)
-def move_one(
-    p,
+def block_scratch(lo, hi, x, y, xe, ye, invc, key):
+    """Cell indices and random streams of particles lo..hi-1 (per-block scratch arrays)."""
+    nb_ = hi - lo
+    cell_i = np.empty(nb_, np.int64)
+    cell_j = np.empty(nb_, np.int64)
+    streams = np.empty(nb_, np.uint64)
+    for k in range(nb_):
+        p = lo + k
+        cell_i[k] = cell_index(xe, invc[0], x[p])
+        cell_j[k] = cell_index(ye, invc[1], y[p])
+        streams[k] = particle_stream(key, p)
+    return cell_i, cell_j, streams
+
+
+@nb.njit(**JIT)
+def move_block(
+    lo,
+    hi,
     x,
     y,
     m,
@@ -244,200 +682,432 @@ def move_one(
     step0,
     key,
     decay_rate,
+    tab_i,
+    tab_w,
+    shared,
 ):
-    """Advance particle p over nsteps steps of dt from t0. See ``advance`` for the arguments."""
-    ndim, scheme, aligned, has_drift, bridge, max_refl, geographic = (
-        opts[0],
-        opts[1],
-        opts[2],
-        opts[3],
-        opts[4],
-        opts[5],
-        opts[6],
-    )
-    xe, ye, wet, cx, cy = cells[0], cells[1], cells[2], cells[3], cells[4]
+    """Advance particles lo..hi-1 over nsteps steps (steps outer, particles inner), general case."""
+    cell_i, cell_j, streams = block_scratch(lo, hi, x, y, cells[0], cells[1], cells[5], key)
+    for s in range(nsteps):
+        for k in range(hi - lo):
+            step_one(
+                lo + k,
+                k,
+                s,
+                x,
+                y,
+                m,
+                m0,
+                trel,
+                texit,
+                status,
+                flow,
+                cells,
+                disp,
+                times,
+                opts,
+                edges_mode,
+                t0,
+                dt,
+                step0,
+                decay_rate,
+                tab_i,
+                tab_w,
+                shared,
+                cell_i,
+                cell_j,
+                streams,
+            )
+
+
+@nb.njit(**JIT)
+def move_block_fast(
+    lo,
+    hi,
+    x,
+    y,
+    m,
+    m0,
+    trel,
+    texit,
+    status,
+    flow,
+    cells,
+    disp,
+    times,
+    opts,
+    edges_mode,
+    t0,
+    dt,
+    nsteps,
+    step0,
+    key,
+    decay_rate,
+    tab_i,
+    tab_w,
+):
+    """``move_block`` for the common case, written out flat so the compiler keeps it in registers:
+    2-D, projected grid, Euler, dispersion along the axes with constant K and no drift, u and v
+    on the same uniformly spaced axes, uniformly spaced cells. The arithmetic is that of
+    ``step_one``, term by term; anything unusual in a step (a release inside the step, a
+    reflection, a particle near an absorbing edge) is handed to the general helpers."""
+    ux, uy, U, V, invu = flow[0], flow[1], flow[2], flow[5], flow[6]
+    xe, ye, wet = cells[0], cells[1], cells[2]
     invc = cells[5]
-    DX, DY, K1, K2 = disp[0], disp[1], disp[2], disp[3]
     kconst = disp[4]
+    bridge = opts[4]
+    max_refl = opts[5]
+    nxu = ux.shape[0]
+    nyu = uy.shape[0]
+    ux0 = ux[0]
+    uxl = ux[nxu - 1]
+    uy0 = uy[0]
+    uyl = uy[nyu - 1]
+    invx = invu[0]
+    invy = invu[1]
+    ncx = xe.shape[0] - 1
+    ncy = ye.shape[0] - 1
     x_w = xe[0]
-    x_e = xe[xe.shape[0] - 1]
+    x_e = xe[ncx]
     y_s = ye[0]
-    y_n = ye[ye.shape[0] - 1]
-    stream = particle_stream(key, p)
-    px = x[p]
-    py = y[p]
-    pm = m[p]
-    st = status[p]
+    y_n = ye[ncy]
+    invex = invc[0]
+    invey = invc[1]
+    k1 = kconst[0] * kconst[2]
+    k2 = kconst[1] * kconst[2]
+    west = edges_mode[0] == 1
+    east = edges_mode[1] == 1
+    south = edges_mode[2] == 1
+    north = edges_mode[3] == 1
+    nf = U.shape[0]
+    cell_i, cell_j, streams = block_scratch(lo, hi, x, y, xe, ye, invc, key)
+    # The block's positions, status and mass, gathered so that they stay in the L1 cache.
+    nb_ = hi - lo
+    bx = np.empty(nb_)
+    by = np.empty(nb_)
+    bm = np.empty(nb_)
+    bst = np.empty(nb_, np.int8)
+    for k in range(nb_):
+        p = lo + k
+        bx[k] = x[p]
+        by[k] = y[p]
+        bm[k] = m[p]
+        bst[k] = status[p]
     for s in range(nsteps):
         t = t0 + s * dt
         t_end = t + dt
-        if st == STATUS_WAITING:
-            if trel[p] >= t_end:
-                continue
-            st = STATUS_WATER
-            tstart = max(t, trel[p])
-        elif st == STATUS_WATER or st == STATUS_STRANDED:
-            tstart = t
-        else:
-            break
-        h = t_end - tstart
-        if h <= 0.0:
-            continue
-        it, wt = time_weight(times, tstart)
+        h = t_end - t
+        it = tab_i[s, 0]
+        wt = tab_w[s, 0]
         iw = it if wt < 0.5 else it + 1
-        if not is_wet(wet, xe, ye, invc[0], invc[1], iw, px, py):
-            st = STATUS_STRANDED
-        elif st == STATUS_STRANDED:
-            st = STATUS_WATER
-        if decay_rate > 0.0:
-            pm = pm * math.exp(-decay_rate * h)
-            if pm <= DECAYED_FRACTION * m0[p]:
-                st = STATUS_DECAYED
-                break
-        if st == STATUS_STRANDED:
-            continue
-        # Deterministic part.
-        ax_, ay_ = advect(flow, times, scheme, geographic, px, py, tstart, h)
-        # Dispersion tensor at the start point.
-        if kconst[0] >= 0.0:
-            k1 = kconst[0]
-            k2 = kconst[1]
-        else:
-            k1 = sample(K1, cx, cy, invc[2], invc[3], it, wt, px, py)
-            k2 = sample(K2, cx, cy, invc[2], invc[3], it, wt, px, py)
-        k1 *= kconst[2]
-        k2 *= kconst[2]
-        z1, z2 = normal_pair(stream, step0 + s)
-        sx, sy = metres_to_grid(geographic, py)
-        if aligned:
-            u, v = velocity(flow, it, wt, px, py)
-            speed = math.sqrt(u * u + v * v)
-            if speed > 0.0:
-                ex = u / speed
-                ey = v / speed
-            else:
-                ex = 1.0
-                ey = 0.0
-                k1 = k2
-            aL = math.sqrt(2.0 * k1 * h) * z1
-            aT = math.sqrt(2.0 * k2 * h) * z2
-            nxm = aL * ex - aT * ey
-            nym = aL * ey + aT * ex
-            kxx = k2 + (k1 - k2) * ex * ex
-            kyy = k2 + (k1 - k2) * ey * ey
-        else:
-            nxm = math.sqrt(2.0 * k1 * h) * z1
-            nym = math.sqrt(2.0 * k2 * h) * z2
-            kxx = k1
-            kyy = k2
-        dxm = nxm
-        dym = nym
-        if has_drift:
-            dxm += sample(DX, cx, cy, invc[2], invc[3], it, wt, px, py) * h
-            dym += sample(DY, cx, cy, invc[2], invc[3], it, wt, px, py) * h
-        qx = px + ax_ + dxm * sx
-        qy = py
-        if ndim == 2:
-            qy = py + ay_ + dym * sy
-        # Edges and coast.
-        left = -1
-        tcross = t_end
-        placed = False
-        for _ in range(max_refl):
-            if qx < x_w:
-                if edges_mode[0] == 1:
-                    left = 0
-                    tcross = tstart + h * (px - x_w) / (px - qx)
-                    break
-                qx = 2.0 * x_w - qx
-            if qx > x_e:
-                if edges_mode[1] == 1:
-                    left = 1
-                    tcross = tstart + h * (x_e - px) / (qx - px)
-                    break
-                qx = 2.0 * x_e - qx
-            if ndim == 2:
-                if qy < y_s:
-                    if edges_mode[2] == 1:
-                        left = 2
-                        tcross = tstart + h * (py - y_s) / (py - qy)
-                        break
-                    qy = 2.0 * y_s - qy
-                if qy > y_n:
-                    if edges_mode[3] == 1:
-                        left = 3
-                        tcross = tstart + h * (y_n - py) / (qy - py)
-                        break
-                    qy = 2.0 * y_n - qy
-            if qx < x_w or qx > x_e or qy < y_s or qy > y_n:
+        if wet.shape[0] == 1:
+            iw = 0
+        wet_now = wet[iw]
+        if nf == 1:
+            it = 0
+            wt = 0.0
+        later = wt > 0.0
+        Ua = U[it]
+        Va = V[it]
+        Ub = U[it + 1] if later else Ua
+        Vb = V[it + 1] if later else Va
+        sd1 = math.sqrt(2.0 * k1 * h)
+        sd2 = math.sqrt(2.0 * k2 * h)
+        band1 = 20.0 * k1 * h
+        band2 = 20.0 * k2 * h
+        fade = math.exp(-decay_rate * h)
+        counter = np.uint64(step0 + s) * np.uint64(COMPONENTS)
+        c1 = (counter + np.uint64(COMP_NORMAL)) * GOLDEN
+        c2 = (counter + np.uint64(COMP_NORMAL + 1)) * GOLDEN
+        for k in range(hi - lo):
+            p = lo + k
+            st = bst[k]
+            if st != STATUS_WATER and st != STATUS_STRANDED:
+                if st != STATUS_WAITING or trel[p] >= t_end:
+                    continue
+                if trel[p] > t or not h > 0.0:
+                    x[p] = bx[k]
+                    y[p] = by[k]
+                    m[p] = bm[k]
+                    status[p] = st
+                    step_one(
+                        p,
+                        k,
+                        s,
+                        x,
+                        y,
+                        m,
+                        m0,
+                        trel,
+                        texit,
+                        status,
+                        flow,
+                        cells,
+                        disp,
+                        times,
+                        opts,
+                        edges_mode,
+                        t0,
+                        dt,
+                        step0,
+                        decay_rate,
+                        tab_i,
+                        tab_w,
+                        True,
+                        cell_i,
+                        cell_j,
+                        streams,
+                    )
+                    bx[k] = x[p]
+                    by[k] = y[p]
+                    bm[k] = m[p]
+                    bst[k] = status[p]
+                    continue
+                st = STATUS_WATER
+            if not h > 0.0:
+                bst[k] = st
                 continue
-            ci = cell_index(xe, invc[0], qx)
-            cj = cell_index(ye, invc[1], qy)
-            iw2 = 0 if wet.shape[0] == 1 else iw
-            if wet[iw2, cj, ci] != 0:
-                placed = True
-                break
-            pi = cell_index(xe, invc[0], px)
-            pj = cell_index(ye, invc[1], py)
-            reflected = False
-            if ci != pi and wet[iw2, pj, ci] == 0:
-                xf = xe[pi + 1] if ci > pi else xe[pi]
-                qx = 2.0 * xf - qx
-                reflected = True
-            if cj != pj and wet[iw2, cj, pi] == 0:
-                yf = ye[pj + 1] if cj > pj else ye[pj]
-                qy = 2.0 * yf - qy
-                reflected = True
-            if not reflected:
-                if ci != pi:
-                    xf = xe[pi + 1] if ci > pi else xe[pi]
-                    qx = 2.0 * xf - qx
-                if cj != pj:
-                    yf = ye[pj + 1] if cj > pj else ye[pj]
-                    qy = 2.0 * yf - qy
-        if left < 0 and bridge:
-            # Brownian-bridge probability that the path crossed an absorbing edge in the step.
+            pi = cell_i[k]
+            pj = cell_j[k]
+            if wet_now[pj, pi] == 0:
+                st = STATUS_STRANDED
+            elif st == STATUS_STRANDED:
+                st = STATUS_WATER
+            if decay_rate > 0.0:
+                pm = bm[k] * fade
+                bm[k] = pm
+                if pm <= DECAYED_FRACTION * m0[p]:
+                    bst[k] = STATUS_DECAYED
+                    continue
+            if st == STATUS_STRANDED:
+                bst[k] = st
+                continue
+            px = bx[k]
+            py = by[k]
+            # locate() on both axes, written out.
+            if px <= ux0:
+                i = 0
+                wx = 0.0
+            elif px >= uxl:
+                i = nxu - 2
+                wx = 1.0
+            else:
+                i = min(int((px - ux0) * invx), nxu - 2)
+                wx = (px - ux[i]) * invx
+            if py <= uy0:
+                j = 0
+                wy = 0.0
+            elif py >= uyl:
+                j = nyu - 2
+                wy = 1.0
+            else:
+                j = min(int((py - uy0) * invy), nyu - 2)
+                wy = (py - uy[j]) * invy
+            i1 = i + 1
+            j1 = j + 1
+            # bilinear() for u and v, written out.
+            u = (1.0 - wy) * ((1.0 - wx) * Ua[j, i] + wx * Ua[j, i1]) + wy * (
+                (1.0 - wx) * Ua[j1, i] + wx * Ua[j1, i1]
+            )
+            v = (1.0 - wy) * ((1.0 - wx) * Va[j, i] + wx * Va[j, i1]) + wy * (
+                (1.0 - wx) * Va[j1, i] + wx * Va[j1, i1]
+            )
+            if later:
+                g = (1.0 - wy) * ((1.0 - wx) * Ub[j, i] + wx * Ub[j, i1]) + wy * (
+                    (1.0 - wx) * Ub[j1, i] + wx * Ub[j1, i1]
+                )
+                u = u + wt * (g - u)
+                g = (1.0 - wy) * ((1.0 - wx) * Vb[j, i] + wx * Vb[j, i1]) + wy * (
+                    (1.0 - wx) * Vb[j1, i] + wx * Vb[j1, i1]
+                )
+                v = v + wt * (g - v)
+            # normal_pair(), written out.
+            stream = streams[k]
+            za = mix64(stream + c1)
+            zb = mix64(stream + c2)
+            la = int(za & np.uint64(255))
+            z1 = float(za >> np.uint64(11)) * INV_2_53 * ZIG_X[la]
+            if z1 < ZIG_X[la + 1]:
+                z1 = z1 * float(1 - 2 * int((za >> np.uint64(8)) & np.uint64(1)))
+            else:
+                z1 = ziggurat_rest(za)
+            lb = int(zb & np.uint64(255))
+            z2 = float(zb >> np.uint64(11)) * INV_2_53 * ZIG_X[lb]
+            if z2 < ZIG_X[lb + 1]:
+                z2 = z2 * float(1 - 2 * int((zb >> np.uint64(8)) & np.uint64(1)))
+            else:
+                z2 = ziggurat_rest(zb)
+            qx = px + u * h * 1.0 + sd1 * z1 * 1.0
+            qy = py + v * h * 1.0 + sd2 * z2 * 1.0
+            # The first pass of reflect_and_place(), written out: inside and wet.
+            placed = False
+            ci = pi
+            cj = pj
+            if qx >= x_w and qx <= x_e and qy >= y_s and qy <= y_n:
+                ci = min(int((qx - x_w) * invex), ncx - 1)
+                if qx < xe[ci]:
+                    ci -= 1
+                elif ci < ncx - 1 and qx >= xe[ci + 1]:
+                    ci += 1
+                cj = min(int((qy - y_s) * invey), ncy - 1)
+                if qy < ye[cj]:
+                    cj -= 1
+                elif cj < ncy - 1 and qy >= ye[cj + 1]:
+                    cj += 1
+                placed = wet_now[cj, ci] != 0
+            left = -1
+            tcross = t_end
+            if not placed:
+                left, tcross, placed, qx, qy, ci, cj = reflect_and_place(
+                    qx,
+                    qy,
+                    px,
+                    py,
+                    pi,
+                    pj,
+                    t,
+                    h,
+                    t_end,
+                    2,
+                    max_refl,
+                    edges_mode,
+                    xe,
+                    ye,
+                    wet_now,
+                    invex,
+                    invey,
+                )
+            if left < 0 and bridge and placed:
+                near = (
+                    (west and (px - x_w) * (qx - x_w) < band1)
+                    or (east and (x_e - px) * (x_e - qx) < band1)
+                    or (south and (py - y_s) * (qy - y_s) < band2)
+                    or (north and (y_n - py) * (y_n - qy) < band2)
+                )
+                if near:
+                    left = bridge_exit(
+                        stream,
+                        step0 + s,
+                        px,
+                        py,
+                        qx,
+                        qy,
+                        1.0,
+                        1.0,
+                        k1,
+                        k2,
+                        h,
+                        2,
+                        edges_mode,
+                        x_w,
+                        x_e,
+                        y_s,
+                        y_n,
+                    )
+                    if left >= 0:
+                        tcross = t + 0.5 * h
+            if left >= 0:
+                bst[k] = STATUS_LEFT + left
+                texit[p] = tcross
+                bx[k] = qx
+                by[k] = qy
+                continue
             if placed:
-                dxw = (px - x_w) / sx
-                dqw = (qx - x_w) / sx
-                dxe = (x_e - px) / sx
-                dqe = (x_e - qx) / sx
-                if edges_mode[0] == 1 and kxx > 0.0 and dxw * dqw < 20.0 * kxx * h:
-                    if uniform(stream, step0 + s, COMP_BRIDGE_X) < math.exp(-dxw * dqw / (kxx * h)):
-                        left = 0
-                elif edges_mode[1] == 1 and kxx > 0.0 and dxe * dqe < 20.0 * kxx * h:
-                    if uniform(stream, step0 + s, COMP_BRIDGE_X) < math.exp(-dxe * dqe / (kxx * h)):
-                        left = 1
-                if left < 0 and ndim == 2:
-                    dys = (py - y_s) / sy
-                    dqs = (qy - y_s) / sy
-                    dyn = (y_n - py) / sy
-                    dqn = (y_n - qy) / sy
-                    if edges_mode[2] == 1 and kyy > 0.0 and dys * dqs < 20.0 * kyy * h:
-                        if uniform(stream, step0 + s, COMP_BRIDGE_Y) < math.exp(
-                            -dys * dqs / (kyy * h)
-                        ):
-                            left = 2
-                    elif edges_mode[3] == 1 and kyy > 0.0 and dyn * dqn < 20.0 * kyy * h:
-                        if uniform(stream, step0 + s, COMP_BRIDGE_Y) < math.exp(
-                            -dyn * dqn / (kyy * h)
-                        ):
-                            left = 3
-                if left >= 0:
-                    tcross = tstart + 0.5 * h
-        if left >= 0:
-            st = STATUS_LEFT + left
-            texit[p] = tcross
-            px = qx
-            py = qy
-            break
-        if placed:
-            px = qx
-            py = qy
-    x[p] = px
-    y[p] = py
-    m[p] = pm
-    status[p] = st
+                bx[k] = qx
+                by[k] = qy
+                cell_i[k] = ci
+                cell_j[k] = cj
+            bst[k] = st
+    for k in range(nb_):
+        p = lo + k
+        x[p] = bx[k]
+        y[p] = by[k]
+        m[p] = bm[k]
+        status[p] = bst[k]
+
+
+@nb.njit(**JIT)
+def move_block_any(
+    lo,
+    hi,
+    fast,
+    shared,
+    x,
+    y,
+    m,
+    m0,
+    trel,
+    texit,
+    status,
+    flow,
+    cells,
+    disp,
+    times,
+    opts,
+    edges_mode,
+    t0,
+    dt,
+    nsteps,
+    step0,
+    key,
+    decay_rate,
+    tab_i,
+    tab_w,
+):
+    """Advance particles lo..hi-1 with the fast path when it applies, else the general one."""
+    if fast:
+        move_block_fast(
+            lo,
+            hi,
+            x,
+            y,
+            m,
+            m0,
+            trel,
+            texit,
+            status,
+            flow,
+            cells,
+            disp,
+            times,
+            opts,
+            edges_mode,
+            t0,
+            dt,
+            nsteps,
+            step0,
+            key,
+            decay_rate,
+            tab_i,
+            tab_w,
+        )
+    else:
+        move_block(
+            lo,
+            hi,
+            x,
+            y,
+            m,
+            m0,
+            trel,
+            texit,
+            status,
+            flow,
+            cells,
+            disp,
+            times,
+            opts,
+            edges_mode,
+            t0,
+            dt,
+            nsteps,
+            step0,
+            key,
+            decay_rate,
+            tab_i,
+            tab_w,
+            shared,
+        )
 
 
 @nb.njit(parallel=True, **JIT)
@@ -481,10 +1151,43 @@ def advance(
     step0 : global index of the first step (keys the random numbers).
     key : uint64 key of the run's random stream.
     decay_rate : first-order decay rate (s-1).
+
+    Particles are independent, so any split over threads gives the same numbers bitwise.
     """
-    for p in nb.prange(x.shape[0]):
-        move_one(
-            p,
+    tab_i = np.zeros((nsteps, 3), np.int64)
+    tab_w = np.zeros((nsteps, 3))
+    step_tables(times, t0, dt, nsteps, tab_i, tab_w)
+    ux, uy, vx, vy = flow[0], flow[1], flow[3], flow[4]
+    shared = (
+        ux.shape[0] == vx.shape[0]
+        and uy.shape[0] == vy.shape[0]
+        and np.all(ux == vx)
+        and np.all(uy == vy)
+    )
+    n = x.shape[0]
+    nblocks = (n + BLOCK - 1) // BLOCK
+    invu = flow[6]
+    invc = cells[5]
+    fast = (
+        shared
+        and opts[0] == 2
+        and opts[1] == 0
+        and opts[2] == 0
+        and opts[3] == 0
+        and opts[6] == 0
+        and disp[4][0] >= 0.0
+        and invu[0] > 0.0
+        and invu[1] > 0.0
+        and invc[0] > 0.0
+        and invc[1] > 0.0
+    )
+    if nblocks <= 1:
+        # One block: no parallel launch (waking the other threads costs more than the work).
+        move_block_any(
+            0,
+            n,
+            fast,
+            shared,
             x,
             y,
             m,
@@ -504,24 +1207,58 @@ def advance(
             step0,
             key,
             decay_rate,
+            tab_i,
+            tab_w,
+        )
+        return
+    for b in nb.prange(nblocks):
+        lo = b * BLOCK
+        move_block_any(
+            lo,
+            min(n, lo + BLOCK),
+            fast,
+            shared,
+            x,
+            y,
+            m,
+            m0,
+            trel,
+            texit,
+            status,
+            flow,
+            cells,
+            disp,
+            times,
+            opts,
+            edges_mode,
+            t0,
+            dt,
+            nsteps,
+            step0,
+            key,
+            decay_rate,
+            tab_i,
+            tab_w,
         )
 
 
 @nb.njit(**JIT)
 def grid_mass(x, y, w, status, x0, dx, nx, y0, dy, ny, out, count):
     """Box counting: add weight w of each in-water particle to its output cell (serial, fixed
-    order, so sums are bitwise reproducible). Cell (j, i) spans x0 + (i ± ½) dx."""
+    order, so sums are bitwise reproducible). Cell (j, i) spans x0 + (i ± ½) dx.
+
+    The cell is found with one multiply per axis by 1/dx (no division in the loop)."""
+    inv_dx = 1.0 / dx
+    inv_dy = 1.0 / dy
     for p in range(x.shape[0]):
         if status[p] != STATUS_WATER:
             continue
-        fi = (x[p] - x0) / dx + 0.5
-        fj = (y[p] - y0) / dy + 0.5
-        if fi < 0.0 or fj < 0.0:
+        fi = (x[p] - x0) * inv_dx + 0.5
+        fj = (y[p] - y0) * inv_dy + 0.5
+        if not (fi >= 0.0 and fj >= 0.0 and fi < nx and fj < ny):
             continue
         i = int(fi)
         j = int(fj)
-        if i >= nx or j >= ny:
-            continue
         out[j, i] += w[p]
         count[j, i] += 1
 

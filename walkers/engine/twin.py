@@ -23,6 +23,9 @@ from walkers.engine.kernels import (
     STATUS_WATER,
     WGS84_A,
     WGS84_E2,
+    ZIG_F,
+    ZIG_R,
+    ZIG_X,
 )
 
 _GOLDEN = np.uint64(0x9E3779B97F4A7C15)
@@ -42,27 +45,96 @@ def particle_streams(key: int, particles: np.ndarray) -> np.ndarray:
     return mix64(np.uint64(key) ^ (p * _GOLDEN))
 
 
-def uniforms(streams: np.ndarray, step: int, comp: int) -> np.ndarray:
-    """Uniform deviates in (0, 1] for each stream at (step, component)."""
-    counter = np.uint64(step) * np.uint64(COMPONENTS) + np.uint64(comp)
-    z = mix64(streams + np.full_like(streams, counter) * _GOLDEN)
+def _open_unit(z: np.ndarray) -> np.ndarray:
     return ((z >> np.uint64(11)).astype(np.float64) + 1.0) * (1.0 / 9007199254740992.0)
 
 
+def _hashes(streams: np.ndarray, step: int, comp: int) -> np.ndarray:
+    counter = np.uint64(step) * np.uint64(COMPONENTS) + np.uint64(comp)
+    return mix64(streams + np.full_like(streams, counter) * _GOLDEN)
+
+
+def uniforms(streams: np.ndarray, step: int, comp: int) -> np.ndarray:
+    """Uniform deviates in (0, 1] for each stream at (step, component)."""
+    return _open_unit(_hashes(streams, step, comp))
+
+
+def _next(z: np.ndarray) -> np.ndarray:
+    return mix64(z + _GOLDEN)
+
+
+def _ziggurat_layer(z: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    i = (z & np.uint64(255)).astype(np.intp)
+    x = (z >> np.uint64(11)).astype(np.float64) * (1.0 / 9007199254740992.0) * ZIG_X[i]
+    negative = ((z >> np.uint64(8)) & np.uint64(1)) == 1
+    return i, x, negative
+
+
+def _ziggurat_rest(z: np.ndarray) -> np.ndarray:
+    """The ziggurat's wedge and tail tests and fresh draws, vectorised over the pending hashes
+    (the same sequence of hashes as ``kernels.ziggurat_rest``)."""
+    out = np.empty(z.size)
+    todo = np.arange(z.size)
+    z = z.copy()
+    while todo.size:
+        i, x, negative = _ziggurat_layer(z)
+        done = x < ZIG_X[i + 1]
+        val = x.copy()
+        tail = ~done & (i == 0)
+        if np.any(tail):
+            k = np.flatnonzero(tail)
+            zt = z[k]
+            res = np.empty(k.size)
+            open_ = np.arange(k.size)
+            while open_.size:
+                zt[open_] = _next(zt[open_])
+                a = -np.log(_open_unit(zt[open_])) / ZIG_R
+                zt[open_] = _next(zt[open_])
+                b = -np.log(_open_unit(zt[open_]))
+                ok = b + b > a * a
+                res[open_[ok]] = ZIG_R + a[ok]
+                open_ = open_[~ok]
+            val[k] = res
+            z[k] = zt
+            done[k] = True
+        wedge = np.flatnonzero(~done)
+        if wedge.size:
+            iw = i[wedge]
+            z[wedge] = _next(z[wedge])
+            yv = ZIG_F[iw] + _open_unit(z[wedge]) * (ZIG_F[iw + 1] - ZIG_F[iw])
+            xw = x[wedge]
+            done[wedge] = yv < np.exp(-0.5 * xw * xw)
+        out[todo[done]] = np.where(negative[done], -val[done], val[done])
+        todo = todo[~done]
+        z = _next(z[~done])
+    return out
+
+
+def normals(z: np.ndarray) -> np.ndarray:
+    """Standard normal deviates from 64-bit hashes (the ziggurat of ``kernels.normal_from``)."""
+    i, x, negative = _ziggurat_layer(z)
+    out = np.where(negative, -x, x)
+    slow = np.flatnonzero(~(x < ZIG_X[i + 1]))
+    if slow.size:
+        out[slow] = _ziggurat_rest(z[slow])
+    return out
+
+
 def normal_pairs(streams: np.ndarray, step: int) -> tuple[np.ndarray, np.ndarray]:
-    u1 = uniforms(streams, step, COMP_NORMAL)
-    u2 = uniforms(streams, step, COMP_NORMAL + 1)
-    r = np.sqrt(-2.0 * np.log(u1))
-    a = 2.0 * np.pi * u2
-    return r * np.cos(a), r * np.sin(a)
+    return (
+        normals(_hashes(streams, step, COMP_NORMAL)),
+        normals(_hashes(streams, step, COMP_NORMAL + 1)),
+    )
 
 
-def _locate(c: np.ndarray, v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def _locate(c: np.ndarray, v: np.ndarray, inv: float = 0.0) -> tuple[np.ndarray, np.ndarray]:
+    """Interval and weight on axis c; on a uniform axis (inv = 1/spacing > 0) the weight is
+    (v - c[i]) * inv, as in ``kernels.locate``."""
     n = c.shape[0]
     if n < 2:
         return np.zeros(v.shape, np.int64), np.zeros(v.shape)
     i = np.clip(np.searchsorted(c, v, side="right") - 1, 0, n - 2)
-    w = (v - c[i]) / (c[i + 1] - c[i])
+    w = (v - c[i]) * inv if inv > 0.0 else (v - c[i]) / (c[i + 1] - c[i])
     low = v <= c[0]
     high = v >= c[-1]
     w = np.where(low, 0.0, np.where(high, 1.0, w))
@@ -77,10 +149,10 @@ def _time_weight(times: np.ndarray, t: np.ndarray) -> tuple[np.ndarray, np.ndarr
     return _locate(times, t)
 
 
-def _sample(arr, ax, ay, it, wt, x, y):
+def _sample(arr, ax, ay, invx, invy, it, wt, x, y):
     nf, ny, nx = arr.shape
-    i, wx = _locate(ax, x)
-    j, wy = _locate(ay, y)
+    i, wx = _locate(ax, x, invx)
+    j, wy = _locate(ay, y, invy)
     i1 = np.minimum(i + 1, nx - 1)
     j1 = np.minimum(j + 1, ny - 1)
     if nf == 1:
@@ -112,9 +184,12 @@ def _metres_to_grid(geographic, y):
 
 
 def _velocity(flow, times, t, x, y):
-    ux, uy, U, vx, vy, V = flow[:6]
+    ux, uy, U, vx, vy, V, inv = flow
     it, wt = _time_weight(times, t)
-    return _sample(U, ux, uy, it, wt, x, y), _sample(V, vx, vy, it, wt, x, y)
+    return (
+        _sample(U, ux, uy, inv[0], inv[1], it, wt, x, y),
+        _sample(V, vx, vy, inv[2], inv[3], it, wt, x, y),
+    )
 
 
 def _advect(flow, times, scheme, geographic, x, y, t, h):
@@ -154,7 +229,7 @@ def advance(
 ):
     """Numpy twin of :func:`walkers.engine.kernels.advance` (same arguments, in place)."""
     ndim, scheme, aligned, has_drift, bridge, max_refl, geographic = (int(o) for o in opts)
-    xe, ye, wet, cx, cy = cells[:5]
+    xe, ye, wet, cx, cy, invc = cells
     DX, DY, K1, K2, kconst = disp
     x_w, x_e, y_s, y_n = xe[0], xe[-1], ye[0], ye[-1]
     streams_all = particle_streams(key, np.arange(x.shape[0]))
@@ -163,7 +238,7 @@ def advance(
         t_end = t + dt
         new = (status == STATUS_WAITING) & (trel < t_end)
         status[new] = STATUS_WATER
-        act = np.flatnonzero(((status == STATUS_WATER) | (status == STATUS_STRANDED)))
+        act = np.flatnonzero((status == STATUS_WATER) | (status == STATUS_STRANDED))
         if act.size == 0:
             continue
         tstart = np.where(new[act], np.maximum(t, trel[act]), t)
@@ -196,8 +271,8 @@ def advance(
             k1 = np.full(act.size, kconst[0])
             k2 = np.full(act.size, kconst[1])
         else:
-            k1 = _sample(K1, cx, cy, it, wt, px, py)
-            k2 = _sample(K2, cx, cy, it, wt, px, py)
+            k1 = _sample(K1, cx, cy, invc[2], invc[3], it, wt, px, py)
+            k2 = _sample(K2, cx, cy, invc[2], invc[3], it, wt, px, py)
         k1 = k1 * kconst[2]
         k2 = k2 * kconst[2]
         z1, z2 = normal_pairs(streams, step0 + s)
@@ -222,8 +297,8 @@ def advance(
             kxx, kyy = k1, k2
         dxm, dym = nxm, nym
         if has_drift:
-            dxm = dxm + _sample(DX, cx, cy, it, wt, px, py) * h
-            dym = dym + _sample(DY, cx, cy, it, wt, px, py) * h
+            dxm = dxm + _sample(DX, cx, cy, invc[2], invc[3], it, wt, px, py) * h
+            dym = dym + _sample(DY, cx, cy, invc[2], invc[3], it, wt, px, py) * h
         qx = px + ax_ + dxm * sx
         qy = py + ay_ + dym * sy if ndim == 2 else py.copy()
         iw_cells = iw if wet.shape[0] > 1 else np.zeros_like(iw)

@@ -1218,7 +1218,8 @@ def open_flow(
         frame_local = np.zeros(0, dtype=np.intp)
         seconds = np.array([0.0])
 
-    if time_range is not None and has_time:
+    if time_range is not None and has_time and seconds.size > 1:
+        # (a single frame is a steady flow, valid at all times)
         t0 = _to_seconds(time_range[0], time_units, calendar)
         t1 = _to_seconds(time_range[1], time_units, calendar)
         if t0 < seconds[0] - 1e-6 or t1 > seconds[-1] + 1e-6 or t1 < t0:

@@ -1,0 +1,103 @@
+"""The benchmark runs in quick mode and reports every figure (speed itself is never asserted)."""
+
+import json
+
+import numpy as np
+import pytest
+
+from walkers import bench
+from walkers.engine import mover
+
+FIELDS = {
+    "compiled_steps_per_s_1thread",
+    "compiled_steps_per_cpu_s_1thread",
+    "compiled_steps_per_s_2threads",
+    "numpy_steps_per_s",
+    "compiled_over_numpy",
+    "speedup_1_to_2_threads",
+    "compiled_minus_numpy_max_m",
+    "bytes_per_particle",
+    "peak_memory_10m_bytes",
+    "peak_memory_method",
+    "gridding_particles_per_s",
+    "concentration_particles_per_s",
+    "first_step_warm_s",
+    "machine",
+    "workload",
+    "caution",
+}
+
+
+@pytest.fixture(scope="module")
+def small_result():
+    return bench.run_benchmark(
+        quick=True, particles=2000, repeats=1, steps=4, memory_particles=50_000
+    )
+
+
+def test_quick_benchmark_reports_every_field(small_result):
+    r = small_result
+    assert FIELDS <= set(r)
+    for key in FIELDS - {"machine", "workload", "caution", "peak_memory_method"}:
+        assert np.isfinite(r[key]) and r[key] >= 0, key
+    assert r["peak_memory_method"].startswith("projected from 50,000")
+    assert r["workload"]["grid_cells"] == [200, 100] and r["workload"]["frames"] >= 3
+    assert r["machine"]["nproc"] >= 1 and r["machine"]["cpu_model"]
+    json.dumps(r)  # plain numbers and strings only
+
+
+def test_benchmark_state_is_the_particle_state(small_result):
+    """Positions, masses, times and status: 6 float64 and one int8 per particle."""
+    assert small_result["bytes_per_particle"] == 6 * 8 + 1
+
+
+def test_benchmark_engines_agree_on_the_same_particles(small_result):
+    """The compiled fast path and the numpy twin move the benchmark's particles alike (DESIGN.md
+    §4.7: 1e-12 of the 4 km basin)."""
+    assert small_result["compiled_minus_numpy_max_m"] <= 1e-12 * 4000.0
+
+
+def test_reference_workload_has_land_walls_and_open_edges():
+    flow, transport = bench.reference_workload()
+    assert flow.x.size * flow.y.size >= 200 * 100 and flow.times.size >= 3
+    assert 0.0 < 1.0 - flow.wet.data[0].mean() < 0.5
+    assert set(transport.edges.values()) == {"reflecting", "absorbing"}
+    inputs = mover.kernel_inputs(flow, flow.window(0.0, float(flow.times[-1])), transport)
+    assert inputs.flow[2].shape[0] == flow.times.size  # time-varying frames
+
+
+def test_benchmark_engines_can_disagree():
+    """Twin of the agreement check: different random keys give metres of difference."""
+    flow, transport = bench.reference_workload()
+    inputs = mover.kernel_inputs(flow, flow.window(0.0, float(flow.times[-1])), transport)
+    a = bench.initial_state(500, flow)
+    b = a.copy()
+    mover.advance(a, inputs, 0.0, bench.DT, 3, 0, bench.KEY)
+    mover.advance(b, inputs, 0.0, bench.DT, 3, 0, bench.KEY + 1, engine="numpy")
+    assert np.max(np.abs(a.x - b.x)) > 1.0
+
+
+def test_text_report_names_each_target(small_result):
+    text = bench.format_report(small_result)
+    for word in ("particle-steps/s", "threads", "bytes", "GB", "gridding", "first step"):
+        assert word in text
+    assert small_result["caution"] in text
+
+
+def test_scaling_slope_of_a_power_law():
+    assert bench.fit_slope([1.0, 2.0, 4.0], [3.0, 6.0, 12.0]) == pytest.approx(1.0)
+
+
+def test_cli_bench_command_prints_json():
+    from click.testing import CliRunner
+
+    from walkers.cli import main
+
+    if "bench" not in main.commands:
+        pytest.skip("the bench command is not in walkers.cli yet")
+    result = CliRunner().invoke(
+        main, ["bench", "--quick", "--json", "--particles", "1000", "--repeats", "1"]
+    )
+    assert result.exit_code == 0, result.output
+    data = json.loads(result.output)
+    assert FIELDS <= set(data)

@@ -1,0 +1,470 @@
+"""The benchmark behind ``walkers bench``: speed, memory and start-up of the particle engine.
+
+One run measures, on a fixed reference workload (an invented basin: a 2-D gridded, time-varying
+flow, bilinear in space and linear in time, with land, reflecting and absorbing edges and noise on):
+
+- particle-steps per second of the compiled engine on one and on two threads, and of the
+  plain-numpy twin on the same particles, with their ratio (and the largest difference between
+  the two, which must stay at round-off);
+- bytes of particle state per particle, and the peak memory of a 10-million-particle run (measured
+  in a child process with ``resource.getrusage``, or projected from a smaller one in quick mode);
+- concentration-gridding throughput (particles per second through ``reduce.concentration``);
+- the time from a fresh interpreter to the return of the first kernel call, with the compiled
+  kernels already cached on disk.
+
+Rates are medians over repeats. Wall-clock rates suffer when other work shares the machine, so the
+load average is reported and one-thread rates are also given per CPU-second of this process.
+``scaling_study`` measures how the cost grows with particles, steps, grid size and members.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import resource
+import statistics
+import subprocess
+import sys
+import time
+from collections.abc import Callable
+
+import numba
+import numpy as np
+
+import walkers
+from walkers.config import Dispersion, OutputGrid, Transport
+from walkers.engine import kernels, mover
+from walkers.engine.state import ParticleState
+from walkers.fields.analytic import grid_flow
+from walkers.fields.base import FlowField, centre_to_edges
+
+CELL = 20.0  # m, cell size of the reference workload
+DT = 30.0  # s, time step
+FRAME_INTERVAL = 3600.0  # s between flow frames
+KEY = 20260101
+MAX_THREADS = int(numba.config.NUMBA_NUM_THREADS)  # type: ignore[attr-defined]
+
+
+def reference_workload(
+    nx: int = 200, ny: int = 100, frames: int = 7
+) -> tuple[FlowField, Transport]:
+    """The reference basin: nx × ny cells of 20 m, ``frames`` hourly frames of a tidal flow
+    (0.3 m s-1 amplitude, period 12.42 h) with a cross-channel swirl, an island and a jetty of
+    land, west and south edges reflecting, east and north absorbing, K = 1 and 0.5 m2 s-1."""
+    xc = CELL * (np.arange(nx) + 0.5)
+    yc = CELL * (np.arange(ny) + 0.5)
+    X, Y = np.meshgrid(xc, yc)
+    lx, ly = nx * CELL, ny * CELL
+    land = ((X - 0.6 * lx) / (0.08 * lx)) ** 2 + ((Y - 0.5 * ly) / (0.15 * ly)) ** 2 < 1.0
+    land |= (Y > 0.85 * ly) & (X > 0.2 * lx) & (X < 0.4 * lx)
+
+    def velocity(X, Y, t):
+        phase = np.cos(2.0 * np.pi * t / 44712.0)
+        return 0.3 * phase + 0.05 * np.sin(Y / 300.0), 0.05 * np.cos(X / 500.0) * phase
+
+    times = FRAME_INTERVAL * np.arange(frames, dtype=np.float64)
+    flow = grid_flow(xc, yc, times, velocity, depth=8.0, wet=~land)
+    transport = Transport(
+        dt=DT,
+        dispersion=Dispersion(k1=1.0, k2=0.5),
+        edges={
+            "west": "reflecting",
+            "east": "absorbing",
+            "south": "reflecting",
+            "north": "absorbing",
+        },
+    )
+    return flow, transport
+
+
+def initial_state(n: int, flow: FlowField, seed: int = 1) -> ParticleState:
+    """n particles spread over the western water of the basin, all released at t = 0."""
+    rng = np.random.default_rng(seed)
+    lx, ly = flow.x[-1], flow.y[-1]
+    x = rng.uniform(0.05 * lx, 0.3 * lx, n)
+    y = rng.uniform(0.1 * ly, 0.8 * ly, n)
+    return ParticleState.from_arrays(x, y, np.ones(n), np.zeros(n))
+
+
+def _inputs(flow: FlowField, transport: Transport) -> mover.KernelInputs:
+    return mover.kernel_inputs(flow, flow.window(0.0, float(flow.times[-1])), transport)
+
+
+def _timed(fn: Callable[[], None]) -> tuple[float, float]:
+    """(wall seconds, CPU seconds of this process) taken by fn()."""
+    c = time.process_time()
+    t = time.perf_counter()
+    fn()
+    return time.perf_counter() - t, time.process_time() - c
+
+
+def _rate(
+    flow: FlowField,
+    inputs: mover.KernelInputs,
+    start: ParticleState,
+    steps: int,
+    repeats: int,
+    engine: str,
+) -> tuple[float, float, ParticleState]:
+    """Median particle-steps per wall second and per CPU second; the state after the last run."""
+    walls, cpus = [], []
+    out = start
+    for _ in range(repeats):
+        out = start.copy()
+
+        def go(out=out):
+            mover.advance(out, inputs, 0.0, DT, steps, 0, KEY, engine)
+
+        w, c = _timed(go)
+        walls.append(len(start) * steps / w)
+        cpus.append(len(start) * steps / max(c, 1e-9))
+    return statistics.median(walls), statistics.median(cpus), out
+
+
+def _cpu_model() -> str:
+    try:
+        with open("/proc/cpuinfo") as f:
+            for line in f:
+                if line.startswith("model name"):
+                    return line.split(":", 1)[1].strip()
+    except OSError:
+        pass
+    return "unknown"
+
+
+def _child(code: str, timeout: float = 300.0) -> tuple[dict, float]:
+    """Run ``python -c code`` (which prints one JSON object last); return it and the wall time."""
+    t = time.perf_counter()
+    done = subprocess.run(
+        [sys.executable, "-c", code],
+        capture_output=True,
+        text=True,
+        timeout=timeout,
+        check=True,
+        env={**os.environ, "PYTHONWARNINGS": "ignore"},
+    )
+    return json.loads(done.stdout.strip().splitlines()[-1]), time.perf_counter() - t
+
+
+_FIRST_STEP = """
+import time
+t0 = time.perf_counter()
+import json
+import numpy as np
+from walkers.bench import initial_state, reference_workload, DT, KEY, _inputs
+from walkers.engine import mover
+flow, transport = reference_workload(40, 20, 3)
+inputs = _inputs(flow, transport)
+state = initial_state(100, flow)
+mover.advance(state, inputs, 0.0, DT, 1, 0, KEY)
+print(json.dumps({"first_step_s": time.perf_counter() - t0}))
+"""
+
+_MEMORY = """
+import json, resource
+import numpy as np
+from walkers import reduce
+from walkers.bench import initial_state, reference_workload, output_grid, DT, KEY, _inputs
+from walkers.engine import mover
+from walkers.fields.base import centre_to_edges
+flow, transport = reference_workload()
+inputs = _inputs(flow, transport)
+state = initial_state({n}, flow)
+mover.advance(state, inputs, 0.0, DT, 2, 0, KEY)
+grid = output_grid(flow)
+measure = reduce.cell_measure(grid, False, 2)
+xe, ye = centre_to_edges(flow.x), centre_to_edges(flow.y)
+depths = reduce.particle_depths(state, flow.depth.data[0], xe, ye)
+reduce.concentration(state, depths, grid, measure)
+print(json.dumps({{"peak_bytes": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024}}))
+"""
+
+_BASELINE = """
+import json, resource
+from walkers.bench import reference_workload, _inputs
+from walkers.engine import mover
+flow, transport = reference_workload()
+_inputs(flow, transport)
+print(json.dumps({"peak_bytes": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024}))
+"""
+
+
+def output_grid(flow: FlowField) -> OutputGrid:
+    """An output grid of the flow's cells (the gridding benchmark's grid)."""
+    return OutputGrid(
+        x0=float(flow.x[0]),
+        dx=CELL,
+        nx=flow.x.size,
+        y0=float(flow.y[0]),
+        dy=CELL,
+        ny=flow.y.size,
+    )
+
+
+def _gridding_rates(flow: FlowField, state: ParticleState, repeats: int) -> tuple[float, float]:
+    """Particles per second through the box-counting kernel alone, and through
+    ``reduce.concentration`` (the kernel plus the weights m / h and the division by the cell
+    volume), medians over repeats."""
+    from walkers import reduce  # imported here: the first-step child should not pay for scipy
+
+    grid = output_grid(flow)
+    measure = reduce.cell_measure(grid, False, 2)
+    xe, ye = centre_to_edges(flow.x), centre_to_edges(flow.y)
+    depths = reduce.particle_depths(state, flow.depth.data[0], xe, ye)
+    weight = state.mass / depths
+    total = np.zeros((grid.ny, grid.nx))
+    count = np.zeros((grid.ny, grid.nx), dtype=np.int64)
+
+    def box_count():
+        kernels.grid_mass(
+            state.x,
+            state.y,
+            weight,
+            state.status,
+            grid.x0,
+            grid.dx,
+            grid.nx,
+            grid.y0,
+            grid.dy,
+            grid.ny,
+            total,
+            count,
+        )
+
+    def concentration():
+        reduce.concentration(state, depths, grid, measure)
+
+    rates = []
+    for fn in (box_count, concentration):
+        fn()
+        rates.append(statistics.median(len(state) / _timed(fn)[0] for _ in range(repeats)))
+    return rates[0], rates[1]
+
+
+def run_benchmark(
+    *,
+    quick: bool = False,
+    particles: int | None = None,
+    repeats: int | None = None,
+    steps: int | None = None,
+    memory_particles: int | None = None,
+    progress: Callable[[str], None] | None = None,
+) -> dict:
+    """Measure the engine on the reference workload and return every figure in one dict.
+
+    Parameters
+    ----------
+    quick : smaller sizes and fewer repeats (finishes in well under 30 s on two cores); the peak
+        memory of 10 M particles is then projected from a 1 M-particle child process.
+    particles : particles moved (default 200 000; 20 000 in quick mode).
+    repeats : timed repeats per figure, medians reported (default 5; 3 in quick mode).
+    steps : steps of 30 s per timed run of the compiled engine (default 50; 20 in quick mode);
+        the numpy twin runs a fifth of them (at least 2).
+    memory_particles : particles of the memory child process (default 10 M; 1 M in quick mode).
+    progress : called with a short note before each stage.
+
+    Returns a dict of plain numbers and strings (see docs/performance.md for each key).
+    """
+    note = progress or (lambda _msg: None)
+    n = int(particles or (20_000 if quick else 200_000))
+    reps = int(repeats or (3 if quick else 5))
+    nsteps = int(steps or (20 if quick else 50))
+    twin_steps = max(2, nsteps // 5)
+    n_mem = int(memory_particles or (1_000_000 if quick else 10_000_000))
+    flow, transport = reference_workload()
+    inputs = _inputs(flow, transport)
+    start = initial_state(n, flow)
+    load_before = os.getloadavg()
+    threads_before = numba.get_num_threads()
+    two = min(2, MAX_THREADS)
+    note("compiling or loading the kernels")
+    warm = initial_state(min(n, 1000), flow)
+    mover.advance(warm, inputs, 0.0, DT, 2, 0, KEY)
+    try:
+        note("compiled engine, 1 thread")
+        numba.set_num_threads(1)
+        one_wall, one_cpu, _ = _rate(flow, inputs, start, nsteps, reps, "compiled")
+        note(f"compiled engine, {two} threads")
+        numba.set_num_threads(two)
+        two_wall, _two_cpu, moved = _rate(flow, inputs, start, nsteps, reps, "compiled")
+        note("numpy twin")
+        numba.set_num_threads(1)
+        twin_wall, twin_cpu, twin_out = _rate(flow, inputs, start, twin_steps, reps, "numpy")
+        same = start.copy()
+        mover.advance(same, inputs, 0.0, DT, twin_steps, 0, KEY, "compiled")
+    finally:
+        numba.set_num_threads(threads_before)
+    difference = max(
+        float(np.max(np.abs(same.x - twin_out.x))), float(np.max(np.abs(same.y - twin_out.y)))
+    )
+    note("gridding")
+    gridding, concentration = _gridding_rates(flow, moved, max(reps, 5))
+    note("first step on a warm cache (child processes)")
+    first = []
+    first_wall = []
+    for _ in range(min(reps, 2 if quick else 3)):
+        out, wall = _child(_FIRST_STEP)
+        first.append(out["first_step_s"])
+        first_wall.append(wall)
+    note(f"peak memory of {n_mem:,} particles (child process)")
+    baseline, _ = _child(_BASELINE)
+    peak, _ = _child(_MEMORY.format(n=n_mem))
+    per_particle = (peak["peak_bytes"] - baseline["peak_bytes"]) / n_mem
+    target = 10_000_000
+    if n_mem == target:
+        peak_10m = float(peak["peak_bytes"])
+        method = "measured"
+    else:
+        peak_10m = float(baseline["peak_bytes"] + per_particle * target)
+        method = f"projected from {n_mem:,} particles"
+    return {
+        "walkers_version": walkers.__version__,
+        "caution": walkers.CAUTION,
+        "machine": {
+            "nproc": os.cpu_count(),
+            "cpu_model": _cpu_model(),
+            "numba_threads_available": int(MAX_THREADS),
+            "load_average_before": [round(v, 2) for v in load_before],
+            "load_average_after": [round(v, 2) for v in os.getloadavg()],
+        },
+        "workload": {
+            "grid_cells": [int(flow.x.size), int(flow.y.size)],
+            "frames": int(flow.times.size),
+            "dt_s": DT,
+            "particles": n,
+            "steps_compiled": nsteps,
+            "steps_twin": twin_steps,
+            "repeats": reps,
+            "edges": dict(transport.edges),
+            "dispersion_m2_s": [transport.dispersion.k1, transport.dispersion.k2],
+            "land_fraction": float(1.0 - flow.wet.data[0].mean()),
+        },
+        "compiled_steps_per_s_1thread": one_wall,
+        "compiled_steps_per_cpu_s_1thread": one_cpu,
+        "compiled_steps_per_s_2threads": two_wall,
+        "threads_used_for_2": two,
+        "numpy_steps_per_s": twin_wall,
+        "numpy_steps_per_cpu_s": twin_cpu,
+        "compiled_over_numpy": one_wall / twin_wall,
+        "compiled_over_numpy_cpu": one_cpu / twin_cpu,
+        "speedup_1_to_2_threads": two_wall / one_wall,
+        "compiled_minus_numpy_max_m": difference,
+        "bytes_per_particle": ParticleState.from_arrays(
+            np.zeros(1), np.zeros(1), np.ones(1), np.zeros(1)
+        ).nbytes,
+        "peak_memory_10m_bytes": peak_10m,
+        "peak_memory_method": method,
+        "peak_memory_measured_particles": n_mem,
+        "peak_memory_measured_bytes": float(peak["peak_bytes"]),
+        "gridding_particles_per_s": gridding,
+        "concentration_particles_per_s": concentration,
+        "first_step_warm_s": statistics.median(first),
+        "first_step_warm_wall_s": statistics.median(first_wall),
+        "peak_memory_this_process_bytes": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024,
+    }
+
+
+TARGETS = {
+    "compiled_steps_per_s_1thread": (">=", 40e6),
+    "compiled_over_numpy": (">=", 8.0),
+    "speedup_1_to_2_threads": (">=", 1.8),
+    "bytes_per_particle": ("<=", 64),
+    "peak_memory_10m_bytes": ("<=", 1.5e9),
+    "gridding_particles_per_s": (">=", 100e6),
+    "first_step_warm_s": ("<=", 3.0),
+}
+
+
+def format_report(r: dict) -> str:
+    """The benchmark result as a short text report, each figure beside its target."""
+    w = r["workload"]
+    m = r["machine"]
+
+    def mark(key):
+        op, value = TARGETS[key]
+        ok = r[key] >= value if op == ">=" else r[key] <= value
+        return f"(target {op} {value:g}: {'met' if ok else 'NOT met'})"
+
+    lines = [
+        f"walkers {r['walkers_version']} benchmark — {m['cpu_model']}, {m['nproc']} CPUs, "
+        f"load average {m['load_average_before'][0]:.2f} -> {m['load_average_after'][0]:.2f}",
+        f"workload: {w['grid_cells'][0]} x {w['grid_cells'][1]} cells, {w['frames']} frames, "
+        f"{w['particles']:,} particles, {w['steps_compiled']} steps of {w['dt_s']:g} s "
+        f"(twin {w['steps_twin']}), medians of {w['repeats']}",
+        f"compiled, 1 thread    {r['compiled_steps_per_s_1thread'] / 1e6:8.1f} M particle-steps/s "
+        f"{mark('compiled_steps_per_s_1thread')}; "
+        f"{r['compiled_steps_per_cpu_s_1thread'] / 1e6:.1f} M per CPU-second",
+        f"compiled, {r['threads_used_for_2']} threads   "
+        f"{r['compiled_steps_per_s_2threads'] / 1e6:8.1f} M particle-steps/s",
+        f"numpy twin            {r['numpy_steps_per_s'] / 1e6:8.2f} M particle-steps/s",
+        f"compiled / numpy      {r['compiled_over_numpy']:8.1f} x {mark('compiled_over_numpy')}",
+        f"1 -> 2 threads        {r['speedup_1_to_2_threads']:8.2f} x "
+        f"{mark('speedup_1_to_2_threads')}",
+        f"compiled vs twin      {r['compiled_minus_numpy_max_m']:8.1e} m largest difference",
+        f"state per particle    {r['bytes_per_particle']:8d} bytes {mark('bytes_per_particle')}",
+        f"peak, 10 M particles  {r['peak_memory_10m_bytes'] / 1e9:8.2f} GB, "
+        f"{r['peak_memory_method']} {mark('peak_memory_10m_bytes')}",
+        f"gridding              {r['gridding_particles_per_s'] / 1e6:8.1f} M particles/s "
+        f"{mark('gridding_particles_per_s')}; "
+        f"{r['concentration_particles_per_s'] / 1e6:.1f} M/s with weights (reduce.concentration)",
+        f"first step, warm      {r['first_step_warm_s']:8.2f} s "
+        f"({r['first_step_warm_wall_s']:.2f} s with interpreter start) "
+        f"{mark('first_step_warm_s')}",
+        r["caution"],
+    ]
+    return "\n".join(lines)
+
+
+def fit_slope(sizes: list[float], seconds: list[float]) -> float:
+    """Slope of log(seconds) against log(size): cost ∝ size^slope."""
+    return float(np.polyfit(np.log(sizes), np.log(seconds), 1)[0])
+
+
+def scaling_study(repeats: int = 3, threads: int = 1) -> dict:
+    """How the compiled engine's cost grows with particles, steps, grid size and members.
+
+    Each factor is varied over three sizes with the others fixed (50 000 particles, 40 steps,
+    200 × 100 cells, 1 member); times are CPU seconds of this process (one thread by default,
+    so that other work on the machine disturbs them less than wall time), medians of
+    ``repeats``; the slope of a least-squares line through log(time) against log(size) is
+    reported (1 = proportional).
+    """
+    before = numba.get_num_threads()
+    numba.set_num_threads(threads)
+
+    def timed(n=50_000, steps=40, nx=200, ny=100, members=1):
+        flow, transport = reference_workload(nx, ny)
+        inputs = _inputs(flow, transport)
+        start = initial_state(n, flow)
+        mover.advance(start.copy(), inputs, 0.0, DT, 1, 0, KEY)
+        runs = []
+        for _ in range(repeats):
+            states = [start.copy() for _ in range(members)]
+
+            def go(states=states):
+                for k, s in enumerate(states):
+                    mover.advance(s, inputs, 0.0, DT, steps, 0, KEY + k)
+
+            runs.append(_timed(go)[1])
+        return statistics.median(runs)
+
+    plans: dict[str, tuple[list[float], list[dict]]] = {
+        "particles": (
+            [25e3, 50e3, 100e3, 200e3],
+            [{"n": v} for v in (25_000, 50_000, 100_000, 200_000)],
+        ),
+        "steps": ([20, 40, 80, 160], [{"steps": v} for v in (20, 40, 80, 160)]),
+        "grid_cells": (
+            [5e3, 20e3, 80e3, 320e3],
+            [{"nx": a, "ny": b} for a, b in ((100, 50), (200, 100), (400, 200), (800, 400))],
+        ),
+        "members": ([1, 2, 4], [{"members": v} for v in (1, 2, 4)]),
+    }
+    out = {}
+    try:
+        for name, (xs, runs) in plans.items():
+            secs = [timed(**kw) for kw in runs]
+            out[name] = {"sizes": xs, "seconds": secs, "slope": fit_slope(xs, secs)}
+    finally:
+        numba.set_num_threads(before)
+    return out
