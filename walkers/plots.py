@@ -250,45 +250,42 @@ def _draw_profile(run: _Run, ax: Axes, profile: np.ndarray):
 
 
 def _receptor_figure(run: _Run, path: Path) -> Path:
+    """One panel per receptor, log scale, each with its own thresholds as labelled dashed lines."""
     ds = run.ds
-    fig = _figure(7.5, 4.4)
-    ax = fig.add_subplot()
-    colours = colormaps["cividis"](np.linspace(0.0, 0.85, ds.sizes["receptor"]))
+    n = ds.sizes["receptor"]
+    fig = _figure(7.5, 1.2 + 1.55 * n)
+    axes = fig.subplots(n, 1, sharex=True, squeeze=False)[:, 0]
     series = ds["receptor_concentration"].transpose("receptor", "time").values
     thresholds = (
         ds["receptor_threshold"].transpose("receptor", ...).values
         if "receptor_threshold" in ds
-        else np.empty((ds.sizes["receptor"], 0))
+        else np.empty((n, 0))
     )
-    for i, name in enumerate(ds["receptor"].values):
-        ax.plot(run.hours, series[i], color=colours[i], lw=1.5, label=str(name))
-        for level in thresholds[i][np.isfinite(thresholds[i])]:
-            ax.axhline(level, color=colours[i], lw=0.9, ls="--")
-            ax.annotate(
-                f"threshold {name}",
-                (1.0, level),
-                xycoords=("axes fraction", "data"),
-                xytext=(-3, 2),
-                textcoords="offset points",
-                ha="right",
-                va="bottom",
-                fontsize=6.5,
-                color=colours[i],
-            )
-    ax.set_xlabel(run.time_label)
-    ax.set_ylabel(f"concentration ({run.units})")
-    ax.set_ylim(bottom=0.0)
-    ax.set_xlim(run.hours[0], run.hours[-1])
-    ax.grid(True, lw=0.4, color="0.88")
-    ax.legend(
-        title="receptor\n(dashed: threshold)",
-        fontsize=7,
-        title_fontsize=7,
-        loc="center left",
-        bbox_to_anchor=(1.01, 0.5),
-        frameon=False,
-    )
-    ax.set_title("Concentration at the receptors", fontsize=10)
+    for i, (ax, name) in enumerate(zip(axes, ds["receptor"].values, strict=True)):
+        values = series[i]
+        levels = thresholds[i][np.isfinite(thresholds[i])]
+        positive = values[values > 0]
+        top = max([*positive, *levels, 0.0])
+        ax.plot(run.hours, np.where(values > 0, values, np.nan), color="#1f3b73", lw=1.5,
+                marker="." if positive.size < 3 else None)
+        for level in levels:
+            ax.axhline(level, color="#b5432f", lw=0.9, ls="--")
+            ax.annotate(f"threshold {level:.3g} {run.units}", (1.0, level),
+                        xycoords=("axes fraction", "data"), xytext=(-3, 2),
+                        textcoords="offset points", ha="right", va="bottom", fontsize=6.5,
+                        color="#b5432f")
+        if top > 0:
+            ax.set_yscale("log")
+            ax.set_ylim(top * 1e-4, top * 3.0)
+        else:
+            ax.text(0.5, 0.5, "no particles reached this receptor", transform=ax.transAxes,
+                    ha="center", va="center", fontsize=8, color="0.4")
+        ax.set_ylabel(run.units, fontsize=8)
+        ax.set_title(str(name), fontsize=9, loc="left")
+        ax.grid(True, lw=0.4, color="0.88")
+        ax.set_xlim(run.hours[0], run.hours[-1])
+    axes[-1].set_xlabel(run.time_label)
+    fig.suptitle("Concentration at the receptors (log scale; gaps: no particles)", fontsize=10)
     _footer(fig, f"{run.stamps[0]} to {run.stamps[-1]}")
     fig.savefig(path)
     return path

@@ -8,6 +8,7 @@ own axes, the wet mask on the cell grid, and the dispersion coefficients with th
 
 from __future__ import annotations
 
+from collections import OrderedDict
 from dataclasses import dataclass
 from typing import Literal
 
@@ -73,7 +74,32 @@ class DispersionFrames:
     has_drift: bool
 
 
+CACHE_ENTRIES = 96  # windows of dispersion frames kept per flow (ensemble members reuse them)
+
+
 def dispersion_frames(
+    flow: FlowField, window: FlowWindow, transport: Transport
+) -> DispersionFrames:
+    """K on cell centres and the drift (1/h) ∇·(h K) for each frame of the window.
+
+    Results are cached on the flow per window and dispersion (not per multiplier, which the
+    caller applies), so the members of an ensemble that share a flow compute them once.
+    """
+    d = transport.dispersion
+    key = (window.times.tobytes(), d.mode, d.k1, d.k2, id(d.k1_field), id(d.k2_field))
+    cache = flow.__dict__.setdefault("_dispersion_cache", OrderedDict())
+    if key in cache:
+        cache.move_to_end(key)
+        return cache[key][0]
+    frames = _dispersion_frames(flow, window, transport)
+    # the field arrays are held with the entry so that their ids cannot be reused meanwhile
+    cache[key] = (frames, d.k1_field, d.k2_field)
+    while len(cache) > CACHE_ENTRIES:
+        cache.popitem(last=False)
+    return frames
+
+
+def _dispersion_frames(
     flow: FlowField, window: FlowWindow, transport: Transport
 ) -> DispersionFrames:
     """K on cell centres and the drift (1/h) ∇·(h K) for each frame of the window.

@@ -95,6 +95,10 @@ class FlowField:
     source: str = "analytic"
     attrs: dict[str, Any] = field(default_factory=dict)
 
+    def __getstate__(self) -> dict[str, Any]:
+        # caches of derived arrays (e.g. the engine's dispersion frames) stay in their process
+        return {k: v for k, v in self.__dict__.items() if not k.startswith("_")}
+
     @property
     def x(self) -> np.ndarray:
         """Cell-centre x coordinates (m or degrees east)."""
