@@ -64,8 +64,13 @@ def test_demo_output_opens_in_gdal_with_the_same_georeferencing(estuary_output):
 
 def test_demo_mass_budget_closes_and_summary_carries_the_caution(estuary_output):
     ds = estuary_output.results
-    residual = (ds.mass_released - ds.mass_in_water - ds.mass_left.sum("edge")
-                - ds.mass_decayed - ds.mass_stranded)
+    residual = (
+        ds.mass_released
+        - ds.mass_in_water
+        - ds.mass_left.sum("edge")
+        - ds.mass_decayed
+        - ds.mass_stranded
+    )
     assert float(abs(residual).max()) <= 1e-12 * float(ds.mass_released.max())
     assert float(ds.mass_released[-1]) == pytest.approx(500.0, rel=1e-12)  # all of it by 05:30
     assert walkers.CAUTION in estuary_output.summary
@@ -114,8 +119,13 @@ def test_verify_command_reports_and_fails_on_unknown_case():
 
 def test_inspect_command_describes_the_demo_flow(tmp_path):
     result = CliRunner().invoke(
-        main, ["inspect", str(SCENARIOS / "millbrook_canal_flow.nc"), "--map",
-               str(tmp_path / "speed.png")]
+        main,
+        [
+            "inspect",
+            str(SCENARIOS / "millbrook_canal_flow.nc"),
+            "--map",
+            str(tmp_path / "speed.png"),
+        ],
     )
     assert result.exit_code == 0, result.output
     assert "EPSG:32630" in result.output and (tmp_path / "speed.png").is_file()

@@ -6,7 +6,7 @@ import pytest
 
 from walkers.config import Dispersion, OutputGrid, Release, Transport
 from walkers.engine import kernels, mover, twin
-from walkers.engine.state import IN_WATER, LEFT, STRANDED, WAITING, ParticleState
+from walkers.engine.state import IN_WATER, LEFT, WAITING, ParticleState
 from walkers.errors import InputError
 from walkers.fields.analytic import analytic_flow, grid_flow
 from walkers.fields.base import centre_to_edges
@@ -27,8 +27,9 @@ def harbour_flow():
         return 0.4 * phase + 0.1 * np.sin(Y / 400.0), 0.05 * np.cos(X / 700.0) * phase
 
     base = 6.0 + 4.0 * np.sin(X / 900.0) * np.cos(Y / 600.0)
-    depth = np.stack([base - 5.0 * (1 + np.cos(2 * np.pi * t / 7200.0)) / 2 * (Y < 300)
-                      for t in times])
+    depth = np.stack(
+        [base - 5.0 * (1 + np.cos(2 * np.pi * t / 7200.0)) / 2 * (Y < 300) for t in times]
+    )
     flow = grid_flow(xc, yc, times, velocity, depth=depth, wet=~land)
     wet = (~land)[None] & (depth > 0.5)
     flow.wet.data[...] = 0.0
@@ -48,10 +49,16 @@ def test_compiled_kernel_equals_numpy_twin(mode, scheme):
     flow = harbour_flow()
     kfield = 1.0 + 0.5 * np.cos(flow.x / 500.0)[None, :] * np.ones((flow.y.size, 1))
     tr = Transport(
-        dt=30.0, scheme=scheme, decay_rate=2e-4,
+        dt=30.0,
+        scheme=scheme,
+        decay_rate=2e-4,
         dispersion=Dispersion(k1_field=3 * kfield, k2_field=kfield, mode=mode),
-        edges={"west": "reflecting", "east": "absorbing", "south": "reflecting",
-               "north": "absorbing"},
+        edges={
+            "west": "reflecting",
+            "east": "absorbing",
+            "south": "reflecting",
+            "north": "absorbing",
+        },
     )
     rng = np.random.default_rng(7)
     a = state_for(3000, rng)
@@ -75,12 +82,25 @@ def test_fast_path_equals_numpy_twin():
     yc = np.linspace(0.0, 2000.0, 41)
     X, Y = np.meshgrid(xc, yc)
     land = (Y > 1500.0) & (X > 1000.0) & (X < 2500.0)
-    flow = grid_flow(xc, yc, [0.0, 3600.0],
-                     lambda X, Y, t: (0.3 + 0.1 * np.sin(Y / 300.0), 0.05 * np.cos(X / 500.0)),
-                     depth=5.0, wet=~land)
-    tr = Transport(dt=30.0, decay_rate=1e-4, dispersion=Dispersion(k1=2.0, k2=0.5),
-                   edges={"west": "reflecting", "east": "absorbing", "south": "absorbing",
-                          "north": "reflecting"})
+    flow = grid_flow(
+        xc,
+        yc,
+        [0.0, 3600.0],
+        lambda X, Y, t: (0.3 + 0.1 * np.sin(Y / 300.0), 0.05 * np.cos(X / 500.0)),
+        depth=5.0,
+        wet=~land,
+    )
+    tr = Transport(
+        dt=30.0,
+        decay_rate=1e-4,
+        dispersion=Dispersion(k1=2.0, k2=0.5),
+        edges={
+            "west": "reflecting",
+            "east": "absorbing",
+            "south": "absorbing",
+            "north": "reflecting",
+        },
+    )
     a = state_for(3000, np.random.default_rng(5))
     a.x[::7] = 3985.0
     b = a.copy()
@@ -127,8 +147,11 @@ def test_one_thread_equals_two_threads_bitwise():
 
 def test_no_particle_on_land_outside_or_nan():
     flow = harbour_flow()
-    tr = Transport(dt=60.0, dispersion=Dispersion(k1=20.0, k2=20.0),
-                   edges=dict.fromkeys(("west", "east", "south", "north"), "reflecting"))
+    tr = Transport(
+        dt=60.0,
+        dispersion=Dispersion(k1=20.0, k2=20.0),
+        edges=dict.fromkeys(("west", "east", "south", "north"), "reflecting"),
+    )
     rng = np.random.default_rng(11)
     st = state_for(20000, rng, t_spread=0.0)
     xe, ye = centre_to_edges(flow.x), centre_to_edges(flow.y)
@@ -154,12 +177,16 @@ def test_drying_cell_holds_particles_and_budget_counts_them():
     flow = grid_flow(xc, yc, times, lambda X, Y, t: (0 * X, 0 * X), depth=depth)
     wet = (depth > 0.05).astype(np.float64)
     object.__setattr__(flow.wet, "data", wet)
-    tr = Transport(dt=60.0, dispersion=Dispersion(k1=0.1, k2=0.1),
-                   edges=dict.fromkeys(("west", "east", "south", "north"), "reflecting"))
+    tr = Transport(
+        dt=60.0,
+        dispersion=Dispersion(k1=0.1, k2=0.1),
+        edges=dict.fromkeys(("west", "east", "south", "north"), "reflecting"),
+    )
     rel = [Release("point", np.array([[500.0, 100.0]]), 500, mass=5.0)]
     grid = OutputGrid(x0=5.0, dx=10.0, nx=100, y0=5.0, dy=10.0, ny=20)
-    ds = simulate(flow, tr, rel, start=0.0, end=7200.0, output_interval=1800.0,
-                  output_grid=grid, seed=1)
+    ds = simulate(
+        flow, tr, rel, start=0.0, end=7200.0, output_interval=1800.0, output_grid=grid, seed=1
+    )
     at_low = ds.sel(time=3600.0)
     assert float(at_low.mass_stranded) == pytest.approx(5.0)
     assert float(at_low.mass_in_water) == 0.0
@@ -170,7 +197,9 @@ def test_drying_cell_holds_particles_and_budget_counts_them():
 def test_particle_released_inside_a_step_moves_only_after_release():
     flow = analytic_flow("uniform", u=1.0)
     tr = Transport(dt=60.0, dispersion=Dispersion(k1=0.0, k2=0.0))
-    st = ParticleState.from_arrays(np.zeros(3), np.zeros(3), np.ones(3), np.array([0.0, 30.0, 59.0]))
+    st = ParticleState.from_arrays(
+        np.zeros(3), np.zeros(3), np.ones(3), np.array([0.0, 30.0, 59.0])
+    )
     mover.advance(st, mover.kernel_inputs(flow, flow.window(0, 60), tr), 0.0, 60.0, 1, 0, 0)
     np.testing.assert_allclose(st.x, [60.0, 30.0, 1.0], atol=1e-12)
     waiting = ParticleState.from_arrays(np.zeros(1), np.zeros(1), np.ones(1), np.array([60.0]))
@@ -202,5 +231,6 @@ def test_random_deviates_are_standard_normal():
     streams = twin.particle_streams(123, np.arange(5))
     np.testing.assert_allclose(
         np.stack(twin.normal_pairs(streams, 7), axis=1),
-        kernels.normals_for(np.uint64(123), np.arange(5, dtype=np.int64), 7), rtol=1e-14,
+        kernels.normals_for(np.uint64(123), np.arange(5, dtype=np.int64), 7),
+        rtol=1e-14,
     )

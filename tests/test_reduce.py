@@ -11,8 +11,9 @@ from walkers.engine.state import IN_WATER, LEFT, ParticleState
 
 def gaussian_cloud(n, sigma, seed=0, mass=1.0):
     rng = np.random.default_rng(seed)
-    st = ParticleState.from_arrays(rng.normal(0, sigma, n), rng.normal(0, sigma, n),
-                                   np.full(n, mass / n), np.zeros(n))
+    st = ParticleState.from_arrays(
+        rng.normal(0, sigma, n), rng.normal(0, sigma, n), np.full(n, mass / n), np.zeros(n)
+    )
     st.status[:] = IN_WATER
     return st
 
@@ -27,8 +28,9 @@ def test_gaussian_kernel_estimate_has_the_variances_added():
     conc, count = reduce.concentration(st, np.full(n, h), grid, measure)
     smooth = reduce.smoothed(conc, grid, (1.0, 1.0))
     s2 = sigma**2 + b**2 + 10.0**2 / 12  # box width adds its own variance dx²/12
-    expected = analytic.gaussian_2d(0.0, 0.0, s2 / 2, x0=0, y0=0, u=0, v=0, kx=1.0, ky=1.0,
-                                    mass=1.0, depth=h)
+    expected = analytic.gaussian_2d(
+        0.0, 0.0, s2 / 2, x0=0, y0=0, u=0, v=0, kx=1.0, ky=1.0, mass=1.0, depth=h
+    )
     # effective particles under a kernel of area 4π b²: n_eff ≈ n · 4π b² · pdf(0)
     n_eff = n * 4 * np.pi * b**2 / (2 * np.pi * (sigma**2 + b**2))
     assert smooth[60, 60] == pytest.approx(expected, rel=5 / np.sqrt(n_eff))
@@ -39,7 +41,9 @@ def test_gaussian_kernel_estimate_has_the_variances_added():
 def test_box_counting_conserves_mass_per_depth():
     st = gaussian_cloud(10000, 50.0, mass=3.0)
     grid = OutputGrid(x0=-500.0, dx=20.0, nx=51, y0=-500.0, dy=20.0, ny=51)
-    conc, _ = reduce.concentration(st, np.full(10000, 2.0), grid, reduce.cell_measure(grid, False, 2))
+    conc, _ = reduce.concentration(
+        st, np.full(10000, 2.0), grid, reduce.cell_measure(grid, False, 2)
+    )
     assert conc.sum() * 20.0 * 20.0 * 2.0 == pytest.approx(3.0, rel=1e-12)
 
 
@@ -53,8 +57,13 @@ def test_receptor_circle_averages_over_its_area():
     from scipy import integrate
 
     pdf = lambda y, x: stats.norm.pdf(x, 0, 200) * stats.norm.pdf(y, 0, 200)  # noqa: E731
-    mass, _ = integrate.dblquad(pdf, 50.0, 150.0, lambda x: -np.sqrt(max(50**2 - (x - 100) ** 2, 0)),
-                                lambda x: np.sqrt(max(50**2 - (x - 100) ** 2, 0)))
+    mass, _ = integrate.dblquad(
+        pdf,
+        50.0,
+        150.0,
+        lambda x: -np.sqrt(max(50**2 - (x - 100) ** 2, 0)),
+        lambda x: np.sqrt(max(50**2 - (x - 100) ** 2, 0)),
+    )
     expected = mass / (np.pi * 50.0**2 * 4.0)
     n_in = 400000 * mass
     assert value == pytest.approx(expected, rel=5 / np.sqrt(n_in))

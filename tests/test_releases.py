@@ -48,8 +48,9 @@ def test_line_release_is_stratified_along_the_line():
 
 
 def test_continuous_release_mass_is_rate_times_duration_with_even_times():
-    rel = Release("point", np.array([[0.0, 0.0]]), 600, start=100.0, duration=3600.0,
-                  mass=0.5 * 3600.0)
+    rel = Release(
+        "point", np.array([[0.0, 0.0]]), 600, start=100.0, duration=3600.0, mass=0.5 * 3600.0
+    )
     t, m = release_times_and_masses(rel)
     assert m.sum() == pytest.approx(0.5 * 3600.0, rel=1e-12)
     np.testing.assert_allclose(np.diff(t), 6.0)
@@ -58,8 +59,14 @@ def test_continuous_release_mass_is_rate_times_duration_with_even_times():
 
 def test_time_series_rate_puts_particles_where_the_rate_is_high():
     """A rate rising linearly from 0: release times follow the CDF (t/T)² of a triangle."""
-    rel = Release("point", np.array([[0.0, 0.0]]), 4000, duration=1000.0,
-                  rate_times=np.array([0.0, 1000.0]), rates=np.array([0.0, 2.0]))
+    rel = Release(
+        "point",
+        np.array([[0.0, 0.0]]),
+        4000,
+        duration=1000.0,
+        rate_times=np.array([0.0, 1000.0]),
+        rates=np.array([0.0, 2.0]),
+    )
     t, m = release_times_and_masses(rel)
     assert m.sum() == pytest.approx(1000.0, rel=1e-9)  # ∫ 2 t/T dt = 1000 kg
     assert stats.kstest(t / 1000.0, lambda q: q**2).statistic < 1.0 / 4000 + 1e-3
@@ -72,5 +79,6 @@ def test_bad_release_definitions_are_refused():
     with pytest.raises(InputError, match="mass must be > 0"):
         Release("point", np.array([[0.0, 0.0]]), 10, mass=-1.0)
     with pytest.raises(InputError, match="polygon needs three"):
-        make_particles([Release("polygon", np.array([[0.0, 0.0], [1.0, 1.0]]), 5)],
-                       np.random.default_rng(0))
+        make_particles(
+            [Release("polygon", np.array([[0.0, 0.0], [1.0, 1.0]]), 5)], np.random.default_rng(0)
+        )

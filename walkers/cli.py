@@ -110,23 +110,48 @@ def new_command(path: Path, overwrite: bool) -> None:
 
 @main.command("run")
 @click.argument("scenario", type=click.Path(dir_okay=False, path_type=Path))
-@click.option("-o", "--output", type=click.Path(dir_okay=False, path_type=Path),
-              help="Output NetCDF file (default: from the scenario, next to it).")
+@click.option(
+    "-o",
+    "--output",
+    type=click.Path(dir_okay=False, path_type=Path),
+    help="Output NetCDF file (default: from the scenario, next to it).",
+)
 @click.option("--overwrite", is_flag=True, help="Replace existing output files.")
-@click.option("--plot/--no-plot", default=True, show_default=True,
-              help="Draw the figures next to the output.")
-@click.option("--engine", type=click.Choice(["compiled", "numpy"]), default="compiled",
-              show_default=True, help="Compiled kernels, or their (slow) numpy twin.")
+@click.option(
+    "--plot/--no-plot", default=True, show_default=True, help="Draw the figures next to the output."
+)
+@click.option(
+    "--engine",
+    type=click.Choice(["compiled", "numpy"]),
+    default="compiled",
+    show_default=True,
+    help="Compiled kernels, or their (slow) numpy twin.",
+)
 @click.option("-q", "--quiet", is_flag=True, help="No progress messages.")
-@click.option("--checkpoint-every", "checkpoint_every", metavar="DURATION",
-              help='Save the run state every DURATION of simulated time (e.g. "2 h"; at output '
-                   "times) to <output>.checkpoint.npz, so an interrupted run can be resumed.")
-@click.option("--resume", is_flag=True,
-              help="Continue an interrupted run from its checkpoint (same scenario and seed); "
-                   "the result is bitwise that of an uninterrupted run.")
+@click.option(
+    "--checkpoint-every",
+    "checkpoint_every",
+    metavar="DURATION",
+    help='Save the run state every DURATION of simulated time (e.g. "2 h"; at output '
+    "times) to <output>.checkpoint.npz, so an interrupted run can be resumed.",
+)
+@click.option(
+    "--resume",
+    is_flag=True,
+    help="Continue an interrupted run from its checkpoint (same scenario and seed); "
+    "the result is bitwise that of an uninterrupted run.",
+)
 @friendly_errors
-def run_command(scenario: Path, output: Path | None, overwrite: bool, plot: bool, engine: str,
-                quiet: bool, checkpoint_every: str | None, resume: bool) -> None:
+def run_command(
+    scenario: Path,
+    output: Path | None,
+    overwrite: bool,
+    plot: bool,
+    engine: str,
+    quiet: bool,
+    checkpoint_every: str | None,
+    resume: bool,
+) -> None:
     """Run SCENARIO (TOML) and write CF-NetCDF output, figures and a summary.
 
     Ctrl-C or SIGTERM stops the run at once, writes nothing under the output name and says how
@@ -171,14 +196,24 @@ def run_command(scenario: Path, output: Path | None, overwrite: bool, plot: bool
         if every is not None:
             outputs = int(round(sc.duration / sc.output_interval)) + 1
             saver = Checkpointer(
-                ckpt, fingerprint, every, sc.output_interval, outputs,
-                time_of=lambda k: (sc.start + dt.timedelta(seconds=k * sc.output_interval))
-                .isoformat(),
+                ckpt,
+                fingerprint,
+                every,
+                sc.output_interval,
+                outputs,
+                time_of=lambda k: (
+                    sc.start + dt.timedelta(seconds=k * sc.output_interval)
+                ).isoformat(),
             )
         try:
             outcome = run_scenario(
-                sc, output=target, overwrite=overwrite, engine=engine,  # type: ignore[arg-type]
-                progress=Progress(scenario.name, quiet), resume=state, on_output=saver,
+                sc,
+                output=target,
+                overwrite=overwrite,
+                engine=engine,  # type: ignore[arg-type]
+                progress=Progress(scenario.name, quiet),
+                resume=state,
+                on_output=saver,
             )
         except KeyboardInterrupt:
             if ckpt.exists():
@@ -193,12 +228,14 @@ def run_command(scenario: Path, output: Path | None, overwrite: bool, plot: bool
                 last = read_checkpoint_meta(ckpt).get("time") or "an output time"
                 click.echo(
                     f"walkers: the run state at {last} is saved in {ckpt}; continue with: "
-                    f"{' '.join(again)}", err=True,
+                    f"{' '.join(again)}",
+                    err=True,
                 )
             else:
                 click.echo(
                     "walkers: no checkpoint was saved; to be able to resume an interrupted run, "
-                    'pass --checkpoint-every (e.g. "2 h")', err=True,
+                    'pass --checkpoint-every (e.g. "2 h")',
+                    err=True,
                 )
             raise
         remove_checkpoint(ckpt)
@@ -207,7 +244,7 @@ def run_command(scenario: Path, output: Path | None, overwrite: bool, plot: bool
             signal.signal(signal.SIGTERM, signal.SIG_DFL if previous is None else previous)
     click.echo(outcome.summary)
     click.echo(f"\nwrote {outcome.path}")
-    if plot:
+    if plot and outcome.path is not None:
         from walkers.plots import plot_results
 
         figdir = outcome.path.with_name(outcome.path.stem + "_figures")
@@ -218,15 +255,25 @@ def run_command(scenario: Path, output: Path | None, overwrite: bool, plot: bool
 
 @main.command("inspect")
 @click.argument("files", nargs=-1, required=True)
-@click.option("--dispersion", default=1.0, show_default=True, type=float,
-              help="Dispersion coefficient K (m2/s) for the time-step advice.")
+@click.option(
+    "--dispersion",
+    default=1.0,
+    show_default=True,
+    type=float,
+    help="Dispersion coefficient K (m2/s) for the time-step advice.",
+)
 @click.option("--time-step", "dt", type=float, default=None, help="A time step (s) to check.")
-@click.option("--map", "map_png", type=click.Path(dir_okay=False, path_type=Path),
-              help="Draw the speed field with land to this PNG.")
+@click.option(
+    "--map",
+    "map_png",
+    type=click.Path(dir_okay=False, path_type=Path),
+    help="Draw the speed field with land to this PNG.",
+)
 @click.option("--frame", default=0, show_default=True, help="Frame drawn by --map.")
 @friendly_errors
-def inspect_command(files, dispersion: float, dt: float | None, map_png: Path | None,
-                    frame: int) -> None:
+def inspect_command(
+    files, dispersion: float, dt: float | None, map_png: Path | None, frame: int
+) -> None:
     """Describe flow FILES: grid, CRS, times, variables found, land, speeds, time step."""
     from walkers.fields.netcdf import open_flow
     from walkers.inspect import describe_flow, draw_speed_map
@@ -240,11 +287,15 @@ def inspect_command(files, dispersion: float, dt: float | None, map_png: Path | 
 
 @main.command("verify")
 @click.option("--case", "cases", multiple=True, help="Run only these cases (repeatable).")
-@click.option("--particles", type=int, default=None,
-              help="Particles per case (default: each case's own).")
+@click.option(
+    "--particles", type=int, default=None, help="Particles per case (default: each case's own)."
+)
 @click.option("--seed", type=int, default=20261201, show_default=True)
-@click.option("--report", type=click.Path(dir_okay=False, path_type=Path),
-              help="Also write the results as Markdown (e.g. docs/verification.md).")
+@click.option(
+    "--report",
+    type=click.Path(dir_okay=False, path_type=Path),
+    help="Also write the results as Markdown (e.g. docs/verification.md).",
+)
 @friendly_errors
 def verify_command(cases, particles: int | None, seed: int, report: Path | None) -> None:
     """Run the verification cases against published solutions; exit 1 on any failure."""
@@ -259,12 +310,16 @@ def verify_command(cases, particles: int | None, seed: int, report: Path | None)
         started = time.monotonic()
         r = run_case(name, particles=particles, seed=seed)
         results.append(r)
-        click.echo(f"{'PASS' if r.passed else 'FAIL'}  {name} ({r.particles} particles, "
-                   f"{time.monotonic() - started:.1f} s): {r.title}")
+        click.echo(
+            f"{'PASS' if r.passed else 'FAIL'}  {name} ({r.particles} particles, "
+            f"{time.monotonic() - started:.1f} s): {r.title}"
+        )
         for c in r.checks:
             mark = "ok " if c.passed else "BAD"
-            click.echo(f"   {mark} {c.name}: {c.measured:.6g} (expected {c.expected:.6g}, "
-                       f"tolerance {c.tolerance:.3g}) — {c.source}")
+            click.echo(
+                f"   {mark} {c.name}: {c.measured:.6g} (expected {c.expected:.6g}, "
+                f"tolerance {c.tolerance:.3g}) — {c.source}"
+            )
     if report is not None:
         report.write_text(report_markdown(results))
         click.echo(f"wrote {report}")
@@ -277,10 +332,18 @@ def verify_command(cases, particles: int | None, seed: int, report: Path | None)
 
 @main.command("plot")
 @click.argument("result", type=click.Path(dir_okay=False, path_type=Path))
-@click.option("--outdir", type=click.Path(file_okay=False, path_type=Path),
-              help="Folder for the figures (default: <result>_figures).")
-@click.option("--time", "times", multiple=True, type=float,
-              help="Also map these times (hours after the first output; repeatable).")
+@click.option(
+    "--outdir",
+    type=click.Path(file_okay=False, path_type=Path),
+    help="Folder for the figures (default: <result>_figures).",
+)
+@click.option(
+    "--time",
+    "times",
+    multiple=True,
+    type=float,
+    help="Also map these times (hours after the first output; repeatable).",
+)
 @friendly_errors
 def plot_command(result: Path, outdir: Path | None, times) -> None:
     """Draw maps, receptor series, the mass budget and an animation from a RESULT file."""
@@ -307,14 +370,25 @@ def export_command(result: Path, csv: Path, overwrite: bool) -> None:
 
 
 @main.command("bench")
-@click.option("--quick", is_flag=True,
-              help="Smaller sizes and fewer repeats (under 30 s); the peak memory of 10 M "
-                   "particles is then projected from 1 M.")
+@click.option(
+    "--quick",
+    is_flag=True,
+    help="Smaller sizes and fewer repeats (under 30 s); the peak memory of 10 M "
+    "particles is then projected from 1 M.",
+)
 @click.option("--json", "as_json", is_flag=True, help="Print the figures as one JSON object.")
-@click.option("--particles", type=click.IntRange(min=100), default=None,
-              help="Particles moved [default: 200000; 20000 with --quick].")
-@click.option("--repeats", type=click.IntRange(min=1), default=None,
-              help="Timed repeats per figure; medians are reported [default: 5; 3 with --quick].")
+@click.option(
+    "--particles",
+    type=click.IntRange(min=100),
+    default=None,
+    help="Particles moved [default: 200000; 20000 with --quick].",
+)
+@click.option(
+    "--repeats",
+    type=click.IntRange(min=1),
+    default=None,
+    help="Timed repeats per figure; medians are reported [default: 5; 3 with --quick].",
+)
 @friendly_errors
 def bench_command(quick: bool, as_json: bool, particles: int | None, repeats: int | None) -> None:
     """Measure the engine's speed, memory and start-up on a reference workload."""
@@ -329,24 +403,56 @@ def bench_command(quick: bool, as_json: bool, particles: int | None, repeats: in
 
 @main.command("ensemble")
 @click.argument("scenario", type=click.Path(dir_okay=False, path_type=Path))
-@click.option("-o", "--output", type=click.Path(dir_okay=False, path_type=Path),
-              help="Output NetCDF file (default: the scenario's output file with _ensemble).")
-@click.option("--members", type=int, default=None,
-              help="Number of members (default: ensemble.members of the scenario).")
-@click.option("--workers", type=int, default=0, show_default=True,
-              help="0 runs in this process; N starts a local Dask cluster of N workers.")
-@click.option("--scheduler", default=None,
-              help="Address of a running Dask scheduler, e.g. tcp://10.0.0.5:8786.")
-@click.option("--threshold", "thresholds", multiple=True,
-              help='Extra concentration threshold, e.g. "0.05 mg/L" (repeatable).')
+@click.option(
+    "-o",
+    "--output",
+    type=click.Path(dir_okay=False, path_type=Path),
+    help="Output NetCDF file (default: the scenario's output file with _ensemble).",
+)
+@click.option(
+    "--members",
+    type=int,
+    default=None,
+    help="Number of members (default: ensemble.members of the scenario).",
+)
+@click.option(
+    "--workers",
+    type=int,
+    default=0,
+    show_default=True,
+    help="0 runs in this process; N starts a local Dask cluster of N workers.",
+)
+@click.option(
+    "--scheduler",
+    default=None,
+    help="Address of a running Dask scheduler, e.g. tcp://10.0.0.5:8786.",
+)
+@click.option(
+    "--threshold",
+    "thresholds",
+    multiple=True,
+    help='Extra concentration threshold, e.g. "0.05 mg/L" (repeatable).',
+)
 @click.option("--overwrite", is_flag=True, help="Replace an existing output file.")
-@click.option("--plot/--no-plot", default=True, show_default=True,
-              help="Draw the ensemble figures next to the output.")
+@click.option(
+    "--plot/--no-plot",
+    default=True,
+    show_default=True,
+    help="Draw the ensemble figures next to the output.",
+)
 @click.option("-q", "--quiet", is_flag=True, help="No progress messages.")
 @friendly_errors
-def ensemble_command(scenario: Path, output: Path | None, members: int | None, workers: int,
-                     scheduler: str | None, thresholds, overwrite: bool, plot: bool,
-                     quiet: bool) -> None:
+def ensemble_command(
+    scenario: Path,
+    output: Path | None,
+    members: int | None,
+    workers: int,
+    scheduler: str | None,
+    thresholds,
+    overwrite: bool,
+    plot: bool,
+    quiet: bool,
+) -> None:
     """Run the ensemble of SCENARIO (TOML with an [ensemble] table): exceedance probabilities,
     receptor distributions and the member table, written as CF-NetCDF with figures."""
     from walkers.ensemble import run_ensemble, summary_text, write_ensemble
@@ -374,17 +480,28 @@ def ensemble_command(scenario: Path, output: Path | None, members: int | None, w
         last[0] = now
         elapsed = now - started
         left = elapsed * (total - done) / done if done else float("nan")
-        click.echo(f"{scenario.name}: {done} of {total} members ({100 * done / total:3.0f} %), "
-                   f"about {left:.0f} s left", err=True)
+        click.echo(
+            f"{scenario.name}: {done} of {total} members ({100 * done / total:3.0f} %), "
+            f"about {left:.0f} s left",
+            err=True,
+        )
 
-    ds = run_ensemble(sc, members=members, workers=workers, scheduler=scheduler,
-                      progress=progress, thresholds=extra)
+    ds = run_ensemble(
+        sc,
+        members=members,
+        workers=workers,
+        scheduler=scheduler,
+        progress=progress,
+        thresholds=extra,
+    )
     elapsed = time.monotonic() - started
     write_ensemble(ds, output, overwrite=overwrite)
     click.echo(summary_text(ds))
-    click.echo(f"\n{ds.sizes['member']} members, {ds.attrs['particle_steps']:.3g} "
-               f"member-particle-steps in {elapsed:.1f} s "
-               f"({ds.attrs['particle_steps'] / elapsed:.3g} per second)")
+    click.echo(
+        f"\n{ds.sizes['member']} members, {ds.attrs['particle_steps']:.3g} "
+        f"member-particle-steps in {elapsed:.1f} s "
+        f"({ds.attrs['particle_steps'] / elapsed:.3g} per second)"
+    )
     click.echo(f"wrote {output}")
     if plot:
         from walkers.plots_ensemble import plot_ensemble

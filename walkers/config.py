@@ -71,9 +71,7 @@ class Transport:
     dispersion: Dispersion = field(default_factory=Dispersion)
     scheme: str = "euler"
     decay_rate: float = 0.0
-    edges: dict[str, str] = field(
-        default_factory=lambda: dict.fromkeys(EDGE_NAMES, "absorbing")
-    )
+    edges: dict[str, str] = field(default_factory=lambda: dict.fromkeys(EDGE_NAMES, "absorbing"))
     substeps: int = 1
     bridge: bool = True
     max_reflections: int = 8

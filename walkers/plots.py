@@ -266,20 +266,40 @@ def _receptor_figure(run: _Run, path: Path) -> Path:
         levels = thresholds[i][np.isfinite(thresholds[i])]
         positive = values[values > 0]
         top = max([*positive, *levels, 0.0])
-        ax.plot(run.hours, np.where(values > 0, values, np.nan), color="#1f3b73", lw=1.5,
-                marker="." if positive.size < 3 else None)
+        ax.plot(
+            run.hours,
+            np.where(values > 0, values, np.nan),
+            color="#1f3b73",
+            lw=1.5,
+            marker="." if positive.size < 3 else None,
+        )
         for level in levels:
             ax.axhline(level, color="#b5432f", lw=0.9, ls="--")
-            ax.annotate(f"threshold {level:.3g} {run.units}", (1.0, level),
-                        xycoords=("axes fraction", "data"), xytext=(-3, 2),
-                        textcoords="offset points", ha="right", va="bottom", fontsize=6.5,
-                        color="#b5432f")
+            ax.annotate(
+                f"threshold {level:.3g} {run.units}",
+                (1.0, level),
+                xycoords=("axes fraction", "data"),
+                xytext=(-3, 2),
+                textcoords="offset points",
+                ha="right",
+                va="bottom",
+                fontsize=6.5,
+                color="#b5432f",
+            )
         if top > 0:
             ax.set_yscale("log")
             ax.set_ylim(top * 1e-4, top * 3.0)
         else:
-            ax.text(0.5, 0.5, "no particles reached this receptor", transform=ax.transAxes,
-                    ha="center", va="center", fontsize=8, color="0.4")
+            ax.text(
+                0.5,
+                0.5,
+                "no particles reached this receptor",
+                transform=ax.transAxes,
+                ha="center",
+                va="center",
+                fontsize=8,
+                color="0.4",
+            )
         ax.set_ylabel(run.units, fontsize=8)
         ax.set_title(str(name), fontsize=9, loc="left")
         ax.grid(True, lw=0.4, color="0.88")

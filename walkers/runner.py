@@ -153,7 +153,7 @@ def input_provenance(scenario: Scenario) -> list[dict[str, Any]]:
         p = Path(p)
         digest = hashlib.sha256()
         with open(p, "rb") as fh:
-            for block in iter(lambda fh=fh: fh.read(1 << 20), b""):
+            while block := fh.read(1 << 20):
                 digest.update(block)
         st = p.stat()
         records.append(
@@ -235,7 +235,7 @@ def run_scenario(
     from walkers import io
 
     if not isinstance(scenario, Scenario):
-        scenario = load_scenario(scenario)
+        scenario = load_scenario(Path(scenario))
     path = Path(output) if output is not None else Path(scenario.output_path)
     io.check_target(path, overwrite)
     ds = simulate_scenario(

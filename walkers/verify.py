@@ -26,7 +26,6 @@ from walkers.engine.state import IN_WATER, LEFT, ParticleState
 from walkers.fields.analytic import analytic_flow, grid_flow
 from walkers.fields.base import FlowField, centre_to_edges
 from walkers.randomness import run_streams
-from walkers.releases import make_particles
 from walkers.simulate import RunState, simulate
 
 Z = 5.0
@@ -253,7 +252,10 @@ def case_reflecting_wall(particles: int, seed: int, wall: str = "reflecting") ->
 def case_absorbing_edge(particles: int, seed: int, velocity_factor: float = 1.0) -> CaseResult:
     """Arrival at an absorbing downstream edge: the inverse Gaussian first-passage law."""
     u, k, distance, t_end = 0.2, 2.0, 2000.0, 20000.0
-    src = "Cox & Miller 1965, The Theory of Stochastic Processes, §5.7 (from memory); scipy.stats.invgauss"
+    src = (
+        "Cox & Miller 1965, The Theory of Stochastic Processes, §5.7 (from memory); "
+        "scipy.stats.invgauss"
+    )
     law = analytic.first_passage(distance, u, k)
     flow = analytic_flow(
         "uniform", u=u * velocity_factor, x_range=(-4995.0, 1995.0), nx=700, depth=10.0, ndim=1
@@ -487,13 +489,27 @@ def case_rotation(particles: int, seed: int, scheme: str = "rk4") -> CaseResult:
         z = omega * dt
         if label == "euler":
             expected = r0 * (1 + z**2) ** (nsteps / 2)
-            result.checks.append(Check("Euler radius (m)", r, expected, 1e-9 * r0,
-                                       "Euler on a linear rotation: exact growth factor"))
+            result.checks.append(
+                Check(
+                    "Euler radius (m)",
+                    r,
+                    expected,
+                    1e-9 * r0,
+                    "Euler on a linear rotation: exact growth factor",
+                )
+            )
         else:
             # RK4 on rotation: |amplification| = |1 - z²/2 + z⁴/24 + i(z - z³/6)|, z = Ωdt.
             g = abs(complex(1 - z**2 / 2 + z**4 / 24, z - z**3 / 6))
-            result.checks.append(Check("RK4 radius (m)", r, r0 * g**nsteps, 1e-9 * r0,
-                                       "RK4 stability function (Butcher 2008, from memory)"))
+            result.checks.append(
+                Check(
+                    "RK4 radius (m)",
+                    r,
+                    r0 * g**nsteps,
+                    1e-9 * r0,
+                    "RK4 stability function (Butcher 2008, from memory)",
+                )
+            )
     return result
 
 

@@ -143,11 +143,13 @@ def _dispersion_frames(
         hkxx = _fill_land(h * kxx, wet)
         hkyy = _fill_land(h * kyy, wet)
         hkxy = _fill_land(h * kxy, wet)
-        if flow.geographic:
-            dx_row = mx[:, None]
-            gx = lambda a: np.gradient(a, flow.x, axis=1) / dx_row if nx > 1 else 0 * a  # noqa: E731
-        else:
-            gx = lambda a: _gradient(a, x_m, 1)  # noqa: E731
+
+        def gx(a: np.ndarray) -> np.ndarray:
+            """∂a/∂x in metres (per row on geographic grids)."""
+            if flow.geographic:
+                return np.gradient(a, flow.x, axis=1) / mx[:, None] if nx > 1 else 0 * a
+            return _gradient(a, x_m, 1)
+
         drift_x[f] = (gx(hkxx) + _gradient(hkxy, y_m, 0)) / h
         drift_y[f] = (gx(hkxy) + _gradient(hkyy, y_m, 0)) / h
     if flow.ndim == 1:
