@@ -432,9 +432,10 @@ def bridge_exit(
 
 
 @nb.njit(**JIT)
-def step_one(
-    p,
-    k,
+def step_block(
+    lo,
+    hi,
+    base,
     s,
     x,
     y,
@@ -460,7 +461,8 @@ def step_one(
     cell_j,
     streams,
 ):
-    """One step of particle p (slot k of its block) at step s: the general case of every option.
+    """Step s of particles lo..hi-1 of the block starting at ``base``: the general case of
+    every option.
 
     See ``advance`` for the arguments; tab_i, tab_w are the time tables of ``step_tables``,
     ``shared`` says that u and v lie on the same axes, cell_i, cell_j and streams hold the cell
@@ -482,166 +484,168 @@ def step_one(
     kconst = disp[4]
     t = t0 + s * dt
     t_end = t + dt
-    st = status[p]
-    if st == STATUS_WAITING:
-        if trel[p] >= t_end:
-            return
-        st = STATUS_WATER
-        tstart = max(t, trel[p])
-    elif st == STATUS_WATER or st == STATUS_STRANDED:
-        tstart = t
-    else:
-        return
-    h = t_end - tstart
-    if h <= 0.0:
-        status[p] = st
-        return
-    own_time = tstart != t
-    if own_time:
-        it, wt = time_weight(times, tstart)
-    else:
-        it = tab_i[s, 0]
-        wt = tab_w[s, 0]
-    iw = it if wt < 0.5 else it + 1
-    if wet.shape[0] == 1:
-        iw = 0
-    wet_now = wet[iw]
-    pi = cell_i[k]
-    pj = cell_j[k]
-    if wet_now[pj, pi] == 0:
-        st = STATUS_STRANDED
-    elif st == STATUS_STRANDED:
-        st = STATUS_WATER
-    if decay_rate > 0.0:
-        pm = m[p] * math.exp(-decay_rate * h)
-        m[p] = pm
-        if pm <= DECAYED_FRACTION * m0[p]:
-            status[p] = STATUS_DECAYED
-            return
-    if st == STATUS_STRANDED:
-        status[p] = st
-        return
-    px = x[p]
-    py = y[p]
-    # Deterministic part.
-    u1, v1 = velocity(ux, uy, U, vx, vy, V, invu, shared, it, wt, px, py)
-    sx, sy = metres_to_grid(geographic, py)
-    if scheme == 0:
-        ax_ = u1 * h * sx
-        ay_ = v1 * h * sy
-    else:
+    for p in range(lo, hi):
+        k = p - base
+        st = status[p]
+        if st == STATUS_WAITING:
+            if trel[p] >= t_end:
+                continue
+            st = STATUS_WATER
+            tstart = max(t, trel[p])
+        elif st == STATUS_WATER or st == STATUS_STRANDED:
+            tstart = t
+        else:
+            continue
+        h = t_end - tstart
+        if h <= 0.0:
+            status[p] = st
+            continue
+        own_time = tstart != t
         if own_time:
-            itm, wtm = time_weight(times, tstart + 0.5 * h)
-            ite, wte = time_weight(times, tstart + h)
+            it, wt = time_weight(times, tstart)
         else:
-            itm = tab_i[s, 1]
-            wtm = tab_w[s, 1]
-            ite = tab_i[s, 2]
-            wte = tab_w[s, 2]
-        xm = px + 0.5 * h * u1 * sx
-        ym = py + 0.5 * h * v1 * sy
-        u2, v2 = velocity(ux, uy, U, vx, vy, V, invu, shared, itm, wtm, xm, ym)
-        xm = px + 0.5 * h * u2 * sx
-        ym = py + 0.5 * h * v2 * sy
-        u3, v3 = velocity(ux, uy, U, vx, vy, V, invu, shared, itm, wtm, xm, ym)
-        u4, v4 = velocity(
-            ux, uy, U, vx, vy, V, invu, shared, ite, wte, px + h * u3 * sx, py + h * v3 * sy
-        )
-        ax_ = h * sx * (u1 + 2.0 * u2 + 2.0 * u3 + u4) / 6.0
-        ay_ = h * sy * (v1 + 2.0 * v2 + 2.0 * v3 + v4) / 6.0
-    # Dispersion tensor at the start point.
-    if kconst[0] >= 0.0:
-        k1 = kconst[0]
-        k2 = kconst[1]
-    else:
-        k1 = sample(K1, cx, cy, invc[2], invc[3], it, wt, px, py)
-        k2 = sample(K2, cx, cy, invc[2], invc[3], it, wt, px, py)
-    k1 *= kconst[2]
-    k2 *= kconst[2]
-    stream = streams[k]
-    z1, z2 = normal_pair(stream, step0 + s)
-    if aligned:
-        speed = math.sqrt(u1 * u1 + v1 * v1)
-        if speed > 0.0:
-            ex = u1 / speed
-            ey = v1 / speed
+            it = tab_i[s, 0]
+            wt = tab_w[s, 0]
+        iw = it if wt < 0.5 else it + 1
+        if wet.shape[0] == 1:
+            iw = 0
+        wet_now = wet[iw]
+        pi = cell_i[k]
+        pj = cell_j[k]
+        if wet_now[pj, pi] == 0:
+            st = STATUS_STRANDED
+        elif st == STATUS_STRANDED:
+            st = STATUS_WATER
+        if decay_rate > 0.0:
+            pm = m[p] * math.exp(-decay_rate * h)
+            m[p] = pm
+            if pm <= DECAYED_FRACTION * m0[p]:
+                status[p] = STATUS_DECAYED
+                continue
+        if st == STATUS_STRANDED:
+            status[p] = st
+            continue
+        px = x[p]
+        py = y[p]
+        # Deterministic part.
+        u1, v1 = velocity(ux, uy, U, vx, vy, V, invu, shared, it, wt, px, py)
+        sx, sy = metres_to_grid(geographic, py)
+        if scheme == 0:
+            ax_ = u1 * h * sx
+            ay_ = v1 * h * sy
         else:
-            ex = 1.0
-            ey = 0.0
-            k1 = k2
-        aL = math.sqrt(2.0 * k1 * h) * z1
-        aT = math.sqrt(2.0 * k2 * h) * z2
-        nxm = aL * ex - aT * ey
-        nym = aL * ey + aT * ex
-        kxx = k2 + (k1 - k2) * ex * ex
-        kyy = k2 + (k1 - k2) * ey * ey
-    else:
-        nxm = math.sqrt(2.0 * k1 * h) * z1
-        nym = math.sqrt(2.0 * k2 * h) * z2
-        kxx = k1
-        kyy = k2
-    dxm = nxm
-    dym = nym
-    if has_drift:
-        dxm += sample(DX, cx, cy, invc[2], invc[3], it, wt, px, py) * h
-        dym += sample(DY, cx, cy, invc[2], invc[3], it, wt, px, py) * h
-    qx = px + ax_ + dxm * sx
-    qy = py
-    if ndim == 2:
-        qy = py + ay_ + dym * sy
-    left, tcross, placed, qx, qy, ci, cj = reflect_and_place(
-        qx,
-        qy,
-        px,
-        py,
-        pi,
-        pj,
-        tstart,
-        h,
-        t_end,
-        ndim,
-        max_refl,
-        edges_mode,
-        xe,
-        ye,
-        wet_now,
-        invc[0],
-        invc[1],
-    )
-    if left < 0 and bridge and placed:
-        left = bridge_exit(
-            stream,
-            step0 + s,
-            px,
-            py,
+            if own_time:
+                itm, wtm = time_weight(times, tstart + 0.5 * h)
+                ite, wte = time_weight(times, tstart + h)
+            else:
+                itm = tab_i[s, 1]
+                wtm = tab_w[s, 1]
+                ite = tab_i[s, 2]
+                wte = tab_w[s, 2]
+            xm = px + 0.5 * h * u1 * sx
+            ym = py + 0.5 * h * v1 * sy
+            u2, v2 = velocity(ux, uy, U, vx, vy, V, invu, shared, itm, wtm, xm, ym)
+            xm = px + 0.5 * h * u2 * sx
+            ym = py + 0.5 * h * v2 * sy
+            u3, v3 = velocity(ux, uy, U, vx, vy, V, invu, shared, itm, wtm, xm, ym)
+            u4, v4 = velocity(
+                ux, uy, U, vx, vy, V, invu, shared, ite, wte, px + h * u3 * sx, py + h * v3 * sy
+            )
+            ax_ = h * sx * (u1 + 2.0 * u2 + 2.0 * u3 + u4) / 6.0
+            ay_ = h * sy * (v1 + 2.0 * v2 + 2.0 * v3 + v4) / 6.0
+        # Dispersion tensor at the start point.
+        if kconst[0] >= 0.0:
+            k1 = kconst[0]
+            k2 = kconst[1]
+        else:
+            k1 = sample(K1, cx, cy, invc[2], invc[3], it, wt, px, py)
+            k2 = sample(K2, cx, cy, invc[2], invc[3], it, wt, px, py)
+        k1 *= kconst[2]
+        k2 *= kconst[2]
+        stream = streams[k]
+        z1, z2 = normal_pair(stream, step0 + s)
+        if aligned:
+            speed = math.sqrt(u1 * u1 + v1 * v1)
+            if speed > 0.0:
+                ex = u1 / speed
+                ey = v1 / speed
+            else:
+                ex = 1.0
+                ey = 0.0
+                k1 = k2
+            aL = math.sqrt(2.0 * k1 * h) * z1
+            aT = math.sqrt(2.0 * k2 * h) * z2
+            nxm = aL * ex - aT * ey
+            nym = aL * ey + aT * ex
+            kxx = k2 + (k1 - k2) * ex * ex
+            kyy = k2 + (k1 - k2) * ey * ey
+        else:
+            nxm = math.sqrt(2.0 * k1 * h) * z1
+            nym = math.sqrt(2.0 * k2 * h) * z2
+            kxx = k1
+            kyy = k2
+        dxm = nxm
+        dym = nym
+        if has_drift:
+            dxm += sample(DX, cx, cy, invc[2], invc[3], it, wt, px, py) * h
+            dym += sample(DY, cx, cy, invc[2], invc[3], it, wt, px, py) * h
+        qx = px + ax_ + dxm * sx
+        qy = py
+        if ndim == 2:
+            qy = py + ay_ + dym * sy
+        left, tcross, placed, qx, qy, ci, cj = reflect_and_place(
             qx,
             qy,
-            sx,
-            sy,
-            kxx,
-            kyy,
+            px,
+            py,
+            pi,
+            pj,
+            tstart,
             h,
+            t_end,
             ndim,
+            max_refl,
             edges_mode,
-            xe[0],
-            xe[xe.shape[0] - 1],
-            ye[0],
-            ye[ye.shape[0] - 1],
+            xe,
+            ye,
+            wet_now,
+            invc[0],
+            invc[1],
         )
+        if left < 0 and bridge and placed:
+            left = bridge_exit(
+                stream,
+                step0 + s,
+                px,
+                py,
+                qx,
+                qy,
+                sx,
+                sy,
+                kxx,
+                kyy,
+                h,
+                ndim,
+                edges_mode,
+                xe[0],
+                xe[xe.shape[0] - 1],
+                ye[0],
+                ye[ye.shape[0] - 1],
+            )
+            if left >= 0:
+                tcross = tstart + 0.5 * h
         if left >= 0:
-            tcross = tstart + 0.5 * h
-    if left >= 0:
-        status[p] = STATUS_LEFT + left
-        texit[p] = tcross
-        x[p] = qx
-        y[p] = qy
-        return
-    if placed:
-        x[p] = qx
-        y[p] = qy
-        cell_i[k] = ci
-        cell_j[k] = cj
-    status[p] = st
+            status[p] = STATUS_LEFT + left
+            texit[p] = tcross
+            x[p] = qx
+            y[p] = qy
+            continue
+        if placed:
+            x[p] = qx
+            y[p] = qy
+            cell_i[k] = ci
+            cell_j[k] = cj
+        status[p] = st
 
 
 @nb.njit(**JIT)
@@ -689,35 +693,35 @@ def move_block(
     """Advance particles lo..hi-1 over nsteps steps (steps outer, particles inner), general case."""
     cell_i, cell_j, streams = block_scratch(lo, hi, x, y, cells[0], cells[1], cells[5], key)
     for s in range(nsteps):
-        for k in range(hi - lo):
-            step_one(
-                lo + k,
-                k,
-                s,
-                x,
-                y,
-                m,
-                m0,
-                trel,
-                texit,
-                status,
-                flow,
-                cells,
-                disp,
-                times,
-                opts,
-                edges_mode,
-                t0,
-                dt,
-                step0,
-                decay_rate,
-                tab_i,
-                tab_w,
-                shared,
-                cell_i,
-                cell_j,
-                streams,
-            )
+        step_block(
+            lo,
+            hi,
+            lo,
+            s,
+            x,
+            y,
+            m,
+            m0,
+            trel,
+            texit,
+            status,
+            flow,
+            cells,
+            disp,
+            times,
+            opts,
+            edges_mode,
+            t0,
+            dt,
+            step0,
+            decay_rate,
+            tab_i,
+            tab_w,
+            shared,
+            cell_i,
+            cell_j,
+            streams,
+        )
 
 
 @nb.njit(**JIT)
@@ -749,7 +753,7 @@ def move_block_fast(
     """``move_block`` for the common case, written out flat so the compiler keeps it in registers:
     2-D, projected grid, Euler, dispersion along the axes with constant K and no drift, u and v
     on the same uniformly spaced axes, uniformly spaced cells. The arithmetic is that of
-    ``step_one``, term by term; anything unusual in a step (a release inside the step, a
+    ``step_block``, term by term; anything unusual in a step (a release inside the step, a
     reflection, a particle near an absorbing edge) is handed to the general helpers."""
     ux, uy, U, V, invu = flow[0], flow[1], flow[2], flow[5], flow[6]
     xe, ye, wet = cells[0], cells[1], cells[2]
@@ -830,9 +834,10 @@ def move_block_fast(
                     y[p] = by[k]
                     m[p] = bm[k]
                     status[p] = st
-                    step_one(
+                    step_block(
                         p,
-                        k,
+                        p + 1,
+                        lo,
                         s,
                         x,
                         y,
