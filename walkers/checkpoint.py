@@ -10,6 +10,12 @@ continued from an exactly restored state gives bitwise the same result as one ne
 Files: ``<output>.checkpoint.npz`` beside the output (numpy's npz, read without pickles), written
 to ``.<output>.checkpoint.npz.part`` and renamed with :func:`os.replace`, so a crash mid-write
 leaves the previous checkpoint whole. The command line removes it after a successful run.
+
+A run whose fields are streamed to disk (:class:`walkers.io.DiskFields`) keeps them out of the
+npz: the segment files of the output times done so far are closed and placed in the folder
+``<checkpoint>.fields/`` beside it (:func:`fields_folder`) before the npz that lists them (name,
+output times, size) is written, so the npz only ever lists complete files. After each save the
+folder holds exactly the segments the npz lists; :func:`remove_checkpoint` removes it too.
 """
 
 from __future__ import annotations
@@ -17,6 +23,8 @@ from __future__ import annotations
 import hashlib
 import json
 import os
+import re
+import shutil
 import zipfile
 from collections.abc import Callable
 from pathlib import Path
@@ -27,11 +35,14 @@ import numpy as np
 import walkers
 from walkers.engine.state import ParticleState
 from walkers.errors import InputError
+from walkers.io import DiskFields
 from walkers.scenario import Scenario
 from walkers.simulate import RunState, _Accumulator
 
-#: Version of the checkpoint layout; a file of another version is refused.
-FORMAT = 1
+#: Version of the checkpoint layout; a file of another version is refused. 2: fields may be on
+#: disk beside the npz; the running maximum of the concentration is saved.
+FORMAT = 2
+_SEGMENT_FILE = re.compile(r"fields_\d+\.nc")
 _PARTICLE = "particle."
 _RESULT = "result."
 
@@ -44,6 +55,12 @@ def checkpoint_path(output: str | os.PathLike) -> Path:
 
 def _temporary(path: Path) -> Path:
     return path.with_name(f".{path.name}.part")
+
+
+def fields_folder(path: str | os.PathLike) -> Path:
+    """The folder of the field segments of checkpoint ``path``: ``<path>.fields``."""
+    path = Path(path)
+    return path.with_name(path.name + ".fields")
 
 
 def run_fingerprint(scenario: Scenario, engine: str) -> dict[str, Any]:
@@ -75,13 +92,15 @@ def save_checkpoint(
     when : the simulated time of the state (ISO 8601), kept for messages.
     """
     path = Path(path)
-    meta = {
+    folder = fields_folder(path)
+    meta: dict[str, Any] = {
         "format": FORMAT,
         "fingerprint": fingerprint,
         "next_output": int(state.next_output),
         "time": when,
+        "fields": state.results.field_record(folder),
     }
-    arrays: dict[str, np.ndarray] = {"meta": np.array(json.dumps(meta)), "owner": state.owner}
+    arrays: dict[str, Any] = {"meta": np.array(json.dumps(meta)), "owner": state.owner}
     arrays.update({_PARTICLE + k: v for k, v in state.particles.arrays().items()})
     arrays.update({_RESULT + k: v for k, v in state.results.arrays().items()})
     temp = _temporary(path)
@@ -93,7 +112,24 @@ def save_checkpoint(
         os.replace(temp, path)
     finally:
         temp.unlink(missing_ok=True)
+    listed = {seg[0] for seg in meta["fields"]["segments"]} if meta["fields"] else set()
+    _prune(folder, listed)
     return path
+
+
+def _prune(folder: Path, keep: set[str]) -> None:
+    """Remove the field segments in ``folder`` not named in ``keep`` (left by an earlier run that
+    stopped between placing a segment and saving the checkpoint that lists it); remove the folder
+    if nothing is kept."""
+    if not folder.is_dir():
+        return
+    for item in folder.iterdir():
+        if item.name not in keep and (
+            _SEGMENT_FILE.fullmatch(item.name) or item.name.endswith(".part")
+        ):
+            item.unlink(missing_ok=True)
+    if not keep:
+        shutil.rmtree(folder, ignore_errors=True)
 
 
 def _differences(saved: dict[str, Any], now: dict[str, Any]) -> list[str]:
@@ -153,13 +189,15 @@ def load_checkpoint(path: str | os.PathLike, fingerprint: dict[str, Any]) -> Run
             "A resumed run must match the interrupted one exactly: restore what changed, or "
             "delete the checkpoint and run again without --resume"
         )
+    record = meta.get("fields")
+    fields = DiskFields.from_record(record, fields_folder(path)) if record else None
     try:
         with np.load(path, allow_pickle=False) as data:
             particles = ParticleState(
                 **{k[len(_PARTICLE) :]: data[k] for k in data.files if k.startswith(_PARTICLE)}
             )
             results = _Accumulator.from_arrays(
-                {k[len(_RESULT) :]: data[k] for k in data.files if k.startswith(_RESULT)}
+                {k[len(_RESULT) :]: data[k] for k in data.files if k.startswith(_RESULT)}, fields
             )
             owner = data["owner"]
     except (OSError, ValueError, KeyError, TypeError, zipfile.BadZipFile) as err:
@@ -171,10 +209,12 @@ def load_checkpoint(path: str | os.PathLike, fingerprint: dict[str, Any]) -> Run
 
 
 def remove_checkpoint(path: str | os.PathLike) -> None:
-    """Remove a checkpoint and any temporary file of it (after a successful run)."""
+    """Remove a checkpoint, its field segments and any temporary file of it (after a
+    successful run)."""
     path = Path(path)
     path.unlink(missing_ok=True)
     _temporary(path).unlink(missing_ok=True)
+    _prune(fields_folder(path), set())
 
 
 class Checkpointer:

@@ -4,6 +4,14 @@ This is the Python entry point of a single run; the command line and the ensembl
 returns an :class:`xarray.Dataset` (layout in ``docs/outputs.md``) holding the concentration
 fields, receptor series, mass budget and cloud moments at every output time.
 
+Memory does not grow with the length of a run: the 3-D fields (concentration, particle counts,
+smoothed concentration) of a run whose fields would exceed
+:data:`walkers.io.FIELD_MEMORY_BUDGET` go to a temporary file as each output time is computed
+(:class:`walkers.io.DiskFields`), and the returned Dataset reads them lazily (dask, one chunk per
+output time), so :func:`walkers.io.write_results` streams them to the output file. The maximum
+concentration is kept as a running maximum; the series over time (budget, receptors, moments,
+sampled tracks) are small and stay in memory.
+
 Guards on the way (each names the time and, where there is one, the place):
 
 - every window of flow frames is checked for non-finite velocity in wet cells before particles
@@ -19,10 +27,12 @@ Guards on the way (each names the time and, where there is one, the place):
 from __future__ import annotations
 
 import math
+import os
 import warnings
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
-from typing import Literal
+from pathlib import Path
+from typing import Any, Literal
 
 import numpy as np
 import xarray as xr
@@ -35,6 +45,7 @@ from walkers.engine.state import ParticleState
 from walkers.engine.timestep import check_time_step
 from walkers.errors import InputError, RunFailure
 from walkers.fields.base import FlowField, FlowWindow, centre_to_edges
+from walkers.io import DiskFields, FieldMode, MemoryFields, field_store
 from walkers.randomness import run_streams
 from walkers.releases import make_particles
 
@@ -221,6 +232,8 @@ def simulate(
     scenario_text: str = "",
     resume: RunState | None = None,
     on_output: Callable[[RunState], None] | None = None,
+    fields: FieldMode = "auto",
+    field_folder: str | os.PathLike | None = None,
 ) -> xr.Dataset:
     """Run one simulation and return its result Dataset.
 
@@ -240,6 +253,13 @@ def simulate(
     progress : called as progress(simulated seconds, total seconds, particles in water).
     resume : continue from a saved :class:`RunState` (same arguments otherwise).
     on_output : called with the :class:`RunState` after each output time (for checkpoints).
+    fields : where the 3-D fields are kept while the run goes on: ``"memory"``, ``"disk"``
+        (streamed to a temporary file and returned as lazy dask arrays), or ``"auto"`` (on disk
+        when they would exceed :data:`walkers.io.FIELD_MEMORY_BUDGET`). A resumed run keeps the
+        store of its saved state. The values are the same either way.
+    field_folder : where an on-disk store makes its temporary folder (default: the system's
+        temporary folder). It is removed if the run fails or is interrupted, and otherwise when
+        the returned Dataset (and everything read lazily from it) is dropped, or at exit.
     """
     if not releases:
         raise InputError("no releases: a run needs at least one release")
@@ -265,15 +285,23 @@ def simulate(
     )
     walk_key, release_rng = run_streams(seed, member)
     mx, my = mover.metres_per_grid_unit(flow)
-    acc = _Accumulator(len(times), output_grid, len(receptors), tracks)
+    shape = (len(times), output_grid.ny, output_grid.nx)
+    variables = _field_variables(output_grid)
     if resume is None:
         centre = np.mean([np.atleast_2d(r.coords)[0] for r in releases], axis=0)
         j = int(np.clip(np.searchsorted(flow.y, centre[1]), 0, flow.y.size - 1))
         particles, owner = make_particles(releases, release_rng, (float(mx[j]), float(my[j])))
         first = 0
+        store = field_store(shape, variables, fields, field_folder)
+        acc = _Accumulator(len(times), output_grid, len(receptors), tracks, store)
     else:
         particles, owner, first = resume.particles, resume.owner, resume.next_output
-        if resume.results.conc.shape != acc.conc.shape or not 0 < first <= len(times):
+        saved = resume.results.fields
+        if (
+            saved.shape != shape
+            or set(saved.variables) != set(variables)
+            or not 0 < first <= len(times)
+        ):
             raise InputError(
                 "the saved run state does not fit this run (different output times or grid); "
                 "start the run afresh"
@@ -285,45 +313,65 @@ def simulate(
     track_index = (
         np.linspace(0, len(particles) - 1, tracks).round().astype(np.int64) if tracks else None
     )
-    for k in range(first, len(times)):
-        t = float(times[k])
-        if k > 0:
-            t_prev = float(times[k - 1])
-            window = flow.window(t_prev, t)
-            check_window_velocity(flow, window)
-            inputs = mover.kernel_inputs(flow, window, transport)
-            step0 = (k - 1) * steps_per_output
-            per_call = max(1, PARTICLE_STEPS_PER_CALL // max(len(particles), 1))
-            for s in range(0, steps_per_output, per_call):
-                n = min(per_call, steps_per_output - s)
-                t_call = t_prev + s * dt
-                mover.advance(particles, inputs, t_call, dt, n, step0 + s, walk_key, engine)
-                _check_positions(particles, owner, releases, flow, t_call, t_call + n * dt)
-        window_now = flow.window(t, t)
-        frame = (
-            0 if window_now.depth.shape[0] == 1 else int(np.argmin(np.abs(window_now.times - t)))
+    try:
+        for k in range(first, len(times)):
+            t = float(times[k])
+            if k > 0:
+                t_prev = float(times[k - 1])
+                window = flow.window(t_prev, t)
+                check_window_velocity(flow, window)
+                inputs = mover.kernel_inputs(flow, window, transport)
+                step0 = (k - 1) * steps_per_output
+                per_call = max(1, PARTICLE_STEPS_PER_CALL // max(len(particles), 1))
+                for s in range(0, steps_per_output, per_call):
+                    n = min(per_call, steps_per_output - s)
+                    t_call = t_prev + s * dt
+                    mover.advance(particles, inputs, t_call, dt, n, step0 + s, walk_key, engine)
+                    _check_positions(particles, owner, releases, flow, t_call, t_call + n * dt)
+            window_now = flow.window(t, t)
+            frame = (
+                0
+                if window_now.depth.shape[0] == 1
+                else int(np.argmin(np.abs(window_now.times - t)))
+            )
+            depths = reduce.particle_depths(particles, window_now.depth[frame], xe, ye)
+            conc, count = reduce.concentration(particles, depths, output_grid, measure)
+            acc.record(
+                k, particles, depths, conc, count, receptors, output_grid, flow, mpu, track_index
+            )
+            if progress is not None:
+                progress(t - start, end - start, int(acc.in_water[k]))
+            if on_output is not None:
+                on_output(RunState(particles, owner, k + 1, acc))
+        return acc.dataset(
+            times, flow, output_grid, receptors, releases, seed, member, title, scenario_text
         )
-        depths = reduce.particle_depths(particles, window_now.depth[frame], xe, ye)
-        conc, count = reduce.concentration(particles, depths, output_grid, measure)
-        acc.record(
-            k, particles, depths, conc, count, receptors, output_grid, flow, mpu, track_index
-        )
-        if progress is not None:
-            progress(t - start, end - start, int(acc.in_water[k]))
-        if on_output is not None:
-            on_output(RunState(particles, owner, k + 1, acc))
-    return acc.dataset(
-        times, flow, output_grid, receptors, releases, seed, member, title, scenario_text
-    )
+    except BaseException:
+        # a failed or interrupted run leaves no temporary files (a checkpoint keeps its own)
+        acc.fields.discard()
+        raise
+
+
+def _field_variables(grid: OutputGrid) -> dict[str, type]:
+    """The 3-D fields a run stores at every output time, with their dtypes."""
+    variables: dict[str, type] = {"concentration": np.float64, "particle_count": np.int32}
+    if grid.bandwidth > 0:
+        variables["concentration_smoothed"] = np.float64
+    return variables
 
 
 class _Accumulator:
-    """Holds the reductions at each output time while the run goes on."""
+    """Holds the reductions at each output time while the run goes on.
 
-    def __init__(self, nt: int, grid: OutputGrid, nrec: int, tracks: int):
-        self.conc = np.zeros((nt, grid.ny, grid.nx))
-        self.smooth = np.zeros((nt, grid.ny, grid.nx)) if grid.bandwidth > 0 else None
-        self.count = np.zeros((nt, grid.ny, grid.nx), dtype=np.int32)
+    The 3-D fields go to ``fields`` (in memory or streamed to disk, see :mod:`walkers.io`); the
+    maximum concentration over time is a running maximum; the rest are series over time.
+    """
+
+    def __init__(
+        self, nt: int, grid: OutputGrid, nrec: int, tracks: int, fields: MemoryFields | DiskFields
+    ):
+        self.fields = fields
+        self.conc_max = np.full((grid.ny, grid.nx), -np.inf)
         self.receptor = np.zeros((nrec, nt))
         self.budget = {
             k: np.zeros(nt)
@@ -339,29 +387,39 @@ class _Accumulator:
         self.track_y = np.full((tracks, nt), np.nan) if tracks else None
 
     def arrays(self) -> dict[str, np.ndarray]:
-        """Every array held, by a flat name (for checkpoints); see :meth:`from_arrays`."""
+        """Every array held in memory, by a flat name (for checkpoints); the fields too when they
+        are in memory (``field.<name>``). See :meth:`from_arrays` and :meth:`field_record`."""
         out = {
-            "conc": self.conc,
-            "count": self.count,
+            "conc_max": self.conc_max,
             "receptor": self.receptor,
             "left": self.left,
             "in_water": self.in_water,
         }
-        if self.smooth is not None:
-            out["smooth"] = self.smooth
+        if isinstance(self.fields, MemoryFields):
+            out.update({f"field.{k}": v for k, v in self.fields.arrays.items()})
         if self.track_x is not None and self.track_y is not None:
             out["track_x"], out["track_y"] = self.track_x, self.track_y
         out.update({f"budget.{k}": v for k, v in self.budget.items()})
         out.update({f"moment.{k}": v for k, v in self.moments.items()})
         return out
 
+    def field_record(self, folder: Path) -> dict[str, Any] | None:
+        """For fields on disk: hand their segments over to ``folder`` (a checkpoint's) and return
+        the record that :meth:`walkers.io.DiskFields.from_record` reads back (see
+        :meth:`walkers.io.DiskFields.hand_over`); None for fields in memory."""
+        if isinstance(self.fields, DiskFields):
+            return self.fields.hand_over(folder)
+        return None
+
     @classmethod
-    def from_arrays(cls, arrays: dict[str, np.ndarray]) -> _Accumulator:
-        """The accumulator whose :meth:`arrays` were ``arrays`` (KeyError if one is missing)."""
+    def from_arrays(
+        cls, arrays: dict[str, np.ndarray], fields: DiskFields | None = None
+    ) -> _Accumulator:
+        """The accumulator whose :meth:`arrays` were ``arrays``; its fields are those arrays or,
+        for fields on disk, ``fields`` (KeyError if an array is missing)."""
         acc = cls.__new__(cls)
-        acc.conc, acc.count, acc.receptor = arrays["conc"], arrays["count"], arrays["receptor"]
+        acc.conc_max, acc.receptor = arrays["conc_max"], arrays["receptor"]
         acc.left, acc.in_water = arrays["left"], arrays["in_water"]
-        acc.smooth = arrays.get("smooth")
         acc.track_x, acc.track_y = arrays.get("track_x"), arrays.get("track_y")
         acc.budget = {
             k: arrays[f"budget.{k}"]
@@ -371,13 +429,22 @@ class _Accumulator:
             k: arrays[f"moment.{k}"]
             for k in ("centroid_x", "centroid_y", "variance_x", "variance_y", "covariance_xy")
         }
+        prefix = "field."
+        acc.fields = (
+            fields
+            if fields is not None
+            else MemoryFields.from_arrays(
+                {k[len(prefix) :]: v for k, v in arrays.items() if k.startswith(prefix)}
+            )
+        )
         return acc
 
     def record(self, k, particles, depths, conc, count, receptors, grid, flow, mpu, track_index):
-        self.conc[k] = conc
-        self.count[k] = count
-        if self.smooth is not None:
-            self.smooth[k] = reduce.smoothed(conc, grid, mpu)
+        fields = {"concentration": conc, "particle_count": count}
+        if "concentration_smoothed" in self.fields.variables:
+            fields["concentration_smoothed"] = reduce.smoothed(conc, grid, mpu)
+        self.fields.put(k, fields)
+        np.maximum(self.conc_max, conc, out=self.conc_max)
         if receptors:
             self.receptor[:, k] = reduce.receptor_values(
                 particles, depths, receptors, conc, grid, flow.geographic, flow.ndim
@@ -436,17 +503,17 @@ class _Accumulator:
         data = {
             "concentration": (
                 ("time", "y", "x"),
-                self.conc,
+                self.fields.data("concentration"),
                 {"units": kgm3, "long_name": "concentration (box counting)"},
             ),
             "particle_count": (
                 ("time", "y", "x"),
-                self.count,
+                self.fields.data("particle_count"),
                 {"units": "1", "long_name": "number of particles in the cell"},
             ),
             "concentration_max": (
                 ("y", "x"),
-                self.conc.max(axis=0),
+                self.conc_max,
                 {"units": kgm3, "long_name": "maximum concentration over time"},
             ),
             "receptor_concentration": (
@@ -465,10 +532,10 @@ class _Accumulator:
                 {"units": "1", "long_name": "particles in water"},
             ),
         }
-        if self.smooth is not None:
+        if "concentration_smoothed" in self.fields.variables:
             data["concentration_smoothed"] = (
                 ("time", "y", "x"),
-                self.smooth,
+                self.fields.data("concentration_smoothed"),
                 {
                     "units": kgm3,
                     "long_name": "concentration (Gaussian kernel)",

@@ -352,7 +352,7 @@ def advance(
                     continue
                 near = cand & (bx < 0) & (kxx > 0.0) & (d0 * d1 < 20.0 * kxx * h)
                 kh = np.where(near, kxx * h, 1.0)
-                hit = near & (ux_ < np.exp(-d0 * d1 / kh))
+                hit = near & (ux_ < np.exp(np.where(near, -d0 * d1 / kh, -np.inf)))
                 bx = np.where(near & (bx < 0), np.where(hit, e, -2), bx)
             left = np.where(bx >= 0, bx, left)
             if ndim == 2:
@@ -367,7 +367,7 @@ def advance(
                         continue
                     near = cand & (by < 0) & (kyy > 0.0) & (d0 * d1 < 20.0 * kyy * h)
                     kh = np.where(near, kyy * h, 1.0)
-                    hit = near & (uy_ < np.exp(-d0 * d1 / kh))
+                    hit = near & (uy_ < np.exp(np.where(near, -d0 * d1 / kh, -np.inf)))
                     by = np.where(near & (by < 0), np.where(hit, e, -2), by)
                 left = np.where(by >= 0, by, left)
             tcross = np.where((bx >= 0) | ((left >= 0) & cand), tstart + 0.5 * h, tcross)
