@@ -425,7 +425,7 @@ def bench_command(quick: bool, as_json: bool, particles: int | None, repeats: in
 @click.option(
     "--scheduler",
     default=None,
-    help="Address of a running Dask scheduler, e.g. tcp://10.0.0.5:8786.",
+    help="Address of a running Dask scheduler, e.g. tcp://127.0.0.1:8786.",
 )
 @click.option(
     "--threshold",

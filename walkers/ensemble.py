@@ -674,7 +674,7 @@ def run_ensemble(
     members : number of members (default: ``ensemble.members`` of the scenario).
     workers : 0 runs in this process; N > 0 starts a local Dask cluster of N single-threaded
         worker processes on 127.0.0.1 for the run.
-    scheduler : address of a running Dask scheduler (e.g. ``"tcp://10.0.0.5:8786"``); its workers
+    scheduler : address of a running Dask scheduler (e.g. ``"tcp://127.0.0.1:8786"``); its workers
         must see the flow files at the same paths. Excludes ``workers``.
     progress : called as progress(members reduced, members in all) after each batch is added.
     thresholds : concentrations (kg m-3) to give probabilities for, beside the receptors' ones.
