@@ -15,14 +15,13 @@ depth of a cell that is always wet (eta is uniform in these flows).
 from __future__ import annotations
 
 import importlib.util
-import subprocess
-import sys
 from pathlib import Path
 
 import numpy as np
 import pytest
 import xarray as xr
 from pyproj import CRS
+from test_io import cf_errors
 
 ROOT = Path(__file__).resolve().parents[1]
 SCENARIOS = ROOT / "scenarios"
@@ -211,25 +210,9 @@ def test_roles_are_found_by_standard_name(name: str) -> None:
 
 @pytest.mark.parametrize("name", FILES)
 def test_cf_checker_reports_no_error(name: str) -> None:
-    # CF conventions 1.8 through the cfchecker package with the CF tables (common practice)
-    if not CF_TABLES.is_dir():
-        pytest.skip(f"CF tables not found at {CF_TABLES} (a checkout without ../shared)")
-    cmd = [
-        sys.executable,
-        "-c",
-        "from cfchecker.cfchecks import main; main()",
-        "-v",
-        "auto",
-        "-s",
-        str(CF_TABLES / "cf-standard-name-table.xml"),
-        "-a",
-        str(CF_TABLES / "area-type-table.xml"),
-        "-r",
-        str(CF_TABLES / "standardized-region-list.xml"),
-        str(SCENARIOS / name),
-    ]
-    out = subprocess.run(cmd, capture_output=True, text=True, check=False).stdout
-    assert "ERRORS detected: 0" in out, out
+    # CF conventions 1.8 (Eaton et al. 2020) through the cfchecker package with the CF tables
+    errors, report = cf_errors(SCENARIOS / name)
+    assert errors == 0, report
 
 
 # --- mass consistency ------------------------------------------------------------------------
