@@ -25,7 +25,6 @@ from test_io import cf_errors
 
 ROOT = Path(__file__).resolve().parents[1]
 SCENARIOS = ROOT / "scenarios"
-CF_TABLES = ROOT.parent / "shared" / "cf-tables"
 FILES = ("saltmarsh_estuary_flow.nc", "millbrook_canal_flow.nc")
 
 
