@@ -18,6 +18,12 @@ go to a second file ``<stem>_tracks.nc`` (see :func:`write_tracks`), named in th
 flushed to disk and then given their final names, so a crash never leaves a partial file under a
 final name.
 
+Long runs: the 3-D fields of a run may come as dask arrays read lazily from the run's temporary
+field store (:class:`DiskFields`, chosen by :func:`field_store`); :func:`write_results` then
+streams them to the file one output time (one chunk) at a time, so the fields are never all in
+memory (what grows with the number of output times is dask's task graph, some kB per output
+time).
+
 On disk the string coordinates ``receptor`` and ``edge`` become the auxiliary label variables
 ``receptor_name`` and ``edge_name`` (CF coordinate variables must be numeric, §1.2 / §6.1);
 :func:`read_results` gives them back their result-Dataset names.
@@ -617,10 +623,10 @@ class MemoryFields:
 
     @classmethod
     def from_arrays(cls, arrays: Mapping[str, np.ndarray]) -> MemoryFields:
-        """The store holding ``arrays`` (name -> array of shape (time, y, x)) as they are."""
-        first = next(iter(arrays.values()))
+        """The store holding ``arrays`` (name -> array of shape (time, y, x)) as they are;
+        KeyError if ``concentration`` is not among them."""
         store = cls.__new__(cls)
-        store.shape = tuple(first.shape)
+        store.shape = tuple(arrays["concentration"].shape)
         store.variables = {name: a.dtype for name, a in arrays.items()}
         store.arrays = dict(arrays)
         return store

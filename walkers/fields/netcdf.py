@@ -43,6 +43,8 @@ from walkers.fields.base import FlowField, GriddedVariable, centre_to_edges
 from walkers.fields.geo import crs_from_cf, crs_from_user
 from walkers.units import unit_factor
 
+FRAME_CACHE_BYTES = 4 * 2**20  # HDF5 chunk cache of each variable of an open flow file
+
 STANDARD_NAMES: dict[str, tuple[str, ...]] = {
     "u": (
         "eastward_sea_water_velocity",
@@ -680,7 +682,12 @@ class _FlowSource:
     def _dataset(self, f: int) -> netCDF4.Dataset:
         """File f, kept open between reads (its chunk cache then serves neighbouring frames)."""
         if f not in self._handles:
-            self._handles[f] = netCDF4.Dataset(self.paths[f])
+            ds = netCDF4.Dataset(self.paths[f])
+            # a small chunk cache per variable: HDF5's default (64 MiB each) fills up over a long
+            # run and makes memory grow with run length
+            for var in ds.variables.values():
+                var.set_var_chunk_cache(size=FRAME_CACHE_BYTES)
+            self._handles[f] = ds
         return self._handles[f]
 
     def close(self) -> None:
