@@ -116,7 +116,7 @@ class SourceDraw:
 def _metres_per_unit(flow: FlowField, y: float) -> tuple[float, float]:
     if not flow.geographic:
         return 1.0, 1.0
-    from walkers.reduce import metres_per_degree
+    from walkers.fields.geo import metres_per_degree
 
     mx, my = metres_per_degree(y)
     return float(mx), float(my)

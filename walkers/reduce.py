@@ -17,16 +17,7 @@ from scipy.ndimage import gaussian_filter
 from walkers.config import EDGE_NAMES, OutputGrid, Receptor
 from walkers.engine import kernels
 from walkers.engine.state import DECAYED, IN_WATER, LEFT, STRANDED, WAITING, ParticleState
-
-
-def metres_per_degree(lat: np.ndarray | float) -> tuple[np.ndarray, np.ndarray]:
-    """Metres per degree of longitude and latitude at latitude ``lat`` (WGS84 radii of curvature,
-    NIMA TR8350.2, 2000)."""
-    s = np.sin(np.radians(lat))
-    q = 1.0 - kernels.WGS84_E2 * s * s
-    n_rad = kernels.WGS84_A / np.sqrt(q)
-    m_rad = kernels.WGS84_A * (1.0 - kernels.WGS84_E2) / (q * np.sqrt(q))
-    return n_rad * np.cos(np.radians(lat)) * kernels.DEG, m_rad * kernels.DEG
+from walkers.fields.geo import metres_per_degree
 
 
 def cell_measure(grid: OutputGrid, geographic: bool, ndim: int) -> np.ndarray:

@@ -18,24 +18,20 @@ from walkers.config import EDGE_NAMES, Transport
 from walkers.engine import kernels, twin
 from walkers.engine.state import ParticleState
 from walkers.fields.base import FlowField, FlowWindow, centre_to_edges
+from walkers.fields.geo import metres_per_degree
 
 MIN_DRIFT_DEPTH = 0.05  # m; depths are floored here when dividing by h (drying cells).
 
 
 def metres_per_grid_unit(flow: FlowField) -> tuple[np.ndarray, np.ndarray]:
-    """Metres per grid unit along x (per row, shape (ny,)) and along y (per row).
+    """Metres per grid unit along x and along y for each row of the flow grid, shape (ny,).
 
-    1 on projected grids; WGS84 radii of curvature on geographic grids (NIMA TR8350.2, 2000):
-    N = a / sqrt(1 - e² sin²φ), M = a (1 - e²) / (1 - e² sin²φ)^{3/2}.
+    1 on projected grids; on geographic grids the WGS84 radii of curvature
+    (:func:`walkers.fields.geo.metres_per_degree`).
     """
-    y = flow.y
     if not flow.geographic:
-        return np.ones_like(y), np.ones_like(y)
-    s = np.sin(np.radians(y))
-    q = 1.0 - kernels.WGS84_E2 * s * s
-    n_rad = kernels.WGS84_A / np.sqrt(q)
-    m_rad = kernels.WGS84_A * (1.0 - kernels.WGS84_E2) / (q * np.sqrt(q))
-    return n_rad * np.cos(np.radians(y)) * kernels.DEG, m_rad * kernels.DEG
+        return np.ones_like(flow.y), np.ones_like(flow.y)
+    return metres_per_degree(flow.y)
 
 
 def _fill_land(a: np.ndarray, wet: np.ndarray) -> np.ndarray:
