@@ -29,6 +29,7 @@ arrays; time weights of every step are computed once per call.
 
 from __future__ import annotations
 
+import functools
 import math
 
 import numba as nb
@@ -431,222 +432,6 @@ def bridge_exit(
     return -1
 
 
-@nb.njit(**JIT)
-def step_block(
-    lo,
-    hi,
-    base,
-    s,
-    x,
-    y,
-    m,
-    m0,
-    trel,
-    texit,
-    status,
-    flow,
-    cells,
-    disp,
-    times,
-    opts,
-    edges_mode,
-    t0,
-    dt,
-    step0,
-    decay_rate,
-    tab_i,
-    tab_w,
-    shared,
-    cell_i,
-    cell_j,
-    streams,
-):
-    """Step s of particles lo..hi-1 of the block starting at ``base``: the general case of
-    every option.
-
-    See ``advance`` for the arguments; tab_i, tab_w are the time tables of ``step_tables``,
-    ``shared`` says that u and v lie on the same axes, cell_i, cell_j and streams hold the cell
-    and random stream of each particle of the block.
-    """
-    ndim, scheme, aligned, has_drift, bridge, max_refl, geographic = (
-        opts[0],
-        opts[1],
-        opts[2],
-        opts[3],
-        opts[4],
-        opts[5],
-        opts[6],
-    )
-    ux, uy, U, vx, vy, V, invu = flow[0], flow[1], flow[2], flow[3], flow[4], flow[5], flow[6]
-    xe, ye, wet, cx, cy = cells[0], cells[1], cells[2], cells[3], cells[4]
-    invc = cells[5]
-    DX, DY, K1, K2 = disp[0], disp[1], disp[2], disp[3]
-    kconst = disp[4]
-    t = t0 + s * dt
-    t_end = t + dt
-    for p in range(lo, hi):
-        k = p - base
-        st = status[p]
-        if st == STATUS_WAITING:
-            if trel[p] >= t_end:
-                continue
-            st = STATUS_WATER
-            tstart = max(t, trel[p])
-        elif st == STATUS_WATER or st == STATUS_STRANDED:
-            tstart = t
-        else:
-            continue
-        h = t_end - tstart
-        if h <= 0.0:
-            status[p] = st
-            continue
-        own_time = tstart != t
-        if own_time:
-            it, wt = time_weight(times, tstart)
-        else:
-            it = tab_i[s, 0]
-            wt = tab_w[s, 0]
-        iw = it if wt < 0.5 else it + 1
-        if wet.shape[0] == 1:
-            iw = 0
-        wet_now = wet[iw]
-        pi = cell_i[k]
-        pj = cell_j[k]
-        if wet_now[pj, pi] == 0:
-            st = STATUS_STRANDED
-        elif st == STATUS_STRANDED:
-            st = STATUS_WATER
-        if decay_rate > 0.0:
-            pm = m[p] * math.exp(-decay_rate * h)
-            m[p] = pm
-            if pm <= DECAYED_FRACTION * m0[p]:
-                status[p] = STATUS_DECAYED
-                continue
-        if st == STATUS_STRANDED:
-            status[p] = st
-            continue
-        px = x[p]
-        py = y[p]
-        # Deterministic part.
-        u1, v1 = velocity(ux, uy, U, vx, vy, V, invu, shared, it, wt, px, py)
-        sx, sy = metres_to_grid(geographic, py)
-        if scheme == 0:
-            ax_ = u1 * h * sx
-            ay_ = v1 * h * sy
-        else:
-            if own_time:
-                itm, wtm = time_weight(times, tstart + 0.5 * h)
-                ite, wte = time_weight(times, tstart + h)
-            else:
-                itm = tab_i[s, 1]
-                wtm = tab_w[s, 1]
-                ite = tab_i[s, 2]
-                wte = tab_w[s, 2]
-            xm = px + 0.5 * h * u1 * sx
-            ym = py + 0.5 * h * v1 * sy
-            u2, v2 = velocity(ux, uy, U, vx, vy, V, invu, shared, itm, wtm, xm, ym)
-            xm = px + 0.5 * h * u2 * sx
-            ym = py + 0.5 * h * v2 * sy
-            u3, v3 = velocity(ux, uy, U, vx, vy, V, invu, shared, itm, wtm, xm, ym)
-            u4, v4 = velocity(
-                ux, uy, U, vx, vy, V, invu, shared, ite, wte, px + h * u3 * sx, py + h * v3 * sy
-            )
-            ax_ = h * sx * (u1 + 2.0 * u2 + 2.0 * u3 + u4) / 6.0
-            ay_ = h * sy * (v1 + 2.0 * v2 + 2.0 * v3 + v4) / 6.0
-        # Dispersion tensor at the start point.
-        if kconst[0] >= 0.0:
-            k1 = kconst[0]
-            k2 = kconst[1]
-        else:
-            k1 = sample(K1, cx, cy, invc[2], invc[3], it, wt, px, py)
-            k2 = sample(K2, cx, cy, invc[2], invc[3], it, wt, px, py)
-        k1 *= kconst[2]
-        k2 *= kconst[2]
-        stream = streams[k]
-        z1, z2 = normal_pair(stream, step0 + s)
-        if aligned:
-            speed = math.sqrt(u1 * u1 + v1 * v1)
-            if speed > 0.0:
-                ex = u1 / speed
-                ey = v1 / speed
-            else:
-                ex = 1.0
-                ey = 0.0
-                k1 = k2
-            aL = math.sqrt(2.0 * k1 * h) * z1
-            aT = math.sqrt(2.0 * k2 * h) * z2
-            nxm = aL * ex - aT * ey
-            nym = aL * ey + aT * ex
-            kxx = k2 + (k1 - k2) * ex * ex
-            kyy = k2 + (k1 - k2) * ey * ey
-        else:
-            nxm = math.sqrt(2.0 * k1 * h) * z1
-            nym = math.sqrt(2.0 * k2 * h) * z2
-            kxx = k1
-            kyy = k2
-        dxm = nxm
-        dym = nym
-        if has_drift:
-            dxm += sample(DX, cx, cy, invc[2], invc[3], it, wt, px, py) * h
-            dym += sample(DY, cx, cy, invc[2], invc[3], it, wt, px, py) * h
-        qx = px + ax_ + dxm * sx
-        qy = py
-        if ndim == 2:
-            qy = py + ay_ + dym * sy
-        left, tcross, placed, qx, qy, ci, cj = reflect_and_place(
-            qx,
-            qy,
-            px,
-            py,
-            pi,
-            pj,
-            tstart,
-            h,
-            t_end,
-            ndim,
-            max_refl,
-            edges_mode,
-            xe,
-            ye,
-            wet_now,
-            invc[0],
-            invc[1],
-        )
-        if left < 0 and bridge and placed:
-            left = bridge_exit(
-                stream,
-                step0 + s,
-                px,
-                py,
-                qx,
-                qy,
-                sx,
-                sy,
-                kxx,
-                kyy,
-                h,
-                ndim,
-                edges_mode,
-                xe[0],
-                xe[xe.shape[0] - 1],
-                ye[0],
-                ye[ye.shape[0] - 1],
-            )
-            if left >= 0:
-                tcross = tstart + 0.5 * h
-        if left >= 0:
-            status[p] = STATUS_LEFT + left
-            texit[p] = tcross
-            x[p] = qx
-            y[p] = qy
-            continue
-        if placed:
-            x[p] = qx
-            y[p] = qy
-            cell_i[k] = ci
-            cell_j[k] = cj
-        status[p] = st
-
 
 @nb.njit(**JIT)
 def block_scratch(lo, hi, x, y, xe, ye, invc, key):
@@ -663,459 +448,269 @@ def block_scratch(lo, hi, x, y, xe, ye, invc, key):
     return cell_i, cell_j, streams
 
 
-@nb.njit(**JIT)
-def move_block(
-    lo,
-    hi,
-    x,
-    y,
-    m,
-    m0,
-    trel,
-    texit,
-    status,
-    flow,
-    cells,
-    disp,
-    times,
-    opts,
-    edges_mode,
-    t0,
-    dt,
-    nsteps,
-    step0,
-    key,
-    decay_rate,
-    tab_i,
-    tab_w,
-    shared,
-):
-    """Advance particles lo..hi-1 over nsteps steps (steps outer, particles inner), general case."""
-    cell_i, cell_j, streams = block_scratch(lo, hi, x, y, cells[0], cells[1], cells[5], key)
-    for s in range(nsteps):
-        step_block(
-            lo,
-            hi,
-            lo,
-            s,
-            x,
-            y,
-            m,
-            m0,
-            trel,
-            texit,
-            status,
-            flow,
-            cells,
-            disp,
-            times,
-            opts,
-            edges_mode,
-            t0,
-            dt,
-            step0,
-            decay_rate,
-            tab_i,
-            tab_w,
-            shared,
-            cell_i,
-            cell_j,
-            streams,
-        )
+@functools.cache
+def compiled_mover(ndim, scheme, aligned, drift, geographic, kgrid, shared, centred, parallel):
+    """The step loop, compiled for one set of options (the branches of the others removed).
 
+    There is one source of the step: this function. Each option below is a constant of the
+    compiled code, so numba compiles (and caches on disk) one specialised kernel per option set
+    that a run uses, and the branches not taken cost nothing per particle-step.
 
-@nb.njit(**JIT)
-def move_block_fast(
-    lo,
-    hi,
-    x,
-    y,
-    m,
-    m0,
-    trel,
-    texit,
-    status,
-    flow,
-    cells,
-    disp,
-    times,
-    opts,
-    edges_mode,
-    t0,
-    dt,
-    nsteps,
-    step0,
-    key,
-    decay_rate,
-    tab_i,
-    tab_w,
-):
-    """``move_block`` for the common case, written out flat so the compiler keeps it in registers:
-    2-D, projected grid, Euler, dispersion along the axes with constant K and no drift, u and v
-    on the same uniformly spaced axes, uniformly spaced cells. The arithmetic is that of
-    ``step_block``, term by term; anything unusual in a step (a release inside the step, a
-    reflection, a particle near an absorbing edge) is handed to the general helpers."""
-    ux, uy, U, V, invu = flow[0], flow[1], flow[2], flow[5], flow[6]
-    xe, ye, wet = cells[0], cells[1], cells[2]
-    invc = cells[5]
-    kconst = disp[4]
-    bridge = opts[4]
-    max_refl = opts[5]
-    nxu = ux.shape[0]
-    nyu = uy.shape[0]
-    ux0 = ux[0]
-    uxl = ux[nxu - 1]
-    uy0 = uy[0]
-    uyl = uy[nyu - 1]
-    invx = invu[0]
-    invy = invu[1]
-    ncx = xe.shape[0] - 1
-    ncy = ye.shape[0] - 1
-    x_w = xe[0]
-    x_e = xe[ncx]
-    y_s = ye[0]
-    y_n = ye[ncy]
-    invex = invc[0]
-    invey = invc[1]
-    k1 = kconst[0] * kconst[2]
-    k2 = kconst[1] * kconst[2]
-    west = edges_mode[0] == 1
-    east = edges_mode[1] == 1
-    south = edges_mode[2] == 1
-    north = edges_mode[3] == 1
-    nf = U.shape[0]
-    cell_i, cell_j, streams = block_scratch(lo, hi, x, y, xe, ye, invc, key)
-    # The block's positions, status and mass, gathered so that they stay in the L1 cache.
-    nb_ = hi - lo
-    bx = np.empty(nb_)
-    by = np.empty(nb_)
-    bm = np.empty(nb_)
-    bst = np.empty(nb_, np.int8)
-    for k in range(nb_):
-        p = lo + k
-        bx[k] = x[p]
-        by[k] = y[p]
-        bm[k] = m[p]
-        bst[k] = status[p]
-    for s in range(nsteps):
-        t = t0 + s * dt
-        t_end = t + dt
-        h = t_end - t
-        it = tab_i[s, 0]
-        wt = tab_w[s, 0]
-        iw = it if wt < 0.5 else it + 1
-        if wet.shape[0] == 1:
-            iw = 0
-        wet_now = wet[iw]
-        if nf == 1:
-            it = 0
-            wt = 0.0
-        later = wt > 0.0
-        Ua = U[it]
-        Va = V[it]
-        Ub = U[it + 1] if later else Ua
-        Vb = V[it + 1] if later else Va
-        sd1 = math.sqrt(2.0 * k1 * h)
-        sd2 = math.sqrt(2.0 * k2 * h)
-        band1 = 20.0 * k1 * h
-        band2 = 20.0 * k2 * h
-        fade = math.exp(-decay_rate * h)
-        counter = np.uint64(step0 + s) * np.uint64(COMPONENTS)
-        c1 = (counter + np.uint64(COMP_NORMAL)) * GOLDEN
-        c2 = (counter + np.uint64(COMP_NORMAL + 1)) * GOLDEN
-        for k in range(hi - lo):
-            p = lo + k
-            st = bst[k]
-            if st != STATUS_WATER and st != STATUS_STRANDED:
-                if st != STATUS_WAITING or trel[p] >= t_end:
-                    continue
-                if trel[p] > t or not h > 0.0:
-                    x[p] = bx[k]
-                    y[p] = by[k]
-                    m[p] = bm[k]
-                    status[p] = st
-                    step_block(
-                        p,
-                        p + 1,
-                        lo,
-                        s,
-                        x,
-                        y,
-                        m,
-                        m0,
-                        trel,
-                        texit,
-                        status,
-                        flow,
-                        cells,
-                        disp,
-                        times,
-                        opts,
-                        edges_mode,
-                        t0,
-                        dt,
-                        step0,
-                        decay_rate,
-                        tab_i,
-                        tab_w,
-                        True,
-                        cell_i,
-                        cell_j,
-                        streams,
-                    )
-                    bx[k] = x[p]
-                    by[k] = y[p]
-                    bm[k] = m[p]
-                    bst[k] = status[p]
-                    continue
-                st = STATUS_WATER
-            if not h > 0.0:
-                bst[k] = st
-                continue
-            pi = cell_i[k]
-            pj = cell_j[k]
-            if wet_now[pj, pi] == 0:
-                st = STATUS_STRANDED
-            elif st == STATUS_STRANDED:
-                st = STATUS_WATER
-            if decay_rate > 0.0:
-                pm = bm[k] * fade
-                bm[k] = pm
-                if pm <= DECAYED_FRACTION * m0[p]:
-                    bst[k] = STATUS_DECAYED
-                    continue
-            if st == STATUS_STRANDED:
-                bst[k] = st
-                continue
-            px = bx[k]
-            py = by[k]
-            # locate() on both axes, written out.
-            if px <= ux0:
-                i = 0
-                wx = 0.0
-            elif px >= uxl:
-                i = nxu - 2
-                wx = 1.0
-            else:
-                i = min(int((px - ux0) * invx), nxu - 2)
-                wx = (px - ux[i]) * invx
-            if py <= uy0:
-                j = 0
-                wy = 0.0
-            elif py >= uyl:
-                j = nyu - 2
-                wy = 1.0
-            else:
-                j = min(int((py - uy0) * invy), nyu - 2)
-                wy = (py - uy[j]) * invy
-            i1 = i + 1
-            j1 = j + 1
-            # bilinear() for u and v, written out.
-            u = (1.0 - wy) * ((1.0 - wx) * Ua[j, i] + wx * Ua[j, i1]) + wy * (
-                (1.0 - wx) * Ua[j1, i] + wx * Ua[j1, i1]
-            )
-            v = (1.0 - wy) * ((1.0 - wx) * Va[j, i] + wx * Va[j, i1]) + wy * (
-                (1.0 - wx) * Va[j1, i] + wx * Va[j1, i1]
-            )
-            if later:
-                g = (1.0 - wy) * ((1.0 - wx) * Ub[j, i] + wx * Ub[j, i1]) + wy * (
-                    (1.0 - wx) * Ub[j1, i] + wx * Ub[j1, i1]
-                )
-                u = u + wt * (g - u)
-                g = (1.0 - wy) * ((1.0 - wx) * Vb[j, i] + wx * Vb[j, i1]) + wy * (
-                    (1.0 - wx) * Vb[j1, i] + wx * Vb[j1, i1]
-                )
-                v = v + wt * (g - v)
-            # normal_pair(), written out.
-            stream = streams[k]
-            za = mix64(stream + c1)
-            zb = mix64(stream + c2)
-            la = int(za & np.uint64(255))
-            z1 = float(za >> np.uint64(11)) * INV_2_53 * ZIG_X[la]
-            if z1 < ZIG_X[la + 1]:
-                z1 = z1 * float(1 - 2 * int((za >> np.uint64(8)) & np.uint64(1)))
-            else:
-                z1 = ziggurat_rest(za)
-            lb = int(zb & np.uint64(255))
-            z2 = float(zb >> np.uint64(11)) * INV_2_53 * ZIG_X[lb]
-            if z2 < ZIG_X[lb + 1]:
-                z2 = z2 * float(1 - 2 * int((zb >> np.uint64(8)) & np.uint64(1)))
-            else:
-                z2 = ziggurat_rest(zb)
-            qx = px + u * h * 1.0 + sd1 * z1 * 1.0
-            qy = py + v * h * 1.0 + sd2 * z2 * 1.0
-            # The first pass of reflect_and_place(), written out: inside and wet.
-            placed = False
-            ci = pi
-            cj = pj
-            if qx >= x_w and qx <= x_e and qy >= y_s and qy <= y_n:
-                ci = min(int((qx - x_w) * invex), ncx - 1)
-                if qx < xe[ci]:
-                    ci -= 1
-                elif ci < ncx - 1 and qx >= xe[ci + 1]:
-                    ci += 1
-                cj = min(int((qy - y_s) * invey), ncy - 1)
-                if qy < ye[cj]:
-                    cj -= 1
-                elif cj < ncy - 1 and qy >= ye[cj + 1]:
-                    cj += 1
-                placed = wet_now[cj, ci] != 0
-            left = -1
-            tcross = t_end
-            if not placed:
-                left, tcross, placed, qx, qy, ci, cj = reflect_and_place(
-                    qx,
-                    qy,
-                    px,
-                    py,
-                    pi,
-                    pj,
-                    t,
-                    h,
-                    t_end,
-                    2,
-                    max_refl,
-                    edges_mode,
-                    xe,
-                    ye,
-                    wet_now,
-                    invex,
-                    invey,
-                )
-            if left < 0 and bridge and placed:
-                near = (
-                    (west and (px - x_w) * (qx - x_w) < band1)
-                    or (east and (x_e - px) * (x_e - qx) < band1)
-                    or (south and (py - y_s) * (qy - y_s) < band2)
-                    or (north and (y_n - py) * (y_n - qy) < band2)
-                )
-                if near:
-                    left = bridge_exit(
-                        stream,
-                        step0 + s,
-                        px,
-                        py,
+    ndim : 1 (channel) or 2 (depth-averaged plane).
+    scheme : 0 Euler, 1 RK4 for the advective part (the noise is added once per step).
+    aligned : dispersion aligned with the local flow (K_L along, K_T across) instead of the axes.
+    drift : add the drift (1/h) ∇·(h K), given on cell centres.
+    geographic : positions in degrees (steps converted through the WGS84 radii).
+    kgrid : K varies on the cell grid (else constant).
+    shared : u and v lie on the same axes (located once).
+    centred : u and v lie on the cell centres (the location is shared with K and the drift).
+    parallel : blocks of particles spread over threads (otherwise one thread).
+    """
+    rk4 = scheme == 1
+    two_d = ndim == 2
+
+    @nb.njit(parallel=parallel, **JIT)
+    def move(
+        x,
+        y,
+        m,
+        m0,
+        trel,
+        texit,
+        status,
+        flow,
+        cells,
+        disp,
+        times,
+        edges_mode,
+        t0,
+        dt,
+        nsteps,
+        step0,
+        key,
+        decay_rate,
+        max_refl,
+        bridge,
+    ):
+        ux, uy, U, vx, vy, V, invu = flow[0], flow[1], flow[2], flow[3], flow[4], flow[5], flow[6]
+        xe, ye, wet, cx, cy, invc = cells[0], cells[1], cells[2], cells[3], cells[4], cells[5]
+        DX, DY, K1, K2, kconst = disp[0], disp[1], disp[2], disp[3], disp[4]
+        tab_i = np.zeros((nsteps, 3), np.int64)
+        tab_w = np.zeros((nsteps, 3))
+        step_tables(times, t0, dt, nsteps, tab_i, tab_w)
+        x_w = xe[0]
+        x_e = xe[xe.shape[0] - 1]
+        y_s = ye[0]
+        y_n = ye[ye.shape[0] - 1]
+        n = x.shape[0]
+        nblocks = (n + BLOCK - 1) // BLOCK
+        for b in nb.prange(nblocks):
+            lo = b * BLOCK
+            hi = min(n, lo + BLOCK)
+            nb_ = hi - lo
+            cell_i, cell_j, streams = block_scratch(lo, hi, x, y, xe, ye, invc, key)
+            # The block's state, gathered so that it stays in the L1 cache.
+            bx = np.empty(nb_)
+            by = np.empty(nb_)
+            bm = np.empty(nb_)
+            bst = np.empty(nb_, np.int8)
+            for k in range(nb_):
+                bx[k] = x[lo + k]
+                by[k] = y[lo + k]
+                bm[k] = m[lo + k]
+                bst[k] = status[lo + k]
+            for s in range(nsteps):
+                t = t0 + s * dt
+                t_end = t + dt
+                for k in range(nb_):
+                    p = lo + k
+                    st = bst[k]
+                    if st == STATUS_WAITING:
+                        if trel[p] >= t_end:
+                            continue
+                        st = STATUS_WATER
+                        tstart = max(t, trel[p])
+                    elif st == STATUS_WATER or st == STATUS_STRANDED:
+                        tstart = t
+                    else:
+                        continue
+                    h = t_end - tstart
+                    if h <= 0.0:
+                        bst[k] = st
+                        continue
+                    # A particle released inside the step has time weights of its own.
+                    own_time = tstart != t
+                    if own_time:
+                        it, wt = time_weight(times, tstart)
+                    else:
+                        it = tab_i[s, 0]
+                        wt = tab_w[s, 0]
+                    iw = it if wt < 0.5 else it + 1
+                    if wet.shape[0] == 1:
+                        iw = 0
+                    wet_now = wet[iw]
+                    pi = cell_i[k]
+                    pj = cell_j[k]
+                    if wet_now[pj, pi] == 0:
+                        st = STATUS_STRANDED
+                    elif st == STATUS_STRANDED:
+                        st = STATUS_WATER
+                    if decay_rate > 0.0:
+                        pm = bm[k] * math.exp(-decay_rate * h)
+                        bm[k] = pm
+                        if pm <= DECAYED_FRACTION * m0[p]:
+                            bst[k] = STATUS_DECAYED
+                            continue
+                    if st == STATUS_STRANDED:
+                        bst[k] = st
+                        continue
+                    px = bx[k]
+                    py = by[k]
+                    # Where the particle sits on the cell-centre grid (K, drift) and on the
+                    # velocity axes; located once and shared wherever the axes coincide.
+                    ic, wxc = locate(cx, invc[2], px)
+                    jc, wyc = locate(cy, invc[3], py)
+                    if centred:
+                        iu, wxu, ju, wyu = ic, wxc, jc, wyc
+                    else:
+                        iu, wxu = locate(ux, invu[0], px)
+                        ju, wyu = locate(uy, invu[1], py)
+                    u1 = bilinear(U, it, wt, iu, ju, wxu, wyu)
+                    if shared:
+                        v1 = bilinear(V, it, wt, iu, ju, wxu, wyu)
+                    else:
+                        iv, wxv = locate(vx, invu[2], px)
+                        jv, wyv = locate(vy, invu[3], py)
+                        v1 = bilinear(V, it, wt, iv, jv, wxv, wyv)
+                    if geographic:
+                        sx, sy = metres_to_grid(True, py)
+                    else:
+                        sx = 1.0
+                        sy = 1.0
+                    # Deterministic part.
+                    if rk4:
+                        if own_time:
+                            itm, wtm = time_weight(times, tstart + 0.5 * h)
+                            ite, wte = time_weight(times, tstart + h)
+                        else:
+                            itm = tab_i[s, 1]
+                            wtm = tab_w[s, 1]
+                            ite = tab_i[s, 2]
+                            wte = tab_w[s, 2]
+                        xm = px + 0.5 * h * u1 * sx
+                        ym = py + 0.5 * h * v1 * sy
+                        u2, v2 = velocity(ux, uy, U, vx, vy, V, invu, shared, itm, wtm, xm, ym)
+                        xm = px + 0.5 * h * u2 * sx
+                        ym = py + 0.5 * h * v2 * sy
+                        u3, v3 = velocity(ux, uy, U, vx, vy, V, invu, shared, itm, wtm, xm, ym)
+                        xm = px + h * u3 * sx
+                        ym = py + h * v3 * sy
+                        u4, v4 = velocity(ux, uy, U, vx, vy, V, invu, shared, ite, wte, xm, ym)
+                        ax_ = h * sx * (u1 + 2.0 * u2 + 2.0 * u3 + u4) / 6.0
+                        ay_ = h * sy * (v1 + 2.0 * v2 + 2.0 * v3 + v4) / 6.0
+                    else:
+                        ax_ = u1 * h * sx
+                        ay_ = v1 * h * sy
+                    # Dispersion tensor at the start point.
+                    if kgrid:
+                        k1 = bilinear(K1, it, wt, ic, jc, wxc, wyc)
+                        k2 = bilinear(K2, it, wt, ic, jc, wxc, wyc)
+                    else:
+                        k1 = kconst[0]
+                        k2 = kconst[1]
+                    k1 *= kconst[2]
+                    k2 *= kconst[2]
+                    stream = streams[k]
+                    z1, z2 = normal_pair(stream, step0 + s)
+                    if aligned:
+                        speed = math.sqrt(u1 * u1 + v1 * v1)
+                        if speed > 0.0:
+                            ex = u1 / speed
+                            ey = v1 / speed
+                        else:
+                            ex = 1.0
+                            ey = 0.0
+                            k1 = k2
+                        aL = math.sqrt(2.0 * k1 * h) * z1
+                        aT = math.sqrt(2.0 * k2 * h) * z2
+                        dxm = aL * ex - aT * ey
+                        dym = aL * ey + aT * ex
+                        kxx = k2 + (k1 - k2) * ex * ex
+                        kyy = k2 + (k1 - k2) * ey * ey
+                    else:
+                        dxm = math.sqrt(2.0 * k1 * h) * z1
+                        dym = math.sqrt(2.0 * k2 * h) * z2
+                        kxx = k1
+                        kyy = k2
+                    if drift:
+                        dxm += bilinear(DX, it, wt, ic, jc, wxc, wyc) * h
+                        dym += bilinear(DY, it, wt, ic, jc, wxc, wyc) * h
+                    qx = px + ax_ + dxm * sx
+                    qy = py
+                    if two_d:
+                        qy = py + ay_ + dym * sy
+                    edge, tcross, placed, qx, qy, ci, cj = reflect_and_place(
                         qx,
                         qy,
-                        1.0,
-                        1.0,
-                        k1,
-                        k2,
+                        px,
+                        py,
+                        pi,
+                        pj,
+                        tstart,
                         h,
-                        2,
+                        t_end,
+                        ndim,
+                        max_refl,
                         edges_mode,
-                        x_w,
-                        x_e,
-                        y_s,
-                        y_n,
+                        xe,
+                        ye,
+                        wet_now,
+                        invc[0],
+                        invc[1],
                     )
-                    if left >= 0:
-                        tcross = t + 0.5 * h
-            if left >= 0:
-                bst[k] = STATUS_LEFT + left
-                texit[p] = tcross
-                bx[k] = qx
-                by[k] = qy
-                continue
-            if placed:
-                bx[k] = qx
-                by[k] = qy
-                cell_i[k] = ci
-                cell_j[k] = cj
-            bst[k] = st
-    for k in range(nb_):
-        p = lo + k
-        x[p] = bx[k]
-        y[p] = by[k]
-        m[p] = bm[k]
-        status[p] = bst[k]
+                    if edge < 0 and bridge and placed:
+                        edge = bridge_exit(
+                            stream,
+                            step0 + s,
+                            px,
+                            py,
+                            qx,
+                            qy,
+                            sx,
+                            sy,
+                            kxx,
+                            kyy,
+                            h,
+                            ndim,
+                            edges_mode,
+                            x_w,
+                            x_e,
+                            y_s,
+                            y_n,
+                        )
+                        if edge >= 0:
+                            tcross = tstart + 0.5 * h
+                    if edge >= 0:
+                        bst[k] = STATUS_LEFT + edge
+                        texit[p] = tcross
+                        bx[k] = qx
+                        by[k] = qy
+                        continue
+                    if placed:
+                        bx[k] = qx
+                        by[k] = qy
+                        cell_i[k] = ci
+                        cell_j[k] = cj
+                    bst[k] = st
+            for k in range(nb_):
+                x[lo + k] = bx[k]
+                y[lo + k] = by[k]
+                m[lo + k] = bm[k]
+                status[lo + k] = bst[k]
+
+    return move
 
 
-@nb.njit(**JIT)
-def move_block_any(
-    lo,
-    hi,
-    fast,
-    shared,
-    x,
-    y,
-    m,
-    m0,
-    trel,
-    texit,
-    status,
-    flow,
-    cells,
-    disp,
-    times,
-    opts,
-    edges_mode,
-    t0,
-    dt,
-    nsteps,
-    step0,
-    key,
-    decay_rate,
-    tab_i,
-    tab_w,
-):
-    """Advance particles lo..hi-1 with the fast path when it applies, else the general one."""
-    if fast:
-        move_block_fast(
-            lo,
-            hi,
-            x,
-            y,
-            m,
-            m0,
-            trel,
-            texit,
-            status,
-            flow,
-            cells,
-            disp,
-            times,
-            opts,
-            edges_mode,
-            t0,
-            dt,
-            nsteps,
-            step0,
-            key,
-            decay_rate,
-            tab_i,
-            tab_w,
-        )
-    else:
-        move_block(
-            lo,
-            hi,
-            x,
-            y,
-            m,
-            m0,
-            trel,
-            texit,
-            status,
-            flow,
-            cells,
-            disp,
-            times,
-            opts,
-            edges_mode,
-            t0,
-            dt,
-            nsteps,
-            step0,
-            key,
-            decay_rate,
-            tab_i,
-            tab_w,
-            shared,
-        )
-
-
-@nb.njit(parallel=True, **JIT)
 def advance(
     x,
     y,
@@ -1157,95 +752,46 @@ def advance(
     key : uint64 key of the run's random stream.
     decay_rate : first-order decay rate (s-1).
 
-    Particles are independent, so any split over threads gives the same numbers bitwise.
+    Particles are independent, so any split over threads gives the same numbers bitwise. One block
+    runs on the calling thread (waking the others would cost more than the work).
     """
-    tab_i = np.zeros((nsteps, 3), np.int64)
-    tab_w = np.zeros((nsteps, 3))
-    step_tables(times, t0, dt, nsteps, tab_i, tab_w)
     ux, uy, vx, vy = flow[0], flow[1], flow[3], flow[4]
-    shared = (
-        ux.shape[0] == vx.shape[0]
-        and uy.shape[0] == vy.shape[0]
-        and np.all(ux == vx)
-        and np.all(uy == vy)
+    xe, cx, cy = cells[0], cells[3], cells[4]
+    shared = bool(np.array_equal(ux, vx) and np.array_equal(uy, vy))
+    centred = bool(shared and np.array_equal(ux, cx) and np.array_equal(uy, cy))
+    move = compiled_mover(
+        int(opts[0]),
+        int(opts[1]),
+        bool(opts[2]),
+        bool(opts[3]),
+        bool(opts[6]),
+        bool(disp[4][0] < 0.0),
+        shared,
+        centred,
+        x.shape[0] > BLOCK,
     )
-    n = x.shape[0]
-    nblocks = (n + BLOCK - 1) // BLOCK
-    invu = flow[6]
-    invc = cells[5]
-    fast = (
-        shared
-        and opts[0] == 2
-        and opts[1] == 0
-        and opts[2] == 0
-        and opts[3] == 0
-        and opts[6] == 0
-        and disp[4][0] >= 0.0
-        and invu[0] > 0.0
-        and invu[1] > 0.0
-        and invc[0] > 0.0
-        and invc[1] > 0.0
+    move(
+        x,
+        y,
+        m,
+        m0,
+        trel,
+        texit,
+        status,
+        flow,
+        cells,
+        disp,
+        times,
+        edges_mode,
+        float(t0),
+        float(dt),
+        int(nsteps),
+        int(step0),
+        np.uint64(key),
+        float(decay_rate),
+        int(opts[5]),
+        bool(opts[4]),
     )
-    if nblocks <= 1:
-        # One block: no parallel launch (waking the other threads costs more than the work).
-        move_block_any(
-            0,
-            n,
-            fast,
-            shared,
-            x,
-            y,
-            m,
-            m0,
-            trel,
-            texit,
-            status,
-            flow,
-            cells,
-            disp,
-            times,
-            opts,
-            edges_mode,
-            t0,
-            dt,
-            nsteps,
-            step0,
-            key,
-            decay_rate,
-            tab_i,
-            tab_w,
-        )
-        return
-    for b in nb.prange(nblocks):
-        lo = b * BLOCK
-        move_block_any(
-            lo,
-            min(n, lo + BLOCK),
-            fast,
-            shared,
-            x,
-            y,
-            m,
-            m0,
-            trel,
-            texit,
-            status,
-            flow,
-            cells,
-            disp,
-            times,
-            opts,
-            edges_mode,
-            t0,
-            dt,
-            nsteps,
-            step0,
-            key,
-            decay_rate,
-            tab_i,
-            tab_w,
-        )
-
 
 @nb.njit(**JIT)
 def grid_mass(x, y, w, status, x0, dx, nx, y0, dy, ny, out, count):
