@@ -17,7 +17,7 @@ import pytest
 
 from walkers import CAUTION
 from walkers.fields.netcdf import open_flow
-from walkers.inspect import _iso_duration, describe_flow, draw_speed_map, stable_time_step
+from walkers.inspect import _iso_duration, describe_flow, draw_speed_map
 
 sys.path.insert(0, str(Path(__file__).parent))
 import flowfiles as ff  # noqa: E402
@@ -63,11 +63,22 @@ def test_report_land_fraction_and_speed_range(island_file):
     assert _number(r"speed in water: [\d.]+ to ([\d.]+) m s-1", text) == pytest.approx(hi, rel=1e-3)
 
 
+def _true_component_maxima():
+    Xc, Yc = np.meshgrid(ff.X, ff.Y)
+    water = ~ff.island(Xc, Yc)
+    comps = [ff.velocity(Xc, Yc, t) for t in ff.TIMES]
+    return (
+        max(np.abs(np.broadcast_to(c[0], Xc.shape))[water].max() for c in comps),
+        max(np.abs(np.broadcast_to(c[1], Xc.shape))[water].max() for c in comps),
+    )
+
+
 @pytest.mark.parametrize("dispersion", [0.5, 2.0, 50.0])
 def test_report_largest_stable_time_step(island_file, dispersion):
+    """Each velocity component against the cell width along its own axis (100 m both ways)."""
     text = describe_flow(island_file, dispersion=dispersion)
-    _, vmax = _true_speed_range()
-    expected = min(100.0 / vmax, 100.0**2 / (2.0 * dispersion))
+    umax, vmax = _true_component_maxima()
+    expected = min(100.0 / umax, 100.0 / vmax, 100.0**2 / (2.0 * dispersion))
     got = _number(r"largest stable time step: ([\d.e+]+) s", text)
     assert got == pytest.approx(expected, rel=1e-3)
 
@@ -75,12 +86,6 @@ def test_report_largest_stable_time_step(island_file, dispersion):
 def test_report_judges_a_given_time_step(island_file):
     assert "time step 60 s fits" in describe_flow(island_file, dispersion=1.0, dt=60.0)
     assert "is too long" in describe_flow(island_file, dispersion=1.0, dt=600.0)
-
-
-def test_stable_time_step_rule():
-    assert stable_time_step(100.0, 0.5, 1.0) == 200.0  # advection limits: 100 / 0.5
-    assert stable_time_step(100.0, 0.01, 10.0) == 500.0  # dispersion limits: 100² / 20
-    assert stable_time_step(100.0, 0.0, 0.0) == float("inf")
 
 
 def test_report_of_a_geographic_grid_gives_cell_sizes_in_metres(tmp_path):

@@ -62,7 +62,8 @@ class Transport:
     edges : behaviour of each domain edge (west, east, south, north).
     substeps : sub-steps per step (1 = none); set by the time-step check when asked to sub-step.
     bridge : correct absorbing edges for crossings inside a step (Brownian-bridge probability).
-    max_reflections : reflections tried on a gridded coast before a particle is kept in place.
+    max_reflections : reflections of one step's path at coasts and reflecting edges before the
+        step is refused and the particle kept in place (never reached at sensible steps).
     drift_correction : include the drift (1/h)∇·(hK). Always on in practice; switching it off
         exists only to show what goes wrong without it (the well-mixed verification's twin).
     """
@@ -74,7 +75,7 @@ class Transport:
     edges: dict[str, str] = field(default_factory=lambda: dict.fromkeys(EDGE_NAMES, "absorbing"))
     substeps: int = 1
     bridge: bool = True
-    max_reflections: int = 8
+    max_reflections: int = 100
     drift_correction: bool = True
 
     def __post_init__(self) -> None:

@@ -15,6 +15,8 @@ import numpy as np
 from scipy.interpolate import interp1d
 
 from walkers import CAUTION
+from walkers.config import Dispersion, Transport
+from walkers.engine.timestep import check_time_step
 from walkers.fields.base import FlowField, GriddedVariable
 from walkers.fields.geo import cell_sizes
 from walkers.fields.netcdf import flow_time_iso, open_flow
@@ -72,20 +74,6 @@ def _crs_text(flow: FlowField) -> str:
     crs = CRS.from_wkt(flow.crs_wkt)
     code = crs.to_epsg()
     return f"{crs.name}" + (f" (EPSG:{code})" if code else "")
-
-
-def stable_time_step(min_cell: float, max_speed: float, dispersion: float) -> float:
-    """Largest time step (s) with |u| dt <= cell and √(2K dt) <= cell.
-
-    min(cell / |u|max, cell² / (2K)); cell in m, speed in m s-1, K in m2 s-1 (common practice for
-    random-walk models: no step longer than a grid cell).
-    """
-    limits = []
-    if max_speed > 0:
-        limits.append(min_cell / max_speed)
-    if dispersion > 0:
-        limits.append(min_cell**2 / (2.0 * dispersion))
-    return min(limits) if limits else float("inf")
 
 
 def describe_flow(
@@ -169,19 +157,17 @@ def describe_flow(
     )
     lines.append(f"  speed in water: {vmin:.4g} to {vmax:.4g} m s-1")
 
-    widths = wx if flow.ndim == 1 else np.fmin(wx, wy)
-    cell = float(np.nanmin(widths))
-    dt_max = stable_time_step(cell, vmax, dispersion)
+    step = Transport(dt=dt or 1.0, dispersion=Dispersion(k1=dispersion, k2=dispersion))
+    report = check_time_step(flow, step, float(flow.times[0]), float(flow.times[-1]))
     lines.append(
-        f"  largest stable time step: {dt_max:.4g} s for K = {dispersion:.10g} m2 s-1 "
-        f"(smallest cell {cell:.4g} m; |u| dt and sqrt(2 K dt) each under one cell)"
+        f"  largest stable time step: {report.longest_step():.4g} s for K = {dispersion:.10g} "
+        "m2 s-1 (|u| dt, |v| dt and sqrt(2 K dt) each under the cell width along their axis)"
     )
     if dt is not None:
-        adv, disp = vmax * dt / cell, np.sqrt(2.0 * dispersion * dt) / cell
-        verdict = "fits" if max(adv, disp) <= 1.0 else "is too long: shorten it or sub-step"
+        verdict = "fits" if report.ok else "is too long: shorten it or sub-step"
         lines.append(
-            f"  time step {dt:.10g} s {verdict} (|u| dt = {adv:.3g} cells, "
-            f"sqrt(2 K dt) = {disp:.3g} cells)"
+            f"  time step {dt:.10g} s {verdict} (velocity {report.advection_ratio:.3g} cells, "
+            f"sqrt(2 K dt) {report.dispersion_ratio:.3g} cells)"
         )
     lines.append(f"  Caution: {CAUTION}")
     return "\n".join(lines)

@@ -314,123 +314,151 @@ def step_tables(times, t0, dt, nsteps, out_i, out_w):
 
 
 @nb.njit(**JIT)
-def reflect_and_place(
-    qx,
-    qy,
-    px,
-    py,
-    pi,
-    pj,
-    tstart,
-    h,
-    t_end,
-    ndim,
-    max_refl,
-    edges_mode,
-    xe,
-    ye,
-    wet_now,
-    invex,
-    invey,
-):
-    """Edges and coast for a step from (px, py) in cell (pi, pj) to the candidate (qx, qy).
+def trace_path(px, py, pi, pj, qx, qy, xe, ye, wet_now, edges_mode, max_refl):
+    """Follow the straight path of a step from (px, py) in wet cell (pi, pj) to (qx, qy), cell by
+    cell, and reflect it at the first closed face it meets.
 
-    Open edges absorb (the particle leaves, with the crossing time by linear interpolation);
-    closed edges and dry cells reflect the candidate, up to ``max_refl`` times. Returns
-    (edge left through or -1, crossing time, placed, qx, qy, cell i, cell j).
+    A face is closed when the cell beyond it is land or dry (``wet_now`` 0) or when it is a
+    reflecting domain edge. At a closed face the rest of the path is mirrored in the face (the
+    image of the candidate end), and the trace goes on from the crossing point; the path therefore
+    never enters land, whatever the length of the step or the width of the land (a dike one cell
+    thick holds). Crossing an absorbing domain edge ends the path there. When the path passes
+    exactly through a cell corner, the x face is taken first, so diagonal gaps between land cells
+    that touch only at a corner do not leak either.
+
+    Reflection in a straight wall is exact for Brownian motion whatever the step (the method of
+    images; Carslaw & Jaeger 1959, Conduction of Heat in Solids, §2.2, from memory), so a
+    well-mixed tracer stays well mixed next to a wall.
+
+    Returns (edge, fraction, placed, qx, qy, ci, cj): the absorbing edge crossed (0 west, 1 east,
+    2 south, 3 north) or -1, the fraction of the path travelled at the crossing, whether the end
+    was placed, the end position (inside cell (ci, cj), which is wet) or the crossing point. A path
+    still reflecting after ``max_refl`` reflections is not placed (the particle keeps its
+    position).
     """
-    x_w = xe[0]
-    x_e = xe[xe.shape[0] - 1]
-    y_s = ye[0]
-    y_n = ye[ye.shape[0] - 1]
-    left = -1
-    tcross = t_end
-    placed = False
-    ci = pi
-    cj = pj
-    for _ in range(max_refl):
-        if qx < x_w:
-            if edges_mode[0] == 1:
-                left = 0
-                tcross = tstart + h * (px - x_w) / (px - qx)
-                break
-            qx = 2.0 * x_w - qx
-        if qx > x_e:
-            if edges_mode[1] == 1:
-                left = 1
-                tcross = tstart + h * (x_e - px) / (qx - px)
-                break
-            qx = 2.0 * x_e - qx
-        if ndim == 2:
-            if qy < y_s:
-                if edges_mode[2] == 1:
-                    left = 2
-                    tcross = tstart + h * (py - y_s) / (py - qy)
+    ncx = xe.shape[0] - 1
+    ncy = ye.shape[0] - 1
+    i = pi
+    j = pj
+    sx_ = px
+    sy_ = py
+    done = 0.0
+    reflections = 0
+    # Between two reflections a straight path crosses at most ncx + ncy faces.
+    for _ in range((ncx + ncy + 2) * (max_refl + 1)):
+        dx = qx - sx_
+        dy = qy - sy_
+        tx = 2.0
+        if dx > 0.0:
+            tx = max((xe[i + 1] - sx_) / dx, 0.0)
+        elif dx < 0.0:
+            tx = max((xe[i] - sx_) / dx, 0.0)
+        ty = 2.0
+        if dy > 0.0:
+            ty = max((ye[j + 1] - sy_) / dy, 0.0)
+        elif dy < 0.0:
+            ty = max((ye[j] - sy_) / dy, 0.0)
+        if tx >= 1.0 and ty >= 1.0:
+            # The end lies in cell (i, j): keep it inside the cell's half-open interval so that
+            # the cell found from the position later is this one.
+            if i < ncx - 1 and qx >= xe[i + 1]:
+                qx = np.nextafter(xe[i + 1], -np.inf)
+            elif i > 0 and qx < xe[i]:
+                qx = xe[i]
+            if j < ncy - 1 and qy >= ye[j + 1]:
+                qy = np.nextafter(ye[j + 1], -np.inf)
+            elif j > 0 and qy < ye[j]:
+                qy = ye[j]
+            return -1, 1.0, True, qx, qy, i, j
+        if tx <= ty:
+            step_x = 1 if dx > 0.0 else -1
+            face = xe[i + 1] if dx > 0.0 else xe[i]
+            cy_ = sy_ + tx * dy
+            frac = done + tx * (1.0 - done)
+            ni = i + step_x
+            if ni < 0 or ni >= ncx:
+                edge = 0 if ni < 0 else 1
+                if edges_mode[edge] == 1:
+                    return edge, frac, False, face, cy_, i, j
+                closed = True
+            else:
+                closed = wet_now[j, ni] == 0
+            if closed:
+                if reflections >= max_refl:
                     break
-                qy = 2.0 * y_s - qy
-            if qy > y_n:
-                if edges_mode[3] == 1:
-                    left = 3
-                    tcross = tstart + h * (y_n - py) / (qy - py)
+                reflections += 1
+                qx = 2.0 * face - qx
+            else:
+                i = ni
+            sx_ = face
+            sy_ = cy_
+        else:
+            step_y = 1 if dy > 0.0 else -1
+            face = ye[j + 1] if dy > 0.0 else ye[j]
+            cx_ = sx_ + ty * dx
+            frac = done + ty * (1.0 - done)
+            nj = j + step_y
+            if nj < 0 or nj >= ncy:
+                edge = 2 if nj < 0 else 3
+                if edges_mode[edge] == 1:
+                    return edge, frac, False, cx_, face, i, j
+                closed = True
+            else:
+                closed = wet_now[nj, i] == 0
+            if closed:
+                if reflections >= max_refl:
                     break
-                qy = 2.0 * y_n - qy
-        # Written so that a NaN position is never placed: the particle then stays.
-        if not (qx >= x_w and qx <= x_e and qy >= y_s and qy <= y_n):
-            continue
-        ci = cell_index(xe, invex, qx)
-        cj = cell_index(ye, invey, qy)
-        if wet_now[cj, ci] != 0:
-            placed = True
-            break
-        reflected = False
-        if ci != pi and wet_now[pj, ci] == 0:
-            xf = xe[pi + 1] if ci > pi else xe[pi]
-            qx = 2.0 * xf - qx
-            reflected = True
-        if cj != pj and wet_now[cj, pi] == 0:
-            yf = ye[pj + 1] if cj > pj else ye[pj]
-            qy = 2.0 * yf - qy
-            reflected = True
-        if not reflected:
-            if ci != pi:
-                xf = xe[pi + 1] if ci > pi else xe[pi]
-                qx = 2.0 * xf - qx
-            if cj != pj:
-                yf = ye[pj + 1] if cj > pj else ye[pj]
-                qy = 2.0 * yf - qy
-    return left, tcross, placed, qx, qy, ci, cj
+                reflections += 1
+                qy = 2.0 * face - qy
+            else:
+                j = nj
+            sx_ = cx_
+            sy_ = face
+        done = frac
+    return -1, 1.0, False, px, py, pi, pj
 
 
 @nb.njit(**JIT)
-def bridge_exit(
-    stream, step, px, py, qx, qy, sx, sy, kxx, kyy, h, ndim, edges_mode, x_w, x_e, y_s, y_n
-):
+def bridge_exit(stream, step, px, py, qx, qy, sx, sy, kxx, kyy, h, ndim, edges_mode, xe, ye, ij):
     """Brownian-bridge test of a crossing of an absorbing edge inside the step: the path from
     d0 to d1 metres from the edge crossed it with probability exp(-d0 d1 / (K h)) (Lépingle 1995,
-    Math. Comput. Simul. 38, from memory). Returns the edge crossed or -1."""
+    Math. Comput. Simul. 38, from memory). Returns the edge crossed or -1.
+
+    ij = (pi, pj, ci, cj) are the cells of the start and of the end. An edge is tested only when
+    one of them lies in the row or column of water beside it, so an open edge behind land is
+    reached only through water."""
+    ncx = xe.shape[0] - 1
+    ncy = ye.shape[0] - 1
+    x_w = xe[0]
+    x_e = xe[ncx]
     dxw = (px - x_w) / sx
     dqw = (qx - x_w) / sx
     dxe = (x_e - px) / sx
     dqe = (x_e - qx) / sx
-    if edges_mode[0] == 1 and kxx > 0.0 and dxw * dqw < 20.0 * kxx * h:
+    west = edges_mode[0] == 1 and (ij[0] == 0 or ij[2] == 0)
+    east = edges_mode[1] == 1 and (ij[0] == ncx - 1 or ij[2] == ncx - 1)
+    if west and kxx > 0.0 and dxw * dqw < 20.0 * kxx * h:
         if uniform(stream, step, COMP_BRIDGE_X) < math.exp(-dxw * dqw / (kxx * h)):
             return 0
-    elif edges_mode[1] == 1 and kxx > 0.0 and dxe * dqe < 20.0 * kxx * h:
+    elif east and kxx > 0.0 and dxe * dqe < 20.0 * kxx * h:
         if uniform(stream, step, COMP_BRIDGE_X) < math.exp(-dxe * dqe / (kxx * h)):
             return 1
     if ndim == 2:
+        y_s = ye[0]
+        y_n = ye[ncy]
         dys = (py - y_s) / sy
         dqs = (qy - y_s) / sy
         dyn = (y_n - py) / sy
         dqn = (y_n - qy) / sy
-        if edges_mode[2] == 1 and kyy > 0.0 and dys * dqs < 20.0 * kyy * h:
+        south = edges_mode[2] == 1 and (ij[1] == 0 or ij[3] == 0)
+        north = edges_mode[3] == 1 and (ij[1] == ncy - 1 or ij[3] == ncy - 1)
+        if south and kyy > 0.0 and dys * dqs < 20.0 * kyy * h:
             if uniform(stream, step, COMP_BRIDGE_Y) < math.exp(-dys * dqs / (kyy * h)):
                 return 2
-        elif edges_mode[3] == 1 and kyy > 0.0 and dyn * dqn < 20.0 * kyy * h:
+        elif north and kyy > 0.0 and dyn * dqn < 20.0 * kyy * h:
             if uniform(stream, step, COMP_BRIDGE_Y) < math.exp(-dyn * dqn / (kyy * h)):
                 return 3
     return -1
-
 
 
 @nb.njit(**JIT)
@@ -498,10 +526,6 @@ def compiled_mover(ndim, scheme, aligned, drift, geographic, kgrid, shared, cent
         tab_i = np.zeros((nsteps, 3), np.int64)
         tab_w = np.zeros((nsteps, 3))
         step_tables(times, t0, dt, nsteps, tab_i, tab_w)
-        x_w = xe[0]
-        x_e = xe[xe.shape[0] - 1]
-        y_s = ye[0]
-        y_n = ye[ye.shape[0] - 1]
         n = x.shape[0]
         nblocks = (n + BLOCK - 1) // BLOCK
         for b in nb.prange(nblocks):
@@ -649,25 +673,10 @@ def compiled_mover(ndim, scheme, aligned, drift, geographic, kgrid, shared, cent
                     qy = py
                     if two_d:
                         qy = py + ay_ + dym * sy
-                    edge, tcross, placed, qx, qy, ci, cj = reflect_and_place(
-                        qx,
-                        qy,
-                        px,
-                        py,
-                        pi,
-                        pj,
-                        tstart,
-                        h,
-                        t_end,
-                        ndim,
-                        max_refl,
-                        edges_mode,
-                        xe,
-                        ye,
-                        wet_now,
-                        invc[0],
-                        invc[1],
+                    edge, frac, placed, qx, qy, ci, cj = trace_path(
+                        px, py, pi, pj, qx, qy, xe, ye, wet_now, edges_mode, max_refl
                     )
+                    tcross = tstart + h * frac
                     if edge < 0 and bridge and placed:
                         edge = bridge_exit(
                             stream,
@@ -683,10 +692,9 @@ def compiled_mover(ndim, scheme, aligned, drift, geographic, kgrid, shared, cent
                             h,
                             ndim,
                             edges_mode,
-                            x_w,
-                            x_e,
-                            y_s,
-                            y_n,
+                            xe,
+                            ye,
+                            (pi, pj, ci, cj),
                         )
                         if edge >= 0:
                             tcross = tstart + 0.5 * h
@@ -756,7 +764,7 @@ def advance(
     runs on the calling thread (waking the others would cost more than the work).
     """
     ux, uy, vx, vy = flow[0], flow[1], flow[3], flow[4]
-    xe, cx, cy = cells[0], cells[3], cells[4]
+    cx, cy = cells[3], cells[4]
     shared = bool(np.array_equal(ux, vx) and np.array_equal(uy, vy))
     centred = bool(shared and np.array_equal(ux, cx) and np.array_equal(uy, cy))
     move = compiled_mover(
@@ -792,6 +800,7 @@ def advance(
         int(opts[5]),
         bool(opts[4]),
     )
+
 
 @nb.njit(**JIT)
 def grid_mass(x, y, w, status, x0, dx, nx, y0, dy, ny, out, count):

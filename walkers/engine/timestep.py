@@ -3,8 +3,10 @@
 Three limits (common practice for random-walk models; the third from Visser 1997, Mar. Ecol.
 Prog. Ser. 158, from memory):
 
-1. advection: |u| dt ≤ one cell, so a step never jumps over a coast cell;
-2. dispersion: √(2 K dt) ≤ one cell, for the same reason;
+1. advection: |u| dt ≤ one cell along each axis (u against the cell's width along x, v along y),
+   so a step follows the flow field's own resolution;
+2. dispersion: √(2 K dt) ≤ one cell along each axis, for the same reason (coasts hold at any
+   step: the step's path is traced cell by cell and reflected at the first land face);
 3. curvature of K: dt ≤ 0.1 / max|∂²K/∂x²|, so that K changes little over one random step
    ("dt ≪ 1/|K''|").
 
@@ -31,7 +33,7 @@ class TimeStepReport:
     """Outcome of the check for a time step dt (s)."""
 
     dt: float
-    max_speed: float  # m s-1 (largest velocity component)
+    max_speed: float  # m s-1 (the velocity component that crosses its cell fastest)
     min_cell: float  # m
     max_k: float  # m2 s-1
     max_k_curvature: float  # s-1 (|∂²K/∂x²| in m2 s-1 per m2)
@@ -39,6 +41,8 @@ class TimeStepReport:
     dispersion_ratio: float  # √(2K dt) / cell
     curvature_ratio: float  # dt |K''| / 0.1
     where: str
+    advection_cell: float = 0.0  # m: the cell width the advection ratio is measured against
+    dispersion_cell: float = 0.0  # m: the cell width the dispersion ratio is measured against
 
     @property
     def worst(self) -> float:
@@ -56,17 +60,27 @@ class TimeStepReport:
         n_curv = math.ceil(self.curvature_ratio) if self.curvature_ratio > 1 else 1
         return max(n_adv, n_disp, n_curv)
 
+    def longest_step(self) -> float:
+        """The longest time step (s) within all three limits (inf when nothing limits it)."""
+        limits = [self.dt / self.advection_ratio] if self.advection_ratio > 0 else []
+        if self.dispersion_ratio > 0:
+            limits.append(self.dt / self.dispersion_ratio**2)
+        if self.curvature_ratio > 0:
+            limits.append(self.dt / self.curvature_ratio)
+        return min(limits) if limits else float("inf")
+
     def message(self) -> str:
         parts = []
         if self.advection_ratio > 1:
             parts.append(
-                f"|u|·dt = {self.max_speed * self.dt:.3g} m exceeds the smallest cell "
-                f"({self.min_cell:.3g} m) {self.advection_ratio:.2f} times"
+                f"|u|·dt = {self.max_speed * self.dt:.3g} m exceeds the cell width along that "
+                f"velocity component ({self.advection_cell:.3g} m) {self.advection_ratio:.2f} times"
             )
         if self.dispersion_ratio > 1:
             parts.append(
-                f"√(2K·dt) = {math.sqrt(2 * self.max_k * self.dt):.3g} m exceeds the smallest "
-                f"cell ({self.min_cell:.3g} m) {self.dispersion_ratio:.2f} times"
+                f"√(2K·dt) = {self.dispersion_ratio * self.dispersion_cell:.3g} m exceeds the "
+                f"cell width along it ({self.dispersion_cell:.3g} m) "
+                f"{self.dispersion_ratio:.2f} times"
             )
         if self.curvature_ratio > 1:
             parts.append(
@@ -83,33 +97,77 @@ class TimeStepReport:
         )
 
 
-def check_time_step(flow: FlowField, transport: Transport, t0: float, t1: float) -> TimeStepReport:
-    """Check dt against the flow frames in [t0, t1] (s) and the dispersion coefficients."""
-    dt = transport.dt
+def _cell_widths(flow: FlowField) -> tuple[np.ndarray, np.ndarray]:
+    """Cell widths (m) along x and along y on the cell grid, shape (ny, nx) each (inf along y in
+    1-D)."""
     mx, my = metres_per_grid_unit(flow)
-    dxs = np.diff(flow.x) * mx.min() if flow.x.size > 1 else np.array([np.inf])
-    dys = np.diff(flow.y) * my.min() if (flow.y.size > 1 and flow.ndim == 2) else np.array([np.inf])
-    min_cell = float(min(dxs.min(), dys.min()))
+    xe, ye = flow.cell_edges()
+    wx = np.diff(xe)[None, :] * mx[:, None]
+    if flow.ndim == 2 and flow.y.size > 1:
+        wy = np.diff(ye)[:, None] * my[:, None] * np.ones((1, flow.x.size))
+    else:
+        wy = np.full_like(wx, np.inf)
+    return wx, wy
+
+
+def _on_cells(var_x: np.ndarray, var_y: np.ndarray, flow: FlowField, cells: np.ndarray):
+    """Values of a cell-grid array at the points of a staggered variable's own axes (the cell
+    holding each point)."""
+    xe, ye = flow.cell_edges()
+    i = np.clip(np.searchsorted(xe, var_x, side="right") - 1, 0, flow.x.size - 1)
+    j = np.clip(np.searchsorted(ye, var_y, side="right") - 1, 0, flow.y.size - 1)
+    return cells[np.ix_(j, i)]
+
+
+def check_time_step(flow: FlowField, transport: Transport, t0: float, t1: float) -> TimeStepReport:
+    """Check dt against the flow frames in [t0, t1] (s) and the dispersion coefficients.
+
+    Each limit is taken per axis and per cell: |u| dt against the cell's width along x, |v| dt
+    against its width along y, √(2 K dt) of the coefficient along each axis against the width
+    along that axis (flow-aligned dispersion: the larger coefficient against the narrower side).
+    """
+    dt = transport.dt
+    wx, wy = _cell_widths(flow)
+    min_cell = float(min(wx.min(), wy.min()))
     i0, i1 = flow.frame_range(t0, t1)
+    advection = 0.0
+    advection_cell = min_cell
     max_speed = 0.0
     fastest = ""
     for i in range(i0, i1 + 1):
         w = flow.window(flow.times[i], flow.times[i])
-        for var, arr in ((flow.u, w.u[0]), (flow.v, w.v[0])):
+        for var, arr, widths, axis in ((flow.u, w.u[0], wx, "x"), (flow.v, w.v[0], wy, "y")):
             if not arr.size:
                 continue
-            j, k = np.unravel_index(int(np.argmax(np.abs(arr))), arr.shape)
-            if abs(arr[j, k]) > max_speed:
+            across = _on_cells(var.x, var.y, flow, widths)
+            water = _on_cells(var.x, var.y, flow, w.wet[0] > 0)
+            ratio = np.where(water, np.abs(arr), 0.0) * dt / across
+            j, k = np.unravel_index(int(np.nanargmax(ratio)), ratio.shape)
+            if ratio[j, k] > advection:
+                advection = float(ratio[j, k])
+                advection_cell = float(across[j, k])
                 max_speed = float(abs(arr[j, k]))
                 fastest = (
-                    f"at x = {var.x[k]:.6g}, y = {var.y[j]:.6g} (frame time {flow.times[i]:g} s, "
-                    f"{flow.time_units})"
+                    f"along {axis} at x = {var.x[k]:.6g}, y = {var.y[j]:.6g} (frame time "
+                    f"{flow.times[i]:g} s, {flow.time_units})"
                 )
     d = transport.dispersion
+    m = d.multiplier
+    k1 = np.broadcast_to(d.k1_field if d.k1_field is not None else d.k1, wx.shape) * m
+    k2 = np.broadcast_to(d.k2_field if d.k2_field is not None else d.k2, wx.shape) * m
+    if d.mode == "aligned":
+        across = np.minimum(wx, wy)
+        disp_ratio = np.sqrt(2.0 * np.maximum(k1, k2) * dt) / across
+    else:
+        rx, ry = np.sqrt(2.0 * k1 * dt) / wx, np.sqrt(2.0 * k2 * dt) / wy
+        across = np.where(rx >= ry, wx, wy)
+        disp_ratio = np.maximum(rx, ry)
+    jd = np.unravel_index(int(np.argmax(disp_ratio)), disp_ratio.shape)
+    dispersion = float(disp_ratio[jd])
+    dispersion_cell = float(across[jd])
+    max_k = float(max(k1.max(), k2.max() if flow.ndim == 2 else 0.0))
+    mx, my = metres_per_grid_unit(flow)
     fields = [f for f in (d.k1_field, d.k2_field) if f is not None]
-    ks = [np.max(f) for f in fields] + [d.k1 if d.k1_field is None else 0.0]
-    ks.append(d.k2 if d.k2_field is None else 0.0)
-    max_k = float(max(ks)) * d.multiplier
     curvature = 0.0
     for f in fields:
         f = np.asarray(f, dtype=np.float64) * d.multiplier
@@ -126,9 +184,11 @@ def check_time_step(flow: FlowField, transport: Transport, t0: float, t1: float)
         min_cell=min_cell,
         max_k=max_k,
         max_k_curvature=curvature,
-        advection_ratio=max_speed * dt / min_cell,
-        dispersion_ratio=math.sqrt(2.0 * max_k * dt) / min_cell,
+        advection_ratio=advection,
+        dispersion_ratio=dispersion,
         curvature_ratio=dt * curvature / VISSER_FACTOR,
-        where=f"for this grid (smallest cell {min_cell:.3g} m) and flow (fastest "
+        advection_cell=advection_cell,
+        dispersion_cell=dispersion_cell,
+        where=f"for this grid (smallest cell {min_cell:.3g} m) and flow (fastest crossing "
         f"{max_speed:.3g} m/s {fastest})",
     )

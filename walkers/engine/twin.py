@@ -206,6 +206,85 @@ def _advect(flow, times, scheme, geographic, x, y, t, h):
     )
 
 
+def trace_paths(px, py, pi, pj, qx, qy, xe, ye, wet, iw, edges_mode, max_refl):
+    """Twin of ``kernels.trace_path``, vectorised over particles: each pass moves every path one
+    event further (into the next cell, a reflection, an exit or the end); ``iw`` is each
+    particle's frame of the wet mask. Returns (edge, fraction, placed, qx, qy, ci, cj)."""
+    n = px.size
+    ncx, ncy = xe.size - 1, ye.size - 1
+    edge = np.full(n, -1)
+    frac_out = np.ones(n)
+    placed = np.zeros(n, dtype=bool)
+    i, j = pi.copy(), pj.copy()
+    sx, sy = px.copy(), py.copy()
+    qx, qy = qx.copy(), qy.copy()
+    ox, oy = px.copy(), py.copy()
+    oi, oj = pi.copy(), pj.copy()
+    done = np.zeros(n)
+    refl = np.zeros(n, np.int64)
+    act = np.arange(n)
+    for _ in range((ncx + ncy + 2) * (max_refl + 1)):
+        if act.size == 0:
+            break
+        ia, ja = i[act], j[act]
+        dx, dy = qx[act] - sx[act], qy[act] - sy[act]
+        tx, ty = np.full(act.size, 2.0), np.full(act.size, 2.0)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            fx = np.where(dx > 0.0, xe[np.minimum(ia + 1, ncx)], xe[ia])
+            fy = np.where(dy > 0.0, ye[np.minimum(ja + 1, ncy)], ye[ja])
+            tx = np.where(dx != 0.0, np.maximum((fx - sx[act]) / dx, 0.0), tx)
+            ty = np.where(dy != 0.0, np.maximum((fy - sy[act]) / dy, 0.0), ty)
+        end = (tx >= 1.0) & (ty >= 1.0)
+        e = act[end]
+        ie, je = i[e], j[e]
+        hi_x = (ie < ncx - 1) & (qx[e] >= xe[np.minimum(ie + 1, ncx)])
+        lo_x = ~hi_x & (ie > 0) & (qx[e] < xe[ie])
+        qx[e] = np.where(hi_x, np.nextafter(xe[np.minimum(ie + 1, ncx)], -np.inf), qx[e])
+        qx[e] = np.where(lo_x, xe[ie], qx[e])
+        hi_y = (je < ncy - 1) & (qy[e] >= ye[np.minimum(je + 1, ncy)])
+        lo_y = ~hi_y & (je > 0) & (qy[e] < ye[je])
+        qy[e] = np.where(hi_y, np.nextafter(ye[np.minimum(je + 1, ncy)], -np.inf), qy[e])
+        qy[e] = np.where(lo_y, ye[je], qy[e])
+        placed[e] = True
+        ox[e], oy[e], oi[e], oj[e] = qx[e], qy[e], ie, je
+        go = ~end
+        act, tx, ty, dx, dy, fx, fy = (v[go] for v in (act, tx, ty, dx, dy, fx, fy))
+        across_x = tx <= ty
+        t = np.where(across_x, tx, ty)
+        frac = done[act] + t * (1.0 - done[act])
+        cross_x = np.where(across_x, fx, sx[act] + ty * dx)
+        cross_y = np.where(across_x, sy[act] + tx * dy, fy)
+        ni = i[act] + np.where(across_x, np.where(dx > 0.0, 1, -1), 0)
+        nj = j[act] + np.where(across_x, 0, np.where(dy > 0.0, 1, -1))
+        outside = (ni < 0) | (ni >= ncx) | (nj < 0) | (nj >= ncy)
+        which = np.where(across_x, np.where(ni < 0, 0, 1), np.where(nj < 0, 2, 3))
+        absorbing = outside & (np.asarray(edges_mode)[which] == 1)
+        gone = act[absorbing]
+        edge[gone] = which[absorbing]
+        frac_out[gone] = frac[absorbing]
+        ox[gone], oy[gone] = cross_x[absorbing], cross_y[absorbing]
+        oi[gone], oj[gone] = i[gone], j[gone]
+        inside = ~outside
+        closed = outside.copy()
+        closed[inside] = wet[iw[act[inside]], nj[inside], ni[inside]] == 0
+        stuck = closed & ~absorbing & (refl[act] >= max_refl)
+        reflect = closed & ~absorbing & ~stuck
+        r = act[reflect]
+        rx = across_x[reflect]
+        refl[r] += 1
+        qx[r] = np.where(rx, 2.0 * fx[reflect] - qx[r], qx[r])
+        qy[r] = np.where(rx, qy[r], 2.0 * fy[reflect] - qy[r])
+        move = ~closed
+        mv = act[move]
+        i[mv], j[mv] = ni[move], nj[move]
+        cont = reflect | move
+        c = act[cont]
+        sx[c], sy[c] = cross_x[cont], cross_y[cont]
+        done[c] = frac[cont]
+        act = c
+    return edge, frac_out, placed, ox, oy, oi, oj
+
+
 def advance(
     x,
     y,
@@ -302,55 +381,23 @@ def advance(
         qx = px + ax_ + dxm * sx
         qy = py + ay_ + dym * sy if ndim == 2 else py.copy()
         iw_cells = iw if wet.shape[0] > 1 else np.zeros_like(iw)
-        left = np.full(act.size, -1)
-        tcross = np.full(act.size, t_end)
-        placed = np.zeros(act.size, dtype=bool)
         pi, pj = _cell(xe, px), _cell(ye, py)
-        for _ in range(max_refl):
-            todo = (left < 0) & ~placed
-            if not np.any(todo):
-                break
-            for e, bound, sign in ((0, x_w, -1.0), (1, x_e, 1.0), (2, y_s, -1.0), (3, y_n, 1.0)):
-                if e >= 2 and ndim != 2:
-                    continue
-                q = qx if e < 2 else qy
-                pp = px if e < 2 else py
-                out = todo & (left < 0) & (sign * (q - bound) > 0.0)
-                if edges_mode[e] == 1:
-                    frac = (pp - bound) / (pp - q)
-                    tcross = np.where(out, tstart + h * frac, tcross)
-                    left = np.where(out, e, left)
-                else:
-                    q[out] = 2.0 * bound - q[out]
-            todo = todo & (left < 0)
-            inside = (qx >= x_w) & (qx <= x_e) & (qy >= y_s) & (qy <= y_n)
-            check = todo & inside
-            ci, cj = _cell(xe, qx), _cell(ye, qy)
-            ok = check & (wet[iw_cells, cj, ci] != 0)
-            placed |= ok
-            bad = check & ~ok
-            if not np.any(bad):
-                continue
-            xf = np.where(ci > pi, xe[np.minimum(pi + 1, xe.size - 1)], xe[pi])
-            yf = np.where(cj > pj, ye[np.minimum(pj + 1, ye.size - 1)], ye[pj])
-            refl_x = bad & (ci != pi) & (wet[iw_cells, pj, ci] == 0)
-            refl_y = bad & (cj != pj) & (wet[iw_cells, cj, pi] == 0)
-            neither = bad & ~refl_x & ~refl_y
-            refl_x |= neither & (ci != pi)
-            refl_y |= neither & (cj != pj)
-            qx = np.where(refl_x, 2.0 * xf - qx, qx)
-            qy = np.where(refl_y, 2.0 * yf - qy, qy)
+        left, frac, placed, qx, qy, ci, cj = trace_paths(
+            px, py, pi, pj, qx, qy, xe, ye, wet, iw_cells, edges_mode, max_refl
+        )
+        tcross = tstart + h * frac
         if bridge:
             cand = (left < 0) & placed
             bx = np.full(act.size, -1)
             ux_ = uniforms(streams, step0 + s, COMP_BRIDGE_X)
-            for e, d0, d1 in (
-                (0, (px - x_w) / sx, (qx - x_w) / sx),
-                (1, (x_e - px) / sx, (x_e - qx) / sx),
+            ncx, ncy = xe.size - 1, ye.size - 1
+            for e, d0, d1, beside in (
+                (0, (px - x_w) / sx, (qx - x_w) / sx, (pi == 0) | (ci == 0)),
+                (1, (x_e - px) / sx, (x_e - qx) / sx, (pi == ncx - 1) | (ci == ncx - 1)),
             ):
                 if edges_mode[e] != 1:
                     continue
-                near = cand & (bx < 0) & (kxx > 0.0) & (d0 * d1 < 20.0 * kxx * h)
+                near = cand & beside & (bx < 0) & (kxx > 0.0) & (d0 * d1 < 20.0 * kxx * h)
                 kh = np.where(near, kxx * h, 1.0)
                 hit = near & (ux_ < np.exp(np.where(near, -d0 * d1 / kh, -np.inf)))
                 bx = np.where(near & (bx < 0), np.where(hit, e, -2), bx)
@@ -359,13 +406,13 @@ def advance(
                 by = np.full(act.size, -1)
                 uy_ = uniforms(streams, step0 + s, COMP_BRIDGE_Y)
                 cand = cand & (left < 0)
-                for e, d0, d1 in (
-                    (2, (py - y_s) / sy, (qy - y_s) / sy),
-                    (3, (y_n - py) / sy, (y_n - qy) / sy),
+                for e, d0, d1, beside in (
+                    (2, (py - y_s) / sy, (qy - y_s) / sy, (pj == 0) | (cj == 0)),
+                    (3, (y_n - py) / sy, (y_n - qy) / sy, (pj == ncy - 1) | (cj == ncy - 1)),
                 ):
                     if edges_mode[e] != 1:
                         continue
-                    near = cand & (by < 0) & (kyy > 0.0) & (d0 * d1 < 20.0 * kyy * h)
+                    near = cand & beside & (by < 0) & (kyy > 0.0) & (d0 * d1 < 20.0 * kyy * h)
                     kh = np.where(near, kyy * h, 1.0)
                     hit = near & (uy_ < np.exp(np.where(near, -d0 * d1 / kh, -np.inf)))
                     by = np.where(near & (by < 0), np.where(hit, e, -2), by)
