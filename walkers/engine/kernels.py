@@ -333,9 +333,12 @@ def trace_path(px, py, pi, pj, qx, qy, xe, ye, wet_now, edges_mode, max_refl):
     Returns (edge, fraction, placed, qx, qy, ci, cj): the absorbing edge crossed (0 west, 1 east,
     2 south, 3 north) or -1, the fraction of the path travelled at the crossing, whether the end
     was placed, the end position (inside cell (ci, cj), which is wet) or the crossing point. A path
-    still reflecting after ``max_refl`` reflections is not placed (the particle keeps its
-    position).
+    still reflecting after ``max_refl`` reflections, or whose end is not a finite number, is not
+    placed (the particle keeps its position).
     """
+    if not (math.isfinite(qx) and math.isfinite(qy)):
+        # A velocity or coefficient that is not finite (a hole beside land): no step is taken.
+        return -1, 1.0, False, px, py, pi, pj
     ncx = xe.shape[0] - 1
     ncy = ye.shape[0] - 1
     i = pi

@@ -222,7 +222,7 @@ def trace_paths(px, py, pi, pj, qx, qy, xe, ye, wet, iw, edges_mode, max_refl):
     oi, oj = pi.copy(), pj.copy()
     done = np.zeros(n)
     refl = np.zeros(n, np.int64)
-    act = np.arange(n)
+    act = np.flatnonzero(np.isfinite(qx) & np.isfinite(qy))
     for _ in range((ncx + ncy + 2) * (max_refl + 1)):
         if act.size == 0:
             break
