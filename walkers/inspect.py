@@ -157,8 +157,8 @@ def describe_flow(
     )
     lines.append(f"  speed in water: {vmin:.4g} to {vmax:.4g} m s-1")
 
-    step = Transport(dt=dt or 1.0, dispersion=Dispersion(k1=dispersion, k2=dispersion))
-    report = check_time_step(flow, step, float(flow.times[0]), float(flow.times[-1]))
+    advice = Transport(dt=dt or 1.0, dispersion=Dispersion(k1=dispersion, k2=dispersion))
+    report = check_time_step(flow, advice, float(flow.times[0]), float(flow.times[-1]))
     lines.append(
         f"  largest stable time step: {report.longest_step():.4g} s for K = {dispersion:.10g} "
         "m2 s-1 (|u| dt, |v| dt and sqrt(2 K dt) each under the cell width along their axis)"
