@@ -79,9 +79,7 @@ def test_demo_results_are_bitwise_those_of_the_reference() -> None:
     now = describe(demo_result())
     assert sorted(now["variables"]) == sorted(reference["variables"])
     differing = [
-        name
-        for name, print_ in reference["variables"].items()
-        if now["variables"][name] != print_
+        name for name, print_ in reference["variables"].items() if now["variables"][name] != print_
     ]
     assert differing == [], f"variables not bitwise equal to the reference: {differing}"
     assert now["attrs"] == reference["attrs"]
