@@ -37,8 +37,7 @@ MACHINE_ATTRS = {"input_files"}
 
 def demo_result() -> xr.Dataset:
     """The estuary demo with fewer particles, run in-process."""
-    from walkers.runner import simulate_scenario
-    from walkers.scenario import load_scenario
+    from walkers import load_scenario, simulate_scenario
 
     raw = tomllib.loads((SCENARIOS / "saltmarsh_estuary.toml").read_text(encoding="utf-8"))
     raw["releases"][0]["particles"] = PARTICLES

@@ -16,8 +16,8 @@ import numpy as np
 import pytest
 
 from walkers import CAUTION
-from walkers.fields.netcdf import open_flow
-from walkers.inspect import _iso_duration, describe_flow, draw_speed_map, stable_time_step
+from walkers.fields.inspect import _iso_duration, describe_flow, draw_speed_map, stable_time_step
+from walkers.fields.netcdf.open import open_flow
 
 sys.path.insert(0, str(Path(__file__).parent))
 import flowfiles as ff  # noqa: E402

@@ -32,11 +32,11 @@ import numba
 import numpy as np
 
 import walkers
-from walkers.config import Dispersion, OutputGrid, Transport
 from walkers.engine import kernels, mover
 from walkers.engine.state import ParticleState
 from walkers.fields.analytic import grid_flow
 from walkers.fields.base import FlowField, centre_to_edges
+from walkers.scenario.config import Dispersion, OutputGrid, Transport
 
 CELL = 20.0  # m, cell size of the reference workload
 DT = 30.0  # s, time step
@@ -163,7 +163,7 @@ print(json.dumps({"first_step_s": time.perf_counter() - t0}))
 _MEMORY = """
 import json, resource
 import numpy as np
-from walkers import reduce
+from walkers.run import reduce
 from walkers.bench import initial_state, reference_workload, output_grid, DT, KEY, _inputs
 from walkers.engine import mover
 from walkers.fields.base import centre_to_edges
@@ -205,7 +205,7 @@ def _gridding_rates(flow: FlowField, state: ParticleState, repeats: int) -> tupl
     """Particles per second through the box-counting kernel alone, and through
     ``reduce.concentration`` (the kernel plus the weights m / h and the division by the cell
     volume), medians over repeats."""
-    from walkers import reduce  # imported here: the first-step child should not pay for scipy
+    from walkers.run import reduce
 
     grid = output_grid(flow)
     measure = reduce.cell_measure(grid, False, 2)

@@ -98,7 +98,7 @@ def main() -> None:
 @friendly_errors
 def new_command(path: Path, overwrite: bool) -> None:
     """Write a commented scenario template to PATH (TOML)."""
-    from walkers.scenario import template_text
+    from walkers.scenario.docs import template_text
 
     if path.exists() and not overwrite:
         raise InputError(f"{str(path)!r} exists; pass --overwrite or choose another name")
@@ -161,7 +161,8 @@ def run_command(
     import signal
     import threading
 
-    from walkers.checkpoint import (
+    from walkers.api import run_scenario
+    from walkers.run.checkpoint import (
         Checkpointer,
         checkpoint_path,
         load_checkpoint,
@@ -169,9 +170,8 @@ def run_command(
         remove_checkpoint,
         run_fingerprint,
     )
-    from walkers.runner import run_scenario
-    from walkers.scenario import load_scenario
-    from walkers.units import parse_quantity
+    from walkers.scenario.load import load_scenario
+    from walkers.scenario.units import parse_quantity
 
     def terminate(signum, frame):
         raise KeyboardInterrupt
@@ -245,7 +245,7 @@ def run_command(
     click.echo(outcome.summary)
     click.echo(f"\nwrote {outcome.path}")
     if plot and outcome.path is not None:
-        from walkers.plots import plot_results
+        from walkers.outputs.figures import plot_results
 
         figdir = outcome.path.with_name(outcome.path.stem + "_figures")
         figdir.mkdir(exist_ok=True)
@@ -275,8 +275,8 @@ def inspect_command(
     files, dispersion: float, dt: float | None, map_png: Path | None, frame: int
 ) -> None:
     """Describe flow FILES: grid, CRS, times, variables found, land, speeds, time step."""
-    from walkers.fields.netcdf import open_flow
-    from walkers.inspect import describe_flow, draw_speed_map
+    from walkers.fields.inspect import describe_flow, draw_speed_map
+    from walkers.fields.netcdf.open import open_flow
 
     flow = open_flow(list(files))
     click.echo(describe_flow(flow, dispersion=dispersion, dt=dt))
@@ -299,7 +299,7 @@ def inspect_command(
 @friendly_errors
 def verify_command(cases, particles: int | None, seed: int, report: Path | None) -> None:
     """Run the verification cases against published solutions; exit 1 on any failure."""
-    from walkers.verify import CASES, report_markdown, run_case
+    from walkers.verify.cases import CASES, report_markdown, run_case
 
     names = list(cases) or list(CASES)
     unknown = [n for n in names if n not in CASES]
@@ -347,7 +347,7 @@ def verify_command(cases, particles: int | None, seed: int, report: Path | None)
 @friendly_errors
 def plot_command(result: Path, outdir: Path | None, times) -> None:
     """Draw maps, receptor series, the mass budget and an animation from a RESULT file."""
-    from walkers.plots import plot_results
+    from walkers.outputs.figures import plot_results
 
     outdir = outdir or result.with_name(result.stem + "_figures")
     outdir.mkdir(parents=True, exist_ok=True)
@@ -363,7 +363,8 @@ def plot_command(result: Path, outdir: Path | None, times) -> None:
 @friendly_errors
 def export_command(result: Path, csv: Path, overwrite: bool) -> None:
     """Write the receptor series of a RESULT file to CSV (for spreadsheets)."""
-    from walkers.io import open_results, receptors_to_csv
+    from walkers.outputs.export import receptors_to_csv
+    from walkers.outputs.reader import open_results
 
     receptors_to_csv(open_results(result), csv, overwrite=overwrite)
     click.echo(f"wrote {csv}")
@@ -455,10 +456,11 @@ def ensemble_command(
 ) -> None:
     """Run the ensemble of SCENARIO (TOML with an [ensemble] table): exceedance probabilities,
     receptor distributions and the member table, written as CF-NetCDF with figures."""
-    from walkers.ensemble import run_ensemble, summary_text, write_ensemble
-    from walkers.io import check_target
-    from walkers.scenario import load_scenario
-    from walkers.units import parse_quantity
+    from walkers.ensemble.assemble import summary_text, write_ensemble
+    from walkers.ensemble.execute import run_ensemble
+    from walkers.files import check_target
+    from walkers.scenario.load import load_scenario
+    from walkers.scenario.units import parse_quantity
 
     sc = load_scenario(scenario)
     if sc.ensemble is None:
@@ -504,7 +506,7 @@ def ensemble_command(
     )
     click.echo(f"wrote {output}")
     if plot:
-        from walkers.plots_ensemble import plot_ensemble
+        from walkers.ensemble.figures import plot_ensemble
 
         figdir = output.with_name(output.stem + "_figures")
         figdir.mkdir(exist_ok=True)

@@ -1,8 +1,9 @@
 """Figures of an ensemble: exceedance-probability maps and receptor distributions.
 
 Each figure carries a title, axis labels with units, the time span it covers (ISO 8601 with zone)
-and the caution in small print, like the figures of a single run (``walkers.plots``). Probability
-maps colour the probability from 0 to 1 and draw contour lines at :data:`PROBABILITY_LEVELS`;
+and the caution in small print, like the figures of a single run (``walkers.outputs.figures``).
+Probability maps colour the probability from 0 to 1 and draw contour lines at
+:data:`PROBABILITY_LEVELS`;
 cells that no member reached stay blank. Receptor figures show, per receptor, the histogram of the
 members' peak concentrations (thresholds dashed) and the empirical CDF of the arrival time for each
 threshold; members that never cross a threshold keep the CDF below 1 at the end of the run.
@@ -19,8 +20,9 @@ from matplotlib import colormaps
 from matplotlib.colors import ListedColormap
 
 from walkers.errors import InputError
-from walkers.io import elapsed_seconds, iso_times, open_results
-from walkers.plots import LAND_COLOUR, RECEPTOR_COLOUR, _edges, _figure, _footer
+from walkers.fields.times import elapsed_seconds, iso_times
+from walkers.outputs.figures import LAND_COLOUR, RECEPTOR_COLOUR, _edges, _figure, _footer
+from walkers.outputs.reader import open_results
 
 #: Probabilities drawn as contour lines on the maps.
 PROBABILITY_LEVELS = (0.1, 0.5, 0.9)

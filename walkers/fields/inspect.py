@@ -17,7 +17,8 @@ from scipy.interpolate import interp1d
 from walkers import CAUTION
 from walkers.fields.base import FlowField, GriddedVariable
 from walkers.fields.geo import cell_sizes
-from walkers.fields.netcdf import flow_time_iso, open_flow
+from walkers.fields.netcdf.open import open_flow
+from walkers.fields.times import flow_time_iso
 
 _CHUNK = 24  # frames read at a time when scanning a whole file
 

@@ -19,14 +19,15 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy import stats
 
-from walkers import analytic, reduce
-from walkers.config import Dispersion, OutputGrid, Release, Transport
 from walkers.engine import mover
+from walkers.engine.randomness import run_streams
 from walkers.engine.state import IN_WATER, LEFT, ParticleState
 from walkers.fields.analytic import analytic_flow, grid_flow
 from walkers.fields.base import FlowField, centre_to_edges
-from walkers.randomness import run_streams
-from walkers.simulate import RunState, simulate
+from walkers.run import reduce
+from walkers.run.simulate import RunState, simulate
+from walkers.scenario.config import Dispersion, OutputGrid, Release, Transport
+from walkers.verify import analytic
 
 Z = 5.0
 P_FIVE_SIGMA = 2.0 * stats.norm.sf(Z)
