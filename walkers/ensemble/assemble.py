@@ -25,8 +25,6 @@ from walkers.ensemble.members import _Prepared
 
 
 def _assemble(red: _OrderedReducer, prepared: _Prepared, thr: tuple[float, ...]) -> xr.Dataset:
-    from walkers.run.runner import land_on_output_grid
-
     sc = prepared.scenario
     spec = sc.ensemble
     assert spec is not None and red.frame is not None and red.exceed is not None
@@ -34,9 +32,47 @@ def _assemble(red: _OrderedReducer, prepared: _Prepared, thr: tuple[float, ...])
     n, k = red.members, red.half
     frame = red.frame
     nthr = len(thr)
+    run_start = f"seconds after the run start {sc.start_iso}"
+    data = _member_variables(red, prepared, run_start)
+    rng = np.random.default_rng(np.random.SeedSequence([int(sc.seed), _BOOTSTRAP_KEY]))
+    nrec = len(sc.receptors)
+    if nrec:
+        _add_receptor_peaks(data, red, rng)
+    if nthr:
+        _add_exceedance(data, red, nthr)
+    if nthr and nrec:
+        _add_receptor_exceedance(data, red, rng, run_start)
+    coords = _coordinates(frame, n, thr)
+    attrs = {
+        "title": f"{sc.title}: ensemble of {n} members",
+        "seed": int(sc.seed),
+        "walkers_version": walkers.__version__,
+        "scenario": sc.text or "",
+        "crs_wkt": frame.attrs.get("crs_wkt", ""),
+        "geographic": int(frame.attrs.get("geographic", 0)),
+        "caution": walkers.CAUTION,
+        "source": frame.attrs.get("source", ""),
+        "members": int(n),
+        "members_first_half": int(k),
+        "member_batch_size": int(batch_size(n)),
+        "varying_release": spec.release,
+        "particle_steps": int(red.particle_steps),
+        "bootstrap": f"percentile bootstrap, {BOOTSTRAP_RESAMPLES} resamples, "
+        f"{CONFIDENCE:.0%} interval",
+    }
+    return xr.Dataset(data, coords=coords, attrs=attrs)
+
+
+def _member_variables(red: _OrderedReducer, prepared: _Prepared, run_start: str) -> dict[str, Any]:
+    """The ensemble-mean concentration, each member's source draw, and the land mask."""
+    from walkers.run.runner import land_on_output_grid
+
+    sc = prepared.scenario
+    assert red.frame is not None and red.conc_sum is not None
+    n = red.members
+    frame = red.frame
     xunits = frame["x"].attrs.get("units", "m")
     yunits = frame["y"].attrs.get("units", "m")
-    run_start = f"seconds after the run start {sc.start_iso}"
     one = "1"
     data: dict[str, Any] = {
         "concentration_mean": (
@@ -85,121 +121,143 @@ def _assemble(red: _OrderedReducer, prepared: _Prepared, thr: tuple[float, ...])
             },
         ),
     }
-    rng = np.random.default_rng(np.random.SeedSequence([int(sc.seed), _BOOTSTRAP_KEY]))
-    nrec = len(sc.receptors)
-    if nrec:
-        peak = np.concatenate(red.peak)
-        data["member_receptor_peak"] = (
-            ("member", "receptor"),
-            peak,
-            {"units": "kg m-3", "long_name": "peak concentration at receptor over the run"},
-        )
-        est, lo, hi = percentiles_with_ci(peak, rng)
-        _add_percentiles(
-            data,
-            "receptor_peak",
-            ("receptor",),
-            est,
-            lo,
-            hi,
-            "kg m-3",
-            "peak concentration at receptor",
-            "",
-        )
-    if nthr:
-        p = red.exceed / n
-        p_half = red.exceed_half / k
-        change = np.abs(p - p_half).reshape(nthr, -1)
-        worst = change.argmax(axis=1)
-        p_worst = p.reshape(nthr, -1)[np.arange(nthr), worst]
-        factor = (n - k) / (n * k)
-        data["exceedance_probability"] = (
-            ("threshold", "time", "y", "x"),
-            p,
-            {
-                "units": one,
-                "long_name": "probability that the concentration exceeds the threshold",
-                "comment": "fraction of members; binomial standard error sqrt(P (1 - P) / N)",
-            },
-        )
-        data["window_exceedance_probability"] = (
-            ("threshold", "y", "x"),
-            red.window / n,
-            {
-                "units": one,
-                "long_name": "probability that the concentration exceeds the threshold at "
-                "some output time",
-            },
-        )
-        data["convergence_change"] = (
-            "threshold",
-            change.max(axis=1),
-            {
-                "units": one,
-                "long_name": "largest change of the exceedance probability over the second "
-                f"half of the members (|P({n}) - P({k})| over cells and times)",
-            },
-        )
-        data["convergence_standard_error"] = (
-            "threshold",
-            np.sqrt(p_worst * (1.0 - p_worst) * factor),
-            {
-                "units": one,
-                "long_name": "binomial standard error of that change at the cell where it is "
-                "largest",
-                "largest_possible": math.sqrt(0.25 * factor),
-            },
-        )
-    if nthr and nrec:
-        arrival = np.concatenate(red.arrival)
-        above = np.concatenate(red.above)
-        data["member_arrival_time"] = (
-            ("member", "receptor", "threshold"),
-            np.where(np.isfinite(arrival), arrival, np.nan),
-            {
-                "units": "s",
-                "long_name": "first time the receptor concentration exceeds the threshold",
-                "comment": f"{run_start}; NaN: not within the run",
-            },
-        )
-        data["member_time_above_threshold"] = (
-            ("member", "receptor", "threshold"),
-            above,
-            {"units": "s", "long_name": "time the receptor concentration is above the threshold"},
-        )
-        data["receptor_exceedance_probability"] = (
-            ("receptor", "threshold"),
-            np.isfinite(arrival).mean(axis=0),
-            {
-                "units": one,
-                "long_name": "probability that the receptor concentration exceeds the threshold "
-                "within the run",
-            },
-        )
-        est, lo, hi = percentiles_with_ci(arrival, rng)
-        _add_percentiles(
-            data,
-            "arrival_time",
-            ("receptor", "threshold"),
-            est,
-            lo,
-            hi,
-            "s",
-            "arrival time at receptor",
-            f"{run_start}; NaN: not within the run",
-        )
-        est, lo, hi = percentiles_with_ci(above, rng)
-        _add_percentiles(
-            data,
-            "time_above_threshold",
-            ("receptor", "threshold"),
-            est,
-            lo,
-            hi,
-            "s",
-            "time above threshold at receptor",
-            "",
-        )
+    return data
+
+
+def _add_receptor_peaks(
+    data: dict[str, Any], red: _OrderedReducer, rng: np.random.Generator
+) -> None:
+    """Each member's peak at each receptor, and its percentiles over the members."""
+    peak = np.concatenate(red.peak)
+    data["member_receptor_peak"] = (
+        ("member", "receptor"),
+        peak,
+        {"units": "kg m-3", "long_name": "peak concentration at receptor over the run"},
+    )
+    est, lo, hi = percentiles_with_ci(peak, rng)
+    _add_percentiles(
+        data,
+        "receptor_peak",
+        ("receptor",),
+        est,
+        lo,
+        hi,
+        "kg m-3",
+        "peak concentration at receptor",
+        "",
+    )
+
+
+def _add_exceedance(data: dict[str, Any], red: _OrderedReducer, nthr: int) -> None:
+    """Exceedance probabilities per cell and time and over the window, and their convergence."""
+    assert red.exceed is not None and red.exceed_half is not None and red.window is not None
+    n, k = red.members, red.half
+    one = "1"
+    p = red.exceed / n
+    p_half = red.exceed_half / k
+    change = np.abs(p - p_half).reshape(nthr, -1)
+    worst = change.argmax(axis=1)
+    p_worst = p.reshape(nthr, -1)[np.arange(nthr), worst]
+    factor = (n - k) / (n * k)
+    data["exceedance_probability"] = (
+        ("threshold", "time", "y", "x"),
+        p,
+        {
+            "units": one,
+            "long_name": "probability that the concentration exceeds the threshold",
+            "comment": "fraction of members; binomial standard error sqrt(P (1 - P) / N)",
+        },
+    )
+    data["window_exceedance_probability"] = (
+        ("threshold", "y", "x"),
+        red.window / n,
+        {
+            "units": one,
+            "long_name": "probability that the concentration exceeds the threshold at "
+            "some output time",
+        },
+    )
+    data["convergence_change"] = (
+        "threshold",
+        change.max(axis=1),
+        {
+            "units": one,
+            "long_name": "largest change of the exceedance probability over the second "
+            f"half of the members (|P({n}) - P({k})| over cells and times)",
+        },
+    )
+    data["convergence_standard_error"] = (
+        "threshold",
+        np.sqrt(p_worst * (1.0 - p_worst) * factor),
+        {
+            "units": one,
+            "long_name": "binomial standard error of that change at the cell where it is largest",
+            "largest_possible": math.sqrt(0.25 * factor),
+        },
+    )
+
+
+def _add_receptor_exceedance(
+    data: dict[str, Any], red: _OrderedReducer, rng: np.random.Generator, run_start: str
+) -> None:
+    """Per member and receptor: arrival time and time above each threshold, their percentiles,
+    and the probability that the receptor sees the threshold exceeded."""
+    one = "1"
+    arrival = np.concatenate(red.arrival)
+    above = np.concatenate(red.above)
+    data["member_arrival_time"] = (
+        ("member", "receptor", "threshold"),
+        np.where(np.isfinite(arrival), arrival, np.nan),
+        {
+            "units": "s",
+            "long_name": "first time the receptor concentration exceeds the threshold",
+            "comment": f"{run_start}; NaN: not within the run",
+        },
+    )
+    data["member_time_above_threshold"] = (
+        ("member", "receptor", "threshold"),
+        above,
+        {"units": "s", "long_name": "time the receptor concentration is above the threshold"},
+    )
+    data["receptor_exceedance_probability"] = (
+        ("receptor", "threshold"),
+        np.isfinite(arrival).mean(axis=0),
+        {
+            "units": one,
+            "long_name": "probability that the receptor concentration exceeds the threshold "
+            "within the run",
+        },
+    )
+    est, lo, hi = percentiles_with_ci(arrival, rng)
+    _add_percentiles(
+        data,
+        "arrival_time",
+        ("receptor", "threshold"),
+        est,
+        lo,
+        hi,
+        "s",
+        "arrival time at receptor",
+        f"{run_start}; NaN: not within the run",
+    )
+    est, lo, hi = percentiles_with_ci(above, rng)
+    _add_percentiles(
+        data,
+        "time_above_threshold",
+        ("receptor", "threshold"),
+        est,
+        lo,
+        hi,
+        "s",
+        "time above threshold at receptor",
+        "",
+    )
+
+
+def _coordinates(frame: xr.Dataset, n: int, thr: tuple[float, ...]) -> dict[str, Any]:
+    """The result's coordinates: those of a member's result, members, percentiles, thresholds."""
+    one = "1"
+    nthr = len(thr)
     coords: dict[str, Any] = {str(name): frame[name].variable for name in frame.coords}
     coords["member"] = (
         "member",
@@ -217,24 +275,7 @@ def _assemble(red: _OrderedReducer, prepared: _Prepared, thr: tuple[float, ...])
             np.array(thr),
             {"units": "kg m-3", "long_name": "concentration threshold"},
         )
-    attrs = {
-        "title": f"{sc.title}: ensemble of {n} members",
-        "seed": int(sc.seed),
-        "walkers_version": walkers.__version__,
-        "scenario": sc.text or "",
-        "crs_wkt": frame.attrs.get("crs_wkt", ""),
-        "geographic": int(frame.attrs.get("geographic", 0)),
-        "caution": walkers.CAUTION,
-        "source": frame.attrs.get("source", ""),
-        "members": int(n),
-        "members_first_half": int(k),
-        "member_batch_size": int(batch_size(n)),
-        "varying_release": spec.release,
-        "particle_steps": int(red.particle_steps),
-        "bootstrap": f"percentile bootstrap, {BOOTSTRAP_RESAMPLES} resamples, "
-        f"{CONFIDENCE:.0%} interval",
-    }
-    return xr.Dataset(data, coords=coords, attrs=attrs)
+    return coords
 
 
 def _add_percentiles(data, stem, dims, est, lo, hi, units, what, comment) -> None:

@@ -173,91 +173,18 @@ def open_flow(
     """
     variables = dict(variables or {})
     units = dict(units or {})
-    unknown = set(variables) - set(STANDARD_NAMES)
-    if unknown:
-        raise InputError(
-            f"flow variables: unknown role(s) {', '.join(sorted(unknown))}; roles are "
-            f"{', '.join(STANDARD_NAMES)}"
-        )
-    if not (np.isfinite(min_depth) and min_depth >= 0):
-        raise InputError(f"minimum depth {min_depth!r} m: must be a finite number >= 0")
-    if constant_depth is not None and not (np.isfinite(constant_depth) and constant_depth > 0):
-        raise InputError(f"constant depth {constant_depth!r}: must be a finite number > 0")
+    _check_arguments(variables, min_depth, constant_depth)
     file_list = _expand_paths(paths)
-
-    schemas: list[_FileSchema] = []
-    dates: list[list[Any]] = []
-    calendars: set[str] = set()
-    datasets = []
-    try:
-        for path in file_list:
-            ds = _open_dataset(path)
-            datasets.append(ds)
-            schema = _FileSchema(ds, path, variables, units, constant_depth is not None)
-            schemas.append(schema)
-            d, cal = schema.times()
-            dates.append(d)
-            calendars.add(cal)
-        first = schemas[0]
-        cell = _cell_grid(first)
-        _check_shapes(first, cell)
-        for schema in schemas[1:]:
-            _check_same_grid(first, schema)
-        if len(calendars) > 1:
-            raise InputError(
-                f"flow files {file_list}: calendars differ ({', '.join(sorted(calendars))}); "
-                "all files must use one calendar"
-            )
-        calendar = calendars.pop()
-        wkt = first.crs_wkt(crs)
-    finally:
-        for ds in datasets:
-            ds.close()
-
-    has_time = first.time_dim is not None
-    if len(file_list) > 1 and not has_time:
-        raise InputError(
-            f"flow files {file_list}: several files given but they have no time dimension; "
-            "give one file for a steady flow"
-        )
-    if has_time:
-        order = sorted(range(len(file_list)), key=lambda i: dates[i][0] if dates[i] else 0)
-        time_units = _frame_units(min(d[0] for d in dates if d))
-        frame_file = np.concatenate([np.full(len(dates[i]), i, dtype=np.intp) for i in order])
-        frame_local = np.concatenate([np.arange(len(dates[i]), dtype=np.intp) for i in order])
-        seconds = np.concatenate(
-            [
-                np.atleast_1d(
-                    np.asarray(cftime.date2num(dates[i], time_units, calendar), np.float64)
-                )
-                for i in order
-            ]
-        )
-        _check_times(seconds, frame_file, file_list, time_units, calendar)
-    else:
-        first_date = cftime.datetime(2000, 1, 1, calendar=calendar)
-        time_units = _frame_units(first_date)
-        frame_file = np.zeros(0, dtype=np.intp)
-        frame_local = np.zeros(0, dtype=np.intp)
-        seconds = np.array([0.0])
-
+    first, dates, calendar, cell, wkt = _read_schemas(
+        file_list, variables, units, constant_depth is not None, crs
+    )
+    has_time, time_units, frame_file, frame_local, seconds = _frame_times(
+        first, dates, calendar, file_list
+    )
     if time_range is not None and has_time and seconds.size > 1:
         # (a single frame is a steady flow, valid at all times)
-        t0 = _to_seconds(time_range[0], time_units, calendar)
-        t1 = _to_seconds(time_range[1], time_units, calendar)
-        if t0 < seconds[0] - 1e-6 or t1 > seconds[-1] + 1e-6 or t1 < t0:
-            raise InputError(
-                f"time range {_seconds_iso(t0, time_units, calendar)} to "
-                f"{_seconds_iso(t1, time_units, calendar)} is outside the flow's frames "
-                f"{_seconds_iso(seconds[0], time_units, calendar)} to "
-                f"{_seconds_iso(seconds[-1], time_units, calendar)} ({', '.join(file_list)})"
-            )
-        i0 = max(int(np.searchsorted(seconds, t0, side="right")) - 1, 0)
-        i1 = min(int(np.searchsorted(seconds, t1, side="left")), seconds.size - 1)
-        frame_file, frame_local, seconds = (
-            frame_file[i0 : i1 + 1],
-            frame_local[i0 : i1 + 1],
-            seconds[i0 : i1 + 1],
+        frame_file, frame_local, seconds = _frames_in_range(
+            time_range, frame_file, frame_local, seconds, time_units, calendar, file_list
         )
 
     source = _FlowSource(
@@ -289,6 +216,125 @@ def open_flow(
             f"variable and its sign, and the minimum depth ({min_depth} m)"
         )
     return flow
+
+
+def _check_arguments(
+    variables: dict[str, str], min_depth: float, constant_depth: float | None
+) -> None:
+    """InputError for an unknown role, a bad minimum depth or a bad constant depth."""
+    unknown = set(variables) - set(STANDARD_NAMES)
+    if unknown:
+        raise InputError(
+            f"flow variables: unknown role(s) {', '.join(sorted(unknown))}; roles are "
+            f"{', '.join(STANDARD_NAMES)}"
+        )
+    if not (np.isfinite(min_depth) and min_depth >= 0):
+        raise InputError(f"minimum depth {min_depth!r} m: must be a finite number >= 0")
+    if constant_depth is not None and not (np.isfinite(constant_depth) and constant_depth > 0):
+        raise InputError(f"constant depth {constant_depth!r}: must be a finite number > 0")
+
+
+def _read_schemas(
+    file_list: list[str],
+    variables: dict[str, str],
+    units: dict[str, str],
+    has_constant_depth: bool,
+    crs: str | None,
+) -> tuple[_FileSchema, list[list[Any]], str, tuple[np.ndarray, np.ndarray], str | None]:
+    """Discover the layout of every file and check they agree: the first file's schema, each
+    file's frame dates, the calendar, the cell grid and the CRS (WKT)."""
+    schemas: list[_FileSchema] = []
+    dates: list[list[Any]] = []
+    calendars: set[str] = set()
+    datasets = []
+    try:
+        for path in file_list:
+            ds = _open_dataset(path)
+            datasets.append(ds)
+            schema = _FileSchema(ds, path, variables, units, has_constant_depth)
+            schemas.append(schema)
+            d, cal = schema.times()
+            dates.append(d)
+            calendars.add(cal)
+        first = schemas[0]
+        cell = _cell_grid(first)
+        _check_shapes(first, cell)
+        for schema in schemas[1:]:
+            _check_same_grid(first, schema)
+        if len(calendars) > 1:
+            raise InputError(
+                f"flow files {file_list}: calendars differ ({', '.join(sorted(calendars))}); "
+                "all files must use one calendar"
+            )
+        calendar = calendars.pop()
+        wkt = first.crs_wkt(crs)
+    finally:
+        for ds in datasets:
+            ds.close()
+
+    return first, dates, calendar, cell, wkt
+
+
+def _frame_times(
+    first: _FileSchema, dates: list[list[Any]], calendar: str, file_list: list[str]
+) -> tuple[bool, str, np.ndarray, np.ndarray, np.ndarray]:
+    """The frames of all files in time order: whether there is time, the frame time units, each
+    frame's file and index in it, and its time (s)."""
+    has_time = first.time_dim is not None
+    if len(file_list) > 1 and not has_time:
+        raise InputError(
+            f"flow files {file_list}: several files given but they have no time dimension; "
+            "give one file for a steady flow"
+        )
+    if has_time:
+        order = sorted(range(len(file_list)), key=lambda i: dates[i][0] if dates[i] else 0)
+        time_units = _frame_units(min(d[0] for d in dates if d))
+        frame_file = np.concatenate([np.full(len(dates[i]), i, dtype=np.intp) for i in order])
+        frame_local = np.concatenate([np.arange(len(dates[i]), dtype=np.intp) for i in order])
+        seconds = np.concatenate(
+            [
+                np.atleast_1d(
+                    np.asarray(cftime.date2num(dates[i], time_units, calendar), np.float64)
+                )
+                for i in order
+            ]
+        )
+        _check_times(seconds, frame_file, file_list, time_units, calendar)
+    else:
+        first_date = cftime.datetime(2000, 1, 1, calendar=calendar)
+        time_units = _frame_units(first_date)
+        frame_file = np.zeros(0, dtype=np.intp)
+        frame_local = np.zeros(0, dtype=np.intp)
+        seconds = np.array([0.0])
+    return has_time, time_units, frame_file, frame_local, seconds
+
+
+def _frames_in_range(
+    time_range: tuple[Any, Any],
+    frame_file: np.ndarray,
+    frame_local: np.ndarray,
+    seconds: np.ndarray,
+    time_units: str,
+    calendar: str,
+    file_list: list[str],
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The frames needed to cover ``time_range`` (InputError if the flow does not cover it)."""
+    t0 = _to_seconds(time_range[0], time_units, calendar)
+    t1 = _to_seconds(time_range[1], time_units, calendar)
+    if t0 < seconds[0] - 1e-6 or t1 > seconds[-1] + 1e-6 or t1 < t0:
+        raise InputError(
+            f"time range {_seconds_iso(t0, time_units, calendar)} to "
+            f"{_seconds_iso(t1, time_units, calendar)} is outside the flow's frames "
+            f"{_seconds_iso(seconds[0], time_units, calendar)} to "
+            f"{_seconds_iso(seconds[-1], time_units, calendar)} ({', '.join(file_list)})"
+        )
+    i0 = max(int(np.searchsorted(seconds, t0, side="right")) - 1, 0)
+    i1 = min(int(np.searchsorted(seconds, t1, side="left")), seconds.size - 1)
+    return (
+        frame_file[i0 : i1 + 1],
+        frame_local[i0 : i1 + 1],
+        seconds[i0 : i1 + 1],
+    )
 
 
 def _check_same_grid(first: _FileSchema, other: _FileSchema) -> None:
