@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
@@ -9,9 +10,10 @@ import numpy as np
 import xarray as xr
 
 import walkers
+from walkers.fields.base import FlowField
 from walkers.run import reduce
 from walkers.run.store import DiskFields, MemoryFields
-from walkers.scenario.config import EDGE_NAMES, OutputGrid
+from walkers.scenario.config import EDGE_NAMES, OutputGrid, Receptor
 
 
 def _field_variables(grid: OutputGrid) -> dict[str, type]:
@@ -126,43 +128,29 @@ class _Accumulator:
     def dataset(self, times, flow, grid, receptors, releases, seed, member, title, text):
         geo = flow.geographic
         xunits, yunits = ("degrees_east", "degrees_north") if geo else ("m", "m")
-        coords = {
-            "time": (
-                "time",
-                times,
-                {
-                    "units": flow.time_units,
-                    "calendar": flow.calendar,
-                    "standard_name": "time",
-                    "axis": "T",
-                },
-            ),
-            "x": ("x", grid.x, {"units": xunits, "axis": "X", "long_name": "output cell centre"}),
-            "y": ("y", grid.y, {"units": yunits, "axis": "Y", "long_name": "output cell centre"}),
-            "edge": ("edge", np.array(EDGE_NAMES), {"long_name": "domain edge"}),
-            "receptor": (
-                "receptor",
-                np.array([r.name for r in receptors], dtype=object),
-                {"long_name": "receptor name"},
-            ),
-            "receptor_x": (
-                "receptor",
-                np.array([r.x for r in receptors], dtype=float),
-                {"units": xunits, "long_name": "receptor position x"},
-            ),
-            "receptor_y": (
-                "receptor",
-                np.array([r.y for r in receptors], dtype=float),
-                {"units": yunits, "long_name": "receptor position y"},
-            ),
-            "receptor_radius": (
-                "receptor",
-                np.array([r.radius for r in receptors], dtype=float),
-                {"units": "m", "long_name": "receptor averaging radius"},
-            ),
+        coords = _result_coordinates(times, flow, grid, receptors, xunits, yunits)
+        data = self._variables(grid, xunits, yunits)
+        _add_thresholds(data, receptors)
+        self._add_tracks(data, xunits, yunits)
+        attrs = {
+            "title": title,
+            "seed": int(seed),
+            "walkers_version": walkers.__version__,
+            "scenario": text,
+            "crs_wkt": flow.crs_wkt or "",
+            "geographic": int(geo),
+            "caution": walkers.CAUTION,
+            "source": flow.source,
+            "releases": "; ".join(r.name for r in releases),
         }
+        if member is not None:
+            attrs["member"] = int(member)
+        return xr.Dataset(data, coords=coords, attrs=attrs)
+
+    def _variables(self, grid: OutputGrid, xunits: str, yunits: str) -> dict[str, Any]:
+        """Fields, receptor series, the budget by edge and in total, particle numbers, moments."""
         kgm3 = "kg m-3"
-        data = {
+        data: dict[str, Any] = {
             "concentration": (
                 ("time", "y", "x"),
                 self.fields.data("concentration"),
@@ -215,17 +203,10 @@ class _Accumulator:
         for name, values in self.moments.items():
             units = (xunits if name.endswith("x") else yunits) if "centroid" in name else "m2"
             data[name] = ("time", values, {"units": units, "long_name": name.replace("_", " ")})
-        thresholds = [r.thresholds for r in receptors]
-        if any(thresholds):
-            width = max(len(t) for t in thresholds)
-            table = np.full((len(receptors), width), np.nan)
-            for k, t in enumerate(thresholds):
-                table[k, : len(t)] = t
-            data["receptor_threshold"] = (
-                ("receptor", "threshold"),
-                table,
-                {"units": kgm3, "long_name": "concentration threshold of concern"},
-            )
+        return data
+
+    def _add_tracks(self, data: dict[str, Any], xunits: str, yunits: str) -> None:
+        """The sampled particle tracks, if any were kept."""
         if self.track_x is not None:
             data["track_x"] = (
                 ("trajectory", "time"),
@@ -237,17 +218,66 @@ class _Accumulator:
                 self.track_y,
                 {"units": yunits, "long_name": "sampled particle position y"},
             )
-        attrs = {
-            "title": title,
-            "seed": int(seed),
-            "walkers_version": walkers.__version__,
-            "scenario": text,
-            "crs_wkt": flow.crs_wkt or "",
-            "geographic": int(geo),
-            "caution": walkers.CAUTION,
-            "source": flow.source,
-            "releases": "; ".join(r.name for r in releases),
-        }
-        if member is not None:
-            attrs["member"] = int(member)
-        return xr.Dataset(data, coords=coords, attrs=attrs)
+
+
+def _result_coordinates(
+    times: np.ndarray,
+    flow: FlowField,
+    grid: OutputGrid,
+    receptors: Sequence[Receptor],
+    xunits: str,
+    yunits: str,
+) -> dict[str, Any]:
+    """The result's coordinates: output times, cell centres, edges and receptors."""
+    coords = {
+        "time": (
+            "time",
+            times,
+            {
+                "units": flow.time_units,
+                "calendar": flow.calendar,
+                "standard_name": "time",
+                "axis": "T",
+            },
+        ),
+        "x": ("x", grid.x, {"units": xunits, "axis": "X", "long_name": "output cell centre"}),
+        "y": ("y", grid.y, {"units": yunits, "axis": "Y", "long_name": "output cell centre"}),
+        "edge": ("edge", np.array(EDGE_NAMES), {"long_name": "domain edge"}),
+        "receptor": (
+            "receptor",
+            np.array([r.name for r in receptors], dtype=object),
+            {"long_name": "receptor name"},
+        ),
+        "receptor_x": (
+            "receptor",
+            np.array([r.x for r in receptors], dtype=float),
+            {"units": xunits, "long_name": "receptor position x"},
+        ),
+        "receptor_y": (
+            "receptor",
+            np.array([r.y for r in receptors], dtype=float),
+            {"units": yunits, "long_name": "receptor position y"},
+        ),
+        "receptor_radius": (
+            "receptor",
+            np.array([r.radius for r in receptors], dtype=float),
+            {"units": "m", "long_name": "receptor averaging radius"},
+        ),
+    }
+    return coords
+
+
+def _add_thresholds(data: dict[str, Any], receptors: Sequence[Receptor]) -> None:
+    """Each receptor's concentration thresholds of concern (NaN-padded), if any receptor has one."""
+    kgm3 = "kg m-3"
+    thresholds = [r.thresholds for r in receptors]
+    if any(thresholds):
+        width = max(len(t) for t in thresholds)
+        table = np.full((len(receptors), width), np.nan)
+        for k, t in enumerate(thresholds):
+            table[k, : len(t)] = t
+        data["receptor_threshold"] = (
+            ("receptor", "threshold"),
+            table,
+            {"units": kgm3, "long_name": "concentration threshold of concern"},
+        )

@@ -264,16 +264,7 @@ def simulate(
         raise InputError("no releases: a run needs at least one release")
     times = output_times(start, end, output_interval, transport.dt)
     _check_window(flow, start, end)
-    substeps = int(transport.substeps)
-    if time_step_check != "off":
-        report = check_time_step(flow, transport, start, end)
-        if not report.ok:
-            if time_step_check == "fail":
-                raise InputError(report.message())
-            if time_step_check == "substep":
-                substeps = max(substeps, report.substeps_needed)
-            else:
-                warnings.warn(report.message(), stacklevel=2)
+    substeps = _substeps(flow, transport, start, end, time_step_check)
     dt = transport.dt / substeps
     steps_per_output = int(round(output_interval / dt))
     check_budget_precision(
@@ -294,17 +285,8 @@ def simulate(
         store = field_store(shape, variables, fields, field_folder)
         acc = _Accumulator(len(times), output_grid, len(receptors), tracks, store)
     else:
+        _check_resume(resume, shape, variables, len(times))
         particles, owner, first = resume.particles, resume.owner, resume.next_output
-        saved = resume.results.fields
-        if (
-            saved.shape != shape
-            or set(saved.variables) != set(variables)
-            or not 0 < first <= len(times)
-        ):
-            raise InputError(
-                "the saved run state does not fit this run (different output times or grid); "
-                "start the run afresh"
-            )
         acc = resume.results
     xe, ye = centre_to_edges(flow.x), centre_to_edges(flow.y)
     measure = reduce.cell_measure(output_grid, flow.geographic, flow.ndim)
@@ -320,13 +302,19 @@ def simulate(
                 window = flow.window(t_prev, t)
                 check_window_velocity(flow, window)
                 inputs = mover.kernel_inputs(flow, window, transport)
-                step0 = (k - 1) * steps_per_output
-                per_call = max(1, PARTICLE_STEPS_PER_CALL // max(len(particles), 1))
-                for s in range(0, steps_per_output, per_call):
-                    n = min(per_call, steps_per_output - s)
-                    t_call = t_prev + s * dt
-                    mover.advance(particles, inputs, t_call, dt, n, step0 + s, walk_key, engine)
-                    _check_positions(particles, owner, releases, flow, t_call, t_call + n * dt)
+                _advance_interval(
+                    particles,
+                    owner,
+                    releases,
+                    flow,
+                    inputs,
+                    t_prev,
+                    dt,
+                    steps_per_output,
+                    (k - 1) * steps_per_output,
+                    walk_key,
+                    engine,
+                )
             window_now = flow.window(t, t)
             frame = (
                 0
@@ -349,3 +337,62 @@ def simulate(
         # a failed or interrupted run leaves no temporary files (a checkpoint keeps its own)
         acc.fields.discard()
         raise
+
+
+def _substeps(
+    flow: FlowField,
+    transport: Transport,
+    start: float,
+    end: float,
+    time_step_check: Literal["fail", "substep", "warn", "off"],
+) -> int:
+    """Sub-steps per time step: the transport's, or more when the time-step check asks for them
+    (``"substep"``); ``"fail"`` raises and ``"warn"`` warns on a too-long time step instead."""
+    substeps = int(transport.substeps)
+    if time_step_check != "off":
+        report = check_time_step(flow, transport, start, end)
+        if not report.ok:
+            if time_step_check == "fail":
+                raise InputError(report.message())
+            if time_step_check == "substep":
+                substeps = max(substeps, report.substeps_needed)
+            else:
+                warnings.warn(report.message(), stacklevel=3)
+    return substeps
+
+
+def _check_resume(
+    resume: RunState, shape: tuple[int, int, int], variables: dict[str, type], outputs: int
+) -> None:
+    """InputError unless a saved run state fits this run's output times and grid."""
+    first = resume.next_output
+    saved = resume.results.fields
+    if saved.shape != shape or set(saved.variables) != set(variables) or not 0 < first <= outputs:
+        raise InputError(
+            "the saved run state does not fit this run (different output times or grid); "
+            "start the run afresh"
+        )
+
+
+def _advance_interval(
+    particles: ParticleState,
+    owner: np.ndarray,
+    releases: Sequence[Release],
+    flow: FlowField,
+    inputs: mover.KernelInputs,
+    t_prev: float,
+    dt: float,
+    steps: int,
+    step0: int,
+    walk_key: int,
+    engine: Literal["compiled", "numpy"],
+) -> None:
+    """Move the particles through one output interval of ``steps`` steps from ``t_prev``, in
+    calls of at most :data:`PARTICLE_STEPS_PER_CALL` particle-steps, checking positions after
+    each call."""
+    per_call = max(1, PARTICLE_STEPS_PER_CALL // max(len(particles), 1))
+    for s in range(0, steps, per_call):
+        n = min(per_call, steps - s)
+        t_call = t_prev + s * dt
+        mover.advance(particles, inputs, t_call, dt, n, step0 + s, walk_key, engine)
+        _check_positions(particles, owner, releases, flow, t_call, t_call + n * dt)
