@@ -37,6 +37,7 @@ import os
 from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
+from typing import Any
 
 import dask
 import dask.array
@@ -97,7 +98,22 @@ def _to_cf(ds: xr.Dataset, history: str) -> tuple[xr.Dataset, dict]:
     out = ds.drop_vars([v for v in ("track_x", "track_y") if v in ds.variables])
     if "trajectory" in out.dims:
         out = out.drop_dims("trajectory")
-    # string labels: auxiliary coordinates on a plain dimension (CF §6.1)
+    out = _with_string_labels(out)
+    for var in out.variables.values():
+        var.encoding = {}  # stale encodings of a file read back (times: see _encoding)
+    crs = _crs_of(ds)
+    geographic = bool(int(ds.attrs.get("geographic", 0)))
+    _set_axis_attrs(out)
+    has_receptors = "receptor_concentration" in out and out.sizes.get("receptor", 0) > 0
+    if has_receptors and crs is not None and not crs.is_geographic and not geographic:
+        out = _with_receptor_lonlat(out, crs)
+    _set_variable_attrs(out, crs, has_receptors)
+    out.attrs = _global_attrs(ds, history, crs, geographic, has_receptors)
+    return out, _encoding(out, time_encoding)
+
+
+def _with_string_labels(out: xr.Dataset) -> xr.Dataset:
+    """String coordinates as auxiliary label variables on a plain dimension (CF §6.1)."""
     for dim, label in _STRING_LABELS.items():
         if dim in out.coords:
             attrs = dict(out[dim].attrs)
@@ -109,11 +125,11 @@ def _to_cf(ds: xr.Dataset, history: str) -> tuple[xr.Dataset, dict]:
         )
     if "edge_name" in out.coords:
         out["edge_name"].attrs["long_name"] = "domain edge name"
-    for var in out.variables.values():
-        var.encoding = {}  # stale encodings of a file read back (times: see _encoding)
-    crs = _crs_of(ds)
-    geographic = bool(int(ds.attrs.get("geographic", 0)))
+    return out
 
+
+def _set_axis_attrs(out: xr.Dataset) -> None:
+    """Units, long names and axes of x, y and time."""
     out["x"].attrs = _with_units(out["x"].attrs, "m", "x coordinate of cell centre")
     out["y"].attrs = _with_units(out["y"].attrs, "m", "y coordinate of cell centre")
     for name in ("x", "y"):
@@ -125,31 +141,37 @@ def _to_cf(ds: xr.Dataset, history: str) -> tuple[xr.Dataset, dict]:
         out["time"].attrs.setdefault("long_name", "time")
     out["time"].attrs["axis"] = "T"
 
-    has_receptors = "receptor_concentration" in out and out.sizes.get("receptor", 0) > 0
-    if has_receptors and crs is not None and not crs.is_geographic and not geographic:
-        to_geo = Transformer.from_crs(crs, CRS.from_epsg(4326), always_xy=True)
-        lon, lat = to_geo.transform(out["receptor_x"].values, out["receptor_y"].values)
-        out = out.assign_coords(
-            receptor_lon=(
-                "receptor",
-                np.asarray(lon, dtype=np.float64),
-                {
-                    "units": "degrees_east",
-                    "standard_name": "longitude",
-                    "long_name": "receptor longitude (WGS84)",
-                },
-            ),
-            receptor_lat=(
-                "receptor",
-                np.asarray(lat, dtype=np.float64),
-                {
-                    "units": "degrees_north",
-                    "standard_name": "latitude",
-                    "long_name": "receptor latitude (WGS84)",
-                },
-            ),
-        )
 
+def _with_receptor_lonlat(out: xr.Dataset, crs: CRS) -> xr.Dataset:
+    """Receptor positions in WGS84 longitude and latitude beside the projected ones."""
+    to_geo = Transformer.from_crs(crs, CRS.from_epsg(4326), always_xy=True)
+    lon, lat = to_geo.transform(out["receptor_x"].values, out["receptor_y"].values)
+    out = out.assign_coords(
+        receptor_lon=(
+            "receptor",
+            np.asarray(lon, dtype=np.float64),
+            {
+                "units": "degrees_east",
+                "standard_name": "longitude",
+                "long_name": "receptor longitude (WGS84)",
+            },
+        ),
+        receptor_lat=(
+            "receptor",
+            np.asarray(lat, dtype=np.float64),
+            {
+                "units": "degrees_north",
+                "standard_name": "latitude",
+                "long_name": "receptor latitude (WGS84)",
+            },
+        ),
+    )
+    return out
+
+
+def _set_variable_attrs(out: xr.Dataset, crs: CRS | None, has_receptors: bool) -> None:
+    """The grid mapping variable and its references, checked units and long names, and the
+    coordinates of the receptor series (CF §5.6, §9)."""
     if crs is not None:
         out[GRID_MAPPING] = xr.DataArray(np.int32(0), attrs=_grid_mapping_attrs(crs))
     for key, data in out.data_vars.items():
@@ -176,6 +198,11 @@ def _to_cf(ds: xr.Dataset, history: str) -> tuple[xr.Dataset, dict]:
             if name in out.coords:
                 out[name].attrs = _with_units(out[name].attrs, "m", "receptor averaging radius")
 
+
+def _global_attrs(
+    ds: xr.Dataset, history: str, crs: CRS | None, geographic: bool, has_receptors: bool
+) -> dict[str, Any]:
+    """The file's global attributes: CF conventions, provenance, the caution, the CRS."""
     attrs = {
         "Conventions": CONVENTIONS,
         "title": str(ds.attrs.get("title", "walkers run")),
@@ -192,8 +219,7 @@ def _to_cf(ds: xr.Dataset, history: str) -> tuple[xr.Dataset, dict]:
         attrs["featureType"] = "timeSeries"
     for key, value in ds.attrs.items():
         attrs.setdefault(key, value)
-    out.attrs = attrs
-    return out, _encoding(out, time_encoding)
+    return attrs
 
 
 def _encoding(out: xr.Dataset, time_encoding: dict) -> dict:

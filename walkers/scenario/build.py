@@ -8,15 +8,12 @@ import glob
 import math
 from datetime import datetime
 from pathlib import Path
-from typing import TYPE_CHECKING, Any, Literal
+from typing import Any, Literal
 
 import numpy as np
 
 from walkers.errors import InputError
 from walkers.scenario.config import Dispersion, OutputGrid, Receptor, Release
-
-if TYPE_CHECKING:
-    pass
 from walkers.scenario.keys import MAX_OUTPUT_CELLS
 from walkers.scenario.specs import DispersionSpec, EnsembleSpec, FlowSpec
 from walkers.scenario.walk import _check_lonlat, _coordinate, _resolve_path, _seconds
@@ -35,90 +32,14 @@ def _build_releases(
             raise InputError(f"{where}.name = {name!r}: names must differ between releases")
         names.add(name)
         shape = r["shape"]
-        if r["x"] is not None:
-            coords = [
-                [_coordinate(r["x"], f"{where}.x", False), _coordinate(r["y"], f"{where}.y", False)]
-            ]
-        elif r["lon"] is not None:
-            _check_lonlat(r["lon"], r["lat"], where)
-            coords = [[r["lon"], r["lat"]]]
-        else:
-            key = "points" if r["points"] is not None else "points_lonlat"
-            coords = [
-                [_coordinate(c, f"{where}.{key}[{j}]", geographic) for c in pair]
-                for j, pair in enumerate(r[key])
-            ]
-        if geographic:
-            for j, (lon, lat) in enumerate(coords):
-                _check_lonlat(lon, lat, f"{where} position {j}")
-        if shape in ("point", "circle") and len(coords) != 1:
-            raise InputError(
-                f"{where}: a {shape} release takes one position (x, y or lon, lat), not points"
-            )
-        if shape == "line" and len(coords) != 2:
-            raise InputError(
-                f"{where}: a line release takes its two ends in points = [[x1, y1], [x2, y2]]"
-            )
-        if shape == "line" and coords[0] == coords[1]:
-            raise InputError(f"{where}.points: the two ends of a line must differ")
-        if shape == "polygon":
-            pts = np.asarray(coords)
-            area = 0.5 * abs(
-                np.dot(pts[:, 0], np.roll(pts[:, 1], 1)) - np.dot(pts[:, 1], np.roll(pts[:, 0], 1))
-            )
-            if len(coords) < 3 or not area > 0:
-                raise InputError(
-                    f"{where}.points: a polygon release needs at least 3 vertices enclosing an area"
-                )
-        if shape == "circle" and r["radius"] is None:
-            raise InputError(f'{where}: a circle release needs radius (a length, e.g. "50 m")')
+        coords = _release_positions(r, shape, where, geographic)
         t0 = _seconds(start, r["start"]) if r["start"] is not None else 0.0
         if not 0.0 <= t0 < run_length:
             raise InputError(
                 f"{where}.start = {r['start'].isoformat()}: must lie in the run, from run.start "
                 "(included) to run.end (excluded)"
             )
-        duration = r["duration"]
-        rate_times = rates = None
-        if r["mass"] is not None:
-            duration = duration or 0.0
-            mass = r["mass"]
-        elif r["rate"] is not None:
-            if not duration:
-                raise InputError(
-                    f'{where}: a release given by rate needs duration > 0 (e.g. "2 h"); for an '
-                    "instantaneous release give mass"
-                )
-            mass = r["rate"] * duration
-        else:
-            if len(r["rate_times"]) != len(r["rates"]) or len(r["rates"]) < 2:
-                raise InputError(
-                    f"{where}: rate_times and rates must be lists of the same length, at least 2 "
-                    f"(got {len(r['rate_times'])} and {len(r['rates'])})"
-                )
-            rate_times = np.array(
-                [t0 + v if tag == "offset" else _seconds(start, v) for tag, v in r["rate_times"]]
-            )
-            rates = np.array(r["rates"], dtype=np.float64)
-            if not np.all(np.diff(rate_times) > 0):
-                raise InputError(f"{where}.rate_times: times must be strictly ascending")
-            if rate_times[0] > t0 + 1e-9:
-                raise InputError(
-                    f"{where}.rate_times: the first time must be at or before the release start"
-                )
-            if duration is None:
-                duration = float(rate_times[-1] - t0)
-            if t0 + duration > rate_times[-1] + 1e-9:
-                raise InputError(
-                    f"{where}.duration: the rate series ends before the release does; extend "
-                    "rate_times or shorten duration"
-                )
-            mass = _integrate_rate(rate_times, rates, t0, t0 + duration)
-            if not mass > 0:
-                raise InputError(
-                    f"{where}.rates: the rates integrate to no mass over the release; give "
-                    "rates > 0"
-                )
+        duration, mass, rate_times, rates = _release_amount(r, where, start, t0)
         if t0 + duration > run_length + 1e-9:
             raise InputError(
                 f"{where}: the release ends after run.end; shorten duration or extend run.end"
@@ -140,6 +61,99 @@ def _build_releases(
             )
         )
     return releases
+
+
+def _release_positions(
+    r: dict[str, Any], shape: str, where: str, geographic: bool
+) -> list[list[float]]:
+    """A release's positions (one, a line's two ends or a polygon's vertices), checked against
+    its shape."""
+    if r["x"] is not None:
+        coords = [
+            [_coordinate(r["x"], f"{where}.x", False), _coordinate(r["y"], f"{where}.y", False)]
+        ]
+    elif r["lon"] is not None:
+        _check_lonlat(r["lon"], r["lat"], where)
+        coords = [[r["lon"], r["lat"]]]
+    else:
+        key = "points" if r["points"] is not None else "points_lonlat"
+        coords = [
+            [_coordinate(c, f"{where}.{key}[{j}]", geographic) for c in pair]
+            for j, pair in enumerate(r[key])
+        ]
+    if geographic:
+        for j, (lon, lat) in enumerate(coords):
+            _check_lonlat(lon, lat, f"{where} position {j}")
+    if shape in ("point", "circle") and len(coords) != 1:
+        raise InputError(
+            f"{where}: a {shape} release takes one position (x, y or lon, lat), not points"
+        )
+    if shape == "line" and len(coords) != 2:
+        raise InputError(
+            f"{where}: a line release takes its two ends in points = [[x1, y1], [x2, y2]]"
+        )
+    if shape == "line" and coords[0] == coords[1]:
+        raise InputError(f"{where}.points: the two ends of a line must differ")
+    if shape == "polygon":
+        pts = np.asarray(coords)
+        area = 0.5 * abs(
+            np.dot(pts[:, 0], np.roll(pts[:, 1], 1)) - np.dot(pts[:, 1], np.roll(pts[:, 0], 1))
+        )
+        if len(coords) < 3 or not area > 0:
+            raise InputError(
+                f"{where}.points: a polygon release needs at least 3 vertices enclosing an area"
+            )
+    if shape == "circle" and r["radius"] is None:
+        raise InputError(f'{where}: a circle release needs radius (a length, e.g. "50 m")')
+    return coords
+
+
+def _release_amount(
+    r: dict[str, Any], where: str, start: datetime, t0: float
+) -> tuple[float, float, np.ndarray | None, np.ndarray | None]:
+    """A release's duration (s), mass (kg) and rate series (times s, rates kg/s; or None), from
+    its mass, its constant rate or its rate series."""
+    duration = r["duration"]
+    rate_times = rates = None
+    if r["mass"] is not None:
+        duration = duration or 0.0
+        mass = r["mass"]
+    elif r["rate"] is not None:
+        if not duration:
+            raise InputError(
+                f'{where}: a release given by rate needs duration > 0 (e.g. "2 h"); for an '
+                "instantaneous release give mass"
+            )
+        mass = r["rate"] * duration
+    else:
+        if len(r["rate_times"]) != len(r["rates"]) or len(r["rates"]) < 2:
+            raise InputError(
+                f"{where}: rate_times and rates must be lists of the same length, at least 2 "
+                f"(got {len(r['rate_times'])} and {len(r['rates'])})"
+            )
+        rate_times = np.array(
+            [t0 + v if tag == "offset" else _seconds(start, v) for tag, v in r["rate_times"]]
+        )
+        rates = np.array(r["rates"], dtype=np.float64)
+        if not np.all(np.diff(rate_times) > 0):
+            raise InputError(f"{where}.rate_times: times must be strictly ascending")
+        if rate_times[0] > t0 + 1e-9:
+            raise InputError(
+                f"{where}.rate_times: the first time must be at or before the release start"
+            )
+        if duration is None:
+            duration = float(rate_times[-1] - t0)
+        if t0 + duration > rate_times[-1] + 1e-9:
+            raise InputError(
+                f"{where}.duration: the rate series ends before the release does; extend "
+                "rate_times or shorten duration"
+            )
+        mass = _integrate_rate(rate_times, rates, t0, t0 + duration)
+        if not mass > 0:
+            raise InputError(
+                f"{where}.rates: the rates integrate to no mass over the release; give rates > 0"
+            )
+    return duration, mass, rate_times, rates
 
 
 def _integrate_rate(times: np.ndarray, rates: np.ndarray, t0: float, t1: float) -> float:

@@ -7,14 +7,10 @@ the schema. Regenerate the page with::
 from __future__ import annotations
 
 from importlib import resources
-from typing import TYPE_CHECKING
 
-from walkers.scenario.units import UNIT_TABLE
-
-if TYPE_CHECKING:
-    pass
 from walkers.scenario.keys import KINDS, Key, Section
 from walkers.scenario.schema import SCHEMA
+from walkers.scenario.units import UNIT_TABLE
 from walkers.scenario.walk import _condition_text
 
 

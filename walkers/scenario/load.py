@@ -18,14 +18,11 @@ from __future__ import annotations
 import dataclasses
 import math
 import tomllib
+from datetime import datetime
 from pathlib import Path
-from typing import TYPE_CHECKING, Any
+from typing import Any
 
 from walkers.errors import InputError
-from walkers.scenario.config import EDGE_NAMES, Dispersion, Transport
-
-if TYPE_CHECKING:
-    pass
 from walkers.scenario.build import (
     _build_dispersion,
     _build_ensemble,
@@ -34,9 +31,10 @@ from walkers.scenario.build import (
     _build_receptors,
     _build_releases,
 )
+from walkers.scenario.config import EDGE_NAMES, Dispersion, Transport
 from walkers.scenario.keys import MAX_PARTICLES
 from walkers.scenario.schema import SCHEMA
-from walkers.scenario.specs import Scenario
+from walkers.scenario.specs import DispersionSpec, Scenario
 from walkers.scenario.walk import _geographic, _resolve_path, _seconds, _walk
 
 # --------------------------------------------------------------------------------------------
@@ -102,27 +100,7 @@ def _build(
     geographic = _geographic(raw)
     s = _walk(SCHEMA, raw, "")
     run = s["run"]
-    start, end = run["start"], run["end"]
-    run_length = _seconds(start, end)
-    if not run_length > 0:
-        raise InputError(
-            f"run.end = {end.isoformat()}: must be after run.start = {start.isoformat()}"
-        )
-    dt, interval = run["time_step"], run["output_interval"]
-    if dt > run_length:
-        raise InputError(f"run.time_step: {dt:g} s is longer than the run ({run_length:g} s)")
-    if run_length / dt > 10**9:
-        raise InputError(f"run.time_step: {dt:g} s makes more than 10^9 steps; use a longer one")
-    if interval > run_length:
-        raise InputError(
-            f"run.output_interval: {interval:g} s is longer than the run ({run_length:g} s)"
-        )
-    ratio = interval / dt
-    if abs(ratio - round(ratio)) > 1e-9 * max(ratio, 1.0) or round(ratio) < 1:
-        raise InputError(
-            f"run.output_interval = {interval:g} s is not a whole multiple of run.time_step = "
-            f"{dt:g} s; choose e.g. {max(round(ratio), 1) * dt:g} s"
-        )
+    start, end, run_length, dt, interval = _run_times(run)
     releases = _build_releases(s["releases"], start, end, geographic)
     total = sum(r.particles for r in releases)
     if total > MAX_PARTICLES:
@@ -135,32 +113,11 @@ def _build(
         )
     flow = _build_flow(s["flow"], base, start, end, run_length)
     dispersion = _build_dispersion(s["dispersion"])
-    decay = s["decay"] or {"rate": None, "half_life": None}
-    if decay["half_life"] is not None:
-        decay_rate = math.log(2.0) / decay["half_life"]
-    else:
-        decay_rate = decay["rate"] or 0.0
-    edges = s["edges"] or {name: "absorbing" for name in EDGE_NAMES}
-    base_transport = Transport(
-        dt=dt,
-        dispersion=Dispersion(k1=0.0, k2=0.0, multiplier=dispersion.multiplier),
-        scheme=run["scheme"],
-        decay_rate=decay_rate,
-        edges=dict(edges),
-    )
-    transport = (
-        dataclasses.replace(base_transport, dispersion=dispersion.constant)
-        if dispersion.constant is not None
-        else None
-    )
+    base_transport, transport = _transports(s, run["scheme"], dt, dispersion)
     out = s["output"]
     grid = _build_output_grid(out["grid"], out["bandwidth"], geographic)
     receptors = _build_receptors(s["receptors"])
-    output_path = _resolve_path(out["file"] or f"{stem}.nc", base, "output.file")
-    if output_path.suffix != ".nc":
-        raise InputError(f"output.file = {str(output_path)!r}: the name must end in .nc")
-    if source_path is not None and output_path.resolve() == source_path:
-        raise InputError("output.file: would overwrite the scenario file itself")
+    output_path = _output_path(out["file"], stem, base, source_path)
     ensemble = (
         _build_ensemble(s["ensemble"], releases, start, run_length)
         if s["ensemble"] is not None
@@ -195,3 +152,66 @@ def _build(
         source_path=source_path,
         transport_base=base_transport,
     )
+
+
+def _run_times(run: dict[str, Any]) -> tuple[datetime, datetime, float, float, float]:
+    """The run's start and end, its length, time step and output interval (s), checked against
+    each other."""
+    start, end = run["start"], run["end"]
+    run_length = _seconds(start, end)
+    if not run_length > 0:
+        raise InputError(
+            f"run.end = {end.isoformat()}: must be after run.start = {start.isoformat()}"
+        )
+    dt, interval = run["time_step"], run["output_interval"]
+    if dt > run_length:
+        raise InputError(f"run.time_step: {dt:g} s is longer than the run ({run_length:g} s)")
+    if run_length / dt > 10**9:
+        raise InputError(f"run.time_step: {dt:g} s makes more than 10^9 steps; use a longer one")
+    if interval > run_length:
+        raise InputError(
+            f"run.output_interval: {interval:g} s is longer than the run ({run_length:g} s)"
+        )
+    ratio = interval / dt
+    if abs(ratio - round(ratio)) > 1e-9 * max(ratio, 1.0) or round(ratio) < 1:
+        raise InputError(
+            f"run.output_interval = {interval:g} s is not a whole multiple of run.time_step = "
+            f"{dt:g} s; choose e.g. {max(round(ratio), 1) * dt:g} s"
+        )
+    return start, end, run_length, dt, interval
+
+
+def _transports(
+    s: dict[str, Any], scheme: str, dt: float, dispersion: DispersionSpec
+) -> tuple[Transport, Transport | None]:
+    """The run's transport without a meaningful dispersion (zero coefficients), and with it when
+    the dispersion is constant (None when it is estimated from the flow)."""
+    decay = s["decay"] or {"rate": None, "half_life": None}
+    if decay["half_life"] is not None:
+        decay_rate = math.log(2.0) / decay["half_life"]
+    else:
+        decay_rate = decay["rate"] or 0.0
+    edges = s["edges"] or {name: "absorbing" for name in EDGE_NAMES}
+    base_transport = Transport(
+        dt=dt,
+        dispersion=Dispersion(k1=0.0, k2=0.0, multiplier=dispersion.multiplier),
+        scheme=scheme,
+        decay_rate=decay_rate,
+        edges=dict(edges),
+    )
+    transport = (
+        dataclasses.replace(base_transport, dispersion=dispersion.constant)
+        if dispersion.constant is not None
+        else None
+    )
+    return base_transport, transport
+
+
+def _output_path(file: str | None, stem: str, base: Path, source_path: Path | None) -> Path:
+    """The output file (``<stem>.nc`` beside the scenario unless given), checked."""
+    output_path = _resolve_path(file or f"{stem}.nc", base, "output.file")
+    if output_path.suffix != ".nc":
+        raise InputError(f"output.file = {str(output_path)!r}: the name must end in .nc")
+    if source_path is not None and output_path.resolve() == source_path:
+        raise InputError("output.file: would overwrite the scenario file itself")
+    return output_path

@@ -6,12 +6,7 @@ The validator (:mod:`walkers.scenario.walk`) and the reference page ``docs/scena
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING
-
 from walkers.scenario.config import EDGE_NAMES
-
-if TYPE_CHECKING:
-    pass
 from walkers.scenario.keys import FLOW_ROLES, Choice, Key, Section
 
 _EDGE = Key(

@@ -8,13 +8,9 @@ import dataclasses
 from dataclasses import dataclass
 from datetime import datetime
 from pathlib import Path
-from typing import TYPE_CHECKING, Any, Literal
+from typing import Any, Literal
 
 from walkers.scenario.config import Dispersion, OutputGrid, Receptor, Release, Transport
-
-if TYPE_CHECKING:
-    pass
-
 
 # --------------------------------------------------------------------------------------------
 # The typed objects produced.

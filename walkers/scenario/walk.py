@@ -9,14 +9,11 @@ import difflib
 import math
 from datetime import datetime
 from pathlib import Path
-from typing import TYPE_CHECKING, Any
+from typing import Any
 
 from walkers.errors import InputError
-from walkers.scenario.units import accepted_units, parse_quantity, unit_factor
-
-if TYPE_CHECKING:
-    pass
 from walkers.scenario.keys import KINDS, Choice, Key, Section
+from walkers.scenario.units import accepted_units, parse_quantity, unit_factor
 
 # --------------------------------------------------------------------------------------------
 # Walking a table against the schema.
