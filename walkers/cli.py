@@ -13,11 +13,16 @@ import sys
 import time
 import traceback
 from pathlib import Path
+from typing import TYPE_CHECKING, Any
 
 import click
 
 import walkers
 from walkers.errors import InputError, WalkersError
+
+if TYPE_CHECKING:
+    from walkers.run.checkpoint import Checkpointer
+    from walkers.scenario.specs import Scenario
 
 EXIT_INPUT = 2
 EXIT_FAILURE = 1
@@ -157,16 +162,13 @@ def run_command(
     Ctrl-C or SIGTERM stops the run at once, writes nothing under the output name and says how
     to resume when a checkpoint was saved.
     """
-    import datetime as dt
     import signal
     import threading
 
     from walkers.api import run_scenario
     from walkers.run.checkpoint import (
-        Checkpointer,
         checkpoint_path,
         load_checkpoint,
-        read_checkpoint_meta,
         remove_checkpoint,
         run_fingerprint,
     )
@@ -192,19 +194,7 @@ def run_command(
                 f"{str(ckpt)!r}: a checkpoint of an interrupted run of this output exists; "
                 "continue that run with --resume, or delete the checkpoint to start afresh"
             )
-        saver = None
-        if every is not None:
-            outputs = int(round(sc.duration / sc.output_interval)) + 1
-            saver = Checkpointer(
-                ckpt,
-                fingerprint,
-                every,
-                sc.output_interval,
-                outputs,
-                time_of=lambda k: (
-                    sc.start + dt.timedelta(seconds=k * sc.output_interval)
-                ).isoformat(),
-            )
+        saver = None if every is None else _checkpointer(sc, ckpt, fingerprint, every)
         try:
             outcome = run_scenario(
                 sc,
@@ -216,27 +206,7 @@ def run_command(
                 on_output=saver,
             )
         except KeyboardInterrupt:
-            if ckpt.exists():
-                again = [f"walkers run {scenario}"]
-                if output is not None:
-                    again.append(f"-o {output}")
-                if engine != "compiled":
-                    again.append(f"--engine {engine}")
-                again.append("--resume")
-                if checkpoint_every is not None:
-                    again.append(f'--checkpoint-every "{checkpoint_every}"')
-                last = read_checkpoint_meta(ckpt).get("time") or "an output time"
-                click.echo(
-                    f"walkers: the run state at {last} is saved in {ckpt}; continue with: "
-                    f"{' '.join(again)}",
-                    err=True,
-                )
-            else:
-                click.echo(
-                    "walkers: no checkpoint was saved; to be able to resume an interrupted run, "
-                    'pass --checkpoint-every (e.g. "2 h")',
-                    err=True,
-                )
+            _say_how_to_resume(ckpt, scenario, output, engine, checkpoint_every)
             raise
         remove_checkpoint(ckpt)
     finally:
@@ -251,6 +221,55 @@ def run_command(
         figdir.mkdir(exist_ok=True)
         for p in plot_results(outcome.path, figdir):
             click.echo(f"wrote {p}")
+
+
+def _checkpointer(
+    sc: Scenario, ckpt: Path, fingerprint: dict[str, Any], every: float
+) -> Checkpointer:
+    """The ``on_output`` callback that saves the run state every ``every`` seconds of simulated
+    time (at output times)."""
+    import datetime as dt
+
+    from walkers.run.checkpoint import Checkpointer
+
+    outputs = int(round(sc.duration / sc.output_interval)) + 1
+    return Checkpointer(
+        ckpt,
+        fingerprint,
+        every,
+        sc.output_interval,
+        outputs,
+        time_of=lambda k: (sc.start + dt.timedelta(seconds=k * sc.output_interval)).isoformat(),
+    )
+
+
+def _say_how_to_resume(
+    ckpt: Path, scenario: Path, output: Path | None, engine: str, checkpoint_every: str | None
+) -> None:
+    """After an interruption: the command that continues the run, or why it cannot be."""
+    from walkers.run.checkpoint import read_checkpoint_meta
+
+    if ckpt.exists():
+        again = [f"walkers run {scenario}"]
+        if output is not None:
+            again.append(f"-o {output}")
+        if engine != "compiled":
+            again.append(f"--engine {engine}")
+        again.append("--resume")
+        if checkpoint_every is not None:
+            again.append(f'--checkpoint-every "{checkpoint_every}"')
+        last = read_checkpoint_meta(ckpt).get("time") or "an output time"
+        click.echo(
+            f"walkers: the run state at {last} is saved in {ckpt}; continue with: "
+            f"{' '.join(again)}",
+            err=True,
+        )
+    else:
+        click.echo(
+            "walkers: no checkpoint was saved; to be able to resume an interrupted run, "
+            'pass --checkpoint-every (e.g. "2 h")',
+            err=True,
+        )
 
 
 @main.command("inspect")
