@@ -122,6 +122,19 @@ def _local_cluster(workers: int) -> Any:
     )
 
 
+def _connect(scheduler: str | None) -> Any:
+    """A Dask client of the running scheduler at ``scheduler`` (InputError if unreachable)."""
+    from dask.distributed import Client
+
+    try:
+        return Client(scheduler, timeout="20s")
+    except (OSError, TimeoutError, ValueError) as exc:
+        raise InputError(
+            f"scheduler {scheduler!r}: cannot connect ({exc}); give the address of a "
+            "running Dask scheduler such as tcp://127.0.0.1:8786"
+        ) from None
+
+
 def run_ensemble(
     scenario: Scenario | dict | str | Path,
     *,
@@ -187,13 +200,7 @@ def run_ensemble(
                 cluster = _local_cluster(workers)
                 client = Client(cluster)
             else:
-                try:
-                    client = Client(scheduler, timeout="20s")
-                except (OSError, TimeoutError, ValueError) as exc:
-                    raise InputError(
-                        f"scheduler {scheduler!r}: cannot connect ({exc}); give the address of a "
-                        "running Dask scheduler such as tcp://127.0.0.1:8786"
-                    ) from None
+                client = _connect(scheduler)
             results = _iterate_dask(client, recipe, ranges, thr)
         else:
             results = _iterate_in_process(recipe, ranges, thr)

@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import os
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import xarray as xr
@@ -109,27 +110,7 @@ def plot_probability_map(
             ax.clabel(lines, fmt="%.1f", fontsize=7)
         cax = ax.inset_axes((1.03, 0.0, 0.035, 1.0))
         fig.colorbar(mesh, cax=cax).set_label("exceedance probability (1)")
-        if "receptor_x" in ds and ds.sizes.get("receptor", 0):
-            ax.plot(
-                ds["receptor_x"].values,
-                ds["receptor_y"].values,
-                "o",
-                mfc="none",
-                mec=RECEPTOR_COLOUR,
-                mew=1.4,
-                ms=7,
-            )
-            for name, rx, ry in zip(
-                ds["receptor"].values, ds["receptor_x"].values, ds["receptor_y"].values, strict=True
-            ):
-                ax.annotate(
-                    str(name),
-                    (rx, ry),
-                    xytext=(5, 4),
-                    textcoords="offset points",
-                    fontsize=7,
-                    color=RECEPTOR_COLOUR,
-                )
+        _mark_receptors(ax, ds)
         ax.set_xlabel(_axis_label(ds, "x"))
         ax.set_ylabel(_axis_label(ds, "y"))
         ax.set_aspect("equal" if ds["x"].attrs.get("units", "m") == "m" else "auto")
@@ -138,6 +119,32 @@ def plot_probability_map(
     _footer(fig, f"{when}; contours at P = {', '.join(f'{p:g}' for p in PROBABILITY_LEVELS)}")
     fig.savefig(path)
     return Path(path)
+
+
+def _mark_receptors(ax: Any, ds: xr.Dataset) -> None:
+    """Receptors as open circles with their names, when the ensemble has any."""
+    if not ("receptor_x" in ds and ds.sizes.get("receptor", 0)):
+        return
+    ax.plot(
+        ds["receptor_x"].values,
+        ds["receptor_y"].values,
+        "o",
+        mfc="none",
+        mec=RECEPTOR_COLOUR,
+        mew=1.4,
+        ms=7,
+    )
+    for name, rx, ry in zip(
+        ds["receptor"].values, ds["receptor_x"].values, ds["receptor_y"].values, strict=True
+    ):
+        ax.annotate(
+            str(name),
+            (rx, ry),
+            xytext=(5, 4),
+            textcoords="offset points",
+            fontsize=7,
+            color=RECEPTOR_COLOUR,
+        )
 
 
 def plot_receptor_distributions(

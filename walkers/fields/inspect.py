@@ -110,8 +110,41 @@ def describe_flow(
         if isinstance(path_or_flow, FlowField)
         else open_flow(path_or_flow, **open_options)
     )
-    unit = "degrees" if flow.geographic else "m"
     lines = [f"Flow field: {flow.source}"]
+    wx, wy = _describe_grid(flow, lines)
+    _describe_times(flow, lines)
+    roles = flow.attrs.get("roles", {})
+    file_units = flow.attrs.get("file_units", {})
+    if roles:
+        lines.append("  variables:")
+        for role, name in roles.items():
+            fu = file_units.get(role, "")
+            lines.append(f"    {role:<12} {name}" + (f"  [{fu}]" if fu else ""))
+        if flow.attrs.get("constant_depth") is not None:
+            lines.append(f"    depth        constant {flow.attrs['constant_depth']:.10g}")
+
+    vmax = _describe_water(flow, lines)
+    widths = wx if flow.ndim == 1 else np.fmin(wx, wy)
+    cell = float(np.nanmin(widths))
+    dt_max = stable_time_step(cell, vmax, dispersion)
+    lines.append(
+        f"  largest stable time step: {dt_max:.4g} s for K = {dispersion:.10g} m2 s-1 "
+        f"(smallest cell {cell:.4g} m; |u| dt and sqrt(2 K dt) each under one cell)"
+    )
+    if dt is not None:
+        adv, disp = vmax * dt / cell, np.sqrt(2.0 * dispersion * dt) / cell
+        verdict = "fits" if max(adv, disp) <= 1.0 else "is too long: shorten it or sub-step"
+        lines.append(
+            f"  time step {dt:.10g} s {verdict} (|u| dt = {adv:.3g} cells, "
+            f"sqrt(2 K dt) = {disp:.3g} cells)"
+        )
+    lines.append(f"  Caution: {CAUTION}")
+    return "\n".join(lines)
+
+
+def _describe_grid(flow: FlowField, lines: list[str]) -> tuple[np.ndarray, np.ndarray]:
+    """Report lines on the grid: size, spacing, extent and CRS; returns the cell widths (m)."""
+    unit = "degrees" if flow.geographic else "m"
     nx, ny = flow.x.size, flow.y.size
     lines.append(
         f"  grid: {nx} x {ny} cells (x by y), {'1-D channel' if flow.ndim == 1 else '2-D'}, "
@@ -131,6 +164,11 @@ def describe_flow(
     west, east, south, north = flow.extent()
     lines.append(f"  extent: x {west:.10g} to {east:.10g}, y {south:.10g} to {north:.10g} {unit}")
     lines.append(f"  CRS: {_crs_text(flow)}")
+    return wx, wy
+
+
+def _describe_times(flow: FlowField, lines: list[str]) -> None:
+    """Report lines on the frames: first and last time, interval, calendar."""
     nt = flow.times.size
     if flow.steady:
         lines.append("  time: steady (one frame)")
@@ -146,16 +184,11 @@ def describe_flow(
             f"{flow_time_iso(flow, flow.times[-1])}, {nt} frames every {step} "
             f"(calendar {flow.calendar})"
         )
-    roles = flow.attrs.get("roles", {})
-    file_units = flow.attrs.get("file_units", {})
-    if roles:
-        lines.append("  variables:")
-        for role, name in roles.items():
-            fu = file_units.get(role, "")
-            lines.append(f"    {role:<12} {name}" + (f"  [{fu}]" if fu else ""))
-        if flow.attrs.get("constant_depth") is not None:
-            lines.append(f"    depth        constant {flow.attrs['constant_depth']:.10g}")
 
+
+def _describe_water(flow: FlowField, lines: list[str]) -> float:
+    """Report lines on land or dry cells and speeds over all frames; returns the top speed."""
+    nt = flow.times.size
     dry_min, dry_max, vmin, vmax = 1.0, 0.0, np.inf, 0.0
     for i0 in range(0, nt, _CHUNK):
         i1 = min(i0 + _CHUNK - 1, nt - 1)
@@ -170,22 +203,7 @@ def describe_flow(
     )
     lines.append(f"  speed in water: {vmin:.4g} to {vmax:.4g} m s-1")
 
-    widths = wx if flow.ndim == 1 else np.fmin(wx, wy)
-    cell = float(np.nanmin(widths))
-    dt_max = stable_time_step(cell, vmax, dispersion)
-    lines.append(
-        f"  largest stable time step: {dt_max:.4g} s for K = {dispersion:.10g} m2 s-1 "
-        f"(smallest cell {cell:.4g} m; |u| dt and sqrt(2 K dt) each under one cell)"
-    )
-    if dt is not None:
-        adv, disp = vmax * dt / cell, np.sqrt(2.0 * dispersion * dt) / cell
-        verdict = "fits" if max(adv, disp) <= 1.0 else "is too long: shorten it or sub-step"
-        lines.append(
-            f"  time step {dt:.10g} s {verdict} (|u| dt = {adv:.3g} cells, "
-            f"sqrt(2 K dt) = {disp:.3g} cells)"
-        )
-    lines.append(f"  Caution: {CAUTION}")
-    return "\n".join(lines)
+    return vmax
 
 
 def draw_speed_map(flow: FlowField, png_path: str | os.PathLike, frame: int = 0) -> None:

@@ -299,29 +299,22 @@ def simulate(
             t = float(times[k])
             if k > 0:
                 t_prev = float(times[k - 1])
-                window = flow.window(t_prev, t)
-                check_window_velocity(flow, window)
-                inputs = mover.kernel_inputs(flow, window, transport)
+                step0 = (k - 1) * steps_per_output
                 _advance_interval(
                     particles,
                     owner,
                     releases,
                     flow,
-                    inputs,
+                    transport,
                     t_prev,
+                    t,
                     dt,
                     steps_per_output,
-                    (k - 1) * steps_per_output,
+                    step0,
                     walk_key,
                     engine,
                 )
-            window_now = flow.window(t, t)
-            frame = (
-                0
-                if window_now.depth.shape[0] == 1
-                else int(np.argmin(np.abs(window_now.times - t)))
-            )
-            depths = reduce.particle_depths(particles, window_now.depth[frame], xe, ye)
+            depths = _particle_depths_at(particles, flow, t, xe, ye)
             conc, count = reduce.concentration(particles, depths, output_grid, measure)
             acc.record(
                 k, particles, depths, conc, count, receptors, output_grid, flow, mpu, track_index
@@ -379,20 +372,33 @@ def _advance_interval(
     owner: np.ndarray,
     releases: Sequence[Release],
     flow: FlowField,
-    inputs: mover.KernelInputs,
+    transport: Transport,
     t_prev: float,
+    t: float,
     dt: float,
     steps: int,
     step0: int,
     walk_key: int,
     engine: Literal["compiled", "numpy"],
 ) -> None:
-    """Move the particles through one output interval of ``steps`` steps from ``t_prev``, in
-    calls of at most :data:`PARTICLE_STEPS_PER_CALL` particle-steps, checking positions after
-    each call."""
+    """Move the particles through the output interval from ``t_prev`` to ``t`` in ``steps`` steps
+    of ``dt`` (the first numbered ``step0``), in calls of at most :data:`PARTICLE_STEPS_PER_CALL`
+    particle-steps, checking positions after each call."""
+    window = flow.window(t_prev, t)
+    check_window_velocity(flow, window)
+    inputs = mover.kernel_inputs(flow, window, transport)
     per_call = max(1, PARTICLE_STEPS_PER_CALL // max(len(particles), 1))
     for s in range(0, steps, per_call):
         n = min(per_call, steps - s)
         t_call = t_prev + s * dt
         mover.advance(particles, inputs, t_call, dt, n, step0 + s, walk_key, engine)
         _check_positions(particles, owner, releases, flow, t_call, t_call + n * dt)
+
+
+def _particle_depths_at(
+    particles: ParticleState, flow: FlowField, t: float, xe: np.ndarray, ye: np.ndarray
+) -> np.ndarray:
+    """The water depth (m) at each particle at time ``t``: the flow frame nearest in time."""
+    window_now = flow.window(t, t)
+    frame = 0 if window_now.depth.shape[0] == 1 else int(np.argmin(np.abs(window_now.times - t)))
+    return reduce.particle_depths(particles, window_now.depth[frame], xe, ye)

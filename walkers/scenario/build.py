@@ -263,47 +263,52 @@ def _is_file(path: Path) -> bool:
         return False
 
 
+def _files_flow(f: dict[str, Any], base_dir: Path, start: datetime, end: datetime) -> FlowSpec:
+    """The flow spec of flow files: paths (globs expanded, each file checked), CRS checked."""
+    paths: list[Path] = []
+    for i, name in enumerate(f["files"]):
+        where = f"flow.files[{i}]" if len(f["files"]) > 1 else "flow.files"
+        pattern = _resolve_path(name, base_dir, where)
+        if any(c in name for c in "*?["):
+            found = sorted(Path(p) for p in glob.glob(str(pattern)))
+            if not found:
+                raise InputError(f"{where} = {name!r}: no file matches {pattern}")
+            paths.extend(found)
+        elif not _is_file(pattern):
+            raise InputError(
+                f"{where} = {name!r}: no such file {pattern} (paths are relative to the "
+                "scenario file)"
+            )
+        else:
+            paths.append(pattern)
+    crs = f["crs"]
+    if crs is not None:
+        import pyproj
+
+        try:
+            pyproj.CRS.from_user_input(crs)
+        except pyproj.exceptions.CRSError:
+            raise InputError(
+                f"flow.crs = {crs!r}: not a coordinate reference system pyproj knows; give "
+                'e.g. "EPSG:32631" or a WKT string'
+            ) from None
+    return FlowSpec(
+        kind="files",
+        paths=tuple(paths),
+        variables={k: v for k, v in (f["variables"] or {}).items() if v is not None},
+        units={k: v for k, v in (f["units"] or {}).items() if v is not None},
+        crs=crs,
+        min_depth=f["minimum_depth"],
+        constant_depth=f["depth"],
+        time_range=(start.isoformat(), end.isoformat()),
+    )
+
+
 def _build_flow(
     f: dict[str, Any], base_dir: Path, start: datetime, end: datetime, duration: float
 ) -> FlowSpec:
     if f["files"] is not None:
-        paths: list[Path] = []
-        for i, name in enumerate(f["files"]):
-            where = f"flow.files[{i}]" if len(f["files"]) > 1 else "flow.files"
-            pattern = _resolve_path(name, base_dir, where)
-            if any(c in name for c in "*?["):
-                found = sorted(Path(p) for p in glob.glob(str(pattern)))
-                if not found:
-                    raise InputError(f"{where} = {name!r}: no file matches {pattern}")
-                paths.extend(found)
-            elif not _is_file(pattern):
-                raise InputError(
-                    f"{where} = {name!r}: no such file {pattern} (paths are relative to the "
-                    "scenario file)"
-                )
-            else:
-                paths.append(pattern)
-        crs = f["crs"]
-        if crs is not None:
-            import pyproj
-
-            try:
-                pyproj.CRS.from_user_input(crs)
-            except pyproj.exceptions.CRSError:
-                raise InputError(
-                    f"flow.crs = {crs!r}: not a coordinate reference system pyproj knows; give "
-                    'e.g. "EPSG:32631" or a WKT string'
-                ) from None
-        return FlowSpec(
-            kind="files",
-            paths=tuple(paths),
-            variables={k: v for k, v in (f["variables"] or {}).items() if v is not None},
-            units={k: v for k, v in (f["units"] or {}).items() if v is not None},
-            crs=crs,
-            min_depth=f["minimum_depth"],
-            constant_depth=f["depth"],
-            time_range=(start.isoformat(), end.isoformat()),
-        )
+        return _files_flow(f, base_dir, start, end)
     a = f["analytic"]
     west, east, south, north = a["extent"]
     nx, ny = a["cells"]

@@ -253,7 +253,12 @@ def _convert(spec: Key, raw: object, where: str) -> Any:
                 f"{where} = {raw!r}: expected a file path or a non-empty list of file paths"
             )
         return [p.strip() for p in items]
-    # The remaining kinds are lists.
+    return _convert_list(spec, raw, where)
+
+
+def _convert_list(spec: Key, raw: object, where: str) -> Any:
+    """Convert a value of one of the list kinds; raise InputError naming ``where`` if it is bad."""
+    kind = spec.kind
     if not isinstance(raw, list) or not raw:
         raise InputError(
             f"{where} = {raw!r}: expected a non-empty list ({KINDS[kind]}), got {_type_name(raw)}"
