@@ -20,7 +20,7 @@ import xarray as xr
 from pyproj import CRS
 
 import walkers
-from walkers.config import EDGE_NAMES
+from walkers.scenario.config import EDGE_NAMES
 
 MASS = 500.0  # kg released
 DEPTH = 4.0  # m

@@ -23,18 +23,13 @@ from click.testing import CliRunner
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from walkers import simulate as simulate_module
 from walkers.cli import main
-from walkers.config import Dispersion, OutputGrid, Release, Transport
 from walkers.errors import InputError, RunFailure
 from walkers.fields.analytic import grid_flow
-from walkers.runner import PARTICLE_WORKING_BYTES
-from walkers.simulate import (
-    MAX_DECAY_STEPS,
-    UNIT_ROUNDOFF,
-    check_budget_precision,
-    simulate,
-)
+from walkers.run import simulate as simulate_module
+from walkers.run.runner import PARTICLE_WORKING_BYTES
+from walkers.run.simulate import MAX_DECAY_STEPS, UNIT_ROUNDOFF, check_budget_precision, simulate
+from walkers.scenario.config import Dispersion, OutputGrid, Release, Transport
 
 # An analytic-flow scenario that runs in a fraction of a second (an invented channel).
 ANALYTIC = """\

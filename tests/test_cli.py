@@ -15,9 +15,9 @@ from click.testing import CliRunner
 from test_io import cf_errors
 
 import walkers
+from walkers.api import run_scenario
 from walkers.cli import main
-from walkers.runner import run_scenario
-from walkers.scenario import load_scenario
+from walkers.scenario.load import load_scenario
 
 SCENARIOS = Path(__file__).resolve().parents[1] / "scenarios"
 

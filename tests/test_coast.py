@@ -1,7 +1,7 @@
 """Gridded coasts: land walls hold particles and keep a well-mixed tracer well mixed at steps
 comparable to the cells, and a deliberately wrong wall rule fails the same checks.
 
-Sources are named beside every check in ``walkers.verify_coast``: the method of images (Carslaw &
+Sources are named beside every check in ``walkers.verify.coast``: the method of images (Carslaw &
 Jaeger 1959) and the well-mixed condition (Hunter, Craig & Phillips 1993; Visser 1997), with
 5-sigma tolerances from sampling theory.
 """
@@ -9,12 +9,12 @@ Jaeger 1959) and the well-mixed condition (Hunter, Craig & Phillips 1993; Visser
 import numpy as np
 import pytest
 
-from walkers.config import Dispersion, Transport
 from walkers.engine import kernels, mover, twin
 from walkers.engine.state import IN_WATER, STRANDED, ParticleState
 from walkers.engine.timestep import check_time_step
 from walkers.fields.analytic import grid_flow
-from walkers.verify_coast import (
+from walkers.scenario.config import Dispersion, Transport
+from walkers.verify.coast import (
     case_coast_well_mixed,
     case_land_wall_images,
     case_thin_barrier,

@@ -16,7 +16,7 @@ import numpy as np
 import pytest
 from scipy import integrate, special
 
-from walkers.coefficients import (
+from walkers.engine.coefficients import (
     ELDER_COEFFICIENT,
     GRAVITY,
     TRANSVERSE_MEANDERING,

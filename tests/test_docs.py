@@ -17,10 +17,10 @@ from pathlib import Path
 import pytest
 import xarray as xr
 
-from walkers.io import write_results
-from walkers.runner import simulate_scenario
-from walkers.scenario import load_scenario
-from walkers.verify import CASES
+from walkers.outputs.writer import write_results
+from walkers.run.runner import simulate_scenario
+from walkers.scenario.load import load_scenario
+from walkers.verify.cases import CASES
 
 REPO = Path(__file__).resolve().parents[1]
 DOCS = REPO / "docs"
@@ -68,7 +68,8 @@ def test_outputs_doc_names_every_variable_of_a_tracks_file(run_files, outputs_te
 
 
 def test_outputs_doc_names_every_variable_of_an_ensemble_file(tmp_path, outputs_text) -> None:
-    ensemble = pytest.importorskip("walkers.ensemble")
+    execute = pytest.importorskip("walkers.ensemble.execute")
+    assemble = pytest.importorskip("walkers.ensemble.assemble")
     raw = {
         "run": {
             "start": "2026-05-04T06:00:00Z",
@@ -110,7 +111,7 @@ def test_outputs_doc_names_every_variable_of_an_ensemble_file(tmp_path, outputs_
             "dispersion_multiplier_max": 2.0,
         },
     }
-    path = ensemble.write_ensemble(ensemble.run_ensemble(raw), tmp_path / "ens.nc")
+    path = assemble.write_ensemble(execute.run_ensemble(raw), tmp_path / "ens.nc")
     with xr.open_dataset(path) as ds:
         assert "window_exceedance_probability" in ds
         assert undocumented(ds, outputs_text) == []

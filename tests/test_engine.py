@@ -4,13 +4,13 @@ import numba
 import numpy as np
 import pytest
 
-from walkers.config import Dispersion, OutputGrid, Release, Transport
 from walkers.engine import kernels, mover, twin
 from walkers.engine.state import IN_WATER, LEFT, WAITING, ParticleState
 from walkers.errors import InputError
 from walkers.fields.analytic import analytic_flow, grid_flow
 from walkers.fields.base import centre_to_edges
-from walkers.simulate import simulate
+from walkers.run.simulate import simulate
+from walkers.scenario.config import Dispersion, OutputGrid, Release, Transport
 
 
 def harbour_flow():

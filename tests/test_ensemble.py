@@ -31,19 +31,16 @@ import xarray as xr
 from scipy import stats
 
 import walkers
-from walkers import ensemble
-from walkers.config import Release
-from walkers.ensemble import (
-    batches,
-    draw_source,
-    percentiles_with_ci,
-    run_ensemble,
-    threshold_crossing,
-    write_ensemble,
-)
+from walkers.ensemble import execute
+from walkers.ensemble.assemble import write_ensemble
+from walkers.ensemble.batches import batches, percentiles_with_ci
+from walkers.ensemble.draws import draw_source
+from walkers.ensemble.execute import run_ensemble
+from walkers.ensemble.members import threshold_crossing
 from walkers.errors import InputError
 from walkers.fields.analytic import analytic_flow
-from walkers.scenario import EnsembleSpec
+from walkers.scenario.config import Release
+from walkers.scenario.specs import EnsembleSpec
 
 sys.path.insert(0, str(Path(__file__).parent))
 from test_io import cf_errors  # noqa: E402
@@ -347,7 +344,7 @@ def test_output_file_passes_the_cf_checker(analytic_result, tmp_path):
 
 
 def test_figures_are_drawn(analytic_result, tmp_path):
-    from walkers.plots_ensemble import plot_ensemble
+    from walkers.ensemble.figures import plot_ensemble
 
     files = plot_ensemble(analytic_result, tmp_path)
     assert [f.name for f in files] == ["probability_thr0.png", "receptor_distributions.png"]
@@ -381,7 +378,7 @@ def in_process() -> xr.Dataset:
 @pytest.fixture(scope="module")
 def cluster():
     pytest.importorskip("dask.distributed")
-    with ensemble._local_cluster(2) as local:
+    with execute._local_cluster(2) as local:
         yield local
 
 

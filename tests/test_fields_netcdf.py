@@ -22,13 +22,9 @@ from scipy.interpolate import RegularGridInterpolator
 
 from walkers.errors import InputError
 from walkers.fields import geo
-from walkers.fields.netcdf import (
-    check_points_in_water,
-    check_time_window,
-    flow_time_iso,
-    open_flow,
-    to_flow_seconds,
-)
+from walkers.fields.netcdf.open import open_flow
+from walkers.fields.scenario_flow import check_points_in_water
+from walkers.fields.times import check_time_window, flow_time_iso, to_flow_seconds
 
 sys.path.insert(0, str(Path(__file__).parent))
 import flowfiles as ff  # noqa: E402

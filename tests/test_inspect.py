@@ -16,7 +16,7 @@ import numpy as np
 import pytest
 
 from walkers import CAUTION
-from walkers.fields.netcdf import open_flow
+from walkers.fields.netcdf.open import open_flow
 from walkers.inspect import _iso_duration, describe_flow, draw_speed_map
 
 sys.path.insert(0, str(Path(__file__).parent))

@@ -20,11 +20,11 @@ import xarray as xr
 from click.testing import CliRunner
 from test_bad_inputs import one_thread  # noqa: F401 (autouse: in-process runs on one thread)
 
-import walkers.checkpoint as checkpoint
+import walkers.run.checkpoint as checkpoint
+from walkers.api import run_scenario
 from walkers.cli import main
 from walkers.errors import InputError
-from walkers.runner import run_scenario
-from walkers.scenario import load_scenario
+from walkers.scenario.load import load_scenario
 
 # An invented tidal channel: 145 outputs of 10 min, so a run is long enough to be caught.
 SCENARIO = """\

@@ -27,9 +27,13 @@ import pytest
 import xarray as xr
 
 import walkers
-import walkers.io as wio
+import walkers.files
+import walkers.outputs.writer as wio
 from walkers.errors import InputError
-from walkers.io import read_results, receptors_to_csv, tracks_path, write_results, write_tracks
+from walkers.fields.times import iso_times
+from walkers.outputs.export import receptors_to_csv
+from walkers.outputs.reader import read_results
+from walkers.outputs.writer import tracks_path, write_results, write_tracks
 
 sys.path.insert(0, str(Path(__file__).parent))
 from results_fixture import gaussian_puff_results  # noqa: E402
@@ -228,7 +232,7 @@ def test_a_run_without_receptors_in_its_receptor_dimension_is_not_a_time_series(
 
 def test_iso_times_keep_the_zone_of_the_reference():
     ds = gaussian_puff_results(nt=3)
-    assert wio.iso_times(ds["time"]) == [
+    assert iso_times(ds["time"]) == [
         "2024-05-14T06:00:00+02:00",
         "2024-05-14T07:30:00+02:00",
         "2024-05-14T09:00:00+02:00",
@@ -356,7 +360,7 @@ def test_unwritable_output_directory_is_named(tmp_path, monkeypatch):
     # permissions do not bind root, so the refusal the operating system would give is simulated
     locked = tmp_path / "locked"
     locked.mkdir()
-    monkeypatch.setattr(wio.os, "access", lambda path, mode: Path(path) != locked)
+    monkeypatch.setattr(walkers.files.os, "access", lambda path, mode: Path(path) != locked)
     with pytest.raises(InputError, match="locked.*not writable"):
         write_results(gaussian_puff_results(), locked / "run.nc")
     assert list(locked.iterdir()) == []
@@ -401,9 +405,9 @@ def test_receptors_csv_without_receptors_is_an_input_error(tmp_path):
 
 
 def test_a_real_small_run_passes_the_cf_checker_and_gdal(tmp_path):
-    simulate = pytest.importorskip("walkers.simulate").simulate
-    from walkers.config import Dispersion, OutputGrid, Receptor, Release, Transport
+    simulate = pytest.importorskip("walkers.run.simulate").simulate
     from walkers.fields.analytic import analytic_flow
+    from walkers.scenario.config import Dispersion, OutputGrid, Receptor, Release, Transport
 
     flow = analytic_flow(
         "uniform", u=0.3, x_range=(-2000, 2000), y_range=(-1000, 1000), nx=21, ny=11

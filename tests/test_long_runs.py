@@ -1,8 +1,8 @@
 """Long runs in constant memory: fields streamed to a temporary store, and what must not change.
 
 A run whose 3-D fields (concentration, particle counts, smoothed concentration at every output
-time) would exceed walkers.io.FIELD_MEMORY_BUDGET writes them to temporary NetCDF4 segment files
-as the run goes, and the file writer streams them to the output one output time at a time.
+time) would exceed walkers.run.store.FIELD_MEMORY_BUDGET writes them to temporary NetCDF4 segment
+files as the run goes, and the file writer streams them to the output one output time at a time.
 Checked here:
 
 - the streamed and the in-memory run of the same case write the same numbers (np.array_equal on
@@ -34,14 +34,16 @@ import xarray as xr
 from test_bad_inputs import one_thread  # noqa: F401 (autouse: in-process runs on one thread)
 from test_interrupts import CLI, SCENARIO, assert_same_results, leftovers
 
-import walkers.checkpoint as checkpoint
-import walkers.io as wio
-from walkers.config import Dispersion, OutputGrid, Receptor, Release, Transport
+import walkers.run.checkpoint as checkpoint
+import walkers.run.store as run_store
+from walkers.api import run_scenario
+from walkers.errors import InputError
 from walkers.fields.analytic import analytic_flow
-from walkers.io import DiskFields, MemoryFields, field_store, write_results
-from walkers.runner import run_scenario
-from walkers.scenario import load_scenario
-from walkers.simulate import simulate
+from walkers.outputs.writer import write_results
+from walkers.run.simulate import simulate
+from walkers.run.store import DiskFields, MemoryFields, field_store
+from walkers.scenario.config import Dispersion, OutputGrid, Receptor, Release, Transport
+from walkers.scenario.load import load_scenario
 
 KIB = 1024
 
@@ -98,9 +100,9 @@ def test_streamed_and_in_memory_runs_write_identical_files(tmp_path):
 def test_auto_streams_only_fields_above_the_budget(tmp_path, monkeypatch):
     variables = {"concentration": np.float64, "particle_count": np.int32}
     shape = (100, 64, 64)  # 100 * 64 * 64 * 12 bytes = 4.9 MB
-    monkeypatch.setattr(wio, "FIELD_MEMORY_BUDGET", 5_000_000)
+    monkeypatch.setattr(run_store, "FIELD_MEMORY_BUDGET", 5_000_000)
     assert isinstance(field_store(shape, variables, "auto", tmp_path), MemoryFields)
-    monkeypatch.setattr(wio, "FIELD_MEMORY_BUDGET", 4_000_000)
+    monkeypatch.setattr(run_store, "FIELD_MEMORY_BUDGET", 4_000_000)
     store = field_store(shape, variables, "auto", tmp_path)
     assert isinstance(store, DiskFields)
     store.discard()
@@ -116,10 +118,10 @@ def test_auto_streams_only_fields_above_the_budget(tmp_path, monkeypatch):
 MEASURED_RUN = """
 import sys
 import numpy as np
-from walkers.config import Dispersion, OutputGrid, Release, Transport
 from walkers.fields.analytic import analytic_flow
-from walkers.io import write_results
-from walkers.simulate import simulate
+from walkers.outputs.writer import write_results
+from walkers.run.simulate import simulate
+from walkers.scenario.config import Dispersion, OutputGrid, Release, Transport
 
 outputs, n, fields, path = int(sys.argv[1]), int(sys.argv[2]), sys.argv[3], sys.argv[4]
 flow = analytic_flow("uniform", x_range=(0, 2000), y_range=(0, 2000), nx=11, ny=11)
@@ -236,8 +238,8 @@ def channel(tmp_path_factory):
 
 def test_a_resumed_run_with_fields_on_disk_gives_the_same_bits(channel, tmp_path, monkeypatch):
     case, reference = channel
-    monkeypatch.setattr(wio, "FIELD_MEMORY_BUDGET", 0)  # every run streams its fields
-    monkeypatch.setattr(wio.tempfile, "tempdir", str(tmp_path))
+    monkeypatch.setattr(run_store, "FIELD_MEMORY_BUDGET", 0)  # every run streams its fields
+    monkeypatch.setattr(run_store.tempfile, "tempdir", str(tmp_path))
     sc = load_scenario(case)
     out = tmp_path / "run.nc"
     ckpt = checkpoint.checkpoint_path(out)
@@ -272,7 +274,7 @@ def test_a_resumed_run_with_fields_on_disk_gives_the_same_bits(channel, tmp_path
 
 def test_a_checkpoint_whose_field_segment_is_gone_is_refused(channel, tmp_path, monkeypatch):
     case, _ = channel
-    monkeypatch.setattr(wio, "FIELD_MEMORY_BUDGET", 0)
+    monkeypatch.setattr(run_store, "FIELD_MEMORY_BUDGET", 0)
     sc = load_scenario(case)
     ckpt = checkpoint.checkpoint_path(tmp_path / "run.nc")
     fingerprint = checkpoint.run_fingerprint(sc, "compiled")
@@ -287,7 +289,7 @@ def test_a_checkpoint_whose_field_segment_is_gone_is_refused(channel, tmp_path, 
         run_scenario(sc, output=tmp_path / "run.nc", on_output=stop_after_save)
     segment = next(checkpoint.fields_folder(ckpt).iterdir())
     segment.unlink()
-    with pytest.raises(wio.InputError, match="missing or changed since the checkpoint"):
+    with pytest.raises(InputError, match="missing or changed since the checkpoint"):
         checkpoint.load_checkpoint(ckpt, fingerprint)
 
 
@@ -296,7 +298,7 @@ def test_a_killed_run_with_fields_on_disk_resumes_to_the_same_bits(channel, tmp_
     case, reference = channel
     out = tmp_path / "run.nc"
     ckpt = checkpoint.checkpoint_path(out)
-    streaming_cli = "import walkers.io; walkers.io.FIELD_MEMORY_BUDGET = 0; " + CLI
+    streaming_cli = "import walkers.run.store; walkers.run.store.FIELD_MEMORY_BUDGET = 0; " + CLI
     temporary = tmp_path / "tmp"
     temporary.mkdir()
     proc = subprocess.Popen(

@@ -12,8 +12,8 @@ import xarray as xr
 from PIL import Image
 
 from walkers.errors import InputError
-from walkers.io import write_results
-from walkers.plots import plot_results
+from walkers.outputs.figures import plot_results
+from walkers.outputs.writer import write_results
 
 sys.path.insert(0, str(Path(__file__).parent))
 from results_fixture import gaussian_puff_results  # noqa: E402

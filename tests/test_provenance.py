@@ -21,7 +21,7 @@ import pytest
 from test_bad_inputs import FLOWFILE, invoke, one_thread  # noqa: F401 (autouse)
 
 import walkers
-from walkers.io import read_results
+from walkers.outputs.reader import read_results
 
 # The flow-file scenario of the bad-input catalogue, with a seed and sampled tracks.
 SCENARIO = "# Provenance test on an invented estuary.\n" + FLOWFILE.replace(

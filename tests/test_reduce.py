@@ -4,9 +4,10 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from walkers import analytic, reduce
-from walkers.config import OutputGrid, Receptor
 from walkers.engine.state import IN_WATER, LEFT, ParticleState
+from walkers.run import reduce
+from walkers.scenario.config import OutputGrid, Receptor
+from walkers.verify import analytic
 
 
 def gaussian_cloud(n, sigma, seed=0, mass=1.0):

@@ -4,9 +4,9 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from walkers.config import Release
+from walkers.engine.releases import make_particles, points_in_polygon, release_times_and_masses
 from walkers.errors import InputError
-from walkers.releases import make_particles, points_in_polygon, release_times_and_masses
+from walkers.scenario.config import Release
 
 P5 = 5.7e-7  # two-sided 5-sigma level
 

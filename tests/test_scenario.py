@@ -17,16 +17,14 @@ import pytest
 from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
 
+from walkers.engine.dispersion import transport_for
 from walkers.errors import InputError
-from walkers.scenario import (
-    MAX_PARTICLES,
-    SCHEMA,
-    EnsembleSpec,
-    Scenario,
-    load_scenario,
-    schema_markdown,
-    template_text,
-)
+from walkers.fields.scenario_flow import build_flow, check_flow
+from walkers.scenario.docs import schema_markdown, template_text
+from walkers.scenario.keys import MAX_PARTICLES
+from walkers.scenario.load import load_scenario
+from walkers.scenario.schema import SCHEMA
+from walkers.scenario.specs import EnsembleSpec, Scenario
 
 REPO = Path(__file__).resolve().parents[1]
 
@@ -87,8 +85,8 @@ def test_template_is_accepted_unchanged(tmp_path):
         math.log(2) / (2 * 86400.0)
     )
     assert sc.receptors[0].thresholds == pytest.approx((1e-4, 1e-3))
-    flow = sc.flow.build()
-    sc.check_flow(flow)
+    flow = build_flow(sc.flow)
+    check_flow(sc, flow)
     assert flow.time_units == "seconds since 2026-05-04T06:00:00+00:00"
 
 
@@ -113,7 +111,9 @@ def test_template_ensemble_block_loads_when_uncommented(tmp_path):
 
 
 def test_template_file_is_the_shipped_package_data():
-    assert (REPO / "walkers" / "template.toml").read_text(encoding="utf-8") == template_text()
+    assert (REPO / "walkers" / "scenario" / "template.toml").read_text(
+        encoding="utf-8"
+    ) == template_text()
     assert "#" in template_text()
 
 
@@ -171,7 +171,7 @@ def test_release_times_are_seconds_from_run_start_whatever_the_zone():
 
 
 def test_toml_native_date_times_are_accepted(tmp_path):
-    text = (REPO / "walkers" / "template.toml").read_text(encoding="utf-8")
+    text = (REPO / "walkers" / "scenario" / "template.toml").read_text(encoding="utf-8")
     text = text.replace('start = "2026-05-04T06:00:00Z"', "start = 2026-05-04T06:00:00Z")
     path = tmp_path / "native.toml"
     path.write_text(text, encoding="utf-8")
@@ -300,10 +300,10 @@ def test_flow_files_relative_to_scenario_and_passed_to_the_reader(tmp_path, monk
         captured.update(kw, paths=paths)
         return "flow"
 
-    import walkers.fields.netcdf
+    import walkers.fields.netcdf.open
 
-    monkeypatch.setattr(walkers.fields.netcdf, "open_flow", fake_open_flow)
-    assert sc.flow.build() == "flow"
+    monkeypatch.setattr(walkers.fields.netcdf.open, "open_flow", fake_open_flow)
+    assert build_flow(sc.flow) == "flow"
     assert captured["paths"] == [str(tmp_path / "flow" / "a.nc"), str(tmp_path / "flow" / "b.nc")]
     assert captured["variables"] == {"u": "ucur", "depth": "h"}
     assert captured["units"] == {"u": "cm/s"}
@@ -317,7 +317,7 @@ def test_estimated_dispersion_on_uniform_flow_matches_elder_and_fischer():
     data["dispersion"] = {"method": "estimated", "manning_n": 0.025, "multiplier": 2.0}
     sc = load(data)
     assert sc.transport is None
-    t = sc.transport_for(sc.flow.build())
+    t = transport_for(sc, build_flow(sc.flow))
     # Hand value: h = 6 m, |U| = 0.3 m/s, n = 0.025: u* = n |U| sqrt(g) / h^(1/6);
     # K_L = 5.93 h u* (Elder 1959), K_T = 0.6 h u* (Fischer et al. 1979, ch. 5).
     u_star = 0.025 * 0.3 * math.sqrt(9.80665) / 6 ** (1 / 6)
@@ -340,8 +340,8 @@ def test_estimated_dispersion_on_tidal_flow_is_the_time_mean():
     }
     data["dispersion"] = {"method": "estimated", "drag_coefficient": 0.0025, "channel": "straight"}
     sc = load(data)
-    flow = sc.flow.build()
-    d = sc.transport_for(flow).dispersion
+    flow = build_flow(sc.flow)
+    d = transport_for(sc, flow).dispersion
     # u* = sqrt(Cd) |U| is linear in |U|: the mean K over the frames uses the mean of
     # |cos(2 pi t / T)| over the frame times (computed here directly from the frame times).
     mean_speed = np.mean(np.abs(np.cos(2 * np.pi * flow.times / 44712.0)))
@@ -412,9 +412,9 @@ def test_analytic_one_dimensional_channel_uses_the_area():
     }
     data["receptors"] = []
     sc = load(data)
-    flow = sc.flow.build()
+    flow = build_flow(sc.flow)
     assert flow.ndim == 1 and float(flow.depth.data[0, 0, 0]) == 120.0
-    sc.check_flow(flow)
+    check_flow(sc, flow)
 
 
 def test_release_outside_the_flow_domain_is_refused_against_the_flow():
@@ -422,7 +422,7 @@ def test_release_outside_the_flow_domain_is_refused_against_the_flow():
     data["releases"][0]["x"] = "50 km"
     sc = load(data)
     with pytest.raises(InputError, match=r"releases\[0\] \(spill\): position outside"):
-        sc.check_flow(sc.flow.build())
+        check_flow(sc, build_flow(sc.flow))
 
 
 # ---------------------------------------------------------------------------------------------

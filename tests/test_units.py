@@ -11,7 +11,13 @@ import math
 import pytest
 
 from walkers.errors import InputError
-from walkers.units import DIMENSIONS, UNIT_TABLE, accepted_units, parse_quantity, unit_factor
+from walkers.scenario.units import (
+    DIMENSIONS,
+    UNIT_TABLE,
+    accepted_units,
+    parse_quantity,
+    unit_factor,
+)
 
 HAND_VALUES = [
     ("500 kg", "mass", 500.0),

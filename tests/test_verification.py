@@ -9,7 +9,7 @@ standard errors or the 5-sigma critical values of the distribution tests (see wa
 
 import pytest
 
-from walkers.verify import run_case
+from walkers.verify.cases import run_case
 
 SEED = 20261201
 

@@ -27,16 +27,17 @@ import subprocess
 import sys
 import time
 from collections.abc import Callable
+from typing import Any
 
 import numba
 import numpy as np
 
 import walkers
-from walkers.config import Dispersion, OutputGrid, Transport
 from walkers.engine import kernels, mover
 from walkers.engine.state import ParticleState
 from walkers.fields.analytic import grid_flow
 from walkers.fields.base import FlowField, centre_to_edges
+from walkers.scenario.config import Dispersion, OutputGrid, Transport
 
 CELL = 20.0  # m, cell size of the reference workload
 DT = 30.0  # s, time step
@@ -163,7 +164,7 @@ print(json.dumps({"first_step_s": time.perf_counter() - t0}))
 _MEMORY = """
 import json, resource
 import numpy as np
-from walkers import reduce
+from walkers.run import reduce
 from walkers.bench import initial_state, reference_workload, output_grid, DT, KEY, _inputs
 from walkers.engine import mover
 from walkers.fields.base import centre_to_edges
@@ -205,7 +206,7 @@ def _gridding_rates(flow: FlowField, state: ParticleState, repeats: int) -> tupl
     """Particles per second through the box-counting kernel alone, and through
     ``reduce.concentration`` (the kernel plus the weights m / h and the division by the cell
     volume), medians over repeats."""
-    from walkers import reduce  # imported here: the first-step child should not pay for scipy
+    from walkers.run import reduce
 
     grid = output_grid(flow)
     measure = reduce.cell_measure(grid, False, 2)
@@ -239,6 +240,63 @@ def _gridding_rates(flow: FlowField, state: ParticleState, repeats: int) -> tupl
         fn()
         rates.append(statistics.median(len(state) / _timed(fn)[0] for _ in range(repeats)))
     return rates[0], rates[1]
+
+
+def _first_step_times(repeats: int) -> tuple[list[float], list[float]]:
+    """Seconds to the end of the first step in a fresh process on a warm kernel cache: as the
+    child measures it, and the child's wall time."""
+    first = []
+    first_wall = []
+    for _ in range(repeats):
+        out, wall = _child(_FIRST_STEP)
+        first.append(out["first_step_s"])
+        first_wall.append(wall)
+    return first, first_wall
+
+
+def _peak_memory(n_mem: int) -> tuple[dict, float, str]:
+    """Peak memory of a child moving ``n_mem`` particles; the peak for 10 M particles, measured or
+    projected from the per-particle growth over a baseline child; and how it was found."""
+    baseline, _ = _child(_BASELINE)
+    peak, _ = _child(_MEMORY.format(n=n_mem))
+    per_particle = (peak["peak_bytes"] - baseline["peak_bytes"]) / n_mem
+    target = 10_000_000
+    if n_mem == target:
+        peak_10m = float(peak["peak_bytes"])
+        method = "measured"
+    else:
+        peak_10m = float(baseline["peak_bytes"] + per_particle * target)
+        method = f"projected from {n_mem:,} particles"
+    return peak, peak_10m, method
+
+
+def _machine(load_before: tuple[float, float, float]) -> dict[str, Any]:
+    """The machine the figures were measured on, and its load before and after."""
+    return {
+        "nproc": os.cpu_count(),
+        "cpu_model": _cpu_model(),
+        "numba_threads_available": int(MAX_THREADS),
+        "load_average_before": [round(v, 2) for v in load_before],
+        "load_average_after": [round(v, 2) for v in os.getloadavg()],
+    }
+
+
+def _workload(
+    flow: FlowField, transport: Transport, n: int, nsteps: int, twin_steps: int, reps: int
+) -> dict[str, Any]:
+    """The reference workload as measured: grid, frames, time step, particles, steps, repeats."""
+    return {
+        "grid_cells": [int(flow.x.size), int(flow.y.size)],
+        "frames": int(flow.times.size),
+        "dt_s": DT,
+        "particles": n,
+        "steps_compiled": nsteps,
+        "steps_twin": twin_steps,
+        "repeats": reps,
+        "edges": dict(transport.edges),
+        "dispersion_m2_s": [transport.dispersion.k1, transport.dispersion.k2],
+        "land_fraction": float(1.0 - flow.wet.data[0].mean()),
+    }
 
 
 def run_benchmark(
@@ -300,45 +358,14 @@ def run_benchmark(
     note("gridding")
     gridding, concentration = _gridding_rates(flow, moved, max(reps, 5))
     note("first step on a warm cache (child processes)")
-    first = []
-    first_wall = []
-    for _ in range(min(reps, 2 if quick else 3)):
-        out, wall = _child(_FIRST_STEP)
-        first.append(out["first_step_s"])
-        first_wall.append(wall)
+    first, first_wall = _first_step_times(min(reps, 2 if quick else 3))
     note(f"peak memory of {n_mem:,} particles (child process)")
-    baseline, _ = _child(_BASELINE)
-    peak, _ = _child(_MEMORY.format(n=n_mem))
-    per_particle = (peak["peak_bytes"] - baseline["peak_bytes"]) / n_mem
-    target = 10_000_000
-    if n_mem == target:
-        peak_10m = float(peak["peak_bytes"])
-        method = "measured"
-    else:
-        peak_10m = float(baseline["peak_bytes"] + per_particle * target)
-        method = f"projected from {n_mem:,} particles"
+    peak, peak_10m, method = _peak_memory(n_mem)
     return {
         "walkers_version": walkers.__version__,
         "caution": walkers.CAUTION,
-        "machine": {
-            "nproc": os.cpu_count(),
-            "cpu_model": _cpu_model(),
-            "numba_threads_available": int(MAX_THREADS),
-            "load_average_before": [round(v, 2) for v in load_before],
-            "load_average_after": [round(v, 2) for v in os.getloadavg()],
-        },
-        "workload": {
-            "grid_cells": [int(flow.x.size), int(flow.y.size)],
-            "frames": int(flow.times.size),
-            "dt_s": DT,
-            "particles": n,
-            "steps_compiled": nsteps,
-            "steps_twin": twin_steps,
-            "repeats": reps,
-            "edges": dict(transport.edges),
-            "dispersion_m2_s": [transport.dispersion.k1, transport.dispersion.k2],
-            "land_fraction": float(1.0 - flow.wet.data[0].mean()),
-        },
+        "machine": _machine(load_before),
+        "workload": _workload(flow, transport, n, nsteps, twin_steps, reps),
         "compiled_steps_per_s_1thread": one_wall,
         "compiled_steps_per_cpu_s_1thread": one_cpu,
         "compiled_steps_per_s_2threads": two_wall,

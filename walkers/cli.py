@@ -13,11 +13,16 @@ import sys
 import time
 import traceback
 from pathlib import Path
+from typing import TYPE_CHECKING, Any
 
 import click
 
 import walkers
 from walkers.errors import InputError, WalkersError
+
+if TYPE_CHECKING:
+    from walkers.run.checkpoint import Checkpointer
+    from walkers.scenario.specs import Scenario
 
 EXIT_INPUT = 2
 EXIT_FAILURE = 1
@@ -98,7 +103,7 @@ def main() -> None:
 @friendly_errors
 def new_command(path: Path, overwrite: bool) -> None:
     """Write a commented scenario template to PATH (TOML)."""
-    from walkers.scenario import template_text
+    from walkers.scenario.docs import template_text
 
     if path.exists() and not overwrite:
         raise InputError(f"{str(path)!r} exists; pass --overwrite or choose another name")
@@ -157,21 +162,18 @@ def run_command(
     Ctrl-C or SIGTERM stops the run at once, writes nothing under the output name and says how
     to resume when a checkpoint was saved.
     """
-    import datetime as dt
     import signal
     import threading
 
-    from walkers.checkpoint import (
-        Checkpointer,
+    from walkers.api import run_scenario
+    from walkers.run.checkpoint import (
         checkpoint_path,
         load_checkpoint,
-        read_checkpoint_meta,
         remove_checkpoint,
         run_fingerprint,
     )
-    from walkers.runner import run_scenario
-    from walkers.scenario import load_scenario
-    from walkers.units import parse_quantity
+    from walkers.scenario.load import load_scenario
+    from walkers.scenario.units import parse_quantity
 
     def terminate(signum, frame):
         raise KeyboardInterrupt
@@ -192,19 +194,7 @@ def run_command(
                 f"{str(ckpt)!r}: a checkpoint of an interrupted run of this output exists; "
                 "continue that run with --resume, or delete the checkpoint to start afresh"
             )
-        saver = None
-        if every is not None:
-            outputs = int(round(sc.duration / sc.output_interval)) + 1
-            saver = Checkpointer(
-                ckpt,
-                fingerprint,
-                every,
-                sc.output_interval,
-                outputs,
-                time_of=lambda k: (
-                    sc.start + dt.timedelta(seconds=k * sc.output_interval)
-                ).isoformat(),
-            )
+        saver = None if every is None else _checkpointer(sc, ckpt, fingerprint, every)
         try:
             outcome = run_scenario(
                 sc,
@@ -216,27 +206,7 @@ def run_command(
                 on_output=saver,
             )
         except KeyboardInterrupt:
-            if ckpt.exists():
-                again = [f"walkers run {scenario}"]
-                if output is not None:
-                    again.append(f"-o {output}")
-                if engine != "compiled":
-                    again.append(f"--engine {engine}")
-                again.append("--resume")
-                if checkpoint_every is not None:
-                    again.append(f'--checkpoint-every "{checkpoint_every}"')
-                last = read_checkpoint_meta(ckpt).get("time") or "an output time"
-                click.echo(
-                    f"walkers: the run state at {last} is saved in {ckpt}; continue with: "
-                    f"{' '.join(again)}",
-                    err=True,
-                )
-            else:
-                click.echo(
-                    "walkers: no checkpoint was saved; to be able to resume an interrupted run, "
-                    'pass --checkpoint-every (e.g. "2 h")',
-                    err=True,
-                )
+            _say_how_to_resume(ckpt, scenario, output, engine, checkpoint_every)
             raise
         remove_checkpoint(ckpt)
     finally:
@@ -245,12 +215,61 @@ def run_command(
     click.echo(outcome.summary)
     click.echo(f"\nwrote {outcome.path}")
     if plot and outcome.path is not None:
-        from walkers.plots import plot_results
+        from walkers.outputs.figures import plot_results
 
         figdir = outcome.path.with_name(outcome.path.stem + "_figures")
         figdir.mkdir(exist_ok=True)
         for p in plot_results(outcome.path, figdir):
             click.echo(f"wrote {p}")
+
+
+def _checkpointer(
+    sc: Scenario, ckpt: Path, fingerprint: dict[str, Any], every: float
+) -> Checkpointer:
+    """The ``on_output`` callback that saves the run state every ``every`` seconds of simulated
+    time (at output times)."""
+    import datetime as dt
+
+    from walkers.run.checkpoint import Checkpointer
+
+    outputs = int(round(sc.duration / sc.output_interval)) + 1
+    return Checkpointer(
+        ckpt,
+        fingerprint,
+        every,
+        sc.output_interval,
+        outputs,
+        time_of=lambda k: (sc.start + dt.timedelta(seconds=k * sc.output_interval)).isoformat(),
+    )
+
+
+def _say_how_to_resume(
+    ckpt: Path, scenario: Path, output: Path | None, engine: str, checkpoint_every: str | None
+) -> None:
+    """After an interruption: the command that continues the run, or why it cannot be."""
+    from walkers.run.checkpoint import read_checkpoint_meta
+
+    if ckpt.exists():
+        again = [f"walkers run {scenario}"]
+        if output is not None:
+            again.append(f"-o {output}")
+        if engine != "compiled":
+            again.append(f"--engine {engine}")
+        again.append("--resume")
+        if checkpoint_every is not None:
+            again.append(f'--checkpoint-every "{checkpoint_every}"')
+        last = read_checkpoint_meta(ckpt).get("time") or "an output time"
+        click.echo(
+            f"walkers: the run state at {last} is saved in {ckpt}; continue with: "
+            f"{' '.join(again)}",
+            err=True,
+        )
+    else:
+        click.echo(
+            "walkers: no checkpoint was saved; to be able to resume an interrupted run, "
+            'pass --checkpoint-every (e.g. "2 h")',
+            err=True,
+        )
 
 
 @main.command("inspect")
@@ -275,7 +294,7 @@ def inspect_command(
     files, dispersion: float, dt: float | None, map_png: Path | None, frame: int
 ) -> None:
     """Describe flow FILES: grid, CRS, times, variables found, land, speeds, time step."""
-    from walkers.fields.netcdf import open_flow
+    from walkers.fields.netcdf.open import open_flow
     from walkers.inspect import describe_flow, draw_speed_map
 
     flow = open_flow(list(files))
@@ -299,7 +318,8 @@ def inspect_command(
 @friendly_errors
 def verify_command(cases, particles: int | None, seed: int, report: Path | None) -> None:
     """Run the verification cases against published solutions; exit 1 on any failure."""
-    from walkers.verify import CASES, report_markdown, run_case
+    from walkers.verify.cases import CASES, run_case
+    from walkers.verify.checks import report_markdown
 
     names = list(cases) or list(CASES)
     unknown = [n for n in names if n not in CASES]
@@ -347,7 +367,7 @@ def verify_command(cases, particles: int | None, seed: int, report: Path | None)
 @friendly_errors
 def plot_command(result: Path, outdir: Path | None, times) -> None:
     """Draw maps, receptor series, the mass budget and an animation from a RESULT file."""
-    from walkers.plots import plot_results
+    from walkers.outputs.figures import plot_results
 
     outdir = outdir or result.with_name(result.stem + "_figures")
     outdir.mkdir(parents=True, exist_ok=True)
@@ -363,7 +383,8 @@ def plot_command(result: Path, outdir: Path | None, times) -> None:
 @friendly_errors
 def export_command(result: Path, csv: Path, overwrite: bool) -> None:
     """Write the receptor series of a RESULT file to CSV (for spreadsheets)."""
-    from walkers.io import open_results, receptors_to_csv
+    from walkers.outputs.export import receptors_to_csv
+    from walkers.outputs.reader import open_results
 
     receptors_to_csv(open_results(result), csv, overwrite=overwrite)
     click.echo(f"wrote {csv}")
@@ -455,10 +476,11 @@ def ensemble_command(
 ) -> None:
     """Run the ensemble of SCENARIO (TOML with an [ensemble] table): exceedance probabilities,
     receptor distributions and the member table, written as CF-NetCDF with figures."""
-    from walkers.ensemble import run_ensemble, summary_text, write_ensemble
-    from walkers.io import check_target
-    from walkers.scenario import load_scenario
-    from walkers.units import parse_quantity
+    from walkers.ensemble.assemble import summary_text, write_ensemble
+    from walkers.ensemble.execute import run_ensemble
+    from walkers.files import check_target
+    from walkers.scenario.load import load_scenario
+    from walkers.scenario.units import parse_quantity
 
     sc = load_scenario(scenario)
     if sc.ensemble is None:
@@ -504,7 +526,7 @@ def ensemble_command(
     )
     click.echo(f"wrote {output}")
     if plot:
-        from walkers.plots_ensemble import plot_ensemble
+        from walkers.ensemble.figures import plot_ensemble
 
         figdir = output.with_name(output.stem + "_figures")
         figdir.mkdir(exist_ok=True)

@@ -1,9 +1,10 @@
 """Look at a flow field before a run: a plain-text report and a speed map.
 
 ``describe_flow`` tells what the reader made of a file (grid, CRS, times, the variable behind each
-role, land and dry cells, speeds) and the largest time step that keeps both the advective step
-|u| dt and the dispersive step √(2K dt) under one cell. ``draw_speed_map`` draws the speed of one
-frame with land and dry cells in grey.
+role, land and dry cells, speeds) and the largest time step that the engine's time-step check
+(``walkers.engine.timestep``) accepts: each velocity component and √(2K dt) under the cell width
+along its own axis. ``draw_speed_map`` draws the speed of one frame with land and dry cells in
+grey. A front end: it reads the fields stage and asks the engine's check.
 """
 
 from __future__ import annotations
@@ -15,11 +16,12 @@ import numpy as np
 from scipy.interpolate import interp1d
 
 from walkers import CAUTION
-from walkers.config import Dispersion, Transport
 from walkers.engine.timestep import check_time_step
 from walkers.fields.base import FlowField, GriddedVariable
 from walkers.fields.geo import cell_sizes
-from walkers.fields.netcdf import flow_time_iso, open_flow
+from walkers.fields.netcdf.open import open_flow
+from walkers.fields.times import flow_time_iso
+from walkers.scenario.config import Dispersion, Transport
 
 _CHUNK = 24  # frames read at a time when scanning a whole file
 
@@ -97,8 +99,39 @@ def describe_flow(
         if isinstance(path_or_flow, FlowField)
         else open_flow(path_or_flow, **open_options)
     )
-    unit = "degrees" if flow.geographic else "m"
     lines = [f"Flow field: {flow.source}"]
+    _describe_grid(flow, lines)
+    _describe_times(flow, lines)
+    roles = flow.attrs.get("roles", {})
+    file_units = flow.attrs.get("file_units", {})
+    if roles:
+        lines.append("  variables:")
+        for role, name in roles.items():
+            fu = file_units.get(role, "")
+            lines.append(f"    {role:<12} {name}" + (f"  [{fu}]" if fu else ""))
+        if flow.attrs.get("constant_depth") is not None:
+            lines.append(f"    depth        constant {flow.attrs['constant_depth']:.10g}")
+
+    _describe_water(flow, lines)
+    advice = Transport(dt=dt or 1.0, dispersion=Dispersion(k1=dispersion, k2=dispersion))
+    report = check_time_step(flow, advice, float(flow.times[0]), float(flow.times[-1]))
+    lines.append(
+        f"  largest stable time step: {report.longest_step():.4g} s for K = {dispersion:.10g} "
+        "m2 s-1 (|u| dt, |v| dt and sqrt(2 K dt) each under the cell width along their axis)"
+    )
+    if dt is not None:
+        verdict = "fits" if report.ok else "is too long: shorten it or sub-step"
+        lines.append(
+            f"  time step {dt:.10g} s {verdict} (velocity {report.advection_ratio:.3g} cells, "
+            f"sqrt(2 K dt) {report.dispersion_ratio:.3g} cells)"
+        )
+    lines.append(f"  Caution: {CAUTION}")
+    return "\n".join(lines)
+
+
+def _describe_grid(flow: FlowField, lines: list[str]) -> None:
+    """Report lines on the grid: size, spacing, extent and CRS; returns the cell widths (m)."""
+    unit = "degrees" if flow.geographic else "m"
     nx, ny = flow.x.size, flow.y.size
     lines.append(
         f"  grid: {nx} x {ny} cells (x by y), {'1-D channel' if flow.ndim == 1 else '2-D'}, "
@@ -118,6 +151,10 @@ def describe_flow(
     west, east, south, north = flow.extent()
     lines.append(f"  extent: x {west:.10g} to {east:.10g}, y {south:.10g} to {north:.10g} {unit}")
     lines.append(f"  CRS: {_crs_text(flow)}")
+
+
+def _describe_times(flow: FlowField, lines: list[str]) -> None:
+    """Report lines on the frames: first and last time, interval, calendar."""
     nt = flow.times.size
     if flow.steady:
         lines.append("  time: steady (one frame)")
@@ -133,16 +170,11 @@ def describe_flow(
             f"{flow_time_iso(flow, flow.times[-1])}, {nt} frames every {step} "
             f"(calendar {flow.calendar})"
         )
-    roles = flow.attrs.get("roles", {})
-    file_units = flow.attrs.get("file_units", {})
-    if roles:
-        lines.append("  variables:")
-        for role, name in roles.items():
-            fu = file_units.get(role, "")
-            lines.append(f"    {role:<12} {name}" + (f"  [{fu}]" if fu else ""))
-        if flow.attrs.get("constant_depth") is not None:
-            lines.append(f"    depth        constant {flow.attrs['constant_depth']:.10g}")
 
+
+def _describe_water(flow: FlowField, lines: list[str]) -> None:
+    """Report lines on land or dry cells and speeds over all frames."""
+    nt = flow.times.size
     dry_min, dry_max, vmin, vmax = 1.0, 0.0, np.inf, 0.0
     for i0 in range(0, nt, _CHUNK):
         i1 = min(i0 + _CHUNK - 1, nt - 1)
@@ -156,21 +188,6 @@ def describe_flow(
         "(min and max over frames)"
     )
     lines.append(f"  speed in water: {vmin:.4g} to {vmax:.4g} m s-1")
-
-    advice = Transport(dt=dt or 1.0, dispersion=Dispersion(k1=dispersion, k2=dispersion))
-    report = check_time_step(flow, advice, float(flow.times[0]), float(flow.times[-1]))
-    lines.append(
-        f"  largest stable time step: {report.longest_step():.4g} s for K = {dispersion:.10g} "
-        "m2 s-1 (|u| dt, |v| dt and sqrt(2 K dt) each under the cell width along their axis)"
-    )
-    if dt is not None:
-        verdict = "fits" if report.ok else "is too long: shorten it or sub-step"
-        lines.append(
-            f"  time step {dt:.10g} s {verdict} (velocity {report.advection_ratio:.3g} cells, "
-            f"sqrt(2 K dt) {report.dispersion_ratio:.3g} cells)"
-        )
-    lines.append(f"  Caution: {CAUTION}")
-    return "\n".join(lines)
 
 
 def draw_speed_map(flow: FlowField, png_path: str | os.PathLike, frame: int = 0) -> None:

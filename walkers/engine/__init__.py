@@ -1,4 +1,9 @@
-"""The particle engine: compiled step kernels, their numpy twin, and the mover that feeds them."""
+"""Stage 3, engine: particles and their step — state, releases, random streams, the compiled step
+kernels and their numpy twin, kernel inputs, the time-step check, dispersion coefficients and
+drift.
+
+May import: the base, ``walkers.scenario`` and ``walkers.fields``.
+"""
 
 from walkers.engine.mover import advect_points
 

@@ -1,8 +1,8 @@
 """Prepare a window of flow frames for the step kernels and call them.
 
 The mover turns a :class:`~walkers.fields.base.FlowWindow` and the run's
-:class:`~walkers.config.Transport` into the plain arrays the kernels take: velocity frames on their
-own axes, the wet mask on the cell grid, and the dispersion coefficients with the drift
+:class:`~walkers.scenario.config.Transport` into the plain arrays the kernels take: velocity frames
+on their own axes, the wet mask on the cell grid, and the dispersion coefficients with the drift
 (1/h) ∇·(h K) on cell centres, computed once per frame by finite differences.
 """
 
@@ -14,11 +14,11 @@ from typing import Literal
 
 import numpy as np
 
-from walkers.config import EDGE_NAMES, Transport
 from walkers.engine import kernels, twin
 from walkers.engine.state import ParticleState
 from walkers.fields.base import FlowField, FlowWindow, centre_to_edges
 from walkers.fields.geo import metres_per_degree
+from walkers.scenario.config import EDGE_NAMES, Transport
 
 MIN_DRIFT_DEPTH = 0.05  # m; depths are floored here when dividing by h (drying cells).
 
@@ -294,7 +294,7 @@ def advect_points(
 
     Edges reflect, coasts reflect; useful to compare paths through different file layouts.
     """
-    from walkers.config import Dispersion
+    from walkers.scenario.config import Dispersion
 
     n = int(round((t1 - t0) / dt))
     transport = Transport(

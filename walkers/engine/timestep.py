@@ -21,9 +21,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from walkers.config import Transport
 from walkers.engine.mover import metres_per_grid_unit
 from walkers.fields.base import FlowField
+from walkers.scenario.config import Transport
 
 VISSER_FACTOR = 0.1
 

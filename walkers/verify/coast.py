@@ -17,18 +17,17 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
+from typing import Literal
 
 import numpy as np
 from scipy import stats
 
-from walkers import analytic
-from walkers.config import Dispersion, Transport
-from walkers.engine import mover
 from walkers.engine.state import IN_WATER, LEFT, ParticleState
 from walkers.fields.analytic import grid_flow
 from walkers.fields.base import FlowField
-from walkers.randomness import run_streams
-from walkers.verify import P_FIVE_SIGMA, CaseResult, Check, Z, _ks_check
+from walkers.scenario.config import Dispersion, Transport
+from walkers.verify import analytic
+from walkers.verify.checks import P_FIVE_SIGMA, CaseResult, Check, Z, evolve, ks_check
 
 IMAGES = "Carslaw & Jaeger 1959, Conduction of Heat in Solids, §2.2, method of images (from memory)"
 WELL_MIXED = (
@@ -36,6 +35,7 @@ WELL_MIXED = (
     "scipy.stats.chisquare"
 )
 HOLDS = "a reflecting wall lets nothing through (common practice)"
+Engine = Literal["compiled", "numpy"]
 SIGMAS = (0.25, 0.5, 1.0, 2.0)  # spread of one step, in cells
 ALL_EDGES = ("west", "east", "south", "north")
 
@@ -47,15 +47,11 @@ def _walk(
     y: np.ndarray,
     nsteps: int,
     seed: int,
-    engine: str,
+    engine: Engine,
 ) -> ParticleState:
-    """Move particles released at t = 0 over nsteps steps in one window of a steady flow."""
+    """Move unit-mass particles released at t = 0 over nsteps steps of a steady flow."""
     state = ParticleState.from_arrays(x, y, np.ones(x.size), np.zeros(x.size))
-    walk_key, _ = run_streams(seed)
-    t1 = nsteps * transport.dt
-    inputs = mover.kernel_inputs(flow, flow.window(0.0, t1), transport)
-    mover.advance(state, inputs, 0.0, transport.dt, nsteps, 0, walk_key, engine=engine)  # type: ignore[arg-type]
-    return state
+    return evolve(flow, transport, state, 0.0, nsteps * transport.dt, seed, engine)
 
 
 def _uniform_in_water(
@@ -112,7 +108,7 @@ def _near_land(wet: np.ndarray) -> np.ndarray:
 
 
 def _basin_checks(
-    result: CaseResult, geometry: str, sigma: float, particles: int, seed: int, engine: str
+    result: CaseResult, geometry: str, sigma: float, particles: int, seed: int, engine: Engine
 ) -> None:
     """A closed basin with no flow: counts per wet cell against uniform after 100 steps."""
     xe, ye, wet = _basin(geometry)
@@ -162,7 +158,7 @@ def _channel_checks(
     courant: float,
     particles: int,
     seed: int,
-    engine: str,
+    engine: Engine,
 ) -> None:
     """A channel `width` cells wide between single rows of land cells, flow along it at the
     given Courant number, absorbing domain edges beyond the land. Particles start uniform over a
@@ -244,7 +240,10 @@ def _channel_checks(
 
 
 def case_coast_well_mixed(
-    particles: int, seed: int, engine: str = "compiled", sigmas: tuple[float, ...] = SIGMAS
+    particles: int,
+    seed: int,
+    engine: Engine = "compiled",
+    sigmas: tuple[float, ...] = SIGMAS,
 ) -> CaseResult:
     """A uniform tracer stays uniform beside land walls along x and y, an oblique staircase coast,
     a headland and a channel one cell wide, at step spreads of 0.25 to 2 cells."""
@@ -261,7 +260,7 @@ def case_coast_well_mixed(
     return result
 
 
-def case_thin_barrier(particles: int, seed: int, engine: str = "compiled") -> CaseResult:
+def case_thin_barrier(particles: int, seed: int, engine: Engine = "compiled") -> CaseResult:
     """A still basin split by a land wall one cell thick: nothing crosses at any step size."""
     result = CaseResult(
         "thin-barrier", "A land wall one cell thick holds, steps up to 2 cells", particles
@@ -296,7 +295,7 @@ def case_thin_barrier(particles: int, seed: int, engine: str = "compiled") -> Ca
     return result
 
 
-def case_land_wall_images(particles: int, seed: int, engine: str = "compiled") -> CaseResult:
+def case_land_wall_images(particles: int, seed: int, engine: Engine = "compiled") -> CaseResult:
     """A point release 5 m from a land wall one cell thick (water behind it too): positions follow
     the method-of-images law at step spreads of 1 and 2 cells."""
     result = CaseResult(
@@ -336,7 +335,7 @@ def case_land_wall_images(particles: int, seed: int, engine: str = "compiled") -
             )
         )
         result.checks.append(
-            _ks_check(
+            ks_check(
                 f"σ = {sigma_cells:g} cell: KS distance to images law",
                 st.x[st.x >= 0.0],
                 law,

@@ -1,8 +1,9 @@
 """Figures of an ensemble: exceedance-probability maps and receptor distributions.
 
 Each figure carries a title, axis labels with units, the time span it covers (ISO 8601 with zone)
-and the caution in small print, like the figures of a single run (``walkers.plots``). Probability
-maps colour the probability from 0 to 1 and draw contour lines at :data:`PROBABILITY_LEVELS`;
+and the caution in small print, like the figures of a single run (``walkers.outputs.figures``).
+Probability maps colour the probability from 0 to 1 and draw contour lines at
+:data:`PROBABILITY_LEVELS`;
 cells that no member reached stay blank. Receptor figures show, per receptor, the histogram of the
 members' peak concentrations (thresholds dashed) and the empirical CDF of the arrival time for each
 threshold; members that never cross a threshold keep the CDF below 1 at the end of the run.
@@ -12,6 +13,7 @@ from __future__ import annotations
 
 import os
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import xarray as xr
@@ -19,8 +21,9 @@ from matplotlib import colormaps
 from matplotlib.colors import ListedColormap
 
 from walkers.errors import InputError
-from walkers.io import elapsed_seconds, iso_times, open_results
-from walkers.plots import LAND_COLOUR, RECEPTOR_COLOUR, _edges, _figure, _footer
+from walkers.fields.times import elapsed_seconds, iso_times
+from walkers.outputs.figures import LAND_COLOUR, RECEPTOR_COLOUR, _edges, _figure, _footer
+from walkers.outputs.reader import open_results
 
 #: Probabilities drawn as contour lines on the maps.
 PROBABILITY_LEVELS = (0.1, 0.5, 0.9)
@@ -107,27 +110,7 @@ def plot_probability_map(
             ax.clabel(lines, fmt="%.1f", fontsize=7)
         cax = ax.inset_axes((1.03, 0.0, 0.035, 1.0))
         fig.colorbar(mesh, cax=cax).set_label("exceedance probability (1)")
-        if "receptor_x" in ds and ds.sizes.get("receptor", 0):
-            ax.plot(
-                ds["receptor_x"].values,
-                ds["receptor_y"].values,
-                "o",
-                mfc="none",
-                mec=RECEPTOR_COLOUR,
-                mew=1.4,
-                ms=7,
-            )
-            for name, rx, ry in zip(
-                ds["receptor"].values, ds["receptor_x"].values, ds["receptor_y"].values, strict=True
-            ):
-                ax.annotate(
-                    str(name),
-                    (rx, ry),
-                    xytext=(5, 4),
-                    textcoords="offset points",
-                    fontsize=7,
-                    color=RECEPTOR_COLOUR,
-                )
+        _mark_receptors(ax, ds)
         ax.set_xlabel(_axis_label(ds, "x"))
         ax.set_ylabel(_axis_label(ds, "y"))
         ax.set_aspect("equal" if ds["x"].attrs.get("units", "m") == "m" else "auto")
@@ -136,6 +119,32 @@ def plot_probability_map(
     _footer(fig, f"{when}; contours at P = {', '.join(f'{p:g}' for p in PROBABILITY_LEVELS)}")
     fig.savefig(path)
     return Path(path)
+
+
+def _mark_receptors(ax: Any, ds: xr.Dataset) -> None:
+    """Receptors as open circles with their names, when the ensemble has any."""
+    if not ("receptor_x" in ds and ds.sizes.get("receptor", 0)):
+        return
+    ax.plot(
+        ds["receptor_x"].values,
+        ds["receptor_y"].values,
+        "o",
+        mfc="none",
+        mec=RECEPTOR_COLOUR,
+        mew=1.4,
+        ms=7,
+    )
+    for name, rx, ry in zip(
+        ds["receptor"].values, ds["receptor_x"].values, ds["receptor_y"].values, strict=True
+    ):
+        ax.annotate(
+            str(name),
+            (rx, ry),
+            xytext=(5, 4),
+            textcoords="offset points",
+            fontsize=7,
+            color=RECEPTOR_COLOUR,
+        )
 
 
 def plot_receptor_distributions(

@@ -28,7 +28,8 @@ from matplotlib.ticker import MaxNLocator, ScalarFormatter
 
 import walkers
 from walkers.errors import InputError
-from walkers.io import elapsed_seconds, iso_times, open_results
+from walkers.fields.times import elapsed_seconds, iso_times
+from walkers.outputs.reader import open_results
 
 CONC_CMAP = "viridis"
 LAND_COLOUR = "#cfc8b8"
@@ -402,7 +403,8 @@ def plot_results(
 
     Parameters
     ----------
-    ds_or_path : a result Dataset, or the path of a file written by ``walkers.io.write_results``.
+    ds_or_path : a result Dataset, or the path of a file written by
+        ``walkers.outputs.writer.write_results``.
     outdir : an existing, writable directory.
     times : output times to map, in seconds after the first output time; the nearest output time
         is drawn. Default: three times spread evenly after the start.

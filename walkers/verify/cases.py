@@ -14,103 +14,30 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
-from dataclasses import dataclass, field
 
 import numpy as np
 from scipy import stats
 
-from walkers import analytic, reduce
-from walkers.config import Dispersion, OutputGrid, Release, Transport
-from walkers.engine import mover
 from walkers.engine.state import IN_WATER, LEFT, ParticleState
 from walkers.fields.analytic import analytic_flow, grid_flow
-from walkers.fields.base import FlowField, centre_to_edges
-from walkers.randomness import run_streams
-from walkers.simulate import RunState, simulate
-
-Z = 5.0
-P_FIVE_SIGMA = 2.0 * stats.norm.sf(Z)
-
-FISCHER = "Fischer et al. 1979, Mixing in Inland and Coastal Waters, ch. 2 (from memory)"
-KS_SOURCE = "Kolmogorov-Smirnov test, scipy.stats.kstest / kstwo"
-
-
-@dataclass
-class Check:
-    """One comparison of a measured value with its expected value."""
-
-    name: str
-    measured: float
-    expected: float
-    tolerance: float
-    source: str
-    kind: str = "abs"  # "abs": |measured − expected| ≤ tol; "max": measured ≤ tol; "min": ≥ tol
-
-    @property
-    def passed(self) -> bool:
-        if not np.isfinite(self.measured):
-            return False
-        if self.kind == "max":
-            return self.measured <= self.tolerance
-        if self.kind == "min":
-            return self.measured >= self.tolerance
-        return abs(self.measured - self.expected) <= self.tolerance
-
-
-@dataclass
-class CaseResult:
-    """All checks of one verification case."""
-
-    name: str
-    title: str
-    particles: int
-    checks: list[Check] = field(default_factory=list)
-
-    @property
-    def passed(self) -> bool:
-        return all(c.passed for c in self.checks)
-
-
-def _ks_check(name: str, sample: np.ndarray, cdf: Callable, source: str) -> Check:
-    d = stats.kstest(sample, cdf).statistic
-    crit = float(stats.kstwo.ppf(1.0 - P_FIVE_SIGMA, len(sample)))
-    return Check(name, float(d), 0.0, crit, f"{source}; {KS_SOURCE}", kind="max")
-
-
-def _mean_check(name, sample, expected, sigma, source) -> Check:
-    return Check(name, float(np.mean(sample)), expected, Z * sigma / math.sqrt(len(sample)), source)
-
-
-def _variance_check(name, sample, expected, source) -> Check:
-    n = len(sample)
-    se = expected * math.sqrt(2.0 / (n - 1))  # sampling SE of a normal variance
-    return Check(name, float(np.var(sample, ddof=1)), expected, Z * se, source)
-
-
-def _box_error_check(name, conc, cell_mean, unit_mass_conc, n, source) -> Check:
-    """Relative L2 error of box-counted concentration against cell-averaged analytic values.
-
-    Expected error and its spread follow from multinomial counts: cell i with probability p_i has
-    variance (M/(A Δ))² p_i (1 − p_i)/N (common practice).
-    """
-    p = cell_mean / unit_mass_conc
-    var = unit_mass_conc**2 * p * (1.0 - p) / n
-    norm2 = float(np.sum(cell_mean**2))
-    err = math.sqrt(float(np.sum((conc - cell_mean) ** 2)) / norm2)
-    expected = math.sqrt(float(np.sum(var)) / norm2)
-    se = math.sqrt(2.0 * float(np.sum(var**2))) / norm2 / (2.0 * expected)
-    return Check(name, err, expected, Z * se, source)
-
-
-def evolve(
-    flow: FlowField, transport: Transport, state: ParticleState, t0: float, t1: float, seed: int
-) -> ParticleState:
-    """Move particles from t0 to t1 (s) in one window (steady or short flows)."""
-    walk_key, _ = run_streams(seed)
-    nsteps = int(round((t1 - t0) / transport.dt))
-    inputs = mover.kernel_inputs(flow, flow.window(t0, t1), transport)
-    mover.advance(state, inputs, t0, transport.dt, nsteps, 0, walk_key)
-    return state
+from walkers.fields.base import centre_to_edges
+from walkers.run import reduce
+from walkers.run.simulate import RunState, simulate
+from walkers.scenario.config import Dispersion, OutputGrid, Release, Transport
+from walkers.verify import analytic
+from walkers.verify.checks import (
+    FISCHER,
+    P_FIVE_SIGMA,
+    CaseResult,
+    Check,
+    Z,
+    box_error_check,
+    evolve,
+    ks_check,
+    mean_check,
+    variance_check,
+)
+from walkers.verify.coast import COAST_CASES
 
 
 def _final_state(flow, transport, releases, end, interval, grid, seed):
@@ -147,16 +74,16 @@ def case_point_1d(particles: int, seed: int, dispersion_factor: float = 1.0) -> 
         p = np.diff(stats.norm.cdf(edges, centre, sigma))
         cell_mean = mass * p / (area * dx)
         conc = ds.concentration.values[-1, 0]
-        chk = _box_error_check(
+        chk = box_error_check(
             f"concentration rel. L2 error, N={n}", conc, cell_mean, mass / (area * dx), n, FISCHER
         )
         errors.append((n, chk.measured))
         result.checks.append(chk)
     x = st.x[st.status == IN_WATER]
     result.checks += [
-        _mean_check("centroid x (m)", x, centre, sigma, FISCHER),
-        _variance_check("variance x (m2)", x, 2 * k * t_end, FISCHER),
-        _ks_check("KS distance to the normal law", x, stats.norm(centre, sigma).cdf, FISCHER),
+        mean_check("centroid x (m)", x, centre, sigma, FISCHER),
+        variance_check("variance x (m2)", x, 2 * k * t_end, FISCHER),
+        ks_check("KS distance to the normal law", x, stats.norm(centre, sigma).cdf, FISCHER),
     ]
     slope = np.polyfit(np.log([e[0] for e in errors]), np.log([e[1] for e in errors]), 1)[0]
     result.checks.append(
@@ -194,13 +121,13 @@ def case_point_2d(particles: int, seed: int, dispersion_factor: float = 1.0) -> 
     p = np.outer(np.diff(stats.norm.cdf(ey, cy, sy)), np.diff(stats.norm.cdf(ex, cx, sx)))
     result = CaseResult("point-2d", "Point release, uniform flow, 2-D, Kx ≠ Ky", particles)
     result.checks += [
-        _mean_check("centroid x (m)", x, cx, sx, FISCHER),
-        _mean_check("centroid y (m)", y, cy, sy, FISCHER),
-        _variance_check("variance x (m2)", x, 2 * kx * t_end, FISCHER),
-        _variance_check("variance y (m2)", y, 2 * ky * t_end, FISCHER),
-        _ks_check("KS distance, x", x, stats.norm(cx, sx).cdf, FISCHER),
-        _ks_check("KS distance, y", y, stats.norm(cy, sy).cdf, FISCHER),
-        _box_error_check(
+        mean_check("centroid x (m)", x, cx, sx, FISCHER),
+        mean_check("centroid y (m)", y, cy, sy, FISCHER),
+        variance_check("variance x (m2)", x, 2 * kx * t_end, FISCHER),
+        variance_check("variance y (m2)", y, 2 * ky * t_end, FISCHER),
+        ks_check("KS distance, x", x, stats.norm(cx, sx).cdf, FISCHER),
+        ks_check("KS distance, y", y, stats.norm(cy, sy).cdf, FISCHER),
+        box_error_check(
             "concentration rel. L2 error",
             ds.concentration.values[-1],
             mass * p / (h * d * d),
@@ -230,7 +157,7 @@ def case_reflecting_wall(particles: int, seed: int, wall: str = "reflecting") ->
     x = st.x[st.status == IN_WATER]
     cdf = lambda v: analytic.reflected_normal_cdf(v, x0=x0, sigma=sigma)  # noqa: E731
     result.checks.append(Check("particles kept (fraction)", len(x) / particles, 1.0, 0.0, src))
-    result.checks.append(_ks_check("KS distance to images law, domain edge", x, cdf, src))
+    result.checks.append(ks_check("KS distance to images law, domain edge", x, cdf, src))
     # The same wall made of land cells inside a 2-D grid.
     xc = np.arange(-195.0, 2000.0, 10.0)
     yc = np.arange(-995.0, 1000.0, 10.0)
@@ -244,7 +171,7 @@ def case_reflecting_wall(particles: int, seed: int, wall: str = "reflecting") ->
     )
     st2 = evolve(coast, tr2, st2, 0.0, t_end, seed + 1)
     result.checks.append(
-        _ks_check("KS distance to images law, land cells", st2.x[st2.status == IN_WATER], cdf, src)
+        ks_check("KS distance to images law, land cells", st2.x[st2.status == IN_WATER], cdf, src)
     )
     return result
 
@@ -279,7 +206,7 @@ def case_absorbing_edge(particles: int, seed: int, velocity_factor: float = 1.0)
         se = math.sqrt(q * (1 - q) / particles)
         result.checks.append(Check(f"fraction gone by {t:.0f} s", frac, q, Z * se, src))
     gone = arrivals[np.isfinite(arrivals)]
-    result.checks.append(_ks_check("KS distance of arrival times", gone, law.cdf, src))
+    result.checks.append(ks_check("KS distance of arrival times", gone, law.cdf, src))
     return result
 
 
@@ -372,10 +299,10 @@ def case_shear(particles: int, seed: int, shear_factor: float = 1.0) -> CaseResu
     src = "shear dispersion of a point release, σx² = 2Kt(1 + γ²t²/3) (from memory)"
     result = CaseResult("shear", "Linear shear flow u = γy", particles)
     result.checks += [
-        _variance_check("variance x (m2)", st.x, var_x, src),
-        _variance_check("variance y (m2)", st.y, 2 * k * t_end, src),
-        _mean_check("centroid x (m)", st.x, 0.0, math.sqrt(var_x), src),
-        _ks_check("KS distance, x", st.x, stats.norm(0.0, math.sqrt(var_x)).cdf, src),
+        variance_check("variance x (m2)", st.x, var_x, src),
+        variance_check("variance y (m2)", st.y, 2 * k * t_end, src),
+        mean_check("centroid x (m)", st.x, 0.0, math.sqrt(var_x), src),
+        ks_check("KS distance, x", st.x, stats.norm(0.0, math.sqrt(var_x)).cdf, src),
     ]
     return result
 
@@ -524,6 +451,7 @@ CASES: dict[str, tuple[Callable[..., CaseResult], int]] = {
     "decay-budget": (case_decay_budget, 4000),
     "tidal": (case_tidal, 10),
     "rotation": (case_rotation, 1),
+    **COAST_CASES,
 }
 
 
@@ -531,33 +459,3 @@ def run_case(name: str, particles: int | None = None, seed: int = 20261201, **wr
     """Run one verification case (``wrong`` overrides make the run deliberately wrong)."""
     func, default = CASES[name]
     return func(int(particles or default), seed, **wrong)
-
-
-def report_markdown(results: list[CaseResult]) -> str:
-    """The verification table as Markdown."""
-    lines = [
-        "# Verification",
-        "",
-        "Generated by `walkers verify --report docs/verification.md`. Each check compares the",
-        "engine with a published closed-form result; tolerances are 5 standard errors of the",
-        "sampling distribution, the 5-sigma critical value of a distribution test, or a stated",
-        "error bound. Distribution tests pass when the statistic stays below the critical value",
-        "(KS) or the p-value above it (chi-square).",
-        "",
-    ]
-    for r in results:
-        lines += [
-            f"## {r.name}: {r.title}",
-            "",
-            f"Particles: {r.particles}. Result: {'PASS' if r.passed else 'FAIL'}.",
-            "",
-            "| check | measured | expected | tolerance | pass | source |",
-            "| --- | --- | --- | --- | --- | --- |",
-        ]
-        for c in r.checks:
-            lines.append(
-                f"| {c.name} | {c.measured:.6g} | {c.expected:.6g} | {c.tolerance:.3g} | "
-                f"{'yes' if c.passed else 'NO'} | {c.source} |"
-            )
-        lines.append("")
-    return "\n".join(lines)

@@ -14,10 +14,10 @@ from collections.abc import Sequence
 import numpy as np
 from scipy.ndimage import gaussian_filter
 
-from walkers.config import EDGE_NAMES, OutputGrid, Receptor
 from walkers.engine import kernels
 from walkers.engine.state import DECAYED, IN_WATER, LEFT, STRANDED, WAITING, ParticleState
 from walkers.fields.geo import metres_per_degree
+from walkers.scenario.config import EDGE_NAMES, OutputGrid, Receptor
 
 
 def cell_measure(grid: OutputGrid, geographic: bool, ndim: int) -> np.ndarray:

@@ -10,9 +10,7 @@ from __future__ import annotations
 import dataclasses
 import hashlib
 import json
-import os
 from collections.abc import Callable
-from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any, Literal
@@ -20,13 +18,14 @@ from typing import Any, Literal
 import numpy as np
 import xarray as xr
 
-import walkers
-from walkers.config import Release
+from walkers.engine.dispersion import transport_for
 from walkers.engine.state import BYTES_PER_PARTICLE
 from walkers.errors import InputError
 from walkers.fields.base import FlowField
-from walkers.scenario import Scenario, load_scenario
-from walkers.simulate import RunState, simulate
+from walkers.fields.scenario_flow import build_flow, check_flow
+from walkers.run.simulate import RunState, simulate
+from walkers.scenario.config import Release
+from walkers.scenario.specs import Scenario
 
 #: Bytes of memory a particle takes during a run: its state (BYTES_PER_PARTICLE), its release index
 #: (int32) and the temporaries of the reductions at output times (depth, weight and two selections
@@ -34,20 +33,11 @@ from walkers.simulate import RunState, simulate
 PARTICLE_WORKING_BYTES = BYTES_PER_PARTICLE + 4 + 4 * 8
 
 
-@dataclass
-class RunOutcome:
-    """What a run produced: the result Dataset, the file written (if any) and the summary text."""
-
-    results: xr.Dataset
-    path: Path | None
-    summary: str
-
-
 def flow_offset(scenario: Scenario, flow: FlowField) -> float:
     """Seconds of the run start in the flow's time frame (0 for analytic flows)."""
     if scenario.flow.kind == "analytic":
         return 0.0
-    from walkers.fields.netcdf import to_flow_seconds
+    from walkers.fields.times import to_flow_seconds
 
     return float(to_flow_seconds(scenario.start_iso, flow))
 
@@ -60,10 +50,10 @@ def shift_release(release: Release, offset: float) -> Release:
 
 def check_places(scenario: Scenario, flow: FlowField, offset: float) -> None:
     """Releases and receptors must be in water at the run start; the grid must overlap."""
-    scenario.check_flow(flow)
+    check_flow(scenario, flow)
     if scenario.flow.kind != "files":
         return
-    from walkers.fields.netcdf import check_points_in_water
+    from walkers.fields.scenario_flow import check_points_in_water
 
     for i, rel in enumerate(scenario.releases):
         pts = np.atleast_2d(rel.coords)
@@ -177,11 +167,11 @@ def simulate_scenario(
     flow: FlowField | None = None,
 ) -> xr.Dataset:
     """Run a scenario and return its result Dataset (nothing is written)."""
-    flow = scenario.flow.build() if flow is None else flow
+    flow = build_flow(scenario.flow) if flow is None else flow
     offset = flow_offset(scenario, flow)
     check_places(scenario, flow, offset)
     check_memory(scenario, flow)
-    transport = scenario.transport_for(flow)
+    transport = transport_for(scenario, flow)
     releases = [shift_release(r, offset) for r in scenario.releases]
     ds = simulate(
         flow,
@@ -216,78 +206,3 @@ def simulate_scenario(
     ds.attrs["run_start"] = scenario.start_iso
     ds.attrs["run_end"] = scenario.end_iso
     return ds
-
-
-def run_scenario(
-    scenario: Scenario | str | os.PathLike,
-    *,
-    output: str | os.PathLike | None = None,
-    overwrite: bool = False,
-    engine: Literal["compiled", "numpy"] = "compiled",
-    progress: Callable[[float, float, int], None] | None = None,
-    resume: RunState | None = None,
-    on_output: Callable[[RunState], None] | None = None,
-) -> RunOutcome:
-    """Run a scenario, write its CF-NetCDF output atomically and return the outcome.
-
-    The target is checked before the run starts, so a long run never ends on "file exists".
-    """
-    from walkers import io
-
-    if not isinstance(scenario, Scenario):
-        scenario = load_scenario(Path(scenario))
-    path = Path(output) if output is not None else Path(scenario.output_path)
-    io.check_target(path, overwrite)
-    ds = simulate_scenario(
-        scenario, engine=engine, progress=progress, resume=resume, on_output=on_output
-    )
-    io.write_results(ds, path, overwrite=overwrite)
-    return RunOutcome(ds, path, summary_text(ds))
-
-
-def _iso(ds: xr.Dataset, seconds: float) -> str:
-    from walkers.io import iso_times
-
-    t = xr.DataArray([seconds], dims="time", attrs=ds.time.attrs)
-    return iso_times(t)[0]
-
-
-def summary_text(ds: xr.Dataset) -> str:
-    """The end-of-run summary: mass budget, and per receptor the peak, arrival and exceedance."""
-    t = ds.time.values
-    lines = [f"{ds.attrs.get('title') or 'walkers run'}", ""]
-    released = float(ds.mass_released[-1])
-    lines.append(f"Mass budget at {_iso(ds, float(t[-1]))} (kg):")
-    lines.append(f"  released        {released:12.6g}")
-    lines.append(f"  in water        {float(ds.mass_in_water[-1]):12.6g}")
-    for e in ds.edge.values:
-        lines.append(f"  left via {str(e):7s}{float(ds.mass_left.sel(edge=e)[-1]):12.6g}")
-    lines.append(f"  decayed         {float(ds.mass_decayed[-1]):12.6g}")
-    lines.append(f"  stranded (dry)  {float(ds.mass_stranded[-1]):12.6g}")
-    residual = released - float(
-        ds.mass_in_water[-1]
-        + ds.mass_left[:, -1].sum()
-        + ds.mass_decayed[-1]
-        + ds.mass_stranded[-1]
-    )
-    lines.append(f"  closure error   {residual:12.3g}")
-    if ds.sizes.get("receptor", 0):
-        lines += ["", "Receptors (concentration in mg/L = g/m3 = 1e-3 kg/m3):"]
-        dt = float(t[1] - t[0]) if len(t) > 1 else 0.0
-        for k, name in enumerate(ds.receptor.values):
-            series = ds.receptor_concentration.values[k]
-            peak = float(np.nanmax(series)) if np.isfinite(series).any() else float("nan")
-            when = _iso(ds, float(t[int(np.nanargmax(series))])) if peak > 0 else "-"
-            lines.append(f"  {name}: peak {peak * 1e3:.4g} mg/L at {when}")
-            if "receptor_threshold" in ds:
-                for thr in ds.receptor_threshold.values[k]:
-                    if not np.isfinite(thr):
-                        continue
-                    above = series > thr
-                    first = _iso(ds, float(t[np.argmax(above)])) if above.any() else "never"
-                    lines.append(
-                        f"    above {thr * 1e3:.4g} mg/L: first at {first}, for about "
-                        f"{above.sum() * dt / 3600.0:.3g} h (output interval {dt / 60:.3g} min)"
-                    )
-    lines += ["", f"Caution: {walkers.CAUTION}"]
-    return "\n".join(lines)

@@ -1,8 +1,8 @@
 """Restart files: save a run's state at output times, and continue from it after an interruption.
 
-A checkpoint holds everything :func:`walkers.simulate.simulate` needs to go on (a
-:class:`~walkers.simulate.RunState`): the particle arrays, the owner of each particle, the index of
-the next output time and the reductions recorded so far, plus a fingerprint of the run (the
+A checkpoint holds everything :func:`walkers.run.simulate.simulate` needs to go on (a
+:class:`~walkers.run.simulate.RunState`): the particle arrays, the owner of each particle, the index
+of the next output time and the reductions recorded so far, plus a fingerprint of the run (the
 scenario text, seed, engine, walkers version and the size and modification time of every flow
 file). The random numbers of a step are a hash of (run key, particle, step index), so a run
 continued from an exactly restored state gives bitwise the same result as one never interrupted.
@@ -11,8 +11,8 @@ Files: ``<output>.checkpoint.npz`` beside the output (numpy's npz, read without 
 to ``.<output>.checkpoint.npz.part`` and renamed with :func:`os.replace`, so a crash mid-write
 leaves the previous checkpoint whole. The command line removes it after a successful run.
 
-A run whose fields are streamed to disk (:class:`walkers.io.DiskFields`) keeps them out of the
-npz: the segment files of the output times done so far are closed and placed in the folder
+A run whose fields are streamed to disk (:class:`walkers.run.store.DiskFields`) keeps them out of
+the npz: the segment files of the output times done so far are closed and placed in the folder
 ``<checkpoint>.fields/`` beside it (:func:`fields_folder`) before the npz that lists them (name,
 output times, size) is written, so the npz only ever lists complete files. After each save the
 folder holds exactly the segments the npz lists; :func:`remove_checkpoint` removes it too.
@@ -35,9 +35,10 @@ import numpy as np
 import walkers
 from walkers.engine.state import ParticleState
 from walkers.errors import InputError
-from walkers.io import DiskFields
-from walkers.scenario import Scenario
-from walkers.simulate import RunState, _Accumulator
+from walkers.run.accumulate import _Accumulator
+from walkers.run.simulate import RunState
+from walkers.run.store import DiskFields
+from walkers.scenario.specs import Scenario
 
 #: Version of the checkpoint layout; a file of another version is refused. 2: fields may be on
 #: disk beside the npz; the running maximum of the concentration is saved.
@@ -218,7 +219,7 @@ def remove_checkpoint(path: str | os.PathLike) -> None:
 
 
 class Checkpointer:
-    """An ``on_output`` callback of :func:`~walkers.simulate.simulate` that saves the run state
+    """An ``on_output`` callback of :func:`~walkers.run.simulate.simulate` that saves the run state
     every ``every`` seconds of simulated time (at the first output time at or after each).
 
     path : checkpoint file; fingerprint : from :func:`run_fingerprint`.

@@ -17,9 +17,9 @@ from collections.abc import Sequence
 
 import numpy as np
 
-from walkers.config import Release
 from walkers.engine.state import ParticleState
 from walkers.errors import InputError
+from walkers.scenario.config import Release
 
 
 def release_times_and_masses(release: Release) -> tuple[np.ndarray, np.ndarray]:

@@ -6,11 +6,11 @@ fields, receptor series, mass budget and cloud moments at every output time.
 
 Memory does not grow with the length of a run: the 3-D fields (concentration, particle counts,
 smoothed concentration) of a run whose fields would exceed
-:data:`walkers.io.FIELD_MEMORY_BUDGET` go to a temporary file as each output time is computed
-(:class:`walkers.io.DiskFields`), and the returned Dataset reads them lazily (dask, one chunk per
-output time), so :func:`walkers.io.write_results` streams them to the output file. The maximum
-concentration is kept as a running maximum; the series over time (budget, receptors, moments,
-sampled tracks) are small and stay in memory.
+:data:`walkers.run.store.FIELD_MEMORY_BUDGET` go to a temporary file as each output time is computed
+(:class:`walkers.run.store.DiskFields`), and the returned Dataset reads them lazily (dask, one chunk
+per output time), so :func:`walkers.outputs.writer.write_results` streams them to the output file.
+The maximum concentration is kept as a running maximum; the series over time (budget, receptors,
+moments, sampled tracks) are small and stay in memory.
 
 Guards on the way (each names the time and, where there is one, the place):
 
@@ -31,23 +31,22 @@ import os
 import warnings
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
-from pathlib import Path
-from typing import Any, Literal
+from typing import Literal
 
 import numpy as np
 import xarray as xr
 
-import walkers
-from walkers import reduce
-from walkers.config import EDGE_NAMES, OutputGrid, Receptor, Release, Transport
 from walkers.engine import mover
+from walkers.engine.randomness import run_streams
+from walkers.engine.releases import make_particles
 from walkers.engine.state import ParticleState
 from walkers.engine.timestep import check_time_step
 from walkers.errors import InputError, RunFailure
 from walkers.fields.base import FlowField, FlowWindow, centre_to_edges
-from walkers.io import DiskFields, FieldMode, MemoryFields, field_store
-from walkers.randomness import run_streams
-from walkers.releases import make_particles
+from walkers.run import reduce
+from walkers.run.accumulate import _Accumulator, _field_variables
+from walkers.run.store import FieldMode, field_store
+from walkers.scenario.config import OutputGrid, Receptor, Release, Transport
 
 ProgressCallback = Callable[[float, float, int], None]
 
@@ -106,7 +105,7 @@ def check_budget_precision(particles: int, steps: int, decay_rate: float, dt: fl
 
     Raises InputError naming the count and what to change.
     """
-    from walkers.scenario import MAX_PARTICLES
+    from walkers.scenario.keys import MAX_PARTICLES
 
     if particles > MAX_PARTICLES:
         raise InputError(
@@ -125,7 +124,7 @@ def check_budget_precision(particles: int, steps: int, decay_rate: float, dt: fl
 
 def _when(flow: FlowField, t: float) -> str:
     """Time ``t`` (s, flow frame) as ISO 8601 for messages; seconds if the units are unusual."""
-    from walkers.io import iso_times
+    from walkers.fields.times import iso_times
 
     try:
         stamp = xr.DataArray(
@@ -254,8 +253,8 @@ def simulate(
     resume : continue from a saved :class:`RunState` (same arguments otherwise).
     on_output : called with the :class:`RunState` after each output time (for checkpoints).
     fields : where the 3-D fields are kept while the run goes on: ``"memory"``, ``"disk"``
-        (streamed to a temporary file and returned as lazy dask arrays), or ``"auto"`` (on disk
-        when they would exceed :data:`walkers.io.FIELD_MEMORY_BUDGET`). A resumed run keeps the
+        (streamed to a temporary file and returned as lazy dask arrays), or ``"auto"`` (on disk when
+        they would exceed :data:`walkers.run.store.FIELD_MEMORY_BUDGET`). A resumed run keeps the
         store of its saved state. The values are the same either way.
     field_folder : where an on-disk store makes its temporary folder (default: the system's
         temporary folder). It is removed if the run fails or is interrupted, and otherwise when
@@ -265,16 +264,7 @@ def simulate(
         raise InputError("no releases: a run needs at least one release")
     times = output_times(start, end, output_interval, transport.dt)
     _check_window(flow, start, end)
-    substeps = int(transport.substeps)
-    if time_step_check != "off":
-        report = check_time_step(flow, transport, start, end)
-        if not report.ok:
-            if time_step_check == "fail":
-                raise InputError(report.message())
-            if time_step_check == "substep":
-                substeps = max(substeps, report.substeps_needed)
-            else:
-                warnings.warn(report.message(), stacklevel=2)
+    substeps = _substeps(flow, transport, start, end, time_step_check)
     dt = transport.dt / substeps
     steps_per_output = int(round(output_interval / dt))
     check_budget_precision(
@@ -295,17 +285,8 @@ def simulate(
         store = field_store(shape, variables, fields, field_folder)
         acc = _Accumulator(len(times), output_grid, len(receptors), tracks, store)
     else:
+        _check_resume(resume, shape, variables, len(times))
         particles, owner, first = resume.particles, resume.owner, resume.next_output
-        saved = resume.results.fields
-        if (
-            saved.shape != shape
-            or set(saved.variables) != set(variables)
-            or not 0 < first <= len(times)
-        ):
-            raise InputError(
-                "the saved run state does not fit this run (different output times or grid); "
-                "start the run afresh"
-            )
         acc = resume.results
     xe, ye = centre_to_edges(flow.x), centre_to_edges(flow.y)
     measure = reduce.cell_measure(output_grid, flow.geographic, flow.ndim)
@@ -318,23 +299,22 @@ def simulate(
             t = float(times[k])
             if k > 0:
                 t_prev = float(times[k - 1])
-                window = flow.window(t_prev, t)
-                check_window_velocity(flow, window)
-                inputs = mover.kernel_inputs(flow, window, transport)
                 step0 = (k - 1) * steps_per_output
-                per_call = max(1, PARTICLE_STEPS_PER_CALL // max(len(particles), 1))
-                for s in range(0, steps_per_output, per_call):
-                    n = min(per_call, steps_per_output - s)
-                    t_call = t_prev + s * dt
-                    mover.advance(particles, inputs, t_call, dt, n, step0 + s, walk_key, engine)
-                    _check_positions(particles, owner, releases, flow, t_call, t_call + n * dt)
-            window_now = flow.window(t, t)
-            frame = (
-                0
-                if window_now.depth.shape[0] == 1
-                else int(np.argmin(np.abs(window_now.times - t)))
-            )
-            depths = reduce.particle_depths(particles, window_now.depth[frame], xe, ye)
+                _advance_interval(
+                    particles,
+                    owner,
+                    releases,
+                    flow,
+                    transport,
+                    t_prev,
+                    t,
+                    dt,
+                    steps_per_output,
+                    step0,
+                    walk_key,
+                    engine,
+                )
+            depths = _particle_depths_at(particles, flow, t, xe, ye)
             conc, count = reduce.concentration(particles, depths, output_grid, measure)
             acc.record(
                 k, particles, depths, conc, count, receptors, output_grid, flow, mpu, track_index
@@ -352,240 +332,73 @@ def simulate(
         raise
 
 
-def _field_variables(grid: OutputGrid) -> dict[str, type]:
-    """The 3-D fields a run stores at every output time, with their dtypes."""
-    variables: dict[str, type] = {"concentration": np.float64, "particle_count": np.int32}
-    if grid.bandwidth > 0:
-        variables["concentration_smoothed"] = np.float64
-    return variables
+def _substeps(
+    flow: FlowField,
+    transport: Transport,
+    start: float,
+    end: float,
+    time_step_check: Literal["fail", "substep", "warn", "off"],
+) -> int:
+    """Sub-steps per time step: the transport's, or more when the time-step check asks for them
+    (``"substep"``); ``"fail"`` raises and ``"warn"`` warns on a too-long time step instead."""
+    substeps = int(transport.substeps)
+    if time_step_check != "off":
+        report = check_time_step(flow, transport, start, end)
+        if not report.ok:
+            if time_step_check == "fail":
+                raise InputError(report.message())
+            if time_step_check == "substep":
+                substeps = max(substeps, report.substeps_needed)
+            else:
+                warnings.warn(report.message(), stacklevel=3)
+    return substeps
 
 
-class _Accumulator:
-    """Holds the reductions at each output time while the run goes on.
-
-    The 3-D fields go to ``fields`` (in memory or streamed to disk, see :mod:`walkers.io`); the
-    maximum concentration over time is a running maximum; the rest are series over time.
-    """
-
-    def __init__(
-        self, nt: int, grid: OutputGrid, nrec: int, tracks: int, fields: MemoryFields | DiskFields
-    ):
-        self.fields = fields
-        self.conc_max = np.full((grid.ny, grid.nx), -np.inf)
-        self.receptor = np.zeros((nrec, nt))
-        self.budget = {
-            k: np.zeros(nt)
-            for k in ("mass_released", "mass_in_water", "mass_decayed", "mass_stranded")
-        }
-        self.left = np.zeros((len(EDGE_NAMES), nt))
-        self.in_water = np.zeros(nt, dtype=np.int32)
-        self.moments = {
-            k: np.full(nt, np.nan)
-            for k in ("centroid_x", "centroid_y", "variance_x", "variance_y", "covariance_xy")
-        }
-        self.track_x = np.full((tracks, nt), np.nan) if tracks else None
-        self.track_y = np.full((tracks, nt), np.nan) if tracks else None
-
-    def arrays(self) -> dict[str, np.ndarray]:
-        """Every array held in memory, by a flat name (for checkpoints); the fields too when they
-        are in memory (``field.<name>``). See :meth:`from_arrays` and :meth:`field_record`."""
-        out = {
-            "conc_max": self.conc_max,
-            "receptor": self.receptor,
-            "left": self.left,
-            "in_water": self.in_water,
-        }
-        if isinstance(self.fields, MemoryFields):
-            out.update({f"field.{k}": v for k, v in self.fields.arrays.items()})
-        if self.track_x is not None and self.track_y is not None:
-            out["track_x"], out["track_y"] = self.track_x, self.track_y
-        out.update({f"budget.{k}": v for k, v in self.budget.items()})
-        out.update({f"moment.{k}": v for k, v in self.moments.items()})
-        return out
-
-    def field_record(self, folder: Path) -> dict[str, Any] | None:
-        """For fields on disk: hand their segments over to ``folder`` (a checkpoint's) and return
-        the record that :meth:`walkers.io.DiskFields.from_record` reads back (see
-        :meth:`walkers.io.DiskFields.hand_over`); None for fields in memory."""
-        if isinstance(self.fields, DiskFields):
-            return self.fields.hand_over(folder)
-        return None
-
-    @classmethod
-    def from_arrays(
-        cls, arrays: dict[str, np.ndarray], fields: DiskFields | None = None
-    ) -> _Accumulator:
-        """The accumulator whose :meth:`arrays` were ``arrays``; its fields are those arrays or,
-        for fields on disk, ``fields`` (KeyError if an array is missing)."""
-        acc = cls.__new__(cls)
-        acc.conc_max, acc.receptor = arrays["conc_max"], arrays["receptor"]
-        acc.left, acc.in_water = arrays["left"], arrays["in_water"]
-        acc.track_x, acc.track_y = arrays.get("track_x"), arrays.get("track_y")
-        acc.budget = {
-            k: arrays[f"budget.{k}"]
-            for k in ("mass_released", "mass_in_water", "mass_decayed", "mass_stranded")
-        }
-        acc.moments = {
-            k: arrays[f"moment.{k}"]
-            for k in ("centroid_x", "centroid_y", "variance_x", "variance_y", "covariance_xy")
-        }
-        prefix = "field."
-        acc.fields = (
-            fields
-            if fields is not None
-            else MemoryFields.from_arrays(
-                {k[len(prefix) :]: v for k, v in arrays.items() if k.startswith(prefix)}
-            )
+def _check_resume(
+    resume: RunState, shape: tuple[int, int, int], variables: dict[str, type], outputs: int
+) -> None:
+    """InputError unless a saved run state fits this run's output times and grid."""
+    first = resume.next_output
+    saved = resume.results.fields
+    if saved.shape != shape or set(saved.variables) != set(variables) or not 0 < first <= outputs:
+        raise InputError(
+            "the saved run state does not fit this run (different output times or grid); "
+            "start the run afresh"
         )
-        return acc
 
-    def record(self, k, particles, depths, conc, count, receptors, grid, flow, mpu, track_index):
-        fields = {"concentration": conc, "particle_count": count}
-        if "concentration_smoothed" in self.fields.variables:
-            fields["concentration_smoothed"] = reduce.smoothed(conc, grid, mpu)
-        self.fields.put(k, fields)
-        np.maximum(self.conc_max, conc, out=self.conc_max)
-        if receptors:
-            self.receptor[:, k] = reduce.receptor_values(
-                particles, depths, receptors, conc, grid, flow.geographic, flow.ndim
-            )
-        b = reduce.mass_budget(particles)
-        for name in self.budget:
-            self.budget[name][k] = b[name]
-        self.left[:, k] = b["mass_left"]
-        self.in_water[k] = b["particles_in_water"]
-        for name, value in reduce.cloud_moments(particles, flow.geographic).items():
-            self.moments[name][k] = value
-        if track_index is not None:
-            visible = particles.status[track_index] == 1
-            self.track_x[:, k] = np.where(visible, particles.x[track_index], np.nan)
-            self.track_y[:, k] = np.where(visible, particles.y[track_index], np.nan)
 
-    def dataset(self, times, flow, grid, receptors, releases, seed, member, title, text):
-        geo = flow.geographic
-        xunits, yunits = ("degrees_east", "degrees_north") if geo else ("m", "m")
-        coords = {
-            "time": (
-                "time",
-                times,
-                {
-                    "units": flow.time_units,
-                    "calendar": flow.calendar,
-                    "standard_name": "time",
-                    "axis": "T",
-                },
-            ),
-            "x": ("x", grid.x, {"units": xunits, "axis": "X", "long_name": "output cell centre"}),
-            "y": ("y", grid.y, {"units": yunits, "axis": "Y", "long_name": "output cell centre"}),
-            "edge": ("edge", np.array(EDGE_NAMES), {"long_name": "domain edge"}),
-            "receptor": (
-                "receptor",
-                np.array([r.name for r in receptors], dtype=object),
-                {"long_name": "receptor name"},
-            ),
-            "receptor_x": (
-                "receptor",
-                np.array([r.x for r in receptors], dtype=float),
-                {"units": xunits, "long_name": "receptor position x"},
-            ),
-            "receptor_y": (
-                "receptor",
-                np.array([r.y for r in receptors], dtype=float),
-                {"units": yunits, "long_name": "receptor position y"},
-            ),
-            "receptor_radius": (
-                "receptor",
-                np.array([r.radius for r in receptors], dtype=float),
-                {"units": "m", "long_name": "receptor averaging radius"},
-            ),
-        }
-        kgm3 = "kg m-3"
-        data = {
-            "concentration": (
-                ("time", "y", "x"),
-                self.fields.data("concentration"),
-                {"units": kgm3, "long_name": "concentration (box counting)"},
-            ),
-            "particle_count": (
-                ("time", "y", "x"),
-                self.fields.data("particle_count"),
-                {"units": "1", "long_name": "number of particles in the cell"},
-            ),
-            "concentration_max": (
-                ("y", "x"),
-                self.conc_max,
-                {"units": kgm3, "long_name": "maximum concentration over time"},
-            ),
-            "receptor_concentration": (
-                ("receptor", "time"),
-                self.receptor,
-                {"units": kgm3, "long_name": "concentration at receptor"},
-            ),
-            "mass_left": (
-                ("edge", "time"),
-                self.left,
-                {"units": "kg", "long_name": "mass that left through the edge"},
-            ),
-            "particles_in_water": (
-                "time",
-                self.in_water,
-                {"units": "1", "long_name": "particles in water"},
-            ),
-        }
-        if "concentration_smoothed" in self.fields.variables:
-            data["concentration_smoothed"] = (
-                ("time", "y", "x"),
-                self.fields.data("concentration_smoothed"),
-                {
-                    "units": kgm3,
-                    "long_name": "concentration (Gaussian kernel)",
-                    "bandwidth_m": grid.bandwidth,
-                },
-            )
-        long_names = {
-            "mass_released": "mass released so far",
-            "mass_in_water": "mass in the water",
-            "mass_decayed": "mass lost to decay",
-            "mass_stranded": "mass held in dry cells",
-        }
-        for name, values in self.budget.items():
-            data[name] = ("time", values, {"units": "kg", "long_name": long_names[name]})
-        for name, values in self.moments.items():
-            units = (xunits if name.endswith("x") else yunits) if "centroid" in name else "m2"
-            data[name] = ("time", values, {"units": units, "long_name": name.replace("_", " ")})
-        thresholds = [r.thresholds for r in receptors]
-        if any(thresholds):
-            width = max(len(t) for t in thresholds)
-            table = np.full((len(receptors), width), np.nan)
-            for k, t in enumerate(thresholds):
-                table[k, : len(t)] = t
-            data["receptor_threshold"] = (
-                ("receptor", "threshold"),
-                table,
-                {"units": kgm3, "long_name": "concentration threshold of concern"},
-            )
-        if self.track_x is not None:
-            data["track_x"] = (
-                ("trajectory", "time"),
-                self.track_x,
-                {"units": xunits, "long_name": "sampled particle position x"},
-            )
-            data["track_y"] = (
-                ("trajectory", "time"),
-                self.track_y,
-                {"units": yunits, "long_name": "sampled particle position y"},
-            )
-        attrs = {
-            "title": title,
-            "seed": int(seed),
-            "walkers_version": walkers.__version__,
-            "scenario": text,
-            "crs_wkt": flow.crs_wkt or "",
-            "geographic": int(geo),
-            "caution": walkers.CAUTION,
-            "source": flow.source,
-            "releases": "; ".join(r.name for r in releases),
-        }
-        if member is not None:
-            attrs["member"] = int(member)
-        return xr.Dataset(data, coords=coords, attrs=attrs)
+def _advance_interval(
+    particles: ParticleState,
+    owner: np.ndarray,
+    releases: Sequence[Release],
+    flow: FlowField,
+    transport: Transport,
+    t_prev: float,
+    t: float,
+    dt: float,
+    steps: int,
+    step0: int,
+    walk_key: int,
+    engine: Literal["compiled", "numpy"],
+) -> None:
+    """Move the particles through the output interval from ``t_prev`` to ``t`` in ``steps`` steps
+    of ``dt`` (the first numbered ``step0``), in calls of at most :data:`PARTICLE_STEPS_PER_CALL`
+    particle-steps, checking positions after each call."""
+    window = flow.window(t_prev, t)
+    check_window_velocity(flow, window)
+    inputs = mover.kernel_inputs(flow, window, transport)
+    per_call = max(1, PARTICLE_STEPS_PER_CALL // max(len(particles), 1))
+    for s in range(0, steps, per_call):
+        n = min(per_call, steps - s)
+        t_call = t_prev + s * dt
+        mover.advance(particles, inputs, t_call, dt, n, step0 + s, walk_key, engine)
+        _check_positions(particles, owner, releases, flow, t_call, t_call + n * dt)
+
+
+def _particle_depths_at(
+    particles: ParticleState, flow: FlowField, t: float, xe: np.ndarray, ye: np.ndarray
+) -> np.ndarray:
+    """The water depth (m) at each particle at time ``t``: the flow frame nearest in time."""
+    window_now = flow.window(t, t)
+    frame = 0 if window_now.depth.shape[0] == 1 else int(np.argmin(np.abs(window_now.times - t)))
+    return reduce.particle_depths(particles, window_now.depth[frame], xe, ye)

@@ -1,0 +1,57 @@
+"""A scenario run to its files: the run, the CF-NetCDF output written atomically, the summary.
+
+This sits above the stages (it drives the run stage and the outputs stage), beside the
+command line.
+"""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Callable
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Literal
+
+import xarray as xr
+
+from walkers.files import check_target
+from walkers.outputs.summary import summary_text
+from walkers.outputs.writer import write_results
+from walkers.run.runner import simulate_scenario
+from walkers.run.simulate import RunState
+from walkers.scenario.load import load_scenario
+from walkers.scenario.specs import Scenario
+
+
+@dataclass
+class RunOutcome:
+    """What a run produced: the result Dataset, the file written (if any) and the summary text."""
+
+    results: xr.Dataset
+    path: Path | None
+    summary: str
+
+
+def run_scenario(
+    scenario: Scenario | str | os.PathLike,
+    *,
+    output: str | os.PathLike | None = None,
+    overwrite: bool = False,
+    engine: Literal["compiled", "numpy"] = "compiled",
+    progress: Callable[[float, float, int], None] | None = None,
+    resume: RunState | None = None,
+    on_output: Callable[[RunState], None] | None = None,
+) -> RunOutcome:
+    """Run a scenario, write its CF-NetCDF output atomically and return the outcome.
+
+    The target is checked before the run starts, so a long run never ends on "file exists".
+    """
+    if not isinstance(scenario, Scenario):
+        scenario = load_scenario(Path(scenario))
+    path = Path(output) if output is not None else Path(scenario.output_path)
+    check_target(path, overwrite)
+    ds = simulate_scenario(
+        scenario, engine=engine, progress=progress, resume=resume, on_output=on_output
+    )
+    write_results(ds, path, overwrite=overwrite)
+    return RunOutcome(ds, path, summary_text(ds))

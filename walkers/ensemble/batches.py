@@ -1,0 +1,140 @@
+"""Batches of members, their reduction in batch order, and percentile statistics with bootstrap
+confidence intervals.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+
+import numpy as np
+import xarray as xr
+
+from walkers.ensemble.draws import SourceDraw
+from walkers.ensemble.members import _BatchResult
+from walkers.errors import InputError
+from walkers.scenario.specs import Scenario
+
+#: Percentiles reported for the receptor distributions (percent).
+PERCENTILES = (5.0, 50.0, 95.0)
+#: Bootstrap resamples and confidence level of the percentile intervals.
+BOOTSTRAP_RESAMPLES = 2000
+CONFIDENCE = 0.95
+#: Fixed key mixed with the run seed for the bootstrap Generator.
+_BOOTSTRAP_KEY = 0x626F6F74
+#: Batches per half of the ensemble aimed at (the batch size follows from the member count only).
+_BATCHES_PER_HALF = 16
+
+
+# --------------------------------------------------------------------------------------------
+# Batching, ordered reduction, statistics
+# --------------------------------------------------------------------------------------------
+
+
+def batch_size(members: int) -> int:
+    """Members per batch: a function of the member count only, so every way of running the
+    ensemble cuts it the same way (and sums in the same order)."""
+    half = max(members // 2, 1)
+    return max(1, math.ceil(half / _BATCHES_PER_HALF))
+
+
+def batches(members: int) -> list[tuple[int, int]]:
+    """The (lo, hi) member ranges: the first half [0, N//2) and the rest, each cut in batches."""
+    size = batch_size(members)
+    half = members // 2
+    out = []
+    for a, b in ((0, half), (half, members)):
+        out += [(lo, min(lo + size, b)) for lo in range(a, b, size)]
+    return out
+
+
+class _OrderedReducer:
+    """Adds batch results in batch order, holding back those that arrive early."""
+
+    def __init__(self, ranges: list[tuple[int, int]], members: int):
+        self.ranges = ranges
+        self.members = members
+        self.half = members // 2
+        self.next = 0
+        self.waiting: dict[int, _BatchResult] = {}
+        self.exceed: np.ndarray | None = None
+        self.window: np.ndarray | None = None
+        self.conc_sum: np.ndarray | None = None
+        self.exceed_half: np.ndarray | None = None
+        self.draws: list[SourceDraw] = []
+        self.peak: list[np.ndarray] = []
+        self.arrival: list[np.ndarray] = []
+        self.above: list[np.ndarray] = []
+        self.particle_steps = 0
+        self.frame: xr.Dataset | None = None
+
+    @property
+    def done(self) -> int:
+        return self.ranges[self.next - 1][1] if self.next else 0
+
+    def add(self, index: int, result: _BatchResult) -> None:
+        self.waiting[index] = result
+        while self.next in self.waiting:
+            self._take(self.waiting.pop(self.next))
+            self.next += 1
+
+    def _take(self, r: _BatchResult) -> None:
+        if self.exceed is None:
+            self.exceed, self.window = r.exceed.copy(), r.window.copy()
+            self.conc_sum = r.conc_sum.copy()
+            self.frame = r.frame
+        else:
+            assert self.window is not None and self.conc_sum is not None
+            self.exceed += r.exceed
+            self.window += r.window
+            self.conc_sum += r.conc_sum
+        if r.hi == self.half:
+            self.exceed_half = self.exceed.copy()
+        self.draws += r.draws
+        self.peak.append(r.peak)
+        self.arrival.append(r.arrival)
+        self.above.append(r.above)
+        self.particle_steps += r.particle_steps
+
+
+def _order_statistic(sorted_values: np.ndarray, q: float) -> np.ndarray:
+    """The q-quantile (0 < q <= 1) of values sorted along the last axis: the smallest value whose
+    empirical CDF reaches q (Hyndman & Fan 1996, definition 1 — from memory)."""
+    n = sorted_values.shape[-1]
+    return sorted_values[..., max(math.ceil(q * n) - 1, 0)]
+
+
+def percentiles_with_ci(
+    values: np.ndarray, rng: np.random.Generator, resamples: int = BOOTSTRAP_RESAMPLES
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Percentiles :data:`PERCENTILES` of ``values`` along axis 0 (members), with the lower and
+    upper bounds of their percentile-bootstrap :data:`CONFIDENCE` interval.
+
+    values : (members, ...) array; +inf allowed (e.g. never arrived). Returns three arrays of shape
+    (..., len(PERCENTILES)); infinite results become NaN.
+    """
+    n = values.shape[0]
+    moved = np.moveaxis(values, 0, -1)  # (..., n)
+    est = np.stack([_order_statistic(np.sort(moved, axis=-1), p / 100) for p in PERCENTILES], -1)
+    picks = rng.integers(0, n, size=(resamples, n))
+    boot = np.sort(moved[..., picks], axis=-1)  # (..., B, n)
+    reps = np.stack([_order_statistic(boot, p / 100) for p in PERCENTILES], -1)  # (..., B, P)
+    reps = np.sort(np.moveaxis(reps, -2, -1), axis=-1)  # (..., P, B)
+    alpha = (1.0 - CONFIDENCE) / 2.0
+    lower = _order_statistic(reps, alpha)
+    upper = _order_statistic(reps, 1.0 - alpha)
+
+    def finite(a: np.ndarray) -> np.ndarray:
+        return np.where(np.isfinite(a), a, np.nan)
+
+    return finite(est), finite(lower), finite(upper)
+
+
+def ensemble_thresholds(scenario: Scenario, extra: Sequence[float] = ()) -> tuple[float, ...]:
+    """The thresholds (kg m-3) the probabilities are given for: every receptor threshold of the
+    scenario and any given in ``extra``, sorted, each once."""
+    values = [t for r in scenario.receptors for t in r.thresholds] + [float(t) for t in extra]
+    for t in values:
+        if not (math.isfinite(t) and t > 0):
+            raise InputError(f"ensemble threshold {t!r} kg m-3: must be a finite number > 0")
+    return tuple(sorted(set(values)))

@@ -1,0 +1,281 @@
+"""Running members: the scenario, flow and transport prepared once per process, one member's run,
+and a batch of members reduced to small sums.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import hashlib
+import math
+import pickle
+import tomllib
+from collections.abc import Iterator
+from contextlib import contextmanager
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import xarray as xr
+
+from walkers.engine.dispersion import transport_for
+from walkers.ensemble.draws import SourceDraw, draw_source, member_release
+from walkers.errors import InputError
+from walkers.fields.base import FlowField, GriddedVariable
+from walkers.fields.scenario_flow import build_flow
+from walkers.scenario.config import Transport
+from walkers.scenario.load import load_scenario
+from walkers.scenario.specs import Scenario
+
+# --------------------------------------------------------------------------------------------
+# Per-process preparation (scenario, flow, transport): built once, reused by every member
+# --------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class _Recipe:
+    """How a process gets the scenario: TOML text or a dict with its base directory, or (for a
+    :class:`Scenario` built from a dict in Python) the checked Scenario itself — small, no flow
+    arrays either way."""
+
+    kind: str  # "toml", "dict" or "scenario"
+    content: Any
+    base_dir: str
+
+    def key(self) -> str:
+        return hashlib.sha256(pickle.dumps((self.kind, self.content, self.base_dir))).hexdigest()
+
+    def load(self) -> Scenario:
+        if self.kind == "scenario":
+            return self.content
+        raw = tomllib.loads(self.content) if self.kind == "toml" else self.content
+        return load_scenario(raw, base_dir=self.base_dir)
+
+
+@dataclass
+class _Prepared:
+    scenario: Scenario
+    flow: FlowField
+    transport: Transport
+    offset: float  # the run start in the flow's time frame (s)
+
+
+_PREPARED: dict[str, _Prepared] = {}
+#: Largest flow (bytes of float64 frames over the run) held in memory for the members.
+MAX_FLOW_BYTES = 2 * 1024**3
+
+
+def _held_in_memory(flow: FlowField, t0: float, t1: float) -> FlowField:
+    """The flow's frames covering [t0, t1] (s, flow frame) read once into memory, so that the
+    members a process runs do not each read the files again; a flow larger than
+    :data:`MAX_FLOW_BYTES` stays lazy. The frames are the same numbers, so results do not change.
+    """
+    i0, i1 = flow.frame_range(t0, t1)
+    cells = sum(int(np.prod(v.data.shape[1:])) for v in (flow.u, flow.v, flow.depth, flow.wet))
+    if 8 * cells * (i1 - i0 + 1) > MAX_FLOW_BYTES:
+        return flow
+
+    def held(var: GriddedVariable) -> GriddedVariable:
+        return dataclasses.replace(var, data=var.frames(i0, i1))
+
+    return dataclasses.replace(
+        flow,
+        u=held(flow.u),
+        v=held(flow.v),
+        depth=held(flow.depth),
+        wet=held(flow.wet),
+        times=np.array(flow.times[i0 : i1 + 1], dtype=np.float64),
+    )
+
+
+def _prepare(recipe: _Recipe) -> _Prepared:
+    """The scenario, flow and transport of a recipe, built once per process."""
+    key = recipe.key()
+    if key not in _PREPARED:
+        from walkers.run.runner import check_places, flow_offset
+
+        scenario = recipe.load()
+        if scenario.ensemble is None:
+            raise InputError(
+                "the scenario has no [ensemble] table: add one with at least 'members'"
+            )
+        flow = build_flow(scenario.flow)
+        offset = flow_offset(scenario, flow)
+        check_places(scenario, flow, offset)
+        flow = _held_in_memory(flow, offset, offset + scenario.duration)
+        _PREPARED.clear()  # one scenario at a time per process: flows can be large
+        _PREPARED[key] = _Prepared(scenario, flow, transport_for(scenario, flow), offset)
+    return _PREPARED[key]
+
+
+def _recipe_of(scenario: Scenario | dict | str | Path, base_dir: str | Path | None) -> _Recipe:
+    if isinstance(scenario, Scenario):
+        if scenario.text is not None and scenario.source_path is not None:
+            return _Recipe("toml", scenario.text, str(scenario.source_path.parent))
+        return _Recipe("scenario", scenario, str(base_dir or Path.cwd()))
+    if isinstance(scenario, dict):
+        return _Recipe("dict", scenario, str(Path(base_dir or Path.cwd()).resolve()))
+    path = Path(scenario).expanduser().resolve()
+    loaded = load_scenario(path, base_dir=base_dir)
+    assert loaded.text is not None
+    return _Recipe("toml", loaded.text, str(Path(base_dir).resolve() if base_dir else path.parent))
+
+
+# --------------------------------------------------------------------------------------------
+# One member, one batch
+# --------------------------------------------------------------------------------------------
+
+
+def threshold_crossing(t: np.ndarray, c: np.ndarray, threshold: float) -> tuple[float, float]:
+    """First time (s) a series ``c`` (at times ``t``) rises above ``threshold``, and the time (s)
+    it spends above it, both by linear interpolation between samples; (inf, 0) if never above.
+    """
+    above = c > threshold
+    if not above.any():
+        return math.inf, 0.0
+    k = int(np.argmax(above))
+    if k == 0:
+        first = float(t[0])
+    else:
+        first = float(t[k - 1] + (threshold - c[k - 1]) / (c[k] - c[k - 1]) * (t[k] - t[k - 1]))
+    a0, a1 = above[:-1], above[1:]
+    c0, c1 = c[:-1], c[1:]
+    span = np.diff(t)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        part = np.where(a0, (c0 - threshold) / (c0 - c1), (c1 - threshold) / (c1 - c0))
+    fraction = np.where(a0 & a1, 1.0, np.where(a0 ^ a1, part, 0.0))
+    return first, float(np.sum(fraction * span))
+
+
+@dataclass
+class _BatchResult:
+    """Reductions of the members [lo, hi), in member order."""
+
+    lo: int
+    hi: int
+    exceed: np.ndarray  # (nthr, nt, ny, nx) int32: members with C > threshold
+    window: np.ndarray  # (nthr, ny, nx) int32: members with max over time of C > threshold
+    conc_sum: np.ndarray  # (nt, ny, nx) float64: sum of the members' concentration
+    draws: list[SourceDraw]
+    peak: np.ndarray  # (nb, nrec) kg m-3
+    arrival: np.ndarray  # (nb, nrec, nthr) s after the run start; inf = never
+    above: np.ndarray  # (nb, nrec, nthr) s
+    particle_steps: int
+    frame: xr.Dataset  # coordinates and attributes of a member's result, no data
+
+
+def run_member(
+    prepared: _Prepared, member: int, *, engine: str = "compiled"
+) -> tuple[SourceDraw, xr.Dataset]:
+    """Draw member ``member``'s source and run it; return the draw and the result Dataset."""
+    from walkers.run.runner import shift_release
+    from walkers.run.simulate import simulate
+
+    sc = prepared.scenario
+    spec = sc.ensemble
+    assert spec is not None
+    varying = sc.releases[spec.release_index]
+    draw = draw_source(
+        spec,
+        varying,
+        seed=sc.seed,
+        member=member,
+        flow=prepared.flow,
+        run_length=sc.duration,
+        flow_offset=prepared.offset,
+    )
+    releases = [
+        member_release(r, draw) if i == spec.release_index else r for i, r in enumerate(sc.releases)
+    ]
+    dispersion = prepared.transport.dispersion
+    transport = dataclasses.replace(
+        prepared.transport,
+        dispersion=dataclasses.replace(
+            dispersion, multiplier=dispersion.multiplier * draw.dispersion_multiplier
+        ),
+    )
+    ds = simulate(
+        prepared.flow,
+        transport,
+        [shift_release(r, prepared.offset) for r in releases],
+        start=prepared.offset,
+        end=prepared.offset + sc.duration,
+        output_interval=sc.output_interval,
+        output_grid=sc.output,
+        receptors=sc.receptors,
+        seed=sc.seed,
+        member=member,
+        time_step_check="substep" if sc.substep else "fail",
+        engine=engine,  # type: ignore[arg-type]
+        title=sc.title,
+    )
+    return draw, ds
+
+
+@contextmanager
+def _one_kernel_thread() -> Iterator[None]:
+    """Run the compiled kernels on one thread, then restore the caller's thread count.
+
+    A member is small: its kernels gain little from threads and, with more threads than free
+    cores (several Dask workers on one machine), lose much. The parallelism of an ensemble is
+    across members. Results do not depend on the number of kernel threads.
+    """
+    import numba
+
+    before = numba.get_num_threads()
+    numba.set_num_threads(1)
+    try:
+        yield
+    finally:
+        numba.set_num_threads(before)
+
+
+def _run_batch(recipe: _Recipe, lo: int, hi: int, thresholds: tuple[float, ...]) -> _BatchResult:
+    """Run members lo..hi-1 in order and reduce them (a Dask task, or a step in-process)."""
+    with _one_kernel_thread():
+        return _reduce_batch(_prepare(recipe), lo, hi, thresholds)
+
+
+def _reduce_batch(
+    prepared: _Prepared, lo: int, hi: int, thresholds: tuple[float, ...]
+) -> _BatchResult:
+    sc = prepared.scenario
+    nthr, nrec = len(thresholds), len(sc.receptors)
+    thr = np.asarray(thresholds, dtype=np.float64)
+    nb = hi - lo
+    peak = np.zeros((nb, nrec))
+    arrival = np.full((nb, nrec, nthr), math.inf)
+    above = np.zeros((nb, nrec, nthr))
+    draws: list[SourceDraw] = []
+    grid = sc.output
+    shape = (int(round(sc.duration / sc.output_interval)) + 1, grid.ny, grid.nx)
+    conc_sum = np.zeros(shape)
+    exceed = np.zeros((nthr, *shape), dtype=np.int32)
+    window = np.zeros((nthr, *shape[1:]), dtype=np.int32)
+    frame = None
+    steps = 0
+    for b, member in enumerate(range(lo, hi)):
+        draw, ds = run_member(prepared, member)
+        draws.append(draw)
+        conc = ds["concentration"].values
+        if frame is None:
+            frame = ds.drop_vars(list(ds.data_vars)).drop_vars("edge")
+        conc_sum += conc
+        cmax = conc.max(axis=0)
+        for i in range(nthr):
+            exceed[i] += conc > thr[i]
+            window[i] += cmax > thr[i]
+        t_rel = ds["time"].values - prepared.offset
+        series = ds["receptor_concentration"].values
+        for r in range(nrec):
+            peak[b, r] = series[r].max()
+            for i in range(nthr):
+                arrival[b, r, i], above[b, r, i] = threshold_crossing(t_rel, series[r], thr[i])
+        steps += _particle_steps(sc)
+    assert frame is not None
+    return _BatchResult(lo, hi, exceed, window, conc_sum, draws, peak, arrival, above, steps, frame)
+
+
+def _particle_steps(sc: Scenario) -> int:
+    """Particle-steps of one member: particles times time steps over the run (sub-steps aside)."""
+    return sc.total_particles * int(round(sc.duration / sc.dt))

@@ -1,0 +1,311 @@
+"""Frames of a flow read from disk on demand: SI arrays ordered (time, y, x), depth from levels,
+wet cells from the mask or the velocities.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import netCDF4
+import numpy as np
+
+from walkers.errors import InputError
+from walkers.fields.netcdf.discovery import _Layout
+from walkers.fields.netcdf.roles import _LAND_WORDS, _WATER_WORDS
+from walkers.fields.times import _seconds_iso
+
+FRAME_CACHE_BYTES = 4 * 2**20  # HDF5 chunk cache of each variable of an open flow file
+
+
+# ----------------------------------------------------------------------------------------------
+# Lazy reading of frames
+# ----------------------------------------------------------------------------------------------
+
+
+def _bracket(src: np.ndarray, tgt: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Indices (lo, hi) of the points of ``src`` (ascending) around each value of ``tgt``.
+
+    A target on a source point (to 1e-6 of the spacing) gets lo == hi; targets beyond the ends
+    get the end point.
+    """
+    n = src.size
+    if n == 1:
+        zero = np.zeros(tgt.size, dtype=np.intp)
+        return zero, zero
+    tol = 1e-6 * float(np.min(np.diff(src)))
+    j = np.searchsorted(src, tgt)
+    jc = np.clip(j, 0, n - 1)
+    jm = np.clip(j - 1, 0, n - 1)
+    on_hi = np.abs(src[jc] - tgt) <= tol
+    on_lo = np.abs(src[jm] - tgt) <= tol
+    lo = np.where(on_hi, jc, jm)
+    hi = np.where(on_lo & ~on_hi, jm, jc)
+    return lo, hi
+
+
+def _corners(a: np.ndarray, ly, hy, lx, hx) -> list[np.ndarray]:
+    return [a[:, ly][:, :, lx], a[:, ly][:, :, hx], a[:, hy][:, :, lx], a[:, hy][:, :, hx]]
+
+
+def _mask_to_water(values: np.ndarray, attrs: dict[str, Any]) -> np.ndarray:
+    """Water (True) / land from a mask variable, by its standard_name or flag meanings (CF 3.5)."""
+    finite = np.isfinite(values)
+    if attrs.get("standard_name") == "land_binary_mask":
+        return finite & (values < 0.5)
+    if "flag_values" in attrs and "flag_meanings" in attrs:
+        flags = np.atleast_1d(np.asarray(attrs["flag_values"], dtype=np.float64))
+        meanings = str(attrs["flag_meanings"]).lower().split()
+        water = [
+            f for f, m in zip(flags, meanings, strict=False) if any(w in m for w in _WATER_WORDS)
+        ]
+        if water:
+            return finite & np.isin(values, water)
+        land = [
+            f for f, m in zip(flags, meanings, strict=False) if any(w in m for w in _LAND_WORDS)
+        ]
+        if land:
+            return finite & ~np.isin(values, land)
+    return finite & (values > 0.5)
+
+
+class _FlowSource:
+    """Reads frames of every role from one or more files and derives depth and wet per frame.
+
+    Static (time-less) variables are read once when the source is built; time-varying ones are
+    read a block of frames at a time, and the last block is kept so that u, v, depth and wet of
+    one window cost one read. ``frames_read`` counts frames read from disk (for tests and logs).
+    """
+
+    def __init__(
+        self,
+        paths: list[str],
+        layouts: dict[str, _Layout],
+        frame_file: np.ndarray,
+        frame_local: np.ndarray,
+        times: np.ndarray,
+        time_units: str,
+        calendar: str,
+        cell: tuple[np.ndarray, np.ndarray],
+        ndim: int,
+        min_depth: float,
+        constant_depth: float | None,
+    ) -> None:
+        self.paths = paths
+        self.layouts = layouts
+        self.frame_file = frame_file
+        self.frame_local = frame_local
+        self.times = times
+        self.time_units = time_units
+        self.calendar = calendar
+        self.cell_x, self.cell_y = cell
+        self.ndim = ndim
+        self.min_depth = min_depth
+        self.constant_depth = constant_depth
+        self.frames_read = 0
+        self._cache: tuple[tuple[int, int], dict[str, np.ndarray]] | None = None
+        self._handles: dict[int, netCDF4.Dataset] = {}
+        self.static: dict[str, np.ndarray] = {}
+        with netCDF4.Dataset(paths[int(frame_file[0]) if frame_file.size else 0]) as ds:
+            for role, lay in layouts.items():
+                if lay.time_axis is None:
+                    self.static[role] = lay.arrange(ds.variables[lay.name][lay.index()])
+        self.varying = [r for r, lay in layouts.items() if lay.time_axis is not None]
+        depth_roles = {"depth", "water_level", "bed_level", "area"} & set(layouts)
+        self.wet_from_file = bool(depth_roles) or "mask" in layouts
+        wet_inputs = (depth_roles | {"mask"}) if self.wet_from_file else {"u", "v"}
+        self.wet_steady = not (wet_inputs & set(self.varying))
+        self.depth_steady = not (depth_roles & set(self.varying))
+        self.nt = max(1, frame_file.size)
+
+    def time_iso(self, k: int) -> str:
+        """ISO 8601 time of frame k (for messages)."""
+        return _seconds_iso(self.times[k], self.time_units, self.calendar)
+
+    def __getstate__(self) -> dict[str, Any]:
+        # sent to other processes without the cached block; files are reopened there
+        state = dict(self.__dict__)
+        state["_cache"] = None
+        state["_handles"] = {}
+        return state
+
+    def _dataset(self, f: int) -> netCDF4.Dataset:
+        """File f, kept open between reads (its chunk cache then serves neighbouring frames)."""
+        if f not in self._handles:
+            ds = netCDF4.Dataset(self.paths[f])
+            # a small chunk cache per variable: HDF5's default (64 MiB each) fills up over a long
+            # run and makes memory grow with run length
+            for var in ds.variables.values():
+                var.set_var_chunk_cache(size=FRAME_CACHE_BYTES)
+            self._handles[f] = ds
+        return self._handles[f]
+
+    def close(self) -> None:
+        """Close the files kept open for reading frames."""
+        for ds in self._handles.values():
+            ds.close()
+        self._handles.clear()
+
+    def _read_raw(self, i0: int, i1: int) -> dict[str, np.ndarray]:
+        """Time-varying roles for frames i0..i1 (inclusive), arranged, straight from the files."""
+        out: dict[str, list[np.ndarray]] = {r: [] for r in self.varying}
+        k = i0
+        while k <= i1:
+            f = int(self.frame_file[k])
+            k_end = k
+            while (
+                k_end + 1 <= i1
+                and self.frame_file[k_end + 1] == f
+                and self.frame_local[k_end + 1] == self.frame_local[k_end] + 1
+            ):
+                k_end += 1
+            a, b = int(self.frame_local[k]), int(self.frame_local[k_end]) + 1
+            ds = self._dataset(f)
+            for role in self.varying:
+                lay = self.layouts[role]
+                out[role].append(lay.arrange(ds.variables[lay.name][lay.index(a, b)]))
+            k = k_end + 1
+        self.frames_read += i1 - i0 + 1
+        return {r: np.concatenate(parts, axis=0) for r, parts in out.items()}
+
+    def _get(self, raw: dict[str, np.ndarray], role: str) -> np.ndarray:
+        return raw[role] if role in raw else self.static[role]
+
+    def block(self, i0: int, i1: int) -> dict[str, np.ndarray]:
+        """u, v, depth, wet for frames i0..i1, derived and checked (cached for the last block)."""
+        if self._cache is not None and self._cache[0] == (i0, i1):
+            return self._cache[1]
+        raw = self._read_raw(i0, i1) if self.varying else {}
+        u = self._get(raw, "u")
+        v = self._get(raw, "v") if self.ndim == 2 else np.zeros_like(u[:1])
+        shape = (1, self.cell_y.size, self.cell_x.size)
+        if "depth" in self.layouts:
+            depth = self._get(raw, "depth")
+        elif "area" in self.layouts:
+            depth = self._get(raw, "area")
+        elif "water_level" in self.layouts:
+            depth = self._depth_from_levels(raw)
+        else:
+            depth = np.full(shape, float(self.constant_depth or 0.0))
+        if self.wet_from_file:
+            wet = np.isfinite(depth) & (depth >= self.min_depth if self.ndim == 2 else depth > 0)
+            if "mask" in self.layouts:
+                wet = wet & _mask_to_water(self._get(raw, "mask"), self.layouts["mask"].attrs)
+            self._check_velocity_in_water(u, "u", wet, i0)
+            if self.ndim == 2:
+                self._check_velocity_in_water(v, "v", wet, i0)
+        else:
+            wet = self._wet_from_velocity(u, v)
+        result = {
+            "u": np.nan_to_num(u, nan=0.0),
+            "v": np.nan_to_num(v, nan=0.0),
+            "depth": np.where(np.isfinite(depth), depth, 0.0),
+            "wet": wet.astype(np.float64),
+        }
+        self._cache = ((i0, i1), result)
+        return result
+
+    def _depth_from_levels(self, raw: dict[str, np.ndarray]) -> np.ndarray:
+        level = self._get(raw, "water_level")
+        bed = self._get(raw, "bed_level")
+        lay = self.layouts["bed_level"]
+        positive = str(lay.attrs.get("positive", "")).lower()
+        std = str(lay.attrs.get("standard_name", ""))
+        down = positive == "down" or (positive != "up" and std.startswith("sea_floor_depth"))
+        return level + bed if down else level - bed
+
+    def _velocity_brackets(self, role: str, *, around_cells: bool = False):
+        """Bracketing indices: cells around each velocity point, or (``around_cells``) velocity
+        points around each cell centre."""
+        lay = self.layouts[role]
+        vy = np.array([0.0]) if lay.y is None else lay.y.values
+        if around_cells:
+            ly, hy = _bracket(vy, self.cell_y)
+            lx, hx = _bracket(lay.x.values, self.cell_x)
+        else:
+            ly, hy = _bracket(self.cell_y, vy)
+            lx, hx = _bracket(self.cell_x, lay.x.values)
+        return ly, hy, lx, hx
+
+    def _check_velocity_in_water(self, vel: np.ndarray, role: str, wet: np.ndarray, i0: int):
+        """NaN velocity where all cells around the velocity point are wet: a defect of the file."""
+        if np.all(np.isfinite(vel)):
+            return
+        inside = np.logical_and.reduce(_corners(wet, *self._velocity_brackets(role)))
+        bad = ~np.isfinite(vel) & inside
+        if np.any(bad):
+            k, j, i = (int(n[0]) for n in np.nonzero(bad))
+            lay = self.layouts[role]
+            frame = min(i0 + k, self.nt - 1)
+            xv = lay.x.values[i]
+            yv = 0.0 if lay.y is None else lay.y.values[j]
+            raise InputError(
+                f"flow file(s) {', '.join(repr(p) for p in self.paths)}: variable {lay.name!r} "
+                f"({role}) is missing (fill value or NaN) at frame {self.time_iso(frame)}, "
+                f"point x={xv:.10g}, y={yv:.10g} (row {j}, column {i} after sorting axes "
+                "ascending), where the depth/mask says there is water. Fix the file, or mark "
+                "the cell as land in the mask or with a depth below the minimum depth"
+            )
+
+    def _wet_from_velocity(self, u: np.ndarray, v: np.ndarray) -> np.ndarray:
+        fu = _corners(np.isfinite(u), *self._velocity_brackets("u", around_cells=True))
+        if self.ndim == 1:
+            return np.logical_or.reduce(fu)
+        fv = _corners(np.isfinite(v), *self._velocity_brackets("v", around_cells=True))
+        lu, lv = self.layouts["u"], self.layouts["v"]
+        assert lu.y is not None and lv.y is not None
+        collocated = all(
+            a.size == b.size and np.allclose(a, b)
+            for a, b in (
+                (lu.x.values, self.cell_x),
+                (lu.y.values, self.cell_y),
+                (lv.x.values, self.cell_x),
+                (lv.y.values, self.cell_y),
+            )
+        )
+        if collocated:
+            return np.logical_and.reduce(fu) & np.logical_and.reduce(fv)
+        # staggered: a cell is water when any of its faces carries a velocity
+        return np.logical_or.reduce(fu) | np.logical_or.reduce(fv)
+
+
+class _LazyFrames:
+    """One derived variable of a :class:`_FlowSource`, sliced along time like an array."""
+
+    def __init__(self, source: _FlowSource, key: str, shape: tuple[int, int, int]) -> None:
+        self.source = source
+        self.key = key
+        self.shape = shape
+        self.dtype = np.dtype(np.float64)
+        self.ndim = 3
+
+    @property
+    def frames_read(self) -> int:
+        """Frames read from disk so far by the source behind this variable."""
+        return self.source.frames_read
+
+    def __getitem__(self, item: Any) -> np.ndarray:
+        if isinstance(item, tuple):
+            head, rest = item[0], item[1:]
+        else:
+            head, rest = item, ()
+        if self.shape[0] == 1:
+            # steady: the same frame whatever the time, from any block already derived
+            cached = self.source._cache
+            frames = (cached[1] if cached is not None else self.source.block(0, 0))[self.key]
+            if isinstance(head, (int, np.integer)):
+                return np.asarray(frames[(0, *rest)])
+            return np.asarray(frames[:1][(head, *rest)])
+        if isinstance(head, (int, np.integer)):
+            k = int(head) % self.shape[0]
+            return self.source.block(k, k)[self.key][(0, *rest)]
+        start, stop, step = head.indices(self.shape[0])
+        if stop <= start:
+            return np.empty((0, *self.shape[1:]))
+        data = self.source.block(start, stop - 1)[self.key]
+        if data.shape[0] == 1:
+            data = np.broadcast_to(data, (stop - start, *data.shape[1:]))
+        return np.asarray(data[(slice(None, None, step), *rest)])
+
+    def __array__(self, dtype: Any = None, copy: Any = None) -> np.ndarray:
+        out = self[:]
+        return out if dtype is None else out.astype(dtype)

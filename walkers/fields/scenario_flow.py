@@ -1,0 +1,115 @@
+"""The flow a scenario asks for: opened or laid out from its :class:`FlowSpec`, and the
+scenario's places (releases, receptors, output grid, points) checked against it.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from typing import Any
+
+import numpy as np
+
+from walkers.errors import InputError
+from walkers.fields.base import FlowField
+from walkers.scenario.specs import FlowSpec, Scenario
+
+# ----------------------------------------------------------------------------------------------
+# Points
+# ----------------------------------------------------------------------------------------------
+
+
+def check_points_in_water(
+    flow: FlowField, xs: Any, ys: Any, what: str, *, t: float | None = None
+) -> None:
+    """InputError naming ``what`` (e.g. "release 'outfall'") if a point is outside or on land.
+
+    xs, ys : point coordinates in the flow's grid coordinates (m, or degrees); ys is ignored in 1-D.
+    t : time (s, flow frame) whose frame decides wet or dry; the first frame if None.
+    """
+    xs = np.atleast_1d(np.asarray(xs, dtype=np.float64))
+    ys = np.zeros_like(xs) if flow.ndim == 1 else np.atleast_1d(np.asarray(ys, dtype=np.float64))
+    xe, ye = flow.cell_edges()
+    k = 0 if t is None or flow.wet.steady else flow.frame_range(t, t)[0]
+    wet = flow.wet.frames(k, k)[0]
+    unit = "degrees" if flow.geographic else "m"
+    for n, (x, y) in enumerate(zip(xs, ys, strict=True)):
+        label = what if xs.size == 1 else f"{what} point {n}"
+        where = f"({x:.10g}, {y:.10g})" if flow.ndim == 2 else f"x = {x:.10g}"
+        if not (np.isfinite(x) and np.isfinite(y)):
+            raise InputError(f"{label}: position {where} is not a finite number")
+        inside_x = xe[0] <= x <= xe[-1]
+        inside_y = flow.ndim == 1 or ye[0] <= y <= ye[-1]
+        if not (inside_x and inside_y):
+            raise InputError(
+                f"{label} at {where} lies outside the flow grid of {flow.source} "
+                f"(x {xe[0]:.10g} to {xe[-1]:.10g}, y {ye[0]:.10g} to {ye[-1]:.10g} {unit}); "
+                "move it inside"
+            )
+        i = min(int(np.searchsorted(xe, x, side="right")) - 1, flow.x.size - 1)
+        j = (
+            0
+            if flow.ndim == 1
+            else min(int(np.searchsorted(ye, y, side="right")) - 1, flow.y.size - 1)
+        )
+        if wet[j, i] < 0.5:
+            raise InputError(
+                f"{label} at {where} lies on land or in a dry cell of {flow.source} (cell centred "
+                f"at x={flow.x[i]:.10g}, y={flow.y[j]:.10g} {unit}); move it into the water"
+            )
+
+
+def build_flow(spec: FlowSpec) -> FlowField:
+    """Open the flow files, or lay the analytic flow on its grid (time 0 = run start)."""
+    if spec.kind == "files":
+        from walkers.fields.netcdf.open import open_flow
+
+        return open_flow(
+            [str(p) for p in spec.paths],
+            variables=dict(spec.variables),
+            units=dict(spec.units),
+            crs=spec.crs,
+            min_depth=spec.min_depth,
+            constant_depth=spec.constant_depth,
+            time_range=spec.time_range,
+        )
+    from walkers.fields.analytic import analytic_flow
+
+    flow = analytic_flow(**spec.analytic)
+    return dataclasses.replace(flow, time_units=f"seconds since {spec.time_origin}")
+
+
+def check_flow(scenario: Scenario, flow: FlowField) -> None:
+    """Check that positions fit the flow: coordinate kind, and releases, receptors and the
+    output grid inside the flow domain. Raises InputError naming the offending key."""
+    if flow.geographic != scenario.geographic:
+        want = "lon/lat (degrees)" if flow.geographic else "x/y (metres)"
+        raise InputError(
+            f"the flow grid is {'geographic' if flow.geographic else 'projected'}: give "
+            f"release and receptor positions as {want}"
+        )
+    west, east, south, north = flow.extent()
+    if flow.ndim == 1:
+        south, north = -math.inf, math.inf
+    for i, rel in enumerate(scenario.releases):
+        pts = np.asarray(rel.coords)
+        if not (
+            np.all((pts[:, 0] >= west) & (pts[:, 0] <= east))
+            and np.all((pts[:, 1] >= south) & (pts[:, 1] <= north))
+        ):
+            raise InputError(
+                f"releases[{i}] ({rel.name}): position outside the flow domain "
+                f"x {west:g}..{east:g}, y {south:g}..{north:g}"
+            )
+    for i, rec in enumerate(scenario.receptors):
+        if not (west <= rec.x <= east and south <= rec.y <= north):
+            raise InputError(
+                f"receptors[{i}] ({rec.name}): ({rec.x:g}, {rec.y:g}) is outside the flow "
+                f"domain x {west:g}..{east:g}, y {south:g}..{north:g}"
+            )
+    g = scenario.output
+    if g.x[-1] < west or g.x[0] > east or g.y[-1] < south or g.y[0] > north:
+        raise InputError(
+            f"output.grid does not overlap the flow domain x {west:g}..{east:g}, "
+            f"y {south:g}..{north:g}"
+        )
