@@ -314,6 +314,29 @@ def step_tables(times, t0, dt, nsteps, out_i, out_w):
 
 
 @nb.njit(**JIT)
+def face_ahead(edges, k, s, d):
+    """Along one axis, the fraction of a segment from s (length d) at which it reaches the face of
+    cell k ahead of it, and that face (2.0 and 0.0 when the segment does not move on this axis)."""
+    if d > 0.0:
+        return max((edges[k + 1] - s) / d, 0.0), edges[k + 1]
+    if d < 0.0:
+        return max((edges[k] - s) / d, 0.0), edges[k]
+    return 2.0, 0.0
+
+
+@nb.njit(**JIT)
+def inside_cell(edges, k, v):
+    """v kept in the half-open interval [edges[k], edges[k+1]) of cell k when it lies on a face
+    of it, so that the cell found from the position later (``cell_index``) is cell k."""
+    n = edges.shape[0] - 1
+    if k < n - 1 and v >= edges[k + 1]:
+        return np.nextafter(edges[k + 1], -np.inf)
+    if k > 0 and v < edges[k]:
+        return edges[k]
+    return v
+
+
+@nb.njit(**JIT)
 def trace_path(px, py, pi, pj, qx, qy, xe, ye, wet_now, edges_mode, max_refl):
     """Follow the straight path of a step from (px, py) in wet cell (pi, pj) to (qx, qy), cell by
     cell, and reflect it at the first closed face it meets.
@@ -351,72 +374,42 @@ def trace_path(px, py, pi, pj, qx, qy, xe, ye, wet_now, edges_mode, max_refl):
     for _ in range((ncx + ncy + 2) * (max_refl + 1)):
         dx = qx - sx_
         dy = qy - sy_
-        tx = 2.0
-        if dx > 0.0:
-            tx = max((xe[i + 1] - sx_) / dx, 0.0)
-        elif dx < 0.0:
-            tx = max((xe[i] - sx_) / dx, 0.0)
-        ty = 2.0
-        if dy > 0.0:
-            ty = max((ye[j + 1] - sy_) / dy, 0.0)
-        elif dy < 0.0:
-            ty = max((ye[j] - sy_) / dy, 0.0)
+        tx, fx = face_ahead(xe, i, sx_, dx)
+        ty, fy = face_ahead(ye, j, sy_, dy)
         if tx >= 1.0 and ty >= 1.0:
-            # The end lies in cell (i, j): keep it inside the cell's half-open interval so that
-            # the cell found from the position later is this one.
-            if i < ncx - 1 and qx >= xe[i + 1]:
-                qx = np.nextafter(xe[i + 1], -np.inf)
-            elif i > 0 and qx < xe[i]:
-                qx = xe[i]
-            if j < ncy - 1 and qy >= ye[j + 1]:
-                qy = np.nextafter(ye[j + 1], -np.inf)
-            elif j > 0 and qy < ye[j]:
-                qy = ye[j]
-            return -1, 1.0, True, qx, qy, i, j
-        if tx <= ty:
-            step_x = 1 if dx > 0.0 else -1
-            face = xe[i + 1] if dx > 0.0 else xe[i]
-            cy_ = sy_ + tx * dy
+            return -1, 1.0, True, inside_cell(xe, i, qx), inside_cell(ye, j, qy), i, j
+        across_x = tx <= ty
+        if across_x:
             frac = done + tx * (1.0 - done)
-            ni = i + step_x
-            if ni < 0 or ni >= ncx:
-                edge = 0 if ni < 0 else 1
-                if edges_mode[edge] == 1:
-                    return edge, frac, False, face, cy_, i, j
-                closed = True
-            else:
-                closed = wet_now[j, ni] == 0
-            if closed:
-                if reflections >= max_refl:
-                    break
-                reflections += 1
-                qx = 2.0 * face - qx
-            else:
-                i = ni
-            sx_ = face
-            sy_ = cy_
+            cx_ = fx
+            cy_ = sy_ + tx * dy
+            ni = i + (1 if dx > 0.0 else -1)
+            nj = j
+            edge = 0 if ni < 0 else 1
+            outside = ni < 0 or ni >= ncx
         else:
-            step_y = 1 if dy > 0.0 else -1
-            face = ye[j + 1] if dy > 0.0 else ye[j]
-            cx_ = sx_ + ty * dx
             frac = done + ty * (1.0 - done)
-            nj = j + step_y
-            if nj < 0 or nj >= ncy:
-                edge = 2 if nj < 0 else 3
-                if edges_mode[edge] == 1:
-                    return edge, frac, False, cx_, face, i, j
-                closed = True
+            cx_ = sx_ + ty * dx
+            cy_ = fy
+            ni = i
+            nj = j + (1 if dy > 0.0 else -1)
+            edge = 2 if nj < 0 else 3
+            outside = nj < 0 or nj >= ncy
+        if outside and edges_mode[edge] == 1:
+            return edge, frac, False, cx_, cy_, i, j
+        if outside or wet_now[nj, ni] == 0:
+            if reflections >= max_refl:
+                break
+            reflections += 1
+            if across_x:
+                qx = 2.0 * fx - qx
             else:
-                closed = wet_now[nj, i] == 0
-            if closed:
-                if reflections >= max_refl:
-                    break
-                reflections += 1
-                qy = 2.0 * face - qy
-            else:
-                j = nj
-            sx_ = cx_
-            sy_ = face
+                qy = 2.0 * fy - qy
+        else:
+            i = ni
+            j = nj
+        sx_ = cx_
+        sy_ = cy_
         done = frac
     return -1, 1.0, False, px, py, pi, pj
 
