@@ -36,6 +36,8 @@ def end_cell_only(px, py, pi, pj, qx, qy, xe, ye, wet, iw, edges_mode, max_refl)
     ncx, ncy = xe.size - 1, ye.size - 1
     for _ in range(max_refl):
         todo = ~placed & (edge < 0)
+        if not todo.any():
+            break
         for e, q, p, bound, low in (
             (0, qx, px, xe[0], True),
             (1, qx, px, xe[-1], False),
@@ -88,16 +90,24 @@ def test_coast_case_passes(case, particles):
 
 def test_numpy_twin_passes_the_coast_checks():
     """The twin's own path tracer meets the same checks (at one step size, for time)."""
-    result = case_coast_well_mixed(40000, SEED, engine="numpy", sigmas=(2.0,))
+    result = case_coast_well_mixed(
+        40000, SEED, engine="numpy", sigmas=(2.0,), geometries=("walls-y", "headland")
+    )
     assert not failures(result)
 
 
 @pytest.mark.parametrize(
     "case,particles,catcher",
     [
-        (case_thin_barrier, 2000, "beyond the wall"),
-        (case_land_wall_images, 4000, "behind the wall"),
-        (lambda n, s, **kw: case_coast_well_mixed(n, s, sigmas=(1.0,), **kw), 40000, "banks"),
+        (case_thin_barrier, 500, "beyond the wall"),
+        (case_land_wall_images, 1000, "behind the wall"),
+        (
+            lambda n, s, **kw: case_coast_well_mixed(
+                n, s, sigmas=(1.0,), geometries=("walls-x", "staircase"), **kw
+            ),
+            40000,
+            "land",
+        ),
     ],
     ids=["thin-barrier", "land-wall-images", "coast-well-mixed"],
 )
