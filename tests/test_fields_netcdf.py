@@ -565,8 +565,9 @@ def test_layers_without_a_coordinate_are_refused(tmp_path):
 
     p = ff.write_flow(tmp_path / "a.nc", extra=layered)
     with pytest.raises(
-        InputError, match=r"a\.nc.*'u3' has layers along dimension 'layer' but no coordinate.*"
-        "thicknesses cannot be found"
+        InputError,
+        match=r"a\.nc.*'u3' has layers along dimension 'layer' but no coordinate.*"
+        "thicknesses cannot be found",
     ):
         open_flow(p, variables={"u": "u3"})
     assert netCDF4.Dataset(p).variables["u3"].ndim == 4

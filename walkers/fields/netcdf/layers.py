@@ -242,7 +242,9 @@ def _z_levels(ds: netCDF4.Dataset, path: str, coord: Any) -> VerticalCoordinate:
     else:
         lower, upper = _faces_from_midpoints(mid, -np.inf, np.inf)
         source = "midpoints (the surface and the bed close the top and bottom layers)"
-    return VerticalCoordinate("z", coord.dimensions[0], coord.name, {"z": lower}, {"z": upper}, source)
+    return VerticalCoordinate(
+        "z", coord.dimensions[0], coord.name, {"z": lower}, {"z": upper}, source
+    )
 
 
 def _formula_terms(ds: netCDF4.Dataset, path: str, coord: Any, kind: str) -> dict[str, str]:
@@ -288,7 +290,11 @@ def _parametric(ds: netCDF4.Dataset, path: str, coord: Any, kind: str) -> Vertic
     lower: dict[str, np.ndarray] = {}
     upper: dict[str, np.ndarray] = {}
     bounds = _bounds_of(ds, path, coord, n)
-    c_bounds = _c_bounds(ds, path, coord, n) if bounds is not None and kind != "ocean_sigma_coordinate" else None
+    c_bounds = (
+        _c_bounds(ds, path, coord, n)
+        if bounds is not None and kind != "ocean_sigma_coordinate"
+        else None
+    )
     if bounds is not None and (kind == "ocean_sigma_coordinate" or c_bounds is not None):
         lower[first], upper[first] = bounds.min(axis=1), bounds.max(axis=1)
         if c_bounds is not None:
@@ -364,12 +370,16 @@ def layer_weights(
 ) -> np.ndarray:
     """Thickness (m) of each layer inside the selected part of the column: the whole column, one
     layer (numbered from the surface, 1 = top) or the band between ``selection.band`` depths
-    below the surface. Shape (frames, layers, y, x); 0 for layers outside the selection."""
+    below the surface (cut at the bed; in a column shallower than the band's top, the whole
+    column). Shape (frames, layers, y, x); 0 for layers outside the selection."""
+    thickness = np.maximum(upper - lower, 0.0)
     if selection.mode == "band":
         top = eta[:, None] - selection.band[0]
         bottom = eta[:, None] - selection.band[1]
-        return np.maximum(np.minimum(upper, top) - np.maximum(lower, bottom), 0.0)
-    thickness = np.maximum(upper - lower, 0.0)
+        inside = np.maximum(np.minimum(upper, top) - np.maximum(lower, bottom), 0.0)
+        # a column shallower than the band's top has no water in the band: its depth mean is used
+        empty = np.sum(np.nan_to_num(inside), axis=1, keepdims=True) <= 0.0
+        return np.where(empty, thickness, inside)
     if selection.mode == "layer":
         keep = np.zeros(vc.size, dtype=bool)
         keep[vc.top_down()[selection.layer - 1]] = True
