@@ -3,11 +3,11 @@ selections, and the messages for layered files that cannot be read."""
 
 from __future__ import annotations
 
+import layered_files as lf
 import numpy as np
 import pytest
 from scipy import integrate
 
-import layered_files as lf
 from walkers.errors import InputError
 from walkers.fields.netcdf.layers import VerticalCoordinate, layer_faces
 from walkers.fields.netcdf.open import open_flow

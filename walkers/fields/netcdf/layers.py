@@ -197,8 +197,8 @@ def _bounds_of(ds: netCDF4.Dataset, path: str, coord: Any, n: int) -> np.ndarray
     bounds = _values(ds, name, where)
     if bounds.shape != (n, 2):
         raise InputError(
-            f"{where}: variable {name!r} has shape {bounds.shape}; expected ({n}, 2), the lower and "
-            "upper face of each layer"
+            f"{where}: variable {name!r} has shape {bounds.shape}; expected ({n}, 2), the lower "
+            "and upper face of each layer"
         )
     return bounds
 

@@ -241,9 +241,9 @@ def _check_layer_selection(schema: _FileSchema, layers: LayerSelection) -> None:
     vc = schema.vertical
     if vc is None and layers.mode != "mean":
         raise InputError(
-            f"flow.layers: {layers.describe()} is asked for, but the velocity {schema.roles['u']!r} "
-            f"of {schema.path!r} has no layers (it is depth-averaged already); remove "
-            "[flow.layers] or give a layered flow file"
+            f"flow.layers: {layers.describe()} is asked for, but the velocity "
+            f"{schema.roles['u']!r} of {schema.path!r} has no layers (it is depth-averaged "
+            "already); remove [flow.layers] or give a layered flow file"
         )
     if vc is not None and layers.mode == "layer" and not 1 <= layers.layer <= vc.size:
         raise InputError(
