@@ -428,9 +428,7 @@ def build_estuary_layered(flat: xr.Dataset | None = None) -> xr.Dataset:
     bounds = np.asarray(ESTUARY_SIGMA_BOUNDS)
     factors = xr.DataArray(layer_factors(), dims="layer")
     common = {"grid_mapping": "crs"}
-    variables = {
-        name: flat.variables[name] for name in ("x", "y", "time", "crs", "water_mask")
-    }
+    variables = {name: flat.variables[name] for name in ("x", "y", "time", "crs", "water_mask")}
     variables["layer"] = xr.Variable(
         "layer",
         bounds.mean(axis=1),
@@ -445,7 +443,9 @@ def build_estuary_layered(flat: xr.Dataset | None = None) -> xr.Dataset:
         },
     )
     variables["layer_bounds"] = xr.Variable(
-        ("layer", "bounds"), bounds, {"formula_terms": "sigma: layer_bounds eta: zeta depth: bed_depth"}
+        ("layer", "bounds"),
+        bounds,
+        {"formula_terms": "sigma: layer_bounds eta: zeta depth: bed_depth"},
     )
     level = flat["water_level"].values.astype(np.float64)
     ny, nx = geom.bed.shape

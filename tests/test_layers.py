@@ -283,3 +283,42 @@ def test_band_asked_of_a_depth_averaged_file(tmp_path):
     p = ff.write_flow(tmp_path / "flat.nc")
     with pytest.raises(InputError, match=r"flow\.layers.*band.*flat\.nc.*has no layers"):
         open_flow(p, layers=LayerSelection("band", band=(0.0, 2.0)))
+
+
+# ---- the layered demo ------------------------------------------------------------------------
+
+
+def test_layered_demo_gives_the_results_of_the_depth_averaged_demo():
+    # The layered Saltmarsh Estuary file's thickness-weighted depth mean is the depth-averaged
+    # flow (layer factors whose weighted mean is exactly 1), so the run on it reproduces the
+    # depth-averaged demo's recorded results bit for bit (tests/data/demo_reference.json).
+    import json
+    import tomllib
+
+    from test_bitwise_demo import PARTICLES, REFERENCE, SCENARIOS, describe
+
+    from walkers import load_scenario, simulate_scenario
+
+    raw = tomllib.loads((SCENARIOS / "saltmarsh_estuary_layered.toml").read_text("utf-8"))
+    raw["releases"][0]["particles"] = PARTICLES
+    result = simulate_scenario(load_scenario(raw, base_dir=SCENARIOS))
+    now = describe(result)["variables"]
+    reference = json.loads(REFERENCE.read_text(encoding="utf-8"))["variables"]
+    assert sorted(now) == sorted(reference)
+    assert [k for k in reference if now[k] != reference[k]] == []
+
+
+def test_layered_demo_twin_with_plain_layer_mean_differs():
+    # the twin: an unweighted mean of the demo's layer factors is not 1, so a reader that forgot
+    # the thicknesses would move particles with velocities off by this factor
+    import importlib.util
+
+    from test_bitwise_demo import SCENARIOS
+
+    spec = importlib.util.spec_from_file_location("mdf", SCENARIOS / "make_demo_flows.py")
+    mdf = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(mdf)
+    factors = mdf.layer_factors()
+    thickness = np.diff(np.asarray(mdf.ESTUARY_SIGMA_BOUNDS), axis=1).ravel()
+    assert np.sum(thickness * factors) == 1.0
+    assert abs(np.mean(factors) - 1.0) > 0.05
