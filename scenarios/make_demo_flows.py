@@ -1,4 +1,5 @@
-"""Write the flow files of the two demo cases: Saltmarsh Estuary and Millbrook Canal (invented).
+"""Write the flow files of the demo cases: Saltmarsh Estuary (depth-averaged and layered) and
+Millbrook Canal (invented).
 
 Usage::
 
@@ -34,6 +35,12 @@ Estuary (long-wave approximation: the water level eta(t) is uniform over the dom
    accumulated from the west bank (zero flux there); they close to round-off at the east bank
    because step 3 balances each row as a whole. The wet cells of every row form one contiguous
    run (the bed rises monotonically toward both banks), which the builder checks.
+
+Layered estuary (saltmarsh_estuary_layered_flow.nc): the estuary's flow over the demo scenario's
+day in four sigma layers (CF-1.8 Appendix D, ocean_sigma_coordinate, with bounds; formula_terms
+name the water level zeta and the bed depth). Each layer's velocity is the depth mean times a
+layer factor from a 1/7 power-law profile; the factors weighted by the layer thicknesses average
+exactly 1, so the thickness-weighted depth mean is the depth-averaged flow.
 
 Canal: a constant discharge Q over a fixed cross-section; q = u h is shared across the section in
 proportion to h**(5/3) (u proportional to h**(2/3)), uniform along the canal, v = 0.
@@ -81,10 +88,10 @@ ESTUARY_PLACES = {
     "water_intake": (433250.0, 4940450.0),  # upstream channel, always wet
 }
 
-# Layered Saltmarsh Estuary: the same flow in sigma layers (surface first), over the first
-# ESTUARY_LAYERED_DURATION of the depth-averaged file (the demo scenario's day).
+# Layered Saltmarsh Estuary: the same flow in sigma layers (surface first), over the demo
+# scenario's day (ESTUARY_LAYERED_SPAN, s from the time origin) only, to keep the file small.
 ESTUARY_SIGMA_BOUNDS = ((-0.125, 0.0), (-0.25, -0.125), (-0.5, -0.25), (-1.0, -0.5))
-ESTUARY_LAYERED_DURATION = 27 * 3600.0  # s
+ESTUARY_LAYERED_SPAN = (3 * 3600.0, 27 * 3600.0)  # s
 PROFILE_QUANTUM = 2.0**-8  # layer factors are multiples of this
 
 # --- Millbrook Canal (invented) ---------------------------------------------------------------
@@ -423,7 +430,8 @@ def build_estuary_layered(flat: xr.Dataset | None = None) -> xr.Dataset:
     ocean_sigma_coordinate, with bounds), whose thickness-weighted depth mean is the
     depth-averaged flow of :func:`build_estuary` (``flat``, built if not given)."""
     flat = build_estuary() if flat is None else flat
-    flat = flat.isel(time=slice(0, int(ESTUARY_LAYERED_DURATION / ESTUARY_FRAME_INTERVAL) + 1))
+    first, last = (int(t / ESTUARY_FRAME_INTERVAL) for t in ESTUARY_LAYERED_SPAN)
+    flat = flat.isel(time=slice(first, last + 1))
     geom = estuary_geometry()
     bounds = np.asarray(ESTUARY_SIGMA_BOUNDS)
     factors = xr.DataArray(layer_factors(), dims="layer")
@@ -443,9 +451,7 @@ def build_estuary_layered(flat: xr.Dataset | None = None) -> xr.Dataset:
         },
     )
     variables["layer_bounds"] = xr.Variable(
-        ("layer", "bounds"),
-        bounds,
-        {"formula_terms": "sigma: layer_bounds eta: zeta depth: bed_depth"},
+        ("layer", "bounds"), bounds, {"long_name": "sigma at the layer faces"}
     )
     level = flat["water_level"].values.astype(np.float64)
     ny, nx = geom.bed.shape
@@ -466,7 +472,6 @@ def build_estuary_layered(flat: xr.Dataset | None = None) -> xr.Dataset:
             "standard_name": "sea_floor_depth_below_mean_sea_level",
             "long_name": "bed depth below mean sea level (negative above it)",
             "units": "m",
-            "positive": "down",
             **common,
         },
     )
@@ -480,8 +485,9 @@ def build_estuary_layered(flat: xr.Dataset | None = None) -> xr.Dataset:
         )
         variables[name] = xr.Variable(layered.dims, layered.values.astype(np.float32), attrs)
     comment = (
-        "Saltmarsh Estuary is an invented place. The flow of saltmarsh_estuary_flow.nc over its "
-        f"first {ESTUARY_LAYERED_DURATION / 3600:.0f} h in four sigma layers (thicknesses 1/8, "
+        "Saltmarsh Estuary is an invented place. The flow of saltmarsh_estuary_flow.nc from "
+        f"{ESTUARY_LAYERED_SPAN[0] / 3600:.0f} h to {ESTUARY_LAYERED_SPAN[1] / 3600:.0f} h "
+        "after the time origin in four sigma layers (thicknesses 1/8, "
         "1/8, 1/4 and 1/2 of the water depth, surface first): each layer's velocity is the "
         "depth mean times a layer factor from a 1/7 power-law profile, the factors weighted by "
         "the layer thicknesses averaging exactly 1. Total water depth = bed_depth + zeta."
