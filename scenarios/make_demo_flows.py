@@ -1,5 +1,4 @@
-"""Write the flow files of the demo cases: Saltmarsh Estuary (depth-averaged and layered) and
-Millbrook Canal (invented).
+"""Write the demo flow files: Saltmarsh Estuary (depth-averaged and layered), Millbrook Canal.
 
 Usage::
 

@@ -322,3 +322,48 @@ def test_layered_demo_twin_with_plain_layer_mean_differs():
     thickness = np.diff(np.asarray(mdf.ESTUARY_SIGMA_BOUNDS), axis=1).ravel()
     assert np.sum(thickness * factors) == 1.0
     assert abs(np.mean(factors) - 1.0) > 0.05
+
+
+# ---- scenario keys ---------------------------------------------------------------------------
+
+
+def _layered_scenario(layers: dict) -> dict:
+    import tomllib
+
+    from test_bitwise_demo import SCENARIOS
+
+    raw = tomllib.loads((SCENARIOS / "saltmarsh_estuary_layered.toml").read_text("utf-8"))
+    raw["flow"]["layers"] = layers
+    return raw
+
+
+def test_scenario_band_in_metres():
+    from test_bitwise_demo import SCENARIOS
+
+    from walkers import load_scenario
+
+    raw = _layered_scenario({"select": "band", "band": ["0 m", "200 cm"]})
+    spec = load_scenario(raw, base_dir=SCENARIOS).flow.layers
+    assert spec == LayerSelection("band", band=(0.0, 2.0))
+    raw = _layered_scenario({"select": "layer", "layer": 3})
+    assert load_scenario(raw, base_dir=SCENARIOS).flow.layers == LayerSelection("layer", layer=3)
+    assert load_scenario(_layered_scenario({}), base_dir=SCENARIOS).flow.layers == LayerSelection()
+
+
+@pytest.mark.parametrize(
+    ("layers", "message"),
+    [
+        ({"select": "band"}, r"flow\.layers\.band: select = \"band\" needs"),
+        ({"select": "band", "band": ["2 m", "1 m"]}, r"flow\.layers\.band.*bottom must be deeper"),
+        ({"select": "mean", "layer": 2}, r"flow\.layers\.layer: applies only when select = 'layer'"),
+        ({"select": "top"}, r"flow\.layers\.select"),
+        ({"select": "layer", "layer": 0}, r"flow\.layers\.layer"),
+    ],
+)
+def test_scenario_layer_keys_bad_input(layers, message):
+    from test_bitwise_demo import SCENARIOS
+
+    from walkers import load_scenario
+
+    with pytest.raises(InputError, match=message):
+        load_scenario(_layered_scenario(layers), base_dir=SCENARIOS)
