@@ -71,7 +71,7 @@ def test_plain_layer_mean_of_log_profile_fails(tmp_path):
     total = lf.BED_DEPTH[None] + lf.ETA
     plain = _log_layer_means(total).mean(axis=1)
     closed = U_STAR / KAPPA * (np.log(total / Z0) - 1.0)
-    assert np.min(np.abs(plain / closed - 1.0)) > 0.02
+    assert np.min(np.abs(plain / closed - 1.0)) > 0.05  # 6 to 7 % here
 
 
 def test_sigma_faces_from_midpoints_give_the_same_mean_for_centred_layers(tmp_path):
