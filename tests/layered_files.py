@@ -31,13 +31,15 @@ def _horizontal(ds: netCDF4.Dataset, *, geographic: bool = False) -> None:
         var[:] = values * (1e-3 if geographic else 1.0) + (10.0 if geographic else 0.0)
 
 
-def _velocities(ds: netCDF4.Dataset, u: np.ndarray, v: np.ndarray, fill: bool = False) -> None:
-    for name, data, std in (
-        ("u", u, "eastward_sea_water_velocity"),
-        ("v", v, "northward_sea_water_velocity"),
+def _velocities(
+    ds: netCDF4.Dataset, u: np.ndarray, v: np.ndarray, fill: bool = False, u_x: str = "x"
+) -> None:
+    for name, data, std, x_dim in (
+        ("u", u, "eastward_sea_water_velocity", u_x),
+        ("v", v, "northward_sea_water_velocity", "x"),
     ):
         var = ds.createVariable(
-            name, "f8", ("time", "layer", "y", "x"), fill_value=-999.0 if fill else None
+            name, "f8", ("time", "layer", "y", x_dim), fill_value=-999.0 if fill else None
         )
         var.standard_name, var.units = std, "m s-1"
         var[:] = np.ma.masked_invalid(data)
@@ -109,9 +111,11 @@ def write_z_levels(
     positive: str = "down",
     bounds: np.ndarray | None = None,
     geographic: bool = True,
+    u_faces: np.ndarray | None = None,
 ) -> Path:
     """A z-level file (CF-1.8 §4.3.1): ``levels`` in m (positive as given), velocities with NaN
-    (written as fill values) below the bed, and the total water depth (y, x)."""
+    (written as fill values) below the bed, and the total water depth (y, x). ``u_faces``: x of
+    u on the cell faces (a staggered grid; projected only)."""
     with netCDF4.Dataset(path, "w") as ds:
         _horizontal(ds, geographic=geographic)
         ds.createDimension("layer", levels.size)
@@ -126,5 +130,10 @@ def write_z_levels(
         d = ds.createVariable("depth", "f8", ("y", "x"))
         d.standard_name, d.units = "sea_floor_depth_below_sea_surface", "m"
         d[:] = total_depth
-        _velocities(ds, u, v, fill=True)
+        if u_faces is not None:
+            ds.createDimension("x_face", u_faces.size)
+            xf = ds.createVariable("x_face", "f8", ("x_face",))
+            xf.standard_name, xf.units = "projection_x_coordinate", "m"
+            xf[:] = u_faces
+        _velocities(ds, u, v, fill=True, u_x="x" if u_faces is None else "x_face")
     return path

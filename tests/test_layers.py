@@ -198,6 +198,20 @@ def test_z_levels_height_positive_up_with_bounds(tmp_path):
     assert got[1, 2] == pytest.approx((1.0 * 0.1 + 0.2 * 0.2) / 1.2, rel=1e-12)
 
 
+def test_z_levels_on_a_staggered_grid_use_the_mean_bed_of_the_cells_around(tmp_path):
+    # u on the x faces (Arakawa C): the bed at a face is the mean of the beds of its two cells
+    faces = np.array([-50.0, 50.0, 150.0, 250.0])
+    u = np.broadcast_to(np.array([0.1, 0.2, 0.3, 0.4])[None, :, None, None], (2, 4, 2, 4)).copy()
+    p = lf.write_z_levels(
+        tmp_path / "c.nc", LEVELS, u, _z_velocities(), TOTAL, geographic=False, u_faces=faces
+    )
+    got = open_flow(p).window(0.0, 0.0).u[0]
+    # face between the 3 m and 6 m cells: bed at 4.5 m; layers 1, 1.25, 1.75 and 0.5 m thick
+    assert got[0, 1] == pytest.approx((0.1 + 1.25 * 0.2 + 1.75 * 0.3 + 0.5 * 0.4) / 4.5, rel=1e-12)
+    # the west edge face has one cell (3 m) beside it
+    assert got[0, 0] == pytest.approx((0.1 + 1.25 * 0.2 + 0.75 * 0.3) / 3.0, rel=1e-12)
+
+
 def test_band_and_single_layer(tmp_path):
     u = _z_velocities()
     p = lf.write_z_levels(tmp_path / "z.nc", LEVELS, u, u, TOTAL)
@@ -355,7 +369,10 @@ def test_scenario_band_in_metres():
     [
         ({"select": "band"}, r"flow\.layers\.band: select = \"band\" needs"),
         ({"select": "band", "band": ["2 m", "1 m"]}, r"flow\.layers\.band.*bottom must be deeper"),
-        ({"select": "mean", "layer": 2}, r"flow\.layers\.layer: applies only when select = 'layer'"),
+        (
+            {"select": "mean", "layer": 2},
+            r"flow\.layers\.layer: applies only when select = 'layer'",
+        ),
         ({"select": "top"}, r"flow\.layers\.select"),
         ({"select": "layer", "layer": 0}, r"flow\.layers\.layer"),
     ],

@@ -148,6 +148,12 @@ class _FileSchema:
         skip = {self.time_dim, None if self.vertical is None else self.vertical.dim}
         spatial = [d for d in u_var.dimensions if d not in skip and ds.dimensions[d].size > 1]
         self.ndim = 1 if len(spatial) == 1 else 2
+        if self.ndim == 1 and self.vertical is not None:
+            raise InputError(
+                f"flow file {path!r}: velocity {u_name!r} of a 1-D channel is in layers along "
+                f"{self.vertical.dim!r}; layers are read on 2-D grids only: give the "
+                "cross-section-averaged velocity"
+            )
         self.roles["u"] = u_name
         if self.ndim == 2:
             v_name = self._find("v", required=True)
