@@ -231,57 +231,39 @@ def test_band_and_single_layer(tmp_path):
 # ---- bad input -------------------------------------------------------------------------------
 
 
-def _sigma_edit(tmp_path, edit):
+@pytest.mark.parametrize(
+    ("attribute", "value", "message"),
+    [
+        (
+            "formula_terms",
+            "sigma: layer eta: ssh depth: h",
+            r"sigma\.nc.*'layer'.*names variable 'ssh' for the term 'eta'.*no such variable",
+        ),
+        (
+            "formula_terms",
+            "sigma: layer depth: h",
+            r"sigma\.nc.*lacks the term\(s\) eta.*Appendix D",
+        ),
+        (
+            "standard_name",
+            "ocean_double_sigma_coordinate",
+            r"sigma\.nc.*variable 'u'.*unknown vertical coordinate 'layer'.*"
+            r"ocean_double_sigma_coordinate.*Accepted",
+        ),
+        (
+            "bounds",
+            "sig_edges",
+            r"sigma\.nc.*bounds of 'layer'.*'sig_edges'.*not in the file.*thicknesses cannot be "
+            r"found",
+        ),
+    ],
+)
+def test_bad_vertical_coordinate_is_named(tmp_path, attribute, value, message):
     u = np.full((2, 4, 2, 3), 0.1)
-    return _sigma_file(tmp_path, u, u, edit=edit)
-
-
-def test_formula_terms_naming_a_missing_variable(tmp_path):
-    p = _sigma_edit(
-        tmp_path,
-        lambda ds: ds.variables["layer"].setncattr(
-            "formula_terms", "sigma: layer eta: ssh depth: h"
-        ),
+    p = _sigma_file(
+        tmp_path, u, u, edit=lambda ds: ds.variables["layer"].setncattr(attribute, value)
     )
-    with pytest.raises(
-        InputError,
-        match=r"sigma\.nc.*'layer'.*names variable 'ssh' for the term "
-        r"'eta'.*no such variable",
-    ):
-        open_flow(p)
-
-
-def test_formula_terms_lacking_a_term(tmp_path):
-    p = _sigma_edit(
-        tmp_path,
-        lambda ds: ds.variables["layer"].setncattr("formula_terms", "sigma: layer depth: h"),
-    )
-    with pytest.raises(InputError, match=r"sigma\.nc.*lacks the term\(s\) eta.*Appendix D"):
-        open_flow(p)
-
-
-def test_unknown_vertical_coordinate(tmp_path):
-    p = _sigma_edit(
-        tmp_path,
-        lambda ds: ds.variables["layer"].setncattr(
-            "standard_name", "ocean_double_sigma_coordinate"
-        ),
-    )
-    with pytest.raises(
-        InputError,
-        match=r"sigma\.nc.*variable 'u'.*unknown vertical coordinate "
-        r"'layer'.*ocean_double_sigma_coordinate.*Accepted",
-    ):
-        open_flow(p)
-
-
-def test_bounds_naming_a_missing_variable(tmp_path):
-    p = _sigma_edit(tmp_path, lambda ds: ds.variables["layer"].setncattr("bounds", "sig_edges"))
-    with pytest.raises(
-        InputError,
-        match=r"sigma\.nc.*bounds of 'layer'.*'sig_edges'.*not in the "
-        r"file.*thicknesses cannot be found",
-    ):
+    with pytest.raises(InputError, match=message):
         open_flow(p)
 
 
