@@ -226,6 +226,13 @@ def test_band_and_single_layer(tmp_path):
     second = open_flow(p, layers=LayerSelection("layer", layer=2))
     assert second.window(0.0, 0.0).u[0][0, 1] == pytest.approx(0.2, rel=1e-12)
     assert "layer 2 from the surface" in second.attrs["vertical"]
+    # layer 4 lies below the bed of the 3 m and 1.2 m columns
+    with pytest.raises(
+        InputError,
+        match=r"flow\.layers\.layer = 4: variable 'u'.*z\.nc.*no value "
+        r"in that layer at point x=10.*below the bed",
+    ):
+        open_flow(p, layers=LayerSelection("layer", layer=4))
 
 
 # ---- bad input -------------------------------------------------------------------------------

@@ -262,8 +262,31 @@ class _FlowSource:
             eta_v, bed_v = _wet_mean(eta, bed, corners)
             lower, upper = layer_faces(vc, eta_v, bed_v)
             weights = layer_weights(vc, lower, upper, eta_v, self.selection)
-            out.append(thickness_mean(vel, weights))
+            mean = thickness_mean(vel, weights)
+            self._check_layer_present(role, vel, mean, eta_v + bed_v)
+            out.append(mean)
         return out[0], out[1]
+
+    def _check_layer_present(
+        self, role: str, layered: np.ndarray, mean: np.ndarray, column: np.ndarray
+    ) -> None:
+        """InputError where the selected layer has no value in a column with water (``column``:
+        its total depth, m, at the velocity points)."""
+        if self.selection.mode != "layer":
+            return
+        with np.errstate(invalid="ignore"):
+            wet = column >= self.min_depth
+        missing = np.isnan(mean) & np.any(np.isfinite(layered), axis=1) & wet
+        if np.any(missing):
+            k, j, i = (int(n[0]) for n in np.nonzero(missing))
+            lay = self.layouts[role]
+            yv = 0.0 if lay.y is None else lay.y.values[j]
+            raise InputError(
+                f"flow.layers.layer = {self.selection.layer}: variable {lay.name!r} of "
+                f"{', '.join(repr(p) for p in self.paths)} has no value in that layer at point "
+                f"x={lay.x.values[i]:.10g}, y={yv:.10g} (below the bed there), where the column "
+                "has water; choose a layer present in every wet column, or a depth band"
+            )
 
     def _depth_from_levels(self, raw: dict[str, np.ndarray]) -> np.ndarray:
         level = self._get(raw, "water_level")
