@@ -373,3 +373,15 @@ def test_scenario_layer_keys_bad_input(layers, message):
 
     with pytest.raises(InputError, match=message):
         load_scenario(_layered_scenario(layers), base_dir=SCENARIOS)
+
+
+def test_inspect_names_the_layers(tmp_path):
+    from walkers.inspect import describe_flow
+
+    total = lf.BED_DEPTH[None] + lf.ETA
+    u = _log_layer_means(total)
+    text = describe_flow(_sigma_file(tmp_path, u, u))
+    assert (
+        "layers: ocean_sigma_coordinate 'layer', 4 layers, thicknesses from bounds 'layer_bnds'; "
+        "reduced to one field by the thickness-weighted depth mean"
+    ) in text
