@@ -278,15 +278,21 @@ class _FlowSource:
             wet = column >= self.min_depth
         missing = np.isnan(mean) & np.any(np.isfinite(layered), axis=1) & wet
         if np.any(missing):
-            k, j, i = (int(n[0]) for n in np.nonzero(missing))
-            lay = self.layouts[role]
-            yv = 0.0 if lay.y is None else lay.y.values[j]
+            _, _, _, xv, yv = self._first_point(role, missing)
             raise InputError(
-                f"flow.layers.layer = {self.selection.layer}: variable {lay.name!r} of "
-                f"{', '.join(repr(p) for p in self.paths)} has no value in that layer at point "
-                f"x={lay.x.values[i]:.10g}, y={yv:.10g} (below the bed there), where the column "
-                "has water; choose a layer present in every wet column, or a depth band"
+                f"flow.layers.layer = {self.selection.layer}: variable "
+                f"{self.layouts[role].name!r} of {', '.join(repr(p) for p in self.paths)} has no "
+                f"value in that layer at point x={xv:.10g}, y={yv:.10g} (below the bed there), "
+                "where the column has water; choose a layer present in every wet column, or a "
+                "depth band"
             )
+
+    def _first_point(self, role: str, mask: np.ndarray) -> tuple[int, int, int, float, float]:
+        """Frame, row, column and coordinates of the first True of ``mask`` (frames, y, x) on the
+        points of ``role``."""
+        k, j, i = (int(n[0]) for n in np.nonzero(mask))
+        lay = self.layouts[role]
+        return k, j, i, float(lay.x.values[i]), 0.0 if lay.y is None else float(lay.y.values[j])
 
     def _depth_from_levels(self, raw: dict[str, np.ndarray]) -> np.ndarray:
         level = self._get(raw, "water_level")
@@ -317,11 +323,9 @@ class _FlowSource:
         inside = np.logical_and.reduce(_corners(wet, *self._velocity_brackets(role)))
         bad = ~np.isfinite(vel) & inside
         if np.any(bad):
-            k, j, i = (int(n[0]) for n in np.nonzero(bad))
+            k, j, i, xv, yv = self._first_point(role, bad)
             lay = self.layouts[role]
             frame = min(i0 + k, self.nt - 1)
-            xv = lay.x.values[i]
-            yv = 0.0 if lay.y is None else lay.y.values[j]
             raise InputError(
                 f"flow file(s) {', '.join(repr(p) for p in self.paths)}: variable {lay.name!r} "
                 f"({role}) is missing (fill value or NaN) at frame {self.time_iso(frame)}, "
