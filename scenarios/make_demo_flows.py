@@ -1,4 +1,4 @@
-"""Write the flow files of the two demo cases: Saltmarsh Estuary and Millbrook Canal (invented).
+"""Write the demo flow files: Saltmarsh Estuary (depth-averaged and layered), Millbrook Canal.
 
 Usage::
 
@@ -34,6 +34,12 @@ Estuary (long-wave approximation: the water level eta(t) is uniform over the dom
    accumulated from the west bank (zero flux there); they close to round-off at the east bank
    because step 3 balances each row as a whole. The wet cells of every row form one contiguous
    run (the bed rises monotonically toward both banks), which the builder checks.
+
+Layered estuary (saltmarsh_estuary_layered_flow.nc): the estuary's flow over the demo scenario's
+day in four sigma layers (CF-1.8 Appendix D, ocean_sigma_coordinate, with bounds; formula_terms
+name the water level zeta and the bed depth). Each layer's velocity is the depth mean times a
+layer factor from a 1/7 power-law profile; the factors weighted by the layer thicknesses average
+exactly 1, so the thickness-weighted depth mean is the depth-averaged flow.
 
 Canal: a constant discharge Q over a fixed cross-section; q = u h is shared across the section in
 proportion to h**(5/3) (u proportional to h**(2/3)), uniform along the canal, v = 0.
@@ -80,6 +86,12 @@ ESTUARY_PLACES = {
     "shellfish_bed": (431650.0, 4932250.0),  # west tidal flat, dries at low water
     "water_intake": (433250.0, 4940450.0),  # upstream channel, always wet
 }
+
+# Layered Saltmarsh Estuary: the same flow in sigma layers (surface first), over the demo
+# scenario's day (ESTUARY_LAYERED_SPAN, s from the time origin) only, to keep the file small.
+ESTUARY_SIGMA_BOUNDS = ((-0.125, 0.0), (-0.25, -0.125), (-0.5, -0.25), (-1.0, -0.5))
+ESTUARY_LAYERED_SPAN = (3 * 3600.0, 27 * 3600.0)  # s
+PROFILE_QUANTUM = 2.0**-8  # layer factors are multiples of this
 
 # --- Millbrook Canal (invented) ---------------------------------------------------------------
 CANAL_ORIGIN = (440000.0, 4935950.0)  # UTM 30N of the south-west corner (m)
@@ -394,6 +406,97 @@ def build_estuary() -> xr.Dataset:
     )
 
 
+def layer_factors() -> np.ndarray:
+    """Layer velocity / depth mean of each sigma layer (surface first), from a 1/7 power law.
+
+    The power law u(zeta) / U = (8/7) zeta**(1/7), zeta the height above the bed over the depth
+    (depth mean 1; common practice for open-channel profiles, e.g. Chanson 2004, The Hydraulics
+    of Open Channel Flow, ch. 3 — from memory), averaged over each layer, rounded to
+    PROFILE_QUANTUM; the bottom layer's factor then closes the thickness-weighted mean to exactly 1
+    (all thicknesses are powers of two, so the sum is exact).
+    """
+    bounds = np.asarray(ESTUARY_SIGMA_BOUNDS)
+    lo, hi = 1.0 + bounds[:, 0], 1.0 + bounds[:, 1]
+    thickness = hi - lo
+    means = (hi ** (8 / 7) - lo ** (8 / 7)) / thickness
+    factors = np.round(means / PROFILE_QUANTUM) * PROFILE_QUANTUM
+    factors[-1] = (1.0 - np.sum(thickness[:-1] * factors[:-1])) / thickness[-1]
+    return factors
+
+
+def build_estuary_layered(flat: xr.Dataset | None = None) -> xr.Dataset:
+    """The Saltmarsh Estuary flow in four sigma layers (CF-1.8 Appendix D,
+    ocean_sigma_coordinate, with bounds), whose thickness-weighted depth mean is the
+    depth-averaged flow of :func:`build_estuary` (``flat``, built if not given)."""
+    flat = build_estuary() if flat is None else flat
+    first, last = (int(t / ESTUARY_FRAME_INTERVAL) for t in ESTUARY_LAYERED_SPAN)
+    flat = flat.isel(time=slice(first, last + 1))
+    geom = estuary_geometry()
+    bounds = np.asarray(ESTUARY_SIGMA_BOUNDS)
+    factors = xr.DataArray(layer_factors(), dims="layer")
+    common = {"grid_mapping": "crs"}
+    variables = {name: flat.variables[name] for name in ("x", "y", "time", "crs", "water_mask")}
+    variables["layer"] = xr.Variable(
+        "layer",
+        bounds.mean(axis=1),
+        {
+            "standard_name": "ocean_sigma_coordinate",
+            "long_name": "sigma at layer centre (0 surface, -1 bed)",
+            "units": "1",
+            "positive": "up",
+            "axis": "Z",
+            "formula_terms": "sigma: layer eta: zeta depth: bed_depth",
+            "bounds": "layer_bounds",
+        },
+    )
+    variables["layer_bounds"] = xr.Variable(
+        ("layer", "bounds"), bounds, {"long_name": "sigma at the layer faces"}
+    )
+    level = flat["water_level"].values.astype(np.float64)
+    ny, nx = geom.bed.shape
+    variables["zeta"] = xr.Variable(
+        ("time", "y", "x"),
+        np.broadcast_to(level[:, None, None], (level.size, ny, nx)).astype(np.float32),
+        {
+            "standard_name": "sea_surface_height_above_mean_sea_level",
+            "long_name": "water level",
+            "units": "m",
+            **common,
+        },
+    )
+    variables["bed_depth"] = xr.Variable(
+        ("y", "x"),
+        (-geom.bed).astype(np.float32),
+        {
+            "standard_name": "sea_floor_depth_below_mean_sea_level",
+            "long_name": "bed depth below mean sea level (negative above it)",
+            "units": "m",
+            **common,
+        },
+    )
+    for name in ("u", "v"):
+        layered = (flat[name].astype(np.float64) * factors).transpose("time", "layer", "y", "x")
+        attrs = dict(flat[name].attrs)
+        attrs["long_name"] = attrs["long_name"].replace("depth-averaged", "layer")
+        attrs["comment"] = (
+            "depth mean x a 1/7 power-law layer factor; the thickness-weighted mean over the "
+            "layers is the depth-averaged velocity of saltmarsh_estuary_flow.nc"
+        )
+        variables[name] = xr.Variable(layered.dims, layered.values.astype(np.float32), attrs)
+    comment = (
+        "Saltmarsh Estuary is an invented place. The flow of saltmarsh_estuary_flow.nc from "
+        f"{ESTUARY_LAYERED_SPAN[0] / 3600:.0f} h to {ESTUARY_LAYERED_SPAN[1] / 3600:.0f} h "
+        "after the time origin in four sigma layers (thicknesses 1/8, "
+        "1/8, 1/4 and 1/2 of the water depth, surface first): each layer's velocity is the "
+        "depth mean times a layer factor from a 1/7 power-law profile, the factors weighted by "
+        "the layer thicknesses averaging exactly 1. Total water depth = bed_depth + zeta."
+    )
+    return xr.Dataset(
+        variables,
+        attrs=_global_attrs("Saltmarsh Estuary (invented): tidal flow in sigma layers", comment),
+    )
+
+
 def build_canal() -> xr.Dataset:
     """The Millbrook Canal flow: one steady frame (see the module docstring)."""
     dx, dy = CANAL_CELL
@@ -437,7 +540,7 @@ def write_flow(ds: xr.Dataset, path: Path) -> None:
         enc: dict[str, object] = {"_FillValue": None}
         if var.ndim >= 2:
             enc.update(zlib=True, complevel=6, shuffle=True)
-        if var.ndim == 3 and "time" in var.dims:
+        if var.ndim >= 3 and "time" in var.dims:
             # one frame a chunk: a reader that asks for a few frames decompresses only those
             enc["chunksizes"] = (1, *var.shape[1:])
         encoding[name] = enc
@@ -452,16 +555,18 @@ def main(argv: list[str] | None = None) -> None:
         "--outdir",
         type=Path,
         default=Path(__file__).resolve().parent,
-        help="folder for the two NetCDF files (default: this script's folder)",
+        help="folder for the three NetCDF files (default: this script's folder)",
     )
     args = parser.parse_args(argv)
     args.outdir.mkdir(parents=True, exist_ok=True)
-    for name, build in (
-        ("saltmarsh_estuary_flow.nc", build_estuary),
-        ("millbrook_canal_flow.nc", build_canal),
+    estuary = build_estuary()
+    for name, ds in (
+        ("saltmarsh_estuary_flow.nc", estuary),
+        ("saltmarsh_estuary_layered_flow.nc", build_estuary_layered(estuary)),
+        ("millbrook_canal_flow.nc", build_canal()),
     ):
         path = args.outdir / name
-        write_flow(build(), path)
+        write_flow(ds, path)
         print(f"wrote {path} ({path.stat().st_size / 1e6:.2f} MB)")
 
 

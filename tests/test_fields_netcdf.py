@@ -556,7 +556,7 @@ def test_files_with_different_grids_are_refused(tmp_path):
         open_flow([a, b])
 
 
-def test_extra_vertical_dimension_is_refused(tmp_path):
+def test_layers_without_a_coordinate_are_refused(tmp_path):
     def layered(ds):
         ds.createDimension("layer", 3)
         w = ds.createVariable("u3", "f8", ("time", "layer", "y", "x"))
@@ -564,7 +564,11 @@ def test_extra_vertical_dimension_is_refused(tmp_path):
         w[:] = 0.1
 
     p = ff.write_flow(tmp_path / "a.nc", extra=layered)
-    with pytest.raises(InputError, match=r"a\.nc.*'u3' has a dimension 'layer'.*depth-averaged"):
+    with pytest.raises(
+        InputError,
+        match=r"a\.nc.*'u3' has layers along dimension 'layer' but no coordinate.*"
+        "thicknesses cannot be found",
+    ):
         open_flow(p, variables={"u": "u3"})
     assert netCDF4.Dataset(p).variables["u3"].ndim == 4
 

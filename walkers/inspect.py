@@ -111,6 +111,8 @@ def describe_flow(
             lines.append(f"    {role:<12} {name}" + (f"  [{fu}]" if fu else ""))
         if flow.attrs.get("constant_depth") is not None:
             lines.append(f"    depth        constant {flow.attrs['constant_depth']:.10g}")
+        if "vertical" in flow.attrs:
+            lines.append(f"  layers: {flow.attrs['vertical']}")
 
     _describe_water(flow, lines)
     advice = Transport(dt=dt or 1.0, dispersion=Dispersion(k1=dispersion, k2=dispersion))

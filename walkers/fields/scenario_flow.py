@@ -72,6 +72,7 @@ def build_flow(spec: FlowSpec) -> FlowField:
             min_depth=spec.min_depth,
             constant_depth=spec.constant_depth,
             time_range=spec.time_range,
+            layers=spec.layers,
         )
     from walkers.fields.analytic import analytic_flow
 

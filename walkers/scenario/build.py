@@ -15,7 +15,7 @@ import numpy as np
 from walkers.errors import InputError
 from walkers.scenario.config import Dispersion, OutputGrid, Receptor, Release
 from walkers.scenario.keys import MAX_OUTPUT_CELLS
-from walkers.scenario.specs import DispersionSpec, EnsembleSpec, FlowSpec
+from walkers.scenario.specs import DispersionSpec, EnsembleSpec, FlowSpec, LayerSelection
 from walkers.scenario.walk import _check_lonlat, _coordinate, _resolve_path, _seconds
 
 
@@ -301,7 +301,30 @@ def _files_flow(f: dict[str, Any], base_dir: Path, start: datetime, end: datetim
         min_depth=f["minimum_depth"],
         constant_depth=f["depth"],
         time_range=(start.isoformat(), end.isoformat()),
+        layers=_layer_selection(f["layers"] or {}),
     )
+
+
+def _layer_selection(table: dict[str, Any]) -> LayerSelection:
+    """The [flow.layers] table as a :class:`LayerSelection` (band depths in m)."""
+    mode = table.get("select") or "mean"
+    if mode == "band":
+        band = table.get("band")
+        if band is None:
+            raise InputError(
+                'flow.layers.band: select = "band" needs the band\'s top and bottom depths below '
+                'the surface, e.g. band = ["0 m", "2 m"]'
+            )
+        top, bottom = (float(b) for b in band)
+        if not bottom > top:
+            raise InputError(
+                f"flow.layers.band = [{top:g} m, {bottom:g} m]: the bottom must be deeper than "
+                "the top (depths below the surface)"
+            )
+        return LayerSelection("band", band=(top, bottom))
+    if mode == "layer":
+        return LayerSelection("layer", layer=int(table.get("layer") or 1))
+    return LayerSelection()
 
 
 def _build_flow(

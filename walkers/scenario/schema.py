@@ -122,6 +122,39 @@ SCHEMA = Section(
                     bound="positive",
                     only_when="files",
                 ),
+                "layers": Section(
+                    "For flow files whose velocities are in layers (sigma, s or z coordinates): "
+                    "the part of the water column the particles move with. Each layer counts "
+                    "by its thickness; the depth used for concentrations stays the total water "
+                    "depth.",
+                    {
+                        "select": Key(
+                            "choice",
+                            "mean: the depth mean of the whole column; layer: one layer; band: "
+                            "the mean over a depth band below the surface (e.g. the top 2 m for a "
+                            "floating substance).",
+                            default="mean",
+                            allowed=("mean", "layer", "band"),
+                        ),
+                        "layer": Key(
+                            "integer",
+                            "The layer, counted from the surface (1 = top layer).",
+                            default=1,
+                            bound="positive",
+                            only_when="select=layer",
+                        ),
+                        "band": Key(
+                            "quantities",
+                            "Top and bottom of the band as depths below the surface, e.g. "
+                            '["0 m", "2 m"].',
+                            dimension="length",
+                            length=2,
+                            bound="nonnegative",
+                            only_when="select=band",
+                        ),
+                    },
+                    only_when="files",
+                ),
                 "analytic": Section(
                     "An analytic flow on a regular grid in metres, for tests and demos. Its time "
                     "0 is the run start.",

@@ -18,6 +18,32 @@ from walkers.scenario.config import Dispersion, OutputGrid, Receptor, Release, T
 
 
 @dataclass(frozen=True)
+class LayerSelection:
+    """Which part of a layered flow's water column the depth-averaged flow stands for.
+
+    mode : ``"mean"`` (the whole column), ``"layer"`` or ``"band"``.
+    layer : the layer, numbered from the surface (1 = top), when mode is ``"layer"``.
+    band : (top, bottom) depths below the surface (m) when mode is ``"band"``, top < bottom.
+    """
+
+    mode: Literal["mean", "layer", "band"] = "mean"
+    layer: int = 1
+    band: tuple[float, float] = (0.0, 0.0)
+
+    def describe(self) -> str:
+        """The selection in words, e.g. "the thickness-weighted mean of the band 0 to 2 m"."""
+        if self.mode == "layer":
+            return f"layer {self.layer} from the surface"
+        if self.mode == "band":
+            top, bottom = self.band
+            return (
+                f"the thickness-weighted mean of the band {top:.6g} to {bottom:.6g} m below the "
+                "surface"
+            )
+        return "the thickness-weighted depth mean"
+
+
+@dataclass(frozen=True)
 class FlowSpec:
     """Where the flow comes from; :meth:`build` opens or makes it.
 
@@ -30,6 +56,7 @@ class FlowSpec:
     analytic : keyword arguments of :func:`walkers.fields.analytic.analytic_flow`.
     time_origin : ISO 8601 time of an analytic flow's time 0 (the run start).
     time_range : (run start, run end) in ISO 8601: flow files keep only the frames covering it.
+    layers : which part of the water column a layered flow file stands for.
     """
 
     kind: Literal["files", "analytic"]
@@ -42,6 +69,7 @@ class FlowSpec:
     analytic: dict[str, Any] = dataclasses.field(default_factory=dict)
     time_origin: str = ""
     time_range: tuple[str, str] | None = None
+    layers: LayerSelection = LayerSelection()
 
 
 @dataclass(frozen=True)

@@ -13,6 +13,7 @@ import numpy as np
 
 from walkers.errors import InputError
 from walkers.fields.geo import crs_from_cf, crs_from_user
+from walkers.fields.netcdf.layers import find_vertical
 from walkers.fields.netcdf.roles import (
     _DEG_EAST,
     _DEG_NORTH,
@@ -57,6 +58,7 @@ class _Layout:
     factor: float
     file_units: str
     attrs: dict[str, Any] = field(default_factory=dict)
+    z_dim: str | None = None  # the layer dimension of layered velocities
 
     @property
     def shape_yx(self) -> tuple[int, int]:
@@ -68,14 +70,15 @@ class _Layout:
         for d in self.dims:
             if self.time_axis is not None and d == self.dims[self.time_axis]:
                 idx.append(slice(t0, t1))
-            elif d == self.x.dim or (self.y is not None and d == self.y.dim):
+            elif d in (self.x.dim, self.z_dim) or (self.y is not None and d == self.y.dim):
                 idx.append(slice(None))
             else:
                 idx.append(0)
         return tuple(idx)
 
     def arrange(self, raw: Any) -> np.ndarray:
-        """Raw netCDF values (masked) -> float64 (nt, ny, nx), SI, ascending axes, NaN for fill."""
+        """Raw netCDF values (masked) -> float64 (nt, ny, nx), SI, ascending axes, NaN for fill;
+        layered velocities (nt, layers, ny, nx), layers in file order."""
         arr = np.ma.filled(np.ma.asarray(raw).astype(np.float64), np.nan)
         kept = [d for d in self.dims if d in self._kept()]
         order = [kept.index(d) for d in self._kept()]
@@ -83,17 +86,19 @@ class _Layout:
         if self.time_axis is None:
             arr = arr[None]
         if self.y is None:
-            arr = arr[:, None, :]
+            arr = arr[..., None, :]
         if self.x.flip:
-            arr = arr[:, :, ::-1]
+            arr = arr[..., ::-1]
         if self.y is not None and self.y.flip:
-            arr = arr[:, ::-1, :]
+            arr = arr[..., ::-1, :]
         return np.ascontiguousarray(arr * self.factor)
 
     def _kept(self) -> list[str]:
         kept = []
         if self.time_axis is not None:
             kept.append(self.dims[self.time_axis])
+        if self.z_dim is not None:
+            kept.append(self.z_dim)
         if self.y is not None:
             kept.append(self.y.dim)
         kept.append(self.x.dim)
@@ -130,7 +135,7 @@ class _FileSchema:
     ) -> None:
         self.ds = ds
         self.path = path
-        self.overrides = variables
+        self.overrides = dict(variables)
         self.units = units
         self.roles: dict[str, str] = {}
         self.geographic: bool | None = None
@@ -138,32 +143,23 @@ class _FileSchema:
         assert u_name is not None
         u_var = ds.variables[u_name]
         self.time_dim = self._time_dim(u_var)
-        spatial = [d for d in u_var.dimensions if d != self.time_dim and ds.dimensions[d].size > 1]
+        self.vertical = find_vertical(ds, path, u_var, self.time_dim)
+        self.bed_from_formula = False
+        skip = {self.time_dim, None if self.vertical is None else self.vertical.dim}
+        spatial = [d for d in u_var.dimensions if d not in skip and ds.dimensions[d].size > 1]
         self.ndim = 1 if len(spatial) == 1 else 2
+        if self.ndim == 1 and self.vertical is not None:
+            raise InputError(
+                f"flow file {path!r}: velocity {u_name!r} of a 1-D channel is in layers along "
+                f"{self.vertical.dim!r}; layers are read on 2-D grids only: give the "
+                "cross-section-averaged velocity"
+            )
         self.roles["u"] = u_name
         if self.ndim == 2:
             v_name = self._find("v", required=True)
             assert v_name is not None
             self.roles["v"] = v_name
-            depth = self._find("depth", required=False)
-            if depth is not None:
-                self.roles["depth"] = depth
-            else:
-                water = self._find("water_level", required=False)
-                bed = self._find("bed_level", required=False)
-                if water is not None and bed is not None:
-                    self.roles["water_level"] = water
-                    self.roles["bed_level"] = bed
-                elif not has_constant_depth:
-                    raise InputError(
-                        f"flow file {path!r}: no water depth found. Variables in the file: "
-                        f"{_describe_vars(ds)}. Accepted: a depth variable with standard_name "
-                        f"{' or '.join(STANDARD_NAMES['depth'])}, or a bed level "
-                        f"({', '.join(STANDARD_NAMES['bed_level'])}, or positive='up'/'down') "
-                        "together with a water level "
-                        f"({', '.join(STANDARD_NAMES['water_level'])}); "
-                        f"{_scenario_hint('depth')}, or give a constant depth (m)"
-                    )
+            self._find_depth(has_constant_depth)
         else:
             area = self._find("area", required=not has_constant_depth)
             if area is not None:
@@ -179,6 +175,46 @@ class _FileSchema:
                 "projected coordinates; all roles must share one kind of grid"
             )
         self.geographic = self.ndim == 2 and next(iter(geos.values()))
+
+    def _find_depth(self, has_constant_depth: bool) -> None:
+        """The depth roles of a 2-D file: its water depth, or water level and bed level.
+
+        A parametric vertical coordinate brings its own surface (eta) and bed depth (CF-1.8
+        Appendix D), used unless the scenario names the depth; z levels also take the water
+        level, the surface that closes their top layer.
+        """
+        vc = self.vertical
+        if vc is not None and vc.parametric and "depth" not in self.overrides:
+            for role, term in (("water_level", "eta"), ("bed_level", "depth")):
+                given = self._find(role, required=False) if role in self.overrides else None
+                self.roles[role] = given or vc.terms[term]
+            self.bed_from_formula = "bed_level" not in self.overrides
+            return
+        depth = self._find("depth", required=False)
+        if depth is not None:
+            self.roles["depth"] = depth
+            if vc is not None:
+                water = self._find("water_level", required=False)
+                # a water level on the horizontal grid; one without it (a single series) is
+                # not used, and the datum (z = 0) closes the top layer
+                if water is not None and self.ds.variables[water].ndim >= 2:
+                    self.roles["water_level"] = water
+            return
+        water = self._find("water_level", required=False)
+        bed = self._find("bed_level", required=False)
+        if water is not None and bed is not None:
+            self.roles["water_level"] = water
+            self.roles["bed_level"] = bed
+        elif not has_constant_depth:
+            raise InputError(
+                f"flow file {self.path!r}: no water depth found. Variables in the file: "
+                f"{_describe_vars(self.ds)}. Accepted: a depth variable with standard_name "
+                f"{' or '.join(STANDARD_NAMES['depth'])}, or a bed level "
+                f"({', '.join(STANDARD_NAMES['bed_level'])}, or positive='up'/'down') "
+                "together with a water level "
+                f"({', '.join(STANDARD_NAMES['water_level'])}); "
+                f"{_scenario_hint('depth')}, or give a constant depth (m)"
+            )
 
     # --- discovery -----------------------------------------------------------------------------
 
@@ -334,11 +370,15 @@ class _FileSchema:
     def _layout(self, role: str, name: str) -> _Layout:
         var = self.ds.variables[name]
         time_axis = None
-        x_dim = y_dim = None
+        x_dim = y_dim = z_dim = None
+        layered = self.vertical is not None and role in ("u", "v")
         for i, d in enumerate(var.dimensions):
             size = self.ds.dimensions[d].size
             if d == self.time_dim:
                 time_axis = i
+                continue
+            if layered and d == self.vertical.dim:  # type: ignore[union-attr]
+                z_dim = d
                 continue
             if size == 1:
                 continue  # a single layer or station: dropped
@@ -350,8 +390,9 @@ class _FileSchema:
             else:
                 raise InputError(
                     f"flow file {self.path!r}: variable {name!r} has a dimension {d!r} "
-                    f"(size {size}) besides time, x and y; give depth-averaged fields on one "
-                    "horizontal grid. Each x and y dimension needs a 1-D coordinate variable of "
+                    f"(size {size}) besides time, x and y (and, for velocities, their layers); "
+                    "give other fields on one horizontal grid. Each x and y dimension needs a 1-D "
+                    "coordinate variable of "
                     "the same name with standard_name projection_x_coordinate / "
                     "projection_y_coordinate (or longitude / latitude) or axis = 'X' / 'Y'"
                 )
@@ -361,7 +402,16 @@ class _FileSchema:
                 f"{'x' if x_dim is None else 'y'} dimension; the {_ROLE_WORDS[role]} must lie on "
                 "the same kind of grid as the velocity"
             )
+        if layered and z_dim is None:
+            raise InputError(
+                f"flow file {self.path!r}: velocity {name!r} ({role}) has no layer dimension "
+                f"{self.vertical.dim!r} while {self.roles['u']!r} has; give both velocity "  # type: ignore[union-attr]
+                "components in the same layers"
+            )
         factor, file_units = self._factor(role, var)
+        attrs = {k: var.getncattr(k) for k in var.ncattrs()}
+        if role == "bed_level" and self.bed_from_formula:
+            attrs["positive"] = "down"  # Appendix D: depth is below the datum, positive
         return _Layout(
             role=role,
             name=name,
@@ -371,7 +421,8 @@ class _FileSchema:
             y=None if y_dim is None else self._coordinate(y_dim, name),
             factor=factor,
             file_units=file_units,
-            attrs={k: var.getncattr(k) for k in var.ncattrs()},
+            attrs=attrs,
+            z_dim=z_dim,
         )
 
     # --- time and CRS -------------------------------------------------------------------------

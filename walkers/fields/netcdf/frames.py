@@ -11,8 +11,15 @@ import numpy as np
 
 from walkers.errors import InputError
 from walkers.fields.netcdf.discovery import _Layout
+from walkers.fields.netcdf.layers import (
+    VerticalCoordinate,
+    layer_faces,
+    layer_weights,
+    thickness_mean,
+)
 from walkers.fields.netcdf.roles import _LAND_WORDS, _WATER_WORDS
 from walkers.fields.times import _seconds_iso
+from walkers.scenario.specs import LayerSelection
 
 FRAME_CACHE_BYTES = 4 * 2**20  # HDF5 chunk cache of each variable of an open flow file
 
@@ -68,6 +75,21 @@ def _mask_to_water(values: np.ndarray, attrs: dict[str, Any]) -> np.ndarray:
     return finite & (values > 0.5)
 
 
+def _wet_mean(eta: np.ndarray, bed: np.ndarray, brackets) -> tuple[np.ndarray, np.ndarray]:
+    """Surface height and bed depth at velocity points: the mean over the cells around each point
+    whose bed and surface are known (NaN where none is)."""
+    if all(np.array_equal(lo, hi) for lo, hi in (brackets[:2], brackets[2:])):
+        return _corners(eta, *brackets)[0], _corners(bed, *brackets)[0]  # collocated
+    known = np.isfinite(eta) & np.isfinite(bed)
+    e = np.where(known, eta, 0.0)
+    b = np.where(known, bed, 0.0)
+    count = sum(_corners(known.astype(np.float64), *brackets))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        eta_v = np.where(count > 0, sum(_corners(e, *brackets)) / count, np.nan)
+        bed_v = np.where(count > 0, sum(_corners(b, *brackets)) / count, np.nan)
+    return eta_v, bed_v
+
+
 class _FlowSource:
     """Reads frames of every role from one or more files and derives depth and wet per frame.
 
@@ -89,8 +111,12 @@ class _FlowSource:
         ndim: int,
         min_depth: float,
         constant_depth: float | None,
+        vertical: VerticalCoordinate | None = None,
+        selection: LayerSelection | None = None,
     ) -> None:
         self.paths = paths
+        self.vertical = vertical
+        self.selection = selection or LayerSelection()
         self.layouts = layouts
         self.frame_file = frame_file
         self.frame_local = frame_local
@@ -115,6 +141,9 @@ class _FlowSource:
         wet_inputs = (depth_roles | {"mask"}) if self.wet_from_file else {"u", "v"}
         self.wet_steady = not (wet_inputs & set(self.varying))
         self.depth_steady = not (depth_roles & set(self.varying))
+        # layer faces move with the surface: a layered velocity varies when the depth does
+        layered_steady = vertical is None or self.depth_steady
+        self.velocity_steady = layered_steady and not ({"u", "v"} & set(self.varying))
         self.nt = max(1, frame_file.size)
 
     def time_iso(self, k: int) -> str:
@@ -186,6 +215,8 @@ class _FlowSource:
             depth = self._depth_from_levels(raw)
         else:
             depth = np.full(shape, float(self.constant_depth or 0.0))
+        if self.vertical is not None:
+            u, v = self._reduce_layers(raw, u, v, depth)
         if self.wet_from_file:
             wet = np.isfinite(depth) & (depth >= self.min_depth if self.ndim == 2 else depth > 0)
             if "mask" in self.layouts:
@@ -203,6 +234,65 @@ class _FlowSource:
         }
         self._cache = ((i0, i1), result)
         return result
+
+    def _reduce_layers(
+        self, raw: dict[str, np.ndarray], u: np.ndarray, v: np.ndarray, depth: np.ndarray
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """Layered u, v -> the thickness-weighted mean over the selected part of each column.
+
+        Faces are computed at each velocity point from the surface height and bed depth of the
+        cells around it (their mean over the wet ones, on staggered grids).
+        """
+        vc = self.vertical
+        assert vc is not None
+        if "water_level" in self.layouts:
+            eta = self._get(raw, "water_level")
+        else:
+            eta = np.zeros_like(depth)  # the datum closes the top layer
+        if vc.parametric:
+            bed = self._get(raw, "bed_level")  # depth below the datum (CF-1.8 Appendix D)
+        else:
+            bed = np.where(depth > 0.0, depth - eta, np.nan)
+        out = []
+        for role, vel in (("u", u), ("v", v)):
+            if role not in self.layouts:
+                out.append(vel)
+                continue
+            corners = self._velocity_brackets(role)
+            eta_v, bed_v = _wet_mean(eta, bed, corners)
+            lower, upper = layer_faces(vc, eta_v, bed_v)
+            weights = layer_weights(vc, lower, upper, eta_v, self.selection)
+            mean = thickness_mean(vel, weights)
+            self._check_layer_present(role, vel, mean, eta_v + bed_v)
+            out.append(mean)
+        return out[0], out[1]
+
+    def _check_layer_present(
+        self, role: str, layered: np.ndarray, mean: np.ndarray, column: np.ndarray
+    ) -> None:
+        """InputError where the selected layer has no value in a column with water (``column``:
+        its total depth, m, at the velocity points)."""
+        if self.selection.mode != "layer":
+            return
+        with np.errstate(invalid="ignore"):
+            wet = column >= self.min_depth
+        missing = np.isnan(mean) & np.any(np.isfinite(layered), axis=1) & wet
+        if np.any(missing):
+            _, _, _, xv, yv = self._first_point(role, missing)
+            raise InputError(
+                f"flow.layers.layer = {self.selection.layer}: variable "
+                f"{self.layouts[role].name!r} of {', '.join(repr(p) for p in self.paths)} has no "
+                f"value in that layer at point x={xv:.10g}, y={yv:.10g} (below the bed there), "
+                "where the column has water; choose a layer present in every wet column, or a "
+                "depth band"
+            )
+
+    def _first_point(self, role: str, mask: np.ndarray) -> tuple[int, int, int, float, float]:
+        """Frame, row, column and coordinates of the first True of ``mask`` (frames, y, x) on the
+        points of ``role``."""
+        k, j, i = (int(n[0]) for n in np.nonzero(mask))
+        lay = self.layouts[role]
+        return k, j, i, float(lay.x.values[i]), 0.0 if lay.y is None else float(lay.y.values[j])
 
     def _depth_from_levels(self, raw: dict[str, np.ndarray]) -> np.ndarray:
         level = self._get(raw, "water_level")
@@ -233,11 +323,9 @@ class _FlowSource:
         inside = np.logical_and.reduce(_corners(wet, *self._velocity_brackets(role)))
         bad = ~np.isfinite(vel) & inside
         if np.any(bad):
-            k, j, i = (int(n[0]) for n in np.nonzero(bad))
+            k, j, i, xv, yv = self._first_point(role, bad)
             lay = self.layouts[role]
             frame = min(i0 + k, self.nt - 1)
-            xv = lay.x.values[i]
-            yv = 0.0 if lay.y is None else lay.y.values[j]
             raise InputError(
                 f"flow file(s) {', '.join(repr(p) for p in self.paths)}: variable {lay.name!r} "
                 f"({role}) is missing (fill value or NaN) at frame {self.time_iso(frame)}, "

@@ -15,6 +15,11 @@ Roles and how they are found (the ``variables`` argument always wins):
   ``flag_meanings`` read for the words water, sea, wet or land, dry);
 - ``area``: wetted cross-section (m2) of a 1-D channel, where ``u`` has a single space dimension.
 
+Layered velocities (sigma, s or z coordinates, CF-1.8 §4.3 and Appendix D) are reduced on read
+to the thickness-weighted mean over the selected part of each column (:mod:`.layers`); a
+parametric coordinate's formula_terms supply the water level (eta) and bed depth, and the depth
+handed out is the total water depth, bed depth + eta.
+
 Grids are rectilinear, projected (metres) or geographic (degrees), with axes in any order and
 either direction, and u and v each on their own coordinates (staggered grids). The cell grid is the
 grid of the depth (or mask) variable. Arrays handed out are float64, SI, ordered (time, y, x) with
@@ -41,6 +46,7 @@ from walkers.fields.netcdf.discovery import _FileSchema
 from walkers.fields.netcdf.frames import _FlowSource, _LazyFrames
 from walkers.fields.netcdf.roles import _ROLE_WORDS, STANDARD_NAMES
 from walkers.fields.times import _seconds_iso, _to_seconds
+from walkers.scenario.specs import LayerSelection
 
 """CF standard names that identify each role."""
 
@@ -151,6 +157,7 @@ def open_flow(
     min_depth: float = 0.05,
     time_range: tuple[Any, Any] | None = None,
     constant_depth: float | None = None,
+    layers: LayerSelection | None = None,
 ) -> FlowField:
     """Open a hydrodynamic-model flow field from one NetCDF file or several along time.
 
@@ -166,6 +173,8 @@ def open_flow(
     time_range : (start, end) as ISO 8601 strings with zone or datetimes: keep only the frames
         needed to cover it.
     constant_depth : depth (m; in 1-D the cross-section area, m2) to use when the file has none.
+    layers : for layered velocities, the part of the water column to average over (the whole
+        column by default); see :mod:`walkers.fields.netcdf.layers`.
 
     Returns
     -------
@@ -174,10 +183,12 @@ def open_flow(
     variables = dict(variables or {})
     units = dict(units or {})
     _check_arguments(variables, min_depth, constant_depth)
+    layers = layers or LayerSelection()
     file_list = _expand_paths(paths)
     first, dates, calendar, cell, wkt = _read_schemas(
         file_list, variables, units, constant_depth is not None, crs
     )
+    _check_layer_selection(first, layers)
     has_time, time_units, frame_file, frame_local, seconds = _frame_times(
         first, dates, calendar, file_list
     )
@@ -199,6 +210,8 @@ def open_flow(
         first.ndim,
         float(min_depth),
         constant_depth,
+        first.vertical,
+        layers,
     )
     flow = _build_flow(source, first, seconds, time_units, calendar, wkt, file_list)
     flow.attrs.update(
@@ -207,6 +220,11 @@ def open_flow(
         files=list(file_list),
         min_depth=float(min_depth),
         constant_depth=constant_depth,
+        vertical=(
+            "none (depth-averaged velocities)"
+            if first.vertical is None
+            else first.vertical.describe(layers)
+        ),
     )
     first_block = source.block(0, 0)
     if not np.any(first_block["wet"] > 0.5):
@@ -216,6 +234,22 @@ def open_flow(
             f"variable and its sign, and the minimum depth ({min_depth} m)"
         )
     return flow
+
+
+def _check_layer_selection(schema: _FileSchema, layers: LayerSelection) -> None:
+    """InputError if a layer or band is asked of a file without layers, or a layer it lacks."""
+    vc = schema.vertical
+    if vc is None and layers.mode != "mean":
+        raise InputError(
+            f"flow.layers: {layers.describe()} is asked for, but the velocity "
+            f"{schema.roles['u']!r} of {schema.path!r} has no layers (it is depth-averaged "
+            "already); remove [flow.layers] or give a layered flow file"
+        )
+    if vc is not None and layers.mode == "layer" and not 1 <= layers.layer <= vc.size:
+        raise InputError(
+            f"flow.layers.layer = {layers.layer}: {schema.path!r} has {vc.size} layers along "
+            f"{vc.dim!r}; give a layer from 1 (top) to {vc.size} (bottom)"
+        )
 
 
 def _check_arguments(
@@ -393,7 +427,7 @@ def _build_flow(
 
     lu = lays["u"]
     uy = np.array([0.0]) if lu.y is None else lu.y.values
-    vel_steady = lu.time_axis is None
+    vel_steady = source.velocity_steady
     u = var("u", lu.x.values, uy, vel_steady, lu.name, "m s-1")
     if schema.ndim == 2:
         lv = lays["v"]
