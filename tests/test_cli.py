@@ -65,14 +65,14 @@ def test_demo_output_opens_in_gdal_with_the_same_georeferencing(estuary_output):
 def test_demo_mass_budget_closes_and_summary_carries_the_caution(estuary_output):
     ds = estuary_output.results
     residual = (
-        ds.mass_released
-        - ds.mass_in_water
-        - ds.mass_left.sum("edge")
-        - ds.mass_decayed
-        - ds.mass_stranded
+        ds.budget_released
+        - ds.budget_in_water
+        - ds.budget_outflow.sum("edge")
+        - ds.budget_decayed
+        - ds.budget_held_dry
     )
-    assert float(abs(residual).max()) <= 1e-12 * float(ds.mass_released.max())
-    assert float(ds.mass_released[-1]) == pytest.approx(500.0, rel=1e-12)  # all of it by 05:30
+    assert float(abs(residual).max()) <= 1e-12 * float(ds.budget_released.max())
+    assert float(ds.budget_released[-1]) == pytest.approx(500.0, rel=1e-12)  # all of it by 05:30
     assert walkers.CAUTION in estuary_output.summary
     assert "bathing beach" in estuary_output.summary
 

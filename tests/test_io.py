@@ -146,9 +146,9 @@ def test_every_variable_has_units_and_long_name_and_gridded_ones_a_grid_mapping(
         crs = nc["crs"]
         assert crs.grid_mapping_name == "transverse_mercator"
         assert "UTM zone 31N" in crs.crs_wkt
-        for name in ("mass_released", "mass_in_water", "mass_decayed", "mass_stranded"):
+        for name in ("budget_released", "budget_in_water", "budget_decayed", "budget_held_dry"):
             assert nc[name].units == "kg"
-        assert nc["mass_left"].units == "kg"
+        assert nc["budget_outflow"].units == "kg"
         assert nc["receptor_name"].cf_role == "timeseries_id"
         assert nc.featureType == "timeSeries"
         assert nc.Conventions == "CF-1.8"
@@ -199,7 +199,7 @@ def test_tracks_file_is_a_cf_trajectory(tmp_path):
 def test_read_results_round_trips_values_labels_and_times(tmp_path):
     ds = gaussian_puff_results()
     back = read_results(write_results(ds, tmp_path / "run.nc"))
-    for name in ("concentration", "particle_count", "receptor_concentration", "mass_left"):
+    for name in ("concentration", "particle_count", "receptor_concentration", "budget_outflow"):
         np.testing.assert_array_equal(back[name].values, ds[name].values)
     assert list(back["receptor"].values) == list(ds["receptor"].values)
     assert list(back["edge"].values) == list(ds["edge"].values)
@@ -423,7 +423,7 @@ def test_a_real_small_run_passes_the_cf_checker_and_gdal(tmp_path):
         receptors=[Receptor("intake", 0.0, 0.0, thresholds=(1e-4,))],
         seed=3,
         tracks=3,
-        engine="numpy",
+        stepper="reference",
     )
     path = write_results(ds, tmp_path / "run.nc")
     for file in (path, tracks_path(path)):

@@ -37,7 +37,7 @@ def run_scenario(
     *,
     output: str | os.PathLike | None = None,
     overwrite: bool = False,
-    engine: Literal["compiled", "numpy"] = "compiled",
+    stepper: Literal["fast", "reference"] = "fast",
     progress: Callable[[float, float, int], None] | None = None,
     resume: RunState | None = None,
     on_output: Callable[[RunState], None] | None = None,
@@ -51,7 +51,7 @@ def run_scenario(
     path = Path(output) if output is not None else Path(scenario.output_path)
     check_target(path, overwrite)
     ds = simulate_scenario(
-        scenario, engine=engine, progress=progress, resume=resume, on_output=on_output
+        scenario, stepper=stepper, progress=progress, resume=resume, on_output=on_output
     )
     write_results(ds, path, overwrite=overwrite)
     return RunOutcome(ds, path, summary_text(ds))

@@ -126,11 +126,12 @@ def new_command(path: Path, overwrite: bool) -> None:
     "--plot/--no-plot", default=True, show_default=True, help="Draw the figures next to the output."
 )
 @click.option(
-    "--engine",
-    type=click.Choice(["compiled", "numpy"]),
-    default="compiled",
+    "--stepper",
+    type=click.Choice(["fast", "reference"]),
+    default="fast",
     show_default=True,
-    help="Compiled kernels, or their (slow) numpy twin.",
+    help="How particles are stepped: fast (compiled kernels) or reference (their slow numpy "
+    "twin, the same numbers).",
 )
 @click.option("-q", "--quiet", is_flag=True, help="No progress messages.")
 @click.option(
@@ -152,7 +153,7 @@ def run_command(
     output: Path | None,
     overwrite: bool,
     plot: bool,
-    engine: str,
+    stepper: str,
     quiet: bool,
     checkpoint_every: str | None,
     resume: bool,
@@ -184,7 +185,7 @@ def run_command(
         sc = load_scenario(scenario)
         target = Path(output) if output is not None else Path(sc.output_path)
         ckpt = checkpoint_path(target)
-        fingerprint = run_fingerprint(sc, engine)
+        fingerprint = run_fingerprint(sc, stepper)
         every = None
         if checkpoint_every is not None:
             every = parse_quantity(checkpoint_every, "time", "--checkpoint-every")
@@ -200,13 +201,13 @@ def run_command(
                 sc,
                 output=target,
                 overwrite=overwrite,
-                engine=engine,  # type: ignore[arg-type]
+                stepper=stepper,  # type: ignore[arg-type]
                 progress=Progress(scenario.name, quiet),
                 resume=state,
                 on_output=saver,
             )
         except KeyboardInterrupt:
-            _say_how_to_resume(ckpt, scenario, output, engine, checkpoint_every)
+            _say_how_to_resume(ckpt, scenario, output, stepper, checkpoint_every)
             raise
         remove_checkpoint(ckpt)
     finally:
@@ -244,7 +245,7 @@ def _checkpointer(
 
 
 def _say_how_to_resume(
-    ckpt: Path, scenario: Path, output: Path | None, engine: str, checkpoint_every: str | None
+    ckpt: Path, scenario: Path, output: Path | None, stepper: str, checkpoint_every: str | None
 ) -> None:
     """After an interruption: the command that continues the run, or why it cannot be."""
     from walkers.run.checkpoint import read_checkpoint_meta
@@ -253,8 +254,8 @@ def _say_how_to_resume(
         again = [f"walkers run {scenario}"]
         if output is not None:
             again.append(f"-o {output}")
-        if engine != "compiled":
-            again.append(f"--engine {engine}")
+        if stepper != "fast":
+            again.append(f"--stepper {stepper}")
         again.append("--resume")
         if checkpoint_every is not None:
             again.append(f'--checkpoint-every "{checkpoint_every}"')

@@ -314,13 +314,13 @@ def _receptor_figure(run: _Run, path: Path) -> Path:
 
 def _budget_figure(run: _Run, path: Path) -> Path:
     ds = run.ds
-    parts: list[tuple[str, np.ndarray]] = [("in water", ds["mass_in_water"].values)]
-    if "mass_left" in ds:
+    parts: list[tuple[str, np.ndarray]] = [("in water", ds["budget_in_water"].values)]
+    if "budget_outflow" in ds:
         for name in ds["edge"].values:
-            left = ds["mass_left"].sel(edge=name).values
+            left = ds["budget_outflow"].sel(edge=name).values
             if np.any(left > 0):
                 parts.append((f"left, {name} edge", left))
-    for var, label in (("mass_decayed", "decayed"), ("mass_stranded", "stranded")):
+    for var, label in (("budget_decayed", "decayed"), ("budget_held_dry", "stranded")):
         if var in ds and np.any(ds[var].values > 0):
             parts.append((label, ds[var].values))
     fig = _figure(7.5, 4.4)
@@ -334,9 +334,9 @@ def _budget_figure(run: _Run, path: Path) -> Path:
         alpha=0.9,
         lw=0,
     )
-    ax.plot(run.hours, ds["mass_released"].values, color="black", lw=1.3, ls="--", label="released")
+    ax.plot(run.hours, ds["budget_released"].values, color="black", lw=1.3, ls="--", label="released")
     ax.set_xlabel(run.time_label)
-    ax.set_ylabel(f"mass ({ds['mass_released'].attrs.get('units', 'kg')})")
+    ax.set_ylabel(f"mass ({ds['budget_released'].attrs.get('units', 'kg')})")
     ax.set_xlim(run.hours[0], run.hours[-1])
     ax.set_ylim(bottom=0.0)
     ax.grid(True, lw=0.4, color="0.88")
@@ -449,7 +449,7 @@ def plot_results(
         )
     if "receptor_concentration" in run.ds and run.ds.sizes.get("receptor", 0) > 0:
         written.append(_receptor_figure(run, folder / "receptors.png"))
-    if "mass_in_water" in run.ds:
+    if "budget_in_water" in run.ds:
         written.append(_budget_figure(run, folder / "mass_budget.png"))
     written.append(_animation(run, folder / "plume.gif", fps))
     return written

@@ -19,19 +19,19 @@ def summary_text(ds: xr.Dataset) -> str:
     """The end-of-run summary: mass budget, and per receptor the peak, arrival and exceedance."""
     t = ds.time.values
     lines = [f"{ds.attrs.get('title') or 'walkers run'}", ""]
-    released = float(ds.mass_released[-1])
+    released = float(ds.budget_released[-1])
     lines.append(f"Mass budget at {_iso(ds, float(t[-1]))} (kg):")
     lines.append(f"  released        {released:12.6g}")
-    lines.append(f"  in water        {float(ds.mass_in_water[-1]):12.6g}")
+    lines.append(f"  in water        {float(ds.budget_in_water[-1]):12.6g}")
     for e in ds.edge.values:
-        lines.append(f"  left via {str(e):7s}{float(ds.mass_left.sel(edge=e)[-1]):12.6g}")
-    lines.append(f"  decayed         {float(ds.mass_decayed[-1]):12.6g}")
-    lines.append(f"  stranded (dry)  {float(ds.mass_stranded[-1]):12.6g}")
+        lines.append(f"  left via {str(e):7s}{float(ds.budget_outflow.sel(edge=e)[-1]):12.6g}")
+    lines.append(f"  decayed         {float(ds.budget_decayed[-1]):12.6g}")
+    lines.append(f"  stranded (dry)  {float(ds.budget_held_dry[-1]):12.6g}")
     residual = released - float(
-        ds.mass_in_water[-1]
-        + ds.mass_left[:, -1].sum()
-        + ds.mass_decayed[-1]
-        + ds.mass_stranded[-1]
+        ds.budget_in_water[-1]
+        + ds.budget_outflow[:, -1].sum()
+        + ds.budget_decayed[-1]
+        + ds.budget_held_dry[-1]
     )
     lines.append(f"  closure error   {residual:12.3g}")
     if ds.sizes.get("receptor", 0):

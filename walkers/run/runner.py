@@ -160,7 +160,7 @@ def input_provenance(scenario: Scenario) -> list[dict[str, Any]]:
 def simulate_scenario(
     scenario: Scenario,
     *,
-    engine: Literal["compiled", "numpy"] = "compiled",
+    stepper: Literal["fast", "reference"] = "fast",
     progress: Callable[[float, float, int], None] | None = None,
     resume: RunState | None = None,
     on_output: Callable[[RunState], None] | None = None,
@@ -185,7 +185,7 @@ def simulate_scenario(
         seed=scenario.seed,
         tracks=scenario.tracks,
         time_step_check="substep" if scenario.substep else "fail",
-        engine=engine,
+        stepper=stepper,
         progress=progress,
         title=scenario.title,
         scenario_text=scenario.text or "",
