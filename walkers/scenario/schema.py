@@ -11,8 +11,8 @@ from walkers.scenario.keys import FLOW_ROLES, Choice, Key, Section
 
 _EDGE = Key(
     "choice",
-    "What happens to a particle that reaches this edge of the flow domain: 'absorbing' (it leaves "
-    "and its mass is booked to this edge in the budget) or 'reflecting' (it is mirrored back).",
+    "What happens to a particle that reaches this edge of the flow domain: 'absorbing' (it goes "
+    "out and its mass is booked to this edge in the budget) or 'reflecting' (it is mirrored back).",
     default="absorbing",
     allowed=("absorbing", "reflecting"),
 )
