@@ -174,7 +174,11 @@ def gaussian_puff_results(
     ds["budget_in_water"] = ("time", in_water, dict(kg, long_name="mass in the water"))
     ds["budget_decayed"] = ("time", decayed, dict(kg, long_name="mass lost to decay"))
     ds["budget_held_dry"] = ("time", held_dry, dict(kg, long_name="mass held in dry cells"))
-    ds["budget_outflow"] = (("edge", "time"), outflow, dict(kg, long_name="mass that went out through the edge"))
+    ds["budget_outflow"] = (
+        ("edge", "time"),
+        outflow,
+        dict(kg, long_name="mass that went out through the edge"),
+    )
     ds["particles_in_water"] = (
         "time",
         np.full(nt, PARTICLES, dtype=np.int32),

@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 
 from walkers.engine import kernels, mover, twin
-from walkers.engine.state import IN_WATER, HELD_DRY, ParticleState
+from walkers.engine.state import HELD_DRY, IN_WATER, ParticleState
 from walkers.engine.timestep import check_time_step
 from walkers.fields.analytic import grid_flow
 from walkers.scenario.config import Dispersion, Transport

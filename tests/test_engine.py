@@ -5,7 +5,7 @@ import numpy as np
 import pytest
 
 from walkers.engine import kernels, mover, twin
-from walkers.engine.state import IN_WATER, EXITED, WAITING, ParticleState
+from walkers.engine.state import EXITED, IN_WATER, WAITING, ParticleState
 from walkers.errors import InputError
 from walkers.fields.analytic import analytic_flow, grid_flow
 from walkers.fields.base import centre_to_edges

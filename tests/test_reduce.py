@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from walkers.engine.state import IN_WATER, EXITED, ParticleState
+from walkers.engine.state import EXITED, IN_WATER, ParticleState
 from walkers.run import reduce
 from walkers.scenario.config import OutputGrid, Receptor
 from walkers.verify import analytic
@@ -75,7 +75,12 @@ def test_mass_budget_books_each_particle_once():
     st.status[:3] = EXITED + 1
     st.mass[3:5] *= 0.5
     b = reduce.mass_budget(st)
-    total = b["budget_in_water"] + b["budget_outflow"].sum() + b["budget_decayed"] + b["budget_held_dry"]
+    total = (
+        b["budget_in_water"]
+        + b["budget_outflow"].sum()
+        + b["budget_decayed"]
+        + b["budget_held_dry"]
+    )
     assert total == pytest.approx(b["budget_released"], rel=1e-15)
     assert b["budget_outflow"][1] == pytest.approx(0.3)
 

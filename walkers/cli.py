@@ -379,16 +379,55 @@ def plot_command(result: Path, outdir: Path | None, times) -> None:
 
 @main.command("export")
 @click.argument("result", type=click.Path(dir_okay=False, path_type=Path))
-@click.argument("csv", type=click.Path(dir_okay=False, path_type=Path))
-@click.option("--overwrite", is_flag=True, help="Replace CSV if it exists.")
+@click.argument("csv", type=click.Path(dir_okay=False, path_type=Path), required=False)
+@click.option(
+    "--geojson",
+    type=click.Path(dir_okay=False, path_type=Path),
+    help="GeoJSON (WGS 84 lon/lat) of threshold contours and receptors "
+    "[default: <result>_layers.geojson].",
+)
+@click.option(
+    "--geotiff",
+    type=click.Path(dir_okay=False, path_type=Path),
+    help="GeoTIFF of the maximum concentration (kg m-3), runs only "
+    "[default: <result>_concentration_max.tif].",
+)
+@click.option("--no-gis", is_flag=True, help="Write only the CSV, no GeoJSON or GeoTIFF.")
+@click.option(
+    "--units",
+    metavar="UNIT",
+    help="Concentration unit of the CSV and GeoJSON, e.g. ug/L "
+    "[default: the scenario thresholds' unit, else mg/L].",
+)
+@click.option("--overwrite", is_flag=True, help="Replace files that exist.")
 @friendly_errors
-def export_command(result: Path, csv: Path, overwrite: bool) -> None:
-    """Write the receptor series of a RESULT file to CSV (for spreadsheets)."""
+def export_command(
+    result: Path,
+    csv: Path | None,
+    geojson: Path | None,
+    geotiff: Path | None,
+    no_gis: bool,
+    units: str | None,
+    overwrite: bool,
+) -> None:
+    """Receptor series of RESULT to CSV (if CSV is given) and its GIS layers."""
     from walkers.outputs.export import receptors_to_csv
+    from walkers.outputs.gis import write_geojson, write_geotiff
     from walkers.outputs.reader import open_results
 
-    receptors_to_csv(open_results(result), csv, overwrite=overwrite)
-    click.echo(f"wrote {csv}")
+    ds = open_results(result)
+    written = []
+    if csv is not None:
+        written.append(receptors_to_csv(ds, csv, overwrite=overwrite, units=units))
+    if not no_gis:
+        stem = result.with_name(result.stem)
+        target = geojson or Path(f"{stem}_layers.geojson")
+        written.append(write_geojson(ds, target, overwrite=overwrite, units=units))
+        if "concentration_max" in ds:
+            tif = geotiff or Path(f"{stem}_concentration_max.tif")
+            written.append(write_geotiff(ds, tif, overwrite=overwrite))
+    for path in written:
+        click.echo(f"wrote {path}")
 
 
 @main.command("bench")

@@ -94,9 +94,8 @@ def draw_ground(ax: Axes, ds: xr.Dataset, land: np.ndarray | None = None) -> Non
 
 def _hatch(ax: Axes, ds: xr.Dataset, where: np.ndarray, pattern: str, colour: Any) -> None:
     xe, ye = cell_edges(ds["x"].values), cell_edges(ds["y"].values)
-    mesh = ax.pcolor(
-        xe, ye, np.ma.masked_where(~where, np.ones(where.shape)), hatch=pattern, alpha=0.0
-    )
+    mesh = ax.pcolor(xe, ye, np.ma.masked_where(~where, np.ones(where.shape)), hatch=pattern)
+    mesh.set_facecolor("none")
     mesh.set_edgecolor(colour)
     mesh.set_linewidth(0.0)
 

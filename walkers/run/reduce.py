@@ -15,7 +15,7 @@ import numpy as np
 from scipy.ndimage import gaussian_filter
 
 from walkers.engine import kernels
-from walkers.engine.state import DECAYED, IN_WATER, EXITED, HELD_DRY, WAITING, ParticleState
+from walkers.engine.state import DECAYED, EXITED, HELD_DRY, IN_WATER, WAITING, ParticleState
 from walkers.fields.geo import metres_per_degree
 from walkers.scenario.config import EDGE_NAMES, OutputGrid, Receptor
 

@@ -18,7 +18,7 @@ from collections.abc import Callable
 import numpy as np
 from scipy import stats
 
-from walkers.engine.state import IN_WATER, EXITED, ParticleState
+from walkers.engine.state import EXITED, IN_WATER, ParticleState
 from walkers.fields.analytic import analytic_flow, grid_flow
 from walkers.fields.base import centre_to_edges
 from walkers.run import reduce

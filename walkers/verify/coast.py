@@ -22,7 +22,7 @@ from typing import Literal
 import numpy as np
 from scipy import stats
 
-from walkers.engine.state import IN_WATER, EXITED, ParticleState
+from walkers.engine.state import EXITED, IN_WATER, ParticleState
 from walkers.fields.analytic import grid_flow
 from walkers.fields.base import FlowField
 from walkers.scenario.config import Dispersion, Transport
