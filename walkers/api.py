@@ -41,10 +41,13 @@ def run_scenario(
     progress: Callable[[float, float, int], None] | None = None,
     resume: RunState | None = None,
     on_output: Callable[[RunState], None] | None = None,
+    units: str | None = None,
 ) -> RunOutcome:
     """Run a scenario, write its CF-NetCDF output atomically and return the outcome.
 
     The target is checked before the run starts, so a long run never ends on "file exists".
+    ``units``: the concentration unit of the summary (default: the scenario thresholds' unit,
+    else mg/L).
     """
     if not isinstance(scenario, Scenario):
         scenario = load_scenario(Path(scenario))
@@ -54,4 +57,4 @@ def run_scenario(
         scenario, stepper=stepper, progress=progress, resume=resume, on_output=on_output
     )
     write_results(ds, path, overwrite=overwrite)
-    return RunOutcome(ds, path, summary_text(ds))
+    return RunOutcome(ds, path, summary_text(ds, units))

@@ -133,6 +133,11 @@ def new_command(path: Path, overwrite: bool) -> None:
     help="How particles are stepped: fast (compiled kernels) or reference (their slow numpy "
     "twin, the same numbers).",
 )
+@click.option(
+    "--units",
+    metavar="UNIT",
+    help="Concentration unit shown, e.g. ug/L [default: the scenario thresholds' unit, else mg/L].",
+)
 @click.option("-q", "--quiet", is_flag=True, help="No progress messages.")
 @click.option(
     "--checkpoint-every",
@@ -154,6 +159,7 @@ def run_command(
     overwrite: bool,
     plot: bool,
     stepper: str,
+    units: str | None,
     quiet: bool,
     checkpoint_every: str | None,
     resume: bool,
@@ -205,6 +211,7 @@ def run_command(
                 progress=Progress(scenario.name, quiet),
                 resume=state,
                 on_output=saver,
+                units=units,
             )
         except KeyboardInterrupt:
             _say_how_to_resume(ckpt, scenario, output, stepper, checkpoint_every)
@@ -220,7 +227,7 @@ def run_command(
 
         figdir = outcome.path.with_name(outcome.path.stem + "_figures")
         figdir.mkdir(exist_ok=True)
-        for p in plot_results(outcome.path, figdir):
+        for p in plot_results(outcome.path, figdir, units=units):
             click.echo(f"wrote {p}")
 
 
@@ -363,18 +370,47 @@ def verify_command(cases, particles: int | None, seed: int, report: Path | None)
     "times",
     multiple=True,
     type=float,
-    help="Also map these times (hours after the first output; repeatable).",
+    help="Also map these times (hours after the run start; repeatable).",
+)
+@click.option(
+    "--units",
+    metavar="UNIT",
+    help="Concentration unit shown, e.g. ug/L [default: the scenario thresholds' unit, else mg/L].",
 )
 @friendly_errors
-def plot_command(result: Path, outdir: Path | None, times) -> None:
+def plot_command(result: Path, outdir: Path | None, times, units: str | None) -> None:
     """Draw maps, receptor series, the mass budget and an animation from a RESULT file."""
     from walkers.outputs.figures import plot_results
 
     outdir = outdir or result.with_name(result.stem + "_figures")
     outdir.mkdir(parents=True, exist_ok=True)
     chosen = [3600.0 * t for t in times] or None
-    for p in plot_results(result, outdir, times=chosen):
+    for p in plot_results(result, outdir, times=chosen, units=units):
         click.echo(f"wrote {p}")
+
+
+@main.command("report")
+@click.argument("result", type=click.Path(dir_okay=False, path_type=Path))
+@click.option(
+    "-o",
+    "--output",
+    type=click.Path(dir_okay=False, path_type=Path),
+    help="HTML file to write [default: <result>_report.html].",
+)
+@click.option(
+    "--units",
+    metavar="UNIT",
+    help="Concentration unit shown, e.g. ug/L [default: the scenario thresholds' unit, else mg/L].",
+)
+@click.option("--overwrite", is_flag=True, help="Replace the HTML file if it exists.")
+@friendly_errors
+def report_command(result: Path, output: Path | None, units: str | None, overwrite: bool) -> None:
+    """Write one self-contained HTML report of a run RESULT (summary, budget, receptors, figures,
+    scenario, provenance), readable offline and printable."""
+    from walkers.outputs.report import write_report
+
+    target = output or result.with_name(result.stem + "_report.html")
+    click.echo(f"wrote {write_report(result, target, overwrite=overwrite, units=units)}")
 
 
 @main.command("export")

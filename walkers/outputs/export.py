@@ -1,8 +1,9 @@
-"""Export of results for spreadsheets: receptor series to CSV."""
+"""Export of results for spreadsheets: receptor series to CSV; text files written atomically."""
 
 from __future__ import annotations
 
 import csv
+import io
 import os
 from pathlib import Path
 
@@ -12,6 +13,21 @@ import xarray as xr
 from walkers.errors import InputError
 from walkers.files import _fsync_dir, _place, _temporary_names, check_target
 from walkers.outputs.display import concentration_unit, hours_since_start, output_times
+
+
+def write_text(path: Path, text: str, *, overwrite: bool = False) -> Path:
+    """Write ``text`` (UTF-8) to ``path`` through a temporary name, flushed to disk; return path.
+
+    The caller checks the target first (``check_target``) so that nothing is computed in vain.
+    """
+    with _temporary_names([path]) as (temp,):
+        with open(temp, "w", encoding="utf-8", newline="") as handle:
+            handle.write(text)
+            handle.flush()
+            os.fsync(handle.fileno())
+        _place(temp, path, overwrite)
+    _fsync_dir(path.parent)
+    return path
 
 
 def receptors_to_csv(
@@ -35,15 +51,10 @@ def receptors_to_csv(
     header += [f"{name} ({unit.name})" for name in ds["receptor"].values]
     times = [t.strftime("%Y-%m-%dT%H:%M:%SZ") for t in output_times(ds)]
     hours = hours_since_start(ds)
-    with _temporary_names([path]) as (temp,):
-        with open(temp, "w", newline="", encoding="utf-8") as handle:
-            writer = csv.writer(handle)
-            writer.writerow(header)
-            for i, stamp in enumerate(times):
-                cells = [np.format_float_positional(float(v), trim="-") for v in values[:, i]]
-                writer.writerow([stamp, f"{hours[i]:g}", *cells])
-            handle.flush()
-            os.fsync(handle.fileno())
-        _place(temp, path, overwrite)
-    _fsync_dir(path.parent)
-    return path
+    buffer = io.StringIO(newline="")
+    writer = csv.writer(buffer)
+    writer.writerow(header)
+    for i, stamp in enumerate(times):
+        cells = [np.format_float_positional(float(v), trim="-") for v in values[:, i]]
+        writer.writerow([stamp, f"{hours[i]:g}", *cells])
+    return write_text(path, buffer.getvalue(), overwrite=overwrite)

@@ -453,27 +453,9 @@ def plot_results(
         raise InputError(f"figure directory {str(folder)!r} is not writable; choose another")
     run = _load(ds_or_path, land, units)
     chosen = _chosen_indices(run, times)
-    written: list[Path] = []
+    written = _summary_figures(run, folder)
     conc = np.asarray(run.ds["concentration"].values)
-    cmax = (
-        np.asarray(run.ds["concentration_max"].values)
-        if "concentration_max" in run.ds
-        else conc.max(axis=0)
-    )
     counts = np.asarray(run.ds["particle_count"].values) if "particle_count" in run.ds else None
-    at_max = (
-        None if counts is None else np.take_along_axis(counts, conc.argmax(axis=0)[None], axis=0)[0]
-    )
-    written.append(
-        _map_figure(
-            run,
-            cmax,
-            at_max,
-            "Maximum concentration over the run",
-            f"{run.stamps[0]} to {run.stamps[-1]}",
-            folder / "concentration_max.png",
-        )
-    )
     for i in chosen:
         written.append(
             _map_figure(
@@ -485,9 +467,46 @@ def plot_results(
                 folder / f"concentration_t{i:04d}.png",
             )
         )
+    written.append(_animation(run, folder / "plume.gif", fps))
+    return written
+
+
+def _summary_figures(run: _Run, folder: Path) -> list[Path]:
+    """The maximum map (thin cells judged by the particle count at each cell's maximum), the
+    receptor series (when there are receptors) and the mass budget."""
+    conc = np.asarray(run.ds["concentration"].values)
+    cmax = (
+        np.asarray(run.ds["concentration_max"].values)
+        if "concentration_max" in run.ds
+        else conc.max(axis=0)
+    )
+    at_max = (
+        np.take_along_axis(
+            np.asarray(run.ds["particle_count"].values), conc.argmax(axis=0)[None], axis=0
+        )[0]
+        if "particle_count" in run.ds
+        else None
+    )
+    written = [
+        _map_figure(
+            run,
+            cmax,
+            at_max,
+            "Maximum concentration over the run",
+            f"{run.stamps[0]} to {run.stamps[-1]}",
+            folder / "concentration_max.png",
+        )
+    ]
     if "receptor_concentration" in run.ds and run.ds.sizes.get("receptor", 0) > 0:
         written.append(_receptor_figure(run, folder / "receptors.png"))
     if "budget_in_water" in run.ds:
         written.append(_budget_figure(run, folder / "mass_budget.png"))
-    written.append(_animation(run, folder / "plume.gif", fps))
     return written
+
+
+def report_figures(
+    ds_or_path: xr.Dataset | str | os.PathLike, outdir: str | os.PathLike, units: str | None = None
+) -> list[Path]:
+    """The figures a report shows: the maximum map, the receptor series (when there are
+    receptors) and the mass budget, drawn into the existing folder ``outdir``."""
+    return _summary_figures(_load(ds_or_path, None, units), Path(outdir))

@@ -31,6 +31,7 @@ import walkers
 from walkers.errors import InputError
 from walkers.files import _fsync_dir, _place, _temporary_names, check_target
 from walkers.outputs.display import concentration_unit, plain
+from walkers.outputs.export import write_text
 from walkers.outputs.mapping import cell_edges, crs_name, is_geographic
 
 #: Exceedance probabilities drawn as GeoJSON contours of an ensemble.
@@ -174,15 +175,7 @@ def write_geojson(
     """Write :func:`result_features` as GeoJSON (RFC 7946), atomically; return the path."""
     path = Path(path)
     check_target(path, overwrite)
-    text = json.dumps(result_features(ds, units), ensure_ascii=False)
-    with _temporary_names([path]) as (temp,):
-        with open(temp, "w", encoding="utf-8") as handle:
-            handle.write(text)
-            handle.flush()
-            os.fsync(handle.fileno())
-        _place(temp, path, overwrite)
-    _fsync_dir(path.parent)
-    return path
+    return write_text(path, json.dumps(result_features(ds, units)), overwrite=overwrite)
 
 
 def write_geotiff(ds: xr.Dataset, path: str | os.PathLike, *, overwrite: bool = False) -> Path:

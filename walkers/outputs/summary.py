@@ -30,18 +30,25 @@ def episodes(above: np.ndarray) -> list[tuple[int, int]]:
     return [(int(a), int(b) - 1) for a, b in zip(changes[::2], changes[1::2], strict=True)]
 
 
-def _budget_lines(ds: xr.Dataset) -> list[str]:
-    times = output_times(ds)
-    released = float(ds.budget_released[-1])
-    lines = [f"Mass budget at {utc(times[-1])}, the end of the run (kg):"]
-    rows = [("released", released), ("in water", float(ds.budget_in_water[-1]))]
+def budget_rows(ds: xr.Dataset) -> list[tuple[str, float]]:
+    """(account, kg) at the end of the run; only edges that mass can go out through."""
+    rows = [
+        ("released", float(ds.budget_released[-1])),
+        ("in water", float(ds.budget_in_water[-1])),
+    ]
     for e in open_edges(ds):
-        rows.append((f"out through {e} edge", float(ds.budget_outflow.sel(edge=e)[-1])))
-    rows += [
+        rows.append((f"out through the {e} edge", float(ds.budget_outflow.sel(edge=e)[-1])))
+    return rows + [
         ("decayed", float(ds.budget_decayed[-1])),
         ("held on dry cells", float(ds.budget_held_dry[-1])),
     ]
-    residual = released - float(
+
+
+def _budget_lines(ds: xr.Dataset) -> list[str]:
+    times = output_times(ds)
+    lines = [f"Mass budget at {utc(times[-1])}, the end of the run (kg):"]
+    rows = budget_rows(ds)
+    residual = rows[0][1] - float(
         ds.budget_in_water[-1]
         + ds.budget_outflow[:, -1].sum()
         + ds.budget_decayed[-1]
