@@ -32,7 +32,7 @@ from walkers.errors import InputError
 from walkers.files import _fsync_dir, _place, _temporary_names, check_target
 from walkers.outputs.display import concentration_unit, plain
 from walkers.outputs.export import write_text
-from walkers.outputs.mapping import cell_edges, crs_name, is_geographic
+from walkers.outputs.mapping import cell_edges, crs_name, crs_wkt, is_geographic
 
 #: Exceedance probabilities drawn as GeoJSON contours of an ensemble.
 PROBABILITY_LEVELS = (0.1, 0.5, 0.9)
@@ -42,7 +42,7 @@ def _to_lonlat(ds: xr.Dataset):
     """A function (x, y) arrays → (lon, lat) arrays for the result's grid."""
     if is_geographic(ds):
         return lambda x, y: (np.asarray(x), np.asarray(y))
-    wkt = ds["crs"].attrs.get("crs_wkt") if "crs" in ds else ds.attrs.get("crs_wkt")
+    wkt = crs_wkt(ds)
     if not wkt:
         raise InputError("result has no CRS (crs_wkt): cannot place its layers on WGS 84")
     from pyproj import CRS, Transformer
@@ -197,7 +197,9 @@ def write_geotiff(ds: xr.Dataset, path: str | os.PathLike, *, overwrite: bool = 
     xe, ye = cell_edges(x), cell_edges(y)
     dx, dy = float(xe[1] - xe[0]), float(ye[1] - ye[0])
     data = np.asarray(ds["concentration_max"].values, dtype=np.float64)[::-1]  # north row first
-    wkt = ds["crs"].attrs.get("crs_wkt") if "crs" in ds else None
+    wkt = crs_wkt(ds)
+    if not wkt and not is_geographic(ds):
+        raise InputError("result has no CRS (crs_wkt): a GeoTIFF could not be placed on a map")
     profile = {
         "driver": "GTiff",
         "width": x.size,

@@ -54,13 +54,19 @@ def is_geographic(ds: xr.Dataset) -> bool:
     return bool(int(ds.attrs.get("geographic", 0))) or ds["x"].attrs.get("units") == "degrees_east"
 
 
+def crs_wkt(ds: xr.Dataset) -> str | None:
+    """The WKT of the result's CRS (its grid mapping, else its global attribute), or None."""
+    wkt = (ds["crs"].attrs.get("crs_wkt") if "crs" in ds else None) or ds.attrs.get("crs_wkt")
+    return str(wkt) if wkt else None
+
+
 def crs_name(ds: xr.Dataset) -> str:
     """The name of the result's coordinate reference system, or "unknown CRS"."""
     attrs = ds["crs"].attrs if "crs" in ds else {}
     for key in ("projected_crs_name", "geographic_crs_name"):
         if attrs.get(key):
             return str(attrs[key])
-    wkt = attrs.get("crs_wkt") or ds.attrs.get("crs_wkt")
+    wkt = crs_wkt(ds)
     if wkt:
         from pyproj import CRS
 
