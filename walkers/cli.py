@@ -18,6 +18,7 @@ from typing import TYPE_CHECKING, Any
 import click
 
 import walkers
+from walkers.cli_outputs import OUTPUT_COMMANDS, UNITS_OPTION
 from walkers.errors import InputError, WalkersError
 
 if TYPE_CHECKING:
@@ -97,7 +98,7 @@ def main() -> None:
     """
 
 
-@main.command("new")
+@main.command("new", short_help="Write a commented scenario template to start from.")
 @click.argument("path", type=click.Path(dir_okay=False, path_type=Path))
 @click.option("--overwrite", is_flag=True, help="Replace PATH if it exists.")
 @friendly_errors
@@ -113,7 +114,7 @@ def new_command(path: Path, overwrite: bool) -> None:
     click.echo(f"wrote {path}; edit it, then: walkers run {path}")
 
 
-@main.command("run")
+@main.command("run", short_help="Run a scenario: NetCDF output, figures and a summary.")
 @click.argument("scenario", type=click.Path(dir_okay=False, path_type=Path))
 @click.option(
     "-o",
@@ -133,11 +134,7 @@ def new_command(path: Path, overwrite: bool) -> None:
     help="How particles are stepped: fast (compiled kernels) or reference (their slow numpy "
     "twin, the same numbers).",
 )
-@click.option(
-    "--units",
-    metavar="UNIT",
-    help="Concentration unit shown, e.g. ug/L [default: the scenario thresholds' unit, else mg/L].",
-)
+@UNITS_OPTION
 @click.option("-q", "--quiet", is_flag=True, help="No progress messages.")
 @click.option(
     "--checkpoint-every",
@@ -280,7 +277,7 @@ def _say_how_to_resume(
         )
 
 
-@main.command("inspect")
+@main.command("inspect", short_help="Describe a flow file and the largest stable time step.")
 @click.argument("files", nargs=-1, required=True)
 @click.option(
     "--dispersion",
@@ -312,12 +309,26 @@ def inspect_command(
         click.echo(f"wrote {map_png}")
 
 
-@main.command("verify")
-@click.option("--case", "cases", multiple=True, help="Run only these cases (repeatable).")
+class _CaseOption(click.Option):
+    """``verify --case``: its help lists the case names (read only when help is shown)."""
+
+    def get_help_record(self, ctx: click.Context) -> tuple[str, str] | None:
+        from walkers.verify.cases import CASES
+
+        self.help = f"Run only this case (repeatable): {', '.join(CASES)}."
+        return super().get_help_record(ctx)
+
+
+@main.command("verify", short_help="Check the engine against published solutions.")
+@click.option(
+    "--case", "cases", multiple=True, cls=_CaseOption, help="Run only this case (repeatable)."
+)
 @click.option(
     "--particles", type=int, default=None, help="Particles per case (default: each case's own)."
 )
-@click.option("--seed", type=int, default=20261201, show_default=True)
+@click.option(
+    "--seed", type=int, default=20261201, show_default=True, help="Seed of the cases' random walks."
+)
 @click.option(
     "--report",
     type=click.Path(dir_okay=False, path_type=Path),
@@ -358,115 +369,7 @@ def verify_command(cases, particles: int | None, seed: int, report: Path | None)
     click.echo(f"all {len(results)} cases within tolerance")
 
 
-@main.command("plot")
-@click.argument("result", type=click.Path(dir_okay=False, path_type=Path))
-@click.option(
-    "--outdir",
-    type=click.Path(file_okay=False, path_type=Path),
-    help="Folder for the figures (default: <result>_figures).",
-)
-@click.option(
-    "--time",
-    "times",
-    multiple=True,
-    type=float,
-    help="Also map these times (hours after the run start; repeatable).",
-)
-@click.option(
-    "--units",
-    metavar="UNIT",
-    help="Concentration unit shown, e.g. ug/L [default: the scenario thresholds' unit, else mg/L].",
-)
-@friendly_errors
-def plot_command(result: Path, outdir: Path | None, times, units: str | None) -> None:
-    """Draw maps, receptor series, the mass budget and an animation from a RESULT file."""
-    from walkers.outputs.figures import plot_results
-
-    outdir = outdir or result.with_name(result.stem + "_figures")
-    outdir.mkdir(parents=True, exist_ok=True)
-    chosen = [3600.0 * t for t in times] or None
-    for p in plot_results(result, outdir, times=chosen, units=units):
-        click.echo(f"wrote {p}")
-
-
-@main.command("report")
-@click.argument("result", type=click.Path(dir_okay=False, path_type=Path))
-@click.option(
-    "-o",
-    "--output",
-    type=click.Path(dir_okay=False, path_type=Path),
-    help="HTML file to write [default: <result>_report.html].",
-)
-@click.option(
-    "--units",
-    metavar="UNIT",
-    help="Concentration unit shown, e.g. ug/L [default: the scenario thresholds' unit, else mg/L].",
-)
-@click.option("--overwrite", is_flag=True, help="Replace the HTML file if it exists.")
-@friendly_errors
-def report_command(result: Path, output: Path | None, units: str | None, overwrite: bool) -> None:
-    """Write one self-contained HTML report of a run RESULT (summary, budget, receptors, figures,
-    scenario, provenance), readable offline and printable."""
-    from walkers.outputs.report import write_report
-
-    target = output or result.with_name(result.stem + "_report.html")
-    click.echo(f"wrote {write_report(result, target, overwrite=overwrite, units=units)}")
-
-
-@main.command("export")
-@click.argument("result", type=click.Path(dir_okay=False, path_type=Path))
-@click.argument("csv", type=click.Path(dir_okay=False, path_type=Path), required=False)
-@click.option(
-    "--geojson",
-    type=click.Path(dir_okay=False, path_type=Path),
-    help="GeoJSON (WGS 84 lon/lat) of threshold contours and receptors "
-    "[default: <result>_layers.geojson].",
-)
-@click.option(
-    "--geotiff",
-    type=click.Path(dir_okay=False, path_type=Path),
-    help="GeoTIFF of the maximum concentration (kg m-3), runs only "
-    "[default: <result>_concentration_max.tif].",
-)
-@click.option("--no-gis", is_flag=True, help="Write only the CSV, no GeoJSON or GeoTIFF.")
-@click.option(
-    "--units",
-    metavar="UNIT",
-    help="Concentration unit of the CSV and GeoJSON, e.g. ug/L "
-    "[default: the scenario thresholds' unit, else mg/L].",
-)
-@click.option("--overwrite", is_flag=True, help="Replace files that exist.")
-@friendly_errors
-def export_command(
-    result: Path,
-    csv: Path | None,
-    geojson: Path | None,
-    geotiff: Path | None,
-    no_gis: bool,
-    units: str | None,
-    overwrite: bool,
-) -> None:
-    """Receptor series of RESULT to CSV (if CSV is given) and its GIS layers."""
-    from walkers.outputs.export import receptors_to_csv
-    from walkers.outputs.gis import write_geojson, write_geotiff
-    from walkers.outputs.reader import open_results
-
-    ds = open_results(result)
-    written = []
-    if csv is not None:
-        written.append(receptors_to_csv(ds, csv, overwrite=overwrite, units=units))
-    if not no_gis:
-        stem = result.with_name(result.stem)
-        target = geojson or Path(f"{stem}_layers.geojson")
-        written.append(write_geojson(ds, target, overwrite=overwrite, units=units))
-        if "concentration_max" in ds:
-            tif = geotiff or Path(f"{stem}_concentration_max.tif")
-            written.append(write_geotiff(ds, tif, overwrite=overwrite))
-    for path in written:
-        click.echo(f"wrote {path}")
-
-
-@main.command("bench")
+@main.command("bench", short_help="Measure the engine's speed and memory.")
 @click.option(
     "--quick",
     is_flag=True,
@@ -498,7 +401,7 @@ def bench_command(quick: bool, as_json: bool, particles: int | None, repeats: in
     click.echo(json.dumps(result, indent=2) if as_json else format_report(result))
 
 
-@main.command("ensemble")
+@main.command("ensemble", short_help="Run an ensemble: exceedance probabilities and arrivals.")
 @click.argument("scenario", type=click.Path(dir_okay=False, path_type=Path))
 @click.option(
     "-o",
@@ -608,3 +511,8 @@ def ensemble_command(
         figdir.mkdir(exist_ok=True)
         for p in plot_ensemble(ds, figdir):
             click.echo(f"wrote {p}")
+
+
+for _command in OUTPUT_COMMANDS:
+    _command.callback = friendly_errors(_command.callback)
+    main.add_command(_command)
