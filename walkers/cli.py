@@ -440,6 +440,7 @@ def bench_command(quick: bool, as_json: bool, particles: int | None, repeats: in
     show_default=True,
     help="Draw the ensemble figures next to the output.",
 )
+@UNITS_OPTION
 @click.option("-q", "--quiet", is_flag=True, help="No progress messages.")
 @friendly_errors
 def ensemble_command(
@@ -451,6 +452,7 @@ def ensemble_command(
     thresholds,
     overwrite: bool,
     plot: bool,
+    units: str | None,
     quiet: bool,
 ) -> None:
     """Run the ensemble of SCENARIO (TOML with an [ensemble] table): exceedance probabilities,
@@ -497,7 +499,7 @@ def ensemble_command(
     )
     elapsed = time.monotonic() - started
     write_ensemble(ds, output, overwrite=overwrite)
-    click.echo(summary_text(ds))
+    click.echo(summary_text(ds, units))
     click.echo(
         f"\n{ds.sizes['member']} members, {ds.attrs['particle_steps']:.3g} "
         f"member-particle-steps in {elapsed:.1f} s "
@@ -509,7 +511,7 @@ def ensemble_command(
 
         figdir = output.with_name(output.stem + "_figures")
         figdir.mkdir(exist_ok=True)
-        for p in plot_ensemble(ds, figdir):
+        for p in plot_ensemble(ds, figdir, units=units):
             click.echo(f"wrote {p}")
 
 
