@@ -111,7 +111,8 @@ def plot_receptor_distributions(
     ds_or_path: xr.Dataset | str | os.PathLike, path: str | os.PathLike, units: str | None = None
 ) -> Path:
     """Per receptor: histogram of the members' peak concentration (display unit ``units``;
-    thresholds dashed) and the empirical CDF of the arrival time (h after the run start) for each threshold."""
+    thresholds dashed) and the empirical CDF of the arrival time (h after the run start) for
+    each threshold."""
     ds = _load(ds_or_path)
     unit = concentration_unit(ds, units)
     nrec = int(ds.sizes.get("receptor", 0))
