@@ -211,6 +211,8 @@ def simulate_scenario(
         },
     )
     ds.attrs["input_files"] = json.dumps(input_provenance(scenario))
+    if scenario.comment:
+        ds.attrs["comment"] = scenario.comment
     ds.attrs["run_start"] = scenario.start_iso
     ds.attrs["run_end"] = scenario.end_iso
     return ds

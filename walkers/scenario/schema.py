@@ -26,6 +26,11 @@ SCHEMA = Section(
             "The run's time span, time step and numerical options.",
             {
                 "title": Key("text", "A title carried into the outputs (default: file name)."),
+                "comment": Key(
+                    "text",
+                    "A note carried into the outputs as their 'comment' attribute, e.g. that the "
+                    "place is invented.",
+                ),
                 "start": Key(
                     "time",
                     "Start of the run, ISO 8601 with a zone, e.g. 2026-05-04T06:00:00Z.",
