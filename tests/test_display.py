@@ -33,10 +33,6 @@ start = "2024-05-14T03:30:00Z"
 west = "reflecting"
 north = "reflecting"
 south = "reflecting"
-[[releases]]
-name = "test spill"
-x = "200 m"
-y = "0 m"
 [[receptors]]
 name = "a"
 x = "0 m"
@@ -128,6 +124,7 @@ def test_summary_lists_only_edges_that_mass_can_go_out_through():
 def test_maps_mark_the_release_the_receptor_circles_and_the_furniture():
     ds = gaussian_puff_results(nt=5)
     ds.attrs["scenario"] = SCENARIO
+    ds.attrs["release_places"] = '[{"name": "test spill", "x": 200.0, "y": 0.0}]'
     ds["receptor_radius"] = ("receptor", np.array([100.0, 0.0, 50.0]), {"units": "m"})
     ds = ds.set_coords("receptor_radius")
     assert release_points(ds) == [("test spill", 200.0, 0.0)]

@@ -23,6 +23,7 @@ from walkers.ensemble.batches import (
 )
 from walkers.ensemble.members import _Prepared
 from walkers.outputs.display import ConcentrationUnit, concentration_unit, plain
+from walkers.run.runner import release_places
 
 
 def _assemble(red: _OrderedReducer, prepared: _Prepared, thr: tuple[float, ...]) -> xr.Dataset:
@@ -50,6 +51,7 @@ def _assemble(red: _OrderedReducer, prepared: _Prepared, thr: tuple[float, ...])
         "walkers_version": walkers.__version__,
         "scenario": sc.text or "",
         "run_start": sc.start_iso,
+        "release_places": release_places(sc),
         "crs_wkt": frame.attrs.get("crs_wkt", ""),
         "geographic": int(frame.attrs.get("geographic", 0)),
         "caution": walkers.CAUTION,

@@ -13,6 +13,7 @@ the same unit:
 from __future__ import annotations
 
 import datetime as dt
+import json
 import tomllib
 from dataclasses import dataclass
 from typing import Any
@@ -21,7 +22,7 @@ import numpy as np
 import xarray as xr
 
 from walkers.fields.times import iso_times
-from walkers.scenario.units import parse_quantity, unit_factor
+from walkers.scenario.units import unit_factor
 
 DEFAULT_UNIT = "mg/L"
 UTC = dt.UTC
@@ -122,29 +123,14 @@ def time_axis_label(ds: xr.Dataset) -> str:
     return f"hours since the run start, {utc(run_start(ds))}"
 
 
-def _length(value: Any, where: str) -> float:
-    return parse_quantity(value, "length", where)
-
-
 def release_points(ds: xr.Dataset) -> list[tuple[str, float, float]]:
-    """(name, x, y) of each release in grid coordinates, from the result's scenario.
-
-    A point or circle gives its centre; a line or polygon the mean of its vertices. Releases
-    placed by longitude/latitude on a projected grid are not shown (none in the demos).
-    """
-    geographic = bool(int(ds.attrs.get("geographic", 0)))
-    out = []
-    for k, rel in enumerate(scenario_table(ds).get("releases", [])):
-        name = str(rel.get("name", f"release{k + 1}"))
-        where = f"releases[{k}]"
-        if "x" in rel and "y" in rel:
-            out.append((name, _length(rel["x"], where + ".x"), _length(rel["y"], where + ".y")))
-        elif "points" in rel:
-            pts = np.array([[_length(v, where + ".points") for v in p] for p in rel["points"]])
-            out.append((name, float(pts[:, 0].mean()), float(pts[:, 1].mean())))
-        elif geographic and "lon" in rel and "lat" in rel:
-            out.append((name, float(rel["lon"]), float(rel["lat"])))
-    return out
+    """(name, x, y) of each release's centre in grid coordinates, from the result's
+    ``release_places`` attribute (empty for results that do not carry it)."""
+    try:
+        places = json.loads(str(ds.attrs.get("release_places", "[]")))
+    except json.JSONDecodeError:
+        return []
+    return [(str(p["name"]), float(p["x"]), float(p["y"])) for p in places]
 
 
 def open_edges(ds: xr.Dataset) -> list[str]:

@@ -66,6 +66,21 @@ def check_places(scenario: Scenario, flow: FlowField, offset: float) -> None:
         )
 
 
+def release_places(scenario: Scenario) -> str:
+    """JSON list of each release's name and centre in grid coordinates (the mean of its
+    vertices), kept in the result's ``release_places`` attribute for maps and reports."""
+    return json.dumps(
+        [
+            {
+                "name": r.name,
+                "x": float(np.mean(r.coords[:, 0])),
+                "y": float(np.mean(r.coords[:, 1])),
+            }
+            for r in scenario.releases
+        ]
+    )
+
+
 def land_on_output_grid(flow: FlowField, scenario: Scenario, t0: float, t1: float) -> np.ndarray:
     """Per output cell: 1 where its centre lies in a flow cell that is dry in every frame of the
     run, 2 where it lies outside the flow grid (more than half a flow cell beyond its outer cell
@@ -213,6 +228,7 @@ def simulate_scenario(
     ds.attrs["input_files"] = json.dumps(input_provenance(scenario))
     if scenario.comment:
         ds.attrs["comment"] = scenario.comment
+    ds.attrs["release_places"] = release_places(scenario)
     ds.attrs["run_start"] = scenario.start_iso
     ds.attrs["run_end"] = scenario.end_iso
     return ds
