@@ -61,7 +61,7 @@ def crs_wkt(ds: xr.Dataset) -> str | None:
 
 
 def crs_name(ds: xr.Dataset) -> str:
-    """The name of the result's coordinate reference system, or "unknown CRS"."""
+    """The name of the result's coordinate reference system, or "grid coordinates, no CRS"."""
     attrs = ds["crs"].attrs if "crs" in ds else {}
     for key in ("projected_crs_name", "geographic_crs_name"):
         if attrs.get(key):
@@ -71,7 +71,7 @@ def crs_name(ds: xr.Dataset) -> str:
         from pyproj import CRS
 
         return str(CRS.from_wkt(str(wkt)).name)
-    return "unknown CRS"
+    return "grid coordinates, no CRS"
 
 
 def _extent(ds: xr.Dataset) -> tuple[float, float, float, float]:
