@@ -30,7 +30,7 @@ from contourpy import FillType, contour_generator
 import walkers
 from walkers.errors import InputError
 from walkers.files import _fsync_dir, _place, _temporary_names, check_target
-from walkers.outputs.display import concentration_unit, plain
+from walkers.outputs.display import ConcentrationUnit, concentration_unit, plain
 from walkers.outputs.export import write_text
 from walkers.outputs.mapping import cell_edges, crs_name, crs_wkt, is_geographic
 
@@ -127,6 +127,28 @@ def _thresholds(ds: xr.Dataset) -> list[float]:
     return sorted({float(v) for v in values if np.isfinite(v) and v > 0})
 
 
+def _area_feature(
+    ds: xr.Dataset, field: np.ndarray, level: float, properties: dict[str, Any]
+) -> list[dict[str, Any]]:
+    """[the MultiPolygon feature of ``field`` >= ``level``], or [] where no cell reaches it."""
+    polygons = level_polygons(ds, field, level)
+    if not polygons:
+        return []
+    return [_feature({"type": "MultiPolygon", "coordinates": polygons}, properties)]
+
+
+def _threshold_properties(
+    layer: str, level: float, unit: ConcentrationUnit, **extra: Any
+) -> dict[str, Any]:
+    """A contour's properties: its layer and threshold in the display unit (plain number)."""
+    return {
+        "layer": layer,
+        "threshold": float(plain(float(unit.value(level)))),
+        "unit": unit.name,
+        **extra,
+    }
+
+
 def result_features(ds: xr.Dataset, units: str | None = None) -> dict[str, Any]:
     """The GeoJSON FeatureCollection of a run or ensemble result (see the module text)."""
     unit = concentration_unit(ds, units)
@@ -136,29 +158,17 @@ def result_features(ds: xr.Dataset, units: str | None = None) -> dict[str, Any]:
             for i, level in enumerate(np.asarray(ds["threshold"].values, dtype=np.float64)):
                 field = np.asarray(ds["window_exceedance_probability"].values[i])
                 for p in PROBABILITY_LEVELS:
-                    polygons = level_polygons(ds, field, p)
-                    if polygons:
-                        props = {
-                            "layer": "window exceedance probability",
-                            "threshold": float(plain(float(unit.value(level)))),
-                            "unit": unit.name,
-                            "probability": p,
-                        }
-                        features.append(
-                            _feature({"type": "MultiPolygon", "coordinates": polygons}, props)
-                        )
+                    props = _threshold_properties(
+                        "window exceedance probability", level, unit, probability=p
+                    )
+                    features += _area_feature(ds, field, p, props)
     else:
         cmax = np.asarray(ds["concentration_max"].values)
         for level in _thresholds(ds):
-            polygons = level_polygons(ds, cmax, level)
-            if polygons:
-                props = {
-                    "layer": "maximum concentration",
-                    "threshold": float(plain(float(unit.value(level)))),
-                    "unit": unit.name,
-                    "threshold_kg_m-3": level,
-                }
-                features.append(_feature({"type": "MultiPolygon", "coordinates": polygons}, props))
+            props = _threshold_properties(
+                "maximum concentration", level, unit, **{"threshold_kg_m-3": level}
+            )
+            features += _area_feature(ds, cmax, level, props)
     features += _receptor_features(ds, units)
     return {
         "type": "FeatureCollection",
