@@ -80,7 +80,9 @@ def level_polygons(
     yp = np.concatenate([[ye[0]], y, [ye[-1]]])
     zp = np.pad(z, 1)
     gen = contour_generator(xp, yp, zp, fill_type=FillType.OuterOffset)
-    points, offsets = gen.filled(level, np.inf)
+    filled = gen.filled(level, np.inf)  # OuterOffset: (points, offsets) per polygon
+    points: list[Any] = list(filled[0])
+    offsets: list[Any] = list(filled[1])
     lonlat = _to_lonlat(ds)
     polygons = []
     for pts, offs in zip(points, offsets, strict=True):

@@ -90,7 +90,7 @@ def draw_ground(ax: Axes, ds: xr.Dataset, land: np.ndarray | None = None) -> Non
     )
     if flags is None:
         return
-    style = dict(extent=extent, origin="lower", interpolation="nearest")
+    style: dict[str, Any] = dict(extent=extent, origin="lower", interpolation="nearest")
     ax.imshow(np.ma.masked_where(flags != 1, flags), cmap=ListedColormap([LAND_COLOUR]), **style)
     outside = flags == 2
     if outside.any():
