@@ -165,16 +165,20 @@ def gaussian_puff_results(
     # Mass budget: a share leaves through the east edge late in the run; the rest decays or stays.
     released = np.full(nt, MASS)
     decayed = MASS * (1.0 - np.exp(-DECAY * time))
-    left = np.zeros((4, nt))
-    left[1] = 0.05 * MASS * np.clip((time - time[nt // 2]) / time[-1], 0.0, None)
-    stranded = np.zeros(nt)
-    in_water = released - decayed - left.sum(axis=0) - stranded
+    outflow = np.zeros((4, nt))
+    outflow[1] = 0.05 * MASS * np.clip((time - time[nt // 2]) / time[-1], 0.0, None)
+    held_dry = np.zeros(nt)
+    in_water = released - decayed - outflow.sum(axis=0) - held_dry
     kg = {"units": "kg"}
-    ds["mass_released"] = ("time", released, dict(kg, long_name="mass released so far"))
-    ds["mass_in_water"] = ("time", in_water, dict(kg, long_name="mass in the water"))
-    ds["mass_decayed"] = ("time", decayed, dict(kg, long_name="mass lost to decay"))
-    ds["mass_stranded"] = ("time", stranded, dict(kg, long_name="mass stranded on the shore"))
-    ds["mass_left"] = (("edge", "time"), left, dict(kg, long_name="mass that left through edge"))
+    ds["budget_released"] = ("time", released, dict(kg, long_name="mass released so far"))
+    ds["budget_in_water"] = ("time", in_water, dict(kg, long_name="mass in the water"))
+    ds["budget_decayed"] = ("time", decayed, dict(kg, long_name="mass lost to decay"))
+    ds["budget_held_dry"] = ("time", held_dry, dict(kg, long_name="mass held in dry cells"))
+    ds["budget_outflow"] = (
+        ("edge", "time"),
+        outflow,
+        dict(kg, long_name="mass that went out through the edge"),
+    )
     ds["particles_in_water"] = (
         "time",
         np.full(nt, PARTICLES, dtype=np.int32),

@@ -488,7 +488,7 @@ CLI_CASES = [
         expected=["no/such/dir", "does not exist", "create it"],
     ),
     case("output is a directory", args=["-o", "."], expected=["'.'", "is a directory"]),
-    case("unknown engine", args=["--engine", "fast"], expected=["--engine", "'compiled'"]),
+    case("unknown stepper", args=["--stepper", "compiled"], expected=["--stepper", "'fast'"]),
     case("misspelled option", args=["--overwirte"], expected=["--overwirte", "--overwrite"]),
     case(
         "checkpoint interval in metres",
@@ -692,7 +692,7 @@ def test_non_finite_velocity_on_land_is_no_concern():
 
     land = ~((np.abs(X - 1000.0) < 1.0)[None, :] & (np.abs(Y) < 1.0)[:, None])
     ds = _run(grid_flow(X, Y, FRAMES, velocity, wet=land))
-    assert float(ds.mass_released[-1]) == pytest.approx(1.0)
+    assert float(ds.budget_released[-1]) == pytest.approx(1.0)
 
 
 def test_a_non_finite_particle_position_stops_the_run_naming_the_time(monkeypatch):

@@ -73,7 +73,7 @@ def test_benchmark_engines_can_disagree():
     a = bench.initial_state(500, flow)
     b = a.copy()
     mover.advance(a, inputs, 0.0, bench.DT, 3, 0, bench.KEY)
-    mover.advance(b, inputs, 0.0, bench.DT, 3, 0, bench.KEY + 1, engine="numpy")
+    mover.advance(b, inputs, 0.0, bench.DT, 3, 0, bench.KEY + 1, stepper="reference")
     assert np.max(np.abs(a.x - b.x)) > 1.0
 
 

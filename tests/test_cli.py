@@ -65,14 +65,14 @@ def test_demo_output_opens_in_gdal_with_the_same_georeferencing(estuary_output):
 def test_demo_mass_budget_closes_and_summary_carries_the_caution(estuary_output):
     ds = estuary_output.results
     residual = (
-        ds.mass_released
-        - ds.mass_in_water
-        - ds.mass_left.sum("edge")
-        - ds.mass_decayed
-        - ds.mass_stranded
+        ds.budget_released
+        - ds.budget_in_water
+        - ds.budget_outflow.sum("edge")
+        - ds.budget_decayed
+        - ds.budget_held_dry
     )
-    assert float(abs(residual).max()) <= 1e-12 * float(ds.mass_released.max())
-    assert float(ds.mass_released[-1]) == pytest.approx(500.0, rel=1e-12)  # all of it by 05:30
+    assert float(abs(residual).max()) <= 1e-12 * float(ds.budget_released.max())
+    assert float(ds.budget_released[-1]) == pytest.approx(500.0, rel=1e-12)  # all of it by 05:30
     assert walkers.CAUTION in estuary_output.summary
     assert "bathing beach" in estuary_output.summary
 
@@ -97,11 +97,44 @@ def test_run_command_writes_output_figures_and_keeps_existing_files(tmp_path):
     assert replaced.exit_code == 0
 
 
-def test_export_writes_receptor_csv(estuary_output, tmp_path):
-    result = CliRunner().invoke(main, ["export", str(estuary_output.path), str(tmp_path / "r.csv")])
-    assert result.exit_code == 0, result.output
-    header = (tmp_path / "r.csv").read_text().splitlines()[0]
-    assert "bathing beach (kg m-3)" in header
+def test_summary_csv_geojson_and_report_show_the_same_numbers_in_the_same_unit(
+    estuary_output, tmp_path
+):
+    """The demo's peaks, in the thresholds' unit (mg/L), read alike from every product."""
+    import csv
+    import json
+    import re
+
+    result = estuary_output.path
+    out = CliRunner().invoke(
+        main,
+        ["export", str(result), str(tmp_path / "r.csv"), "--geojson", str(tmp_path / "l.geojson"),
+         "--geotiff", str(tmp_path / "m.tif")],
+    )  # fmt: skip
+    assert out.exit_code == 0, out.output
+    report = CliRunner().invoke(main, ["report", str(result), "-o", str(tmp_path / "r.html")])
+    assert report.exit_code == 0, report.output
+    summary = estuary_output.summary
+    html = (tmp_path / "r.html").read_text()
+    rows = list(csv.reader((tmp_path / "r.csv").open()))
+    assert rows[0][:3] == ["time (UTC)", "hours since run start", "bathing beach (mg/L)"]
+    points = {
+        f["properties"]["name"]: f["properties"]
+        for f in json.loads((tmp_path / "l.geojson").read_text())["features"]
+        if f["properties"]["layer"] == "receptor"
+    }
+    for k, name in enumerate(estuary_output.results.receptor.values):
+        column = [float(r[2 + k]) for r in rows[1:]]
+        peak = max(column)
+        if peak == 0:
+            assert f"{name}: no particles reached it" in summary
+            continue
+        text = re.search(rf"{name}: peak ([0-9.]+) mg/L", summary).group(1)
+        assert float(text) == pytest.approx(peak, rel=5e-3)  # 3 significant figures
+        assert points[str(name)]["peak_concentration"] == float(text)
+        assert points[str(name)]["unit"] == "mg/L"
+        assert f"{text} mg/L" in html
+    assert "e-0" not in summary and "kg m-3" not in summary
 
 
 def test_version_is_shown():
@@ -129,3 +162,24 @@ def test_inspect_command_describes_the_demo_flow(tmp_path):
     )
     assert result.exit_code == 0, result.output
     assert "EPSG:32630" in result.output and (tmp_path / "speed.png").is_file()
+
+
+def test_every_option_has_help_and_command_summaries_are_whole():
+    import click
+
+    for name, command in main.commands.items():
+        for param in command.params:
+            if isinstance(param, click.Option):
+                assert param.help, f"walkers {name} {param.opts[0]} has no help"
+    listing = CliRunner().invoke(main, ["--help"]).output
+    commands = listing.split("Commands:")[1]
+    assert "..." not in commands
+    assert len(commands.strip().splitlines()) == len(main.commands)
+
+
+def test_verify_help_lists_the_case_names():
+    from walkers.verify.cases import CASES
+
+    text = CliRunner().invoke(main, ["verify", "--help"], terminal_width=400).output
+    listed = text.split("Run only this case (repeatable):")[1].split(".")[0]
+    assert [name.strip() for name in listed.split(",")] == list(CASES)

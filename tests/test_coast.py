@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 
 from walkers.engine import kernels, mover, twin
-from walkers.engine.state import IN_WATER, STRANDED, ParticleState
+from walkers.engine.state import HELD_DRY, IN_WATER, ParticleState
 from walkers.engine.timestep import check_time_step
 from walkers.fields.analytic import grid_flow
 from walkers.scenario.config import Dispersion, Transport
@@ -91,7 +91,7 @@ def test_coast_case_passes(case, particles):
 def test_numpy_twin_passes_the_coast_checks():
     """The twin's own path tracer meets the same checks (at one step size, for time)."""
     result = case_coast_well_mixed(
-        40000, SEED, engine="numpy", sigmas=(2.0,), geometries=("walls-y", "headland")
+        40000, SEED, stepper="reference", sigmas=(2.0,), geometries=("walls-y", "headland")
     )
     assert not failures(result)
 
@@ -113,7 +113,7 @@ def test_numpy_twin_passes_the_coast_checks():
 )
 def test_wrong_wall_rule_fails_the_coast_checks(monkeypatch, case, particles, catcher):
     monkeypatch.setattr(twin, "trace_paths", end_cell_only)
-    result = case(particles, SEED, engine="numpy")
+    result = case(particles, SEED, stepper="reference")
     caught = [c for c in result.checks if catcher in c.name and not c.passed]
     assert caught, "the wrong wall rule was not caught"
 
@@ -190,7 +190,7 @@ def test_paths_through_a_cell_corner_do_not_leak():
     assert (tw[3][0], tw[4][0], tw[5][0], tw[6][0]) == (qx, qy, ci, cj)
 
 
-def test_stranded_particles_stay_put_through_reflections():
+def test_particles_held_dry_stay_put_through_reflections():
     """A particle on a cell that has dried is held where it is, bit for bit, while the others
     reflect off the dry cells around it."""
     xc = np.arange(0.5, 20.0, 1.0)
@@ -206,7 +206,7 @@ def test_stranded_particles_stay_put_through_reflections():
     y = np.array([10.4, 8.1, 3.0])
     st = ParticleState.from_arrays(x.copy(), y.copy(), np.ones(3), np.zeros(3))
     mover.advance(st, mover.kernel_inputs(flow, flow.window(60.0, 100.0), tr), 60.0, 1.0, 40, 0, 3)
-    assert np.all(st.status[:2] == STRANDED)
+    assert np.all(st.status[:2] == HELD_DRY)
     assert st.x[0] == x[0] and st.y[0] == y[0] and st.x[1] == x[1] and st.y[1] == y[1]
     assert st.status[2] == IN_WATER
 

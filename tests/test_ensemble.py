@@ -32,7 +32,7 @@ from scipy import stats
 
 import walkers
 from walkers.ensemble import execute
-from walkers.ensemble.assemble import write_ensemble
+from walkers.ensemble.assemble import members_for_convergence, summary_text, write_ensemble
 from walkers.ensemble.batches import batches, percentiles_with_ci
 from walkers.ensemble.draws import draw_source
 from walkers.ensemble.execute import run_ensemble
@@ -321,6 +321,40 @@ def test_result_carries_probabilities_percentiles_member_table_and_convergence(a
     assert se_max == pytest.approx(math.sqrt(0.25 / MEMBERS))
     assert 0.0 <= change < 6 * se_max
     assert ds.attrs["caution"] == walkers.CAUTION
+
+
+def test_change_between_half_and_all_members_shrinks_as_one_over_sqrt_members():
+    """For a binomial proportion, P(N) - P(N/2) has standard deviation sqrt(p (1 - p) / N), so
+    E|P(N) - P(N/2)| = sqrt(2/pi) sqrt(p (1 - p) / N) (half-normal mean; binomial sampling
+    error, common practice): the law behind members_for_convergence. Tolerance 5 standard errors
+    of the mean over the repetitions; the twin (a 1/N law) fails it."""
+    rng = np.random.default_rng(20261202)
+    p, reps = 0.3, 4000
+    for n in (100, 1600):
+        hits = rng.random((reps, n)) < p
+        change = np.abs(hits.mean(axis=1) - hits[:, : n // 2].mean(axis=1))
+        expected = math.sqrt(2 / math.pi) * math.sqrt(p * (1 - p) / n)
+        tolerance = 5 * change.std() / math.sqrt(reps)
+        assert abs(change.mean() - expected) < tolerance
+        wrong = math.sqrt(2 / math.pi) * math.sqrt(p * (1 - p)) / n * 10.0  # equal at n = 100
+        if n == 1600:
+            assert abs(change.mean() - wrong) > tolerance
+    # N members bring a change c (seen with n members) within s: N = n (c / s)^2
+    assert members_for_convergence(200, 0.208, 0.072) == math.ceil(200 * (0.208 / 0.072) ** 2)
+    assert members_for_convergence(200, 0.05, 0.072) == 200
+
+
+def test_summary_gives_a_convergence_verdict_and_says_what_a_dash_means(analytic_result):
+    text = summary_text(analytic_result)
+    change = float(analytic_result["convergence_change"][0])
+    se = float(analytic_result["convergence_standard_error"][0])
+    if change <= se:
+        assert "settled, the change is within its standard error" in text
+    else:
+        more = members_for_convergence(MEMBERS, change, se)
+        assert f"not settled; about {more} members would bring a change of this size" in text
+    assert "A '-' in the arrival percentiles means" in text
+    assert "e-0" not in text
 
 
 def test_same_seed_gives_bitwise_the_same_ensemble_and_another_seed_does_not(analytic_result):

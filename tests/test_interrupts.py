@@ -217,7 +217,7 @@ def _interrupt_after_first_checkpoint(scenario: Path, out: Path, seed_text: str 
     sc = load_scenario(scenario)
     ckpt = checkpoint.checkpoint_path(out)
     saver = checkpoint.Checkpointer(
-        ckpt, checkpoint.run_fingerprint(sc, "compiled"), 3600.0, sc.output_interval, 145
+        ckpt, checkpoint.run_fingerprint(sc, "fast"), 3600.0, sc.output_interval, 145
     )
 
     def stop_after_save(state):
@@ -251,12 +251,12 @@ def test_resume_refuses_a_changed_seed_or_scenario(scenario, tmp_path):
     assert result.exit_code == 0, result.output
 
 
-def test_resume_refuses_another_engine(scenario, tmp_path):
+def test_resume_refuses_another_stepper(scenario, tmp_path):
     out = tmp_path / "run.nc"
     ckpt = _interrupt_after_first_checkpoint(scenario, out)
-    with pytest.raises(InputError, match="the engine changed \\(was compiled, now numpy\\)"):
+    with pytest.raises(InputError, match="the stepper changed \\(was fast, now reference\\)"):
         checkpoint.load_checkpoint(
-            ckpt, checkpoint.run_fingerprint(load_scenario(scenario), "numpy")
+            ckpt, checkpoint.run_fingerprint(load_scenario(scenario), "reference")
         )
 
 
@@ -272,7 +272,7 @@ def test_checkpoint_state_round_trips_exactly(scenario, tmp_path):
 
     with pytest.raises(KeyboardInterrupt):
         run_scenario(sc, output=out, on_output=keep)
-    fingerprint = checkpoint.run_fingerprint(sc, "compiled")
+    fingerprint = checkpoint.run_fingerprint(sc, "fast")
     path = checkpoint.save_checkpoint(tmp_path / "state.npz", states[0], fingerprint, "t")
     back = checkpoint.load_checkpoint(path, fingerprint)
     assert back.next_output == 20

@@ -146,9 +146,9 @@ def test_every_variable_has_units_and_long_name_and_gridded_ones_a_grid_mapping(
         crs = nc["crs"]
         assert crs.grid_mapping_name == "transverse_mercator"
         assert "UTM zone 31N" in crs.crs_wkt
-        for name in ("mass_released", "mass_in_water", "mass_decayed", "mass_stranded"):
+        for name in ("budget_released", "budget_in_water", "budget_decayed", "budget_held_dry"):
             assert nc[name].units == "kg"
-        assert nc["mass_left"].units == "kg"
+        assert nc["budget_outflow"].units == "kg"
         assert nc["receptor_name"].cf_role == "timeseries_id"
         assert nc.featureType == "timeSeries"
         assert nc.Conventions == "CF-1.8"
@@ -199,7 +199,7 @@ def test_tracks_file_is_a_cf_trajectory(tmp_path):
 def test_read_results_round_trips_values_labels_and_times(tmp_path):
     ds = gaussian_puff_results()
     back = read_results(write_results(ds, tmp_path / "run.nc"))
-    for name in ("concentration", "particle_count", "receptor_concentration", "mass_left"):
+    for name in ("concentration", "particle_count", "receptor_concentration", "budget_outflow"):
         np.testing.assert_array_equal(back[name].values, ds[name].values)
     assert list(back["receptor"].values) == list(ds["receptor"].values)
     assert list(back["edge"].values) == list(ds["edge"].values)
@@ -376,27 +376,34 @@ def test_read_results_of_a_missing_file_is_an_input_error(tmp_path):
 # --------------------------------------------------------------------------------------------
 
 
-def test_receptors_csv_has_zoned_iso_times_units_and_values(tmp_path):
-    ds = gaussian_puff_results()
+def test_receptors_csv_has_utc_times_hours_from_the_start_and_the_display_unit(tmp_path):
+    ds = gaussian_puff_results()  # first output 2024-05-14T06:00+02:00
     path = receptors_to_csv(ds, tmp_path / "receptors.csv")
     with open(path, newline="", encoding="utf-8") as handle:
         rows = list(csv.reader(handle))
-    assert rows[0] == ["time", "intake A (kg m-3)", "beach B (kg m-3)", "bed C (kg m-3)"]
-    assert rows[1][0] == "2024-05-14T06:00:00+02:00"
-    assert rows[-1][0] == "2024-05-14T09:00:00+02:00"
-    table = np.array([[float(v) for v in row[1:]] for row in rows[1:]])
-    np.testing.assert_array_equal(table, ds["receptor_concentration"].values.T)
+    assert rows[0] == [
+        "time (UTC)",
+        "hours since run start",
+        "intake A (mg/L)",
+        "beach B (mg/L)",
+        "bed C (mg/L)",
+    ]
+    assert rows[1][:2] == ["2024-05-14T04:00:00Z", "0"]
+    assert rows[-1][:2] == ["2024-05-14T07:00:00Z", "3"]
+    assert not any("e" in v for row in rows[1:] for v in row[1:])  # plain numbers
+    table = np.array([[float(v) for v in row[2:]] for row in rows[1:]])
+    np.testing.assert_array_equal(table, ds["receptor_concentration"].values.T * 1e3)
     with pytest.raises(InputError, match="exists"):
         receptors_to_csv(ds, path)
     assert sorted(p.name for p in tmp_path.iterdir()) == ["receptors.csv"]
 
 
-def test_receptors_csv_from_a_read_file_gives_utc(tmp_path):
+def test_receptors_csv_from_a_read_file_gives_the_same_utc_times(tmp_path):
     back = read_results(write_results(gaussian_puff_results(), tmp_path / "run.nc"))
-    path = receptors_to_csv(back, tmp_path / "receptors.csv")
+    path = receptors_to_csv(back, tmp_path / "receptors.csv", units="ug/L")
     with open(path, encoding="utf-8") as handle:
-        handle.readline()
-        assert handle.readline().startswith("2024-05-14T04:00:00+00:00,")
+        assert "intake A (ug/L)" in handle.readline()
+        assert handle.readline().startswith("2024-05-14T04:00:00Z,0,")
 
 
 def test_receptors_csv_without_receptors_is_an_input_error(tmp_path):
@@ -423,7 +430,7 @@ def test_a_real_small_run_passes_the_cf_checker_and_gdal(tmp_path):
         receptors=[Receptor("intake", 0.0, 0.0, thresholds=(1e-4,))],
         seed=3,
         tracks=3,
-        engine="numpy",
+        stepper="reference",
     )
     path = write_results(ds, tmp_path / "run.nc")
     for file in (path, tracks_path(path)):

@@ -66,7 +66,7 @@ def small_run(fields: str, folder: Path | None = None, on_output=None) -> xr.Dat
         receptors=[Receptor("intake", 0.0, 0.0, thresholds=(1e-4,))],
         seed=3,
         tracks=3,
-        engine="numpy",
+        stepper="reference",
         fields=fields,  # type: ignore[arg-type]
         field_folder=folder,
         on_output=on_output,
@@ -113,7 +113,7 @@ def test_auto_streams_only_fields_above_the_budget(tmp_path, monkeypatch):
 # constant memory
 # --------------------------------------------------------------------------------------------
 
-# A cheap run: 50 particles in still water (numpy engine), one step per output time, on an n x n
+# A cheap run: 50 particles in still water (numpy twin), one step per output time, on an n x n
 # output grid, run and written by a process of its own.
 MEASURED_RUN = """
 import sys
@@ -130,7 +130,7 @@ ds = simulate(
     [Release("point", np.array([[1000.0, 1000.0]]), 50, mass=1.0)],
     start=0.0, end=60.0 * (outputs - 1), output_interval=60.0,
     output_grid=OutputGrid(x0=5.0, dx=2000 / n, nx=n, y0=5.0, dy=2000 / n, ny=n),
-    engine="numpy", fields=fields,
+    stepper="reference", fields=fields,
 )
 write_results(ds, path)
 """
@@ -244,7 +244,7 @@ def test_a_resumed_run_with_fields_on_disk_gives_the_same_bits(channel, tmp_path
     out = tmp_path / "run.nc"
     ckpt = checkpoint.checkpoint_path(out)
     saver = checkpoint.Checkpointer(
-        ckpt, checkpoint.run_fingerprint(sc, "compiled"), 3 * 3600.0, sc.output_interval, 145
+        ckpt, checkpoint.run_fingerprint(sc, "fast"), 3 * 3600.0, sc.output_interval, 145
     )
 
     def stop_after_second_save(state):
@@ -263,7 +263,7 @@ def test_a_resumed_run_with_fields_on_disk_gives_the_same_bits(channel, tmp_path
         assert "result.field.concentration" not in saved.files  # the fields are not in the npz
     assert stores(tmp_path) == []  # the interrupted run's own store is gone
 
-    state = checkpoint.load_checkpoint(ckpt, checkpoint.run_fingerprint(sc, "compiled"))
+    state = checkpoint.load_checkpoint(ckpt, checkpoint.run_fingerprint(sc, "fast"))
     assert isinstance(state.results.fields, DiskFields)
     run_scenario(sc, output=out, resume=state)
     assert_same_results(reference, out)
@@ -277,7 +277,7 @@ def test_a_checkpoint_whose_field_segment_is_gone_is_refused(channel, tmp_path, 
     monkeypatch.setattr(run_store, "FIELD_MEMORY_BUDGET", 0)
     sc = load_scenario(case)
     ckpt = checkpoint.checkpoint_path(tmp_path / "run.nc")
-    fingerprint = checkpoint.run_fingerprint(sc, "compiled")
+    fingerprint = checkpoint.run_fingerprint(sc, "fast")
     saver = checkpoint.Checkpointer(ckpt, fingerprint, 3600.0, sc.output_interval, 145)
 
     def stop_after_save(state):
@@ -322,7 +322,7 @@ def test_a_killed_run_with_fields_on_disk_resumes_to_the_same_bits(channel, tmp_
             proc.kill()
     assert not out.exists()
     sc = load_scenario(case)
-    state = checkpoint.load_checkpoint(ckpt, checkpoint.run_fingerprint(sc, "compiled"))
+    state = checkpoint.load_checkpoint(ckpt, checkpoint.run_fingerprint(sc, "fast"))
     assert isinstance(state.results.fields, DiskFields)
     run_scenario(sc, output=out, resume=state)
     assert_same_results(reference, out)

@@ -117,7 +117,7 @@ def test_estuary_notebook_closes_the_mass_budget(executed) -> None:
     nb, _ = executed["01_estuary_demo.ipynb"]
     text = "\n".join(_text(c) for c in nb.cells if c.cell_type == "code")
     assert "largest budget residual" in text
-    assert "harbour mouth: peak" in text
+    assert "bathing beach: peak" in text and "mg/L" in text
 
 
 def test_verification_notebook_saves_its_convergence_figure(executed) -> None:

@@ -37,21 +37,24 @@ def run_scenario(
     *,
     output: str | os.PathLike | None = None,
     overwrite: bool = False,
-    engine: Literal["compiled", "numpy"] = "compiled",
+    stepper: Literal["fast", "reference"] = "fast",
     progress: Callable[[float, float, int], None] | None = None,
     resume: RunState | None = None,
     on_output: Callable[[RunState], None] | None = None,
+    units: str | None = None,
 ) -> RunOutcome:
     """Run a scenario, write its CF-NetCDF output atomically and return the outcome.
 
     The target is checked before the run starts, so a long run never ends on "file exists".
+    ``units``: the concentration unit of the summary (default: the scenario thresholds' unit,
+    else mg/L).
     """
     if not isinstance(scenario, Scenario):
         scenario = load_scenario(Path(scenario))
     path = Path(output) if output is not None else Path(scenario.output_path)
     check_target(path, overwrite)
     ds = simulate_scenario(
-        scenario, engine=engine, progress=progress, resume=resume, on_output=on_output
+        scenario, stepper=stepper, progress=progress, resume=resume, on_output=on_output
     )
     write_results(ds, path, overwrite=overwrite)
-    return RunOutcome(ds, path, summary_text(ds))
+    return RunOutcome(ds, path, summary_text(ds, units))

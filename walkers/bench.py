@@ -105,7 +105,7 @@ def _rate(
     start: ParticleState,
     steps: int,
     repeats: int,
-    engine: str,
+    stepper: str,
 ) -> tuple[float, float, ParticleState]:
     """Median particle-steps per wall second and per CPU second; the state after the last run."""
     walls, cpus = [], []
@@ -114,7 +114,7 @@ def _rate(
         out = start.copy()
 
         def go(out=out):
-            mover.advance(out, inputs, 0.0, DT, steps, 0, KEY, engine)
+            mover.advance(out, inputs, 0.0, DT, steps, 0, KEY, stepper)
 
         w, c = _timed(go)
         walls.append(len(start) * steps / w)
@@ -341,15 +341,15 @@ def run_benchmark(
     try:
         note("compiled engine, 1 thread")
         numba.set_num_threads(1)
-        one_wall, one_cpu, _ = _rate(flow, inputs, start, nsteps, reps, "compiled")
+        one_wall, one_cpu, _ = _rate(flow, inputs, start, nsteps, reps, "fast")
         note(f"compiled engine, {two} threads")
         numba.set_num_threads(two)
-        two_wall, _two_cpu, moved = _rate(flow, inputs, start, nsteps, reps, "compiled")
+        two_wall, _two_cpu, moved = _rate(flow, inputs, start, nsteps, reps, "fast")
         note("numpy twin")
         numba.set_num_threads(1)
-        twin_wall, twin_cpu, twin_out = _rate(flow, inputs, start, twin_steps, reps, "numpy")
+        twin_wall, twin_cpu, twin_out = _rate(flow, inputs, start, twin_steps, reps, "reference")
         same = start.copy()
-        mover.advance(same, inputs, 0.0, DT, twin_steps, 0, KEY, "compiled")
+        mover.advance(same, inputs, 0.0, DT, twin_steps, 0, KEY, "fast")
     finally:
         numba.set_num_threads(threads_before)
     difference = max(

@@ -18,6 +18,7 @@ from typing import TYPE_CHECKING, Any
 import click
 
 import walkers
+from walkers.cli_outputs import OUTPUT_COMMANDS, UNITS_OPTION
 from walkers.errors import InputError, WalkersError
 
 if TYPE_CHECKING:
@@ -97,7 +98,7 @@ def main() -> None:
     """
 
 
-@main.command("new")
+@main.command("new", short_help="Write a commented scenario template to start from.")
 @click.argument("path", type=click.Path(dir_okay=False, path_type=Path))
 @click.option("--overwrite", is_flag=True, help="Replace PATH if it exists.")
 @friendly_errors
@@ -113,7 +114,7 @@ def new_command(path: Path, overwrite: bool) -> None:
     click.echo(f"wrote {path}; edit it, then: walkers run {path}")
 
 
-@main.command("run")
+@main.command("run", short_help="Run a scenario: NetCDF output, figures and a summary.")
 @click.argument("scenario", type=click.Path(dir_okay=False, path_type=Path))
 @click.option(
     "-o",
@@ -126,12 +127,14 @@ def new_command(path: Path, overwrite: bool) -> None:
     "--plot/--no-plot", default=True, show_default=True, help="Draw the figures next to the output."
 )
 @click.option(
-    "--engine",
-    type=click.Choice(["compiled", "numpy"]),
-    default="compiled",
+    "--stepper",
+    type=click.Choice(["fast", "reference"]),
+    default="fast",
     show_default=True,
-    help="Compiled kernels, or their (slow) numpy twin.",
+    help="How particles are stepped: fast (compiled kernels) or reference (their slow numpy "
+    "twin, the same numbers).",
 )
+@UNITS_OPTION
 @click.option("-q", "--quiet", is_flag=True, help="No progress messages.")
 @click.option(
     "--checkpoint-every",
@@ -152,7 +155,8 @@ def run_command(
     output: Path | None,
     overwrite: bool,
     plot: bool,
-    engine: str,
+    stepper: str,
+    units: str | None,
     quiet: bool,
     checkpoint_every: str | None,
     resume: bool,
@@ -184,7 +188,7 @@ def run_command(
         sc = load_scenario(scenario)
         target = Path(output) if output is not None else Path(sc.output_path)
         ckpt = checkpoint_path(target)
-        fingerprint = run_fingerprint(sc, engine)
+        fingerprint = run_fingerprint(sc, stepper)
         every = None
         if checkpoint_every is not None:
             every = parse_quantity(checkpoint_every, "time", "--checkpoint-every")
@@ -200,13 +204,14 @@ def run_command(
                 sc,
                 output=target,
                 overwrite=overwrite,
-                engine=engine,  # type: ignore[arg-type]
+                stepper=stepper,  # type: ignore[arg-type]
                 progress=Progress(scenario.name, quiet),
                 resume=state,
                 on_output=saver,
+                units=units,
             )
         except KeyboardInterrupt:
-            _say_how_to_resume(ckpt, scenario, output, engine, checkpoint_every)
+            _say_how_to_resume(ckpt, scenario, output, stepper, checkpoint_every)
             raise
         remove_checkpoint(ckpt)
     finally:
@@ -219,7 +224,7 @@ def run_command(
 
         figdir = outcome.path.with_name(outcome.path.stem + "_figures")
         figdir.mkdir(exist_ok=True)
-        for p in plot_results(outcome.path, figdir):
+        for p in plot_results(outcome.path, figdir, units=units):
             click.echo(f"wrote {p}")
 
 
@@ -244,7 +249,7 @@ def _checkpointer(
 
 
 def _say_how_to_resume(
-    ckpt: Path, scenario: Path, output: Path | None, engine: str, checkpoint_every: str | None
+    ckpt: Path, scenario: Path, output: Path | None, stepper: str, checkpoint_every: str | None
 ) -> None:
     """After an interruption: the command that continues the run, or why it cannot be."""
     from walkers.run.checkpoint import read_checkpoint_meta
@@ -253,8 +258,8 @@ def _say_how_to_resume(
         again = [f"walkers run {scenario}"]
         if output is not None:
             again.append(f"-o {output}")
-        if engine != "compiled":
-            again.append(f"--engine {engine}")
+        if stepper != "fast":
+            again.append(f"--stepper {stepper}")
         again.append("--resume")
         if checkpoint_every is not None:
             again.append(f'--checkpoint-every "{checkpoint_every}"')
@@ -272,7 +277,7 @@ def _say_how_to_resume(
         )
 
 
-@main.command("inspect")
+@main.command("inspect", short_help="Describe a flow file and the largest stable time step.")
 @click.argument("files", nargs=-1, required=True)
 @click.option(
     "--dispersion",
@@ -304,12 +309,26 @@ def inspect_command(
         click.echo(f"wrote {map_png}")
 
 
-@main.command("verify")
-@click.option("--case", "cases", multiple=True, help="Run only these cases (repeatable).")
+class _CaseOption(click.Option):
+    """``verify --case``: its help lists the case names (read only when help is shown)."""
+
+    def get_help_record(self, ctx: click.Context) -> tuple[str, str] | None:
+        from walkers.verify.cases import CASES
+
+        self.help = f"Run only this case (repeatable): {', '.join(CASES)}."
+        return super().get_help_record(ctx)
+
+
+@main.command("verify", short_help="Check the engine against published solutions.")
+@click.option(
+    "--case", "cases", multiple=True, cls=_CaseOption, help="Run only this case (repeatable)."
+)
 @click.option(
     "--particles", type=int, default=None, help="Particles per case (default: each case's own)."
 )
-@click.option("--seed", type=int, default=20261201, show_default=True)
+@click.option(
+    "--seed", type=int, default=20261201, show_default=True, help="Seed of the cases' random walks."
+)
 @click.option(
     "--report",
     type=click.Path(dir_okay=False, path_type=Path),
@@ -350,47 +369,7 @@ def verify_command(cases, particles: int | None, seed: int, report: Path | None)
     click.echo(f"all {len(results)} cases within tolerance")
 
 
-@main.command("plot")
-@click.argument("result", type=click.Path(dir_okay=False, path_type=Path))
-@click.option(
-    "--outdir",
-    type=click.Path(file_okay=False, path_type=Path),
-    help="Folder for the figures (default: <result>_figures).",
-)
-@click.option(
-    "--time",
-    "times",
-    multiple=True,
-    type=float,
-    help="Also map these times (hours after the first output; repeatable).",
-)
-@friendly_errors
-def plot_command(result: Path, outdir: Path | None, times) -> None:
-    """Draw maps, receptor series, the mass budget and an animation from a RESULT file."""
-    from walkers.outputs.figures import plot_results
-
-    outdir = outdir or result.with_name(result.stem + "_figures")
-    outdir.mkdir(parents=True, exist_ok=True)
-    chosen = [3600.0 * t for t in times] or None
-    for p in plot_results(result, outdir, times=chosen):
-        click.echo(f"wrote {p}")
-
-
-@main.command("export")
-@click.argument("result", type=click.Path(dir_okay=False, path_type=Path))
-@click.argument("csv", type=click.Path(dir_okay=False, path_type=Path))
-@click.option("--overwrite", is_flag=True, help="Replace CSV if it exists.")
-@friendly_errors
-def export_command(result: Path, csv: Path, overwrite: bool) -> None:
-    """Write the receptor series of a RESULT file to CSV (for spreadsheets)."""
-    from walkers.outputs.export import receptors_to_csv
-    from walkers.outputs.reader import open_results
-
-    receptors_to_csv(open_results(result), csv, overwrite=overwrite)
-    click.echo(f"wrote {csv}")
-
-
-@main.command("bench")
+@main.command("bench", short_help="Measure the engine's speed and memory.")
 @click.option(
     "--quick",
     is_flag=True,
@@ -422,7 +401,7 @@ def bench_command(quick: bool, as_json: bool, particles: int | None, repeats: in
     click.echo(json.dumps(result, indent=2) if as_json else format_report(result))
 
 
-@main.command("ensemble")
+@main.command("ensemble", short_help="Run an ensemble: exceedance probabilities and arrivals.")
 @click.argument("scenario", type=click.Path(dir_okay=False, path_type=Path))
 @click.option(
     "-o",
@@ -461,6 +440,7 @@ def bench_command(quick: bool, as_json: bool, particles: int | None, repeats: in
     show_default=True,
     help="Draw the ensemble figures next to the output.",
 )
+@UNITS_OPTION
 @click.option("-q", "--quiet", is_flag=True, help="No progress messages.")
 @friendly_errors
 def ensemble_command(
@@ -472,6 +452,7 @@ def ensemble_command(
     thresholds,
     overwrite: bool,
     plot: bool,
+    units: str | None,
     quiet: bool,
 ) -> None:
     """Run the ensemble of SCENARIO (TOML with an [ensemble] table): exceedance probabilities,
@@ -518,7 +499,7 @@ def ensemble_command(
     )
     elapsed = time.monotonic() - started
     write_ensemble(ds, output, overwrite=overwrite)
-    click.echo(summary_text(ds))
+    click.echo(summary_text(ds, units))
     click.echo(
         f"\n{ds.sizes['member']} members, {ds.attrs['particle_steps']:.3g} "
         f"member-particle-steps in {elapsed:.1f} s "
@@ -530,5 +511,10 @@ def ensemble_command(
 
         figdir = output.with_name(output.stem + "_figures")
         figdir.mkdir(exist_ok=True)
-        for p in plot_ensemble(ds, figdir):
+        for p in plot_ensemble(ds, figdir, units=units):
             click.echo(f"wrote {p}")
+
+
+for _command in OUTPUT_COMMANDS:
+    _command.callback = friendly_errors(_command.callback)
+    main.add_command(_command)

@@ -55,9 +55,9 @@ DEG = math.pi / 180.0
 
 STATUS_WAITING = 0
 STATUS_WATER = 1
-STATUS_STRANDED = 2
+STATUS_HELD_DRY = 2
 STATUS_DECAYED = 3
-STATUS_LEFT = 4
+STATUS_EXITED = 4
 DECAYED_FRACTION = 1e-15
 
 # Particles per block of the step kernel (state of a block stays in the L1 cache).
@@ -550,7 +550,7 @@ def compiled_mover(ndim, scheme, aligned, drift, geographic, kgrid, shared, cent
                             continue
                         st = STATUS_WATER
                         tstart = max(t, trel[p])
-                    elif st == STATUS_WATER or st == STATUS_STRANDED:
+                    elif st == STATUS_WATER or st == STATUS_HELD_DRY:
                         tstart = t
                     else:
                         continue
@@ -572,8 +572,8 @@ def compiled_mover(ndim, scheme, aligned, drift, geographic, kgrid, shared, cent
                     pi = cell_i[k]
                     pj = cell_j[k]
                     if wet_now[pj, pi] == 0:
-                        st = STATUS_STRANDED
-                    elif st == STATUS_STRANDED:
+                        st = STATUS_HELD_DRY
+                    elif st == STATUS_HELD_DRY:
                         st = STATUS_WATER
                     if decay_rate > 0.0:
                         pm = bm[k] * math.exp(-decay_rate * h)
@@ -581,7 +581,7 @@ def compiled_mover(ndim, scheme, aligned, drift, geographic, kgrid, shared, cent
                         if pm <= DECAYED_FRACTION * m0[p]:
                             bst[k] = STATUS_DECAYED
                             continue
-                    if st == STATUS_STRANDED:
+                    if st == STATUS_HELD_DRY:
                         bst[k] = st
                         continue
                     px = bx[k]
@@ -695,7 +695,7 @@ def compiled_mover(ndim, scheme, aligned, drift, geographic, kgrid, shared, cent
                         if edge >= 0:
                             tcross = tstart + 0.5 * h
                     if edge >= 0:
-                        bst[k] = STATUS_LEFT + edge
+                        bst[k] = STATUS_EXITED + edge
                         texit[p] = tcross
                         bx[k] = qx
                         by[k] = qy

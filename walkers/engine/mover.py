@@ -254,10 +254,13 @@ def advance(
     nsteps: int,
     step0: int,
     key: int,
-    engine: Literal["compiled", "numpy"] = "compiled",
+    stepper: Literal["fast", "reference"] = "fast",
 ) -> None:
-    """Advance all particles in place by nsteps steps of dt seconds from t0 (s)."""
-    mod = kernels if engine == "compiled" else twin
+    """Advance all particles in place by nsteps steps of dt seconds from t0 (s).
+
+    ``stepper`` "fast" runs the compiled kernels, "reference" their numpy twin (same numbers).
+    """
+    mod = kernels if stepper == "fast" else twin
     mod.advance(
         state.x,
         state.y,

@@ -5,9 +5,9 @@ Status codes (int8):
 ====  =========================================================
  0    waiting: not yet released
  1    in water
- 2    stranded: held in a cell that has dried; moves again when it wets
+ 2    held dry: held in a cell that has dried; moves again when it wets
  3    decayed: mass below 1e-15 of its initial mass; no longer moved
- 4+e  left the domain through open edge e (0 west, 1 east, 2 south, 3 north)
+ 4+e  went out of the domain through open edge e (0 west, 1 east, 2 south, 3 north)
 ====  =========================================================
 """
 
@@ -19,9 +19,9 @@ import numpy as np
 
 WAITING = 0
 IN_WATER = 1
-STRANDED = 2
+HELD_DRY = 2
 DECAYED = 3
-LEFT = 4  # LEFT + edge index
+EXITED = 4  # EXITED + edge index
 
 BYTES_PER_PARTICLE = 6 * 8 + 1
 
@@ -33,7 +33,7 @@ class ParticleState:
     x, y : position in grid coordinates (m, or degrees on geographic grids); y is 0 in 1-D.
     mass : current mass (kg); initial_mass : mass at release (kg).
     release_time : when the particle enters the water (s, flow time frame).
-    exit_time : when it left through an open edge (s), NaN otherwise.
+    exit_time : when it went out through an open edge (s), NaN otherwise.
     status : int8 code, see the module docstring.
     """
 

@@ -17,8 +17,8 @@ from walkers.engine.kernels import (
     DECAYED_FRACTION,
     DEG,
     STATUS_DECAYED,
-    STATUS_LEFT,
-    STATUS_STRANDED,
+    STATUS_EXITED,
+    STATUS_HELD_DRY,
     STATUS_WAITING,
     STATUS_WATER,
     WGS84_A,
@@ -317,7 +317,7 @@ def advance(
         t_end = t + dt
         new = (status == STATUS_WAITING) & (trel < t_end)
         status[new] = STATUS_WATER
-        act = np.flatnonzero((status == STATUS_WATER) | (status == STATUS_STRANDED))
+        act = np.flatnonzero((status == STATUS_WATER) | (status == STATUS_HELD_DRY))
         if act.size == 0:
             continue
         tstart = np.where(new[act], np.maximum(t, trel[act]), t)
@@ -331,7 +331,7 @@ def advance(
             iw = np.zeros_like(iw)
         wet_here = wet[iw, _cell(ye, py), _cell(xe, px)] != 0
         st = status[act]
-        st = np.where(~wet_here, STATUS_STRANDED, np.where(st == STATUS_STRANDED, STATUS_WATER, st))
+        st = np.where(~wet_here, STATUS_HELD_DRY, np.where(st == STATUS_HELD_DRY, STATUS_WATER, st))
         if decay_rate > 0.0:
             pm = m[act] * np.exp(-decay_rate * h)
             m[act] = pm
@@ -419,7 +419,7 @@ def advance(
                 left = np.where(by >= 0, by, left)
             tcross = np.where((bx >= 0) | ((left >= 0) & cand), tstart + 0.5 * h, tcross)
         gone = left >= 0
-        status[act[gone]] = (STATUS_LEFT + left[gone]).astype(status.dtype)
+        status[act[gone]] = (STATUS_EXITED + left[gone]).astype(status.dtype)
         texit[act[gone]] = tcross[gone]
         moved = gone | placed
         x[act[moved]] = qx[moved]

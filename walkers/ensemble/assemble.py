@@ -22,6 +22,8 @@ from walkers.ensemble.batches import (
     percentiles_with_ci,
 )
 from walkers.ensemble.members import _Prepared
+from walkers.outputs.display import ConcentrationUnit, concentration_unit, plain
+from walkers.run.runner import release_places
 
 
 def _assemble(red: _OrderedReducer, prepared: _Prepared, thr: tuple[float, ...]) -> xr.Dataset:
@@ -48,6 +50,8 @@ def _assemble(red: _OrderedReducer, prepared: _Prepared, thr: tuple[float, ...])
         "seed": int(sc.seed),
         "walkers_version": walkers.__version__,
         "scenario": sc.text or "",
+        "run_start": sc.start_iso,
+        "release_places": release_places(sc),
         "crs_wkt": frame.attrs.get("crs_wkt", ""),
         "geographic": int(frame.attrs.get("geographic", 0)),
         "caution": walkers.CAUTION,
@@ -310,10 +314,47 @@ def write_ensemble(ds: xr.Dataset, path: str | Path, *, overwrite: bool = False)
     return write_results(ds, path, overwrite=overwrite)
 
 
-def summary_text(ds: xr.Dataset) -> str:
+def members_for_convergence(members: int, change: float, standard_error: float) -> int:
+    """Members that would bring a change of ``change`` within ``standard_error``.
+
+    The change of a Monte Carlo estimate between half and all of the members shrinks as
+    1/√members (sampling error of a binomial proportion, common practice), so N members give
+    about change·√(members/N); that is at most ``standard_error`` from
+    N = members·(change/standard_error)², rounded up.
+    """
+    if not change > standard_error > 0:
+        return members
+    return int(math.ceil(members * (change / standard_error) ** 2))
+
+
+def convergence_lines(ds: xr.Dataset, unit: ConcentrationUnit) -> list[str]:
+    """Per threshold, a verdict on the convergence of the exceedance probabilities."""
+    n = int(ds.sizes["member"])
+    lines = []
+    for k, level in enumerate(ds["threshold"].values):
+        change = float(ds["convergence_change"][k])
+        se = float(ds["convergence_standard_error"][k])
+        head = (
+            f"Convergence above {unit.text(float(level))}: over the second half of the {n} "
+            f"members the probabilities moved by at most {change:.3f} (standard error {se:.3f})"
+        )
+        if change <= se:
+            lines.append(f"{head}: settled, the change is within its standard error.")
+        else:
+            more = members_for_convergence(n, change, se)
+            lines.append(
+                f"{head}: not settled; about {more} members would bring a change of this size "
+                f"within {se:.3f} (changes shrink as 1/sqrt(members))."
+            )
+    return lines
+
+
+def summary_text(ds: xr.Dataset, units: str | None = None) -> str:
     """The end-of-ensemble summary: per receptor and threshold the probability of exceedance and
-    the percentiles of arrival time, time above threshold and peak; the convergence; the caution.
-    Concentrations in mg/L (= g m-3 = 1e-3 kg m-3), times in hours after the run start."""
+    the percentiles of arrival time, time above threshold and peak; a verdict on convergence; the
+    caution. Concentrations in the display unit (``units``, else the scenario thresholds' unit,
+    else mg/L); times in hours after the run start."""
+    unit = concentration_unit(ds, units)
     n = int(ds.sizes["member"])
     lines = [str(ds.attrs.get("title", "walkers ensemble")), ""]
     pct = "/".join(f"{p:g}" for p in PERCENTILES)
@@ -322,27 +363,25 @@ def summary_text(ds: xr.Dataset) -> str:
         return "/".join("-" if np.isnan(v) else f"{v / 3600:.3g}" for v in values)
 
     for r, name in enumerate(ds["receptor"].values if "receptor" in ds.dims else []):
-        peak = ds["receptor_peak_percentile"].values[r] * 1e3
-        lines.append(f"{name}: peak (percentiles {pct}) {'/'.join(f'{v:.3g}' for v in peak)} mg/L")
+        peak = unit.value(ds["receptor_peak_percentile"].values[r])
+        lines.append(
+            f"{name}: peak (percentiles {pct}) {'/'.join(plain(v) for v in peak)} {unit.name}"
+        )
         for k, level in enumerate(ds["threshold"].values if "threshold" in ds.dims else []):
             p = float(ds["receptor_exceedance_probability"].values[r, k])
             se = math.sqrt(p * (1 - p) / n)
             lines.append(
-                f"  above {level * 1e3:.3g} mg/L: probability {p:.2f} (± {se:.2f}); arrival at "
+                f"  above {unit.text(float(level))}: probability {p:.2f} (± {se:.2f}); arrival at "
                 f"{hours(ds['arrival_time_percentile'].values[r, k])} h; time above "
                 f"{hours(ds['time_above_threshold_percentile'].values[r, k])} h"
             )
     if "convergence_change" in ds:
-        lines.append("")
-        for k, level in enumerate(ds["threshold"].values):
-            lines.append(
-                f"Convergence at {level * 1e3:.3g} mg/L: probabilities moved by at most "
-                f"{float(ds['convergence_change'][k]):.3f} over the second half of the {n} "
-                f"members (standard error there {float(ds['convergence_standard_error'][k]):.3f})"
-            )
+        lines += ["", *convergence_lines(ds, unit)]
     lines += [
         "",
-        f"Percentiles {pct} over the members; '-': not within the run.",
+        f"Percentiles {pct} over the members; arrival times in hours after the run start. "
+        "A '-' in the arrival percentiles means that fewer members than that percentile reached "
+        "the threshold before the end of the run: that percentile arrives later, or never.",
         f"Caution: {walkers.CAUTION}",
     ]
     return "\n".join(lines)

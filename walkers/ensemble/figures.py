@@ -1,7 +1,8 @@
 """Figures of an ensemble: exceedance-probability maps and receptor distributions.
 
-Each figure carries a title, axis labels with units, the time span it covers (ISO 8601 with zone)
-and the caution in small print, like the figures of a single run (``walkers.outputs.figures``).
+Each figure carries a title, axis labels with units, the time span it covers (UTC) and the
+caution in small print, like the figures of a single run (``walkers.outputs.figures``), with the
+same map ground and furniture (``walkers.outputs.mapping``) and the same display unit.
 Probability maps colour the probability from 0 to 1 and draw contour lines at
 :data:`PROBABILITY_LEVELS`;
 cells that no member reached stay blank. Receptor figures show, per receptor, the histogram of the
@@ -13,16 +14,15 @@ from __future__ import annotations
 
 import os
 from pathlib import Path
-from typing import Any
 
 import numpy as np
 import xarray as xr
 from matplotlib import colormaps
-from matplotlib.colors import ListedColormap
 
 from walkers.errors import InputError
-from walkers.fields.times import elapsed_seconds, iso_times
-from walkers.outputs.figures import LAND_COLOUR, RECEPTOR_COLOUR, _edges, _figure, _footer
+from walkers.outputs.display import concentration_unit, output_times, run_start, utc
+from walkers.outputs.figures import PLAIN_TICKS, _figure, _footer
+from walkers.outputs.mapping import cell_edges, draw_furniture, draw_ground, draw_places
 from walkers.outputs.reader import open_results
 
 #: Probabilities drawn as contour lines on the maps.
@@ -38,21 +38,8 @@ def _load(ds_or_path: xr.Dataset | str | os.PathLike) -> xr.Dataset:
 
 
 def _span(ds: xr.Dataset) -> str:
-    stamps = iso_times(ds["time"])
-    return f"{stamps[0]} to {stamps[-1]}"
-
-
-def _axis_label(ds: xr.Dataset, axis: str) -> str:
-    units = ds[axis].attrs.get("units", "m")
-    if units == "degrees_east":
-        return "longitude (degrees east)"
-    if units == "degrees_north":
-        return "latitude (degrees north)"
-    return f"{axis} ({units})"
-
-
-def _mg_per_litre(kg_m3: float) -> str:
-    return f"{kg_m3 * 1e3:.3g} mg/L"
+    times = output_times(ds)
+    return f"{utc(times[0])} to {utc(times[-1])}"
 
 
 def plot_probability_map(
@@ -61,19 +48,21 @@ def plot_probability_map(
     *,
     threshold: int = 0,
     time_index: int | None = None,
+    units: str | None = None,
 ) -> Path:
     """Map the probability that the concentration exceeds threshold number ``threshold``.
 
     time_index : an output time; None maps the probability over the whole run (the concentration
     exceeds the threshold at some output time). Contour lines at :data:`PROBABILITY_LEVELS`. A 1-D
-    run is drawn as a profile along the channel.
+    run is drawn as a profile along the channel. ``units``: the concentration unit shown.
     """
     ds = _load(ds_or_path)
     if "threshold" not in ds.dims:
         raise InputError("the ensemble has no thresholds: give receptor thresholds to map them")
     if not 0 <= threshold < ds.sizes["threshold"]:
         raise InputError(f"threshold {threshold}: expected 0 to {ds.sizes['threshold'] - 1}")
-    stamps = iso_times(ds["time"])
+    stamps = [utc(t) for t in output_times(ds)]
+    unit = concentration_unit(ds, units)
     level = float(ds["threshold"].values[threshold])
     if time_index is None:
         field = ds["window_exceedance_probability"].values[threshold]
@@ -84,7 +73,7 @@ def plot_probability_map(
         field = ds["exceedance_probability"].values[threshold, time_index]
         when, at = stamps[time_index], f"at {stamps[time_index]}"
     n = int(ds.sizes["member"])
-    title = f"Probability that concentration exceeds {_mg_per_litre(level)} {at} ({n} members)"
+    title = f"Probability that concentration exceeds {unit.text(level)} {at} ({n} members)"
     x, y = ds["x"].values, ds["y"].values
     if ds.sizes["y"] == 1:
         fig = _figure(7.5, 4.2)
@@ -93,66 +82,39 @@ def plot_probability_map(
         for p in PROBABILITY_LEVELS:
             ax.axhline(p, color="0.6", lw=0.7, ls=":")
         ax.set_ylim(0.0, 1.02)
-        ax.set_xlabel(_axis_label(ds, "x"))
+        ax.set_xlabel("distance along channel x (m)")
         ax.set_ylabel("exceedance probability (1)")
         ax.grid(True, lw=0.4, color="0.88")
     else:
         ratio = (y[-1] - y[0] + 1e-12) / (x[-1] - x[0] + 1e-12)
         fig = _figure(7.0, float(np.clip(5.6 * ratio + 1.6, 3.4, 10.0)))
         ax = fig.add_subplot()
-        if "land" in ds:
-            land = np.where(ds["land"].values > 0, 1.0, np.nan)
-            ax.pcolormesh(_edges(x), _edges(y), land, cmap=ListedColormap([LAND_COLOUR]))
+        draw_ground(ax, ds)
         shown = np.where(field > 0, field, np.nan)
-        mesh = ax.pcolormesh(_edges(x), _edges(y), shown, cmap=PROBABILITY_CMAP, vmin=0.0, vmax=1.0)
+        mesh = ax.pcolormesh(
+            cell_edges(x), cell_edges(y), shown, cmap=PROBABILITY_CMAP, vmin=0.0, vmax=1.0
+        )
         if np.nanmax(field, initial=0.0) > min(PROBABILITY_LEVELS):
             lines = ax.contour(x, y, field, levels=PROBABILITY_LEVELS, colors="k", linewidths=0.8)
             ax.clabel(lines, fmt="%.1f", fontsize=7)
         cax = ax.inset_axes((1.03, 0.0, 0.035, 1.0))
         fig.colorbar(mesh, cax=cax).set_label("exceedance probability (1)")
-        _mark_receptors(ax, ds)
-        ax.set_xlabel(_axis_label(ds, "x"))
-        ax.set_ylabel(_axis_label(ds, "y"))
-        ax.set_aspect("equal" if ds["x"].attrs.get("units", "m") == "m" else "auto")
-        ax.ticklabel_format(useOffset=False, style="plain")
+        draw_places(ax, ds)
+        draw_furniture(ax, ds)
     ax.set_title(title, fontsize=9)
     _footer(fig, f"{when}; contours at P = {', '.join(f'{p:g}' for p in PROBABILITY_LEVELS)}")
     fig.savefig(path)
     return Path(path)
 
 
-def _mark_receptors(ax: Any, ds: xr.Dataset) -> None:
-    """Receptors as open circles with their names, when the ensemble has any."""
-    if not ("receptor_x" in ds and ds.sizes.get("receptor", 0)):
-        return
-    ax.plot(
-        ds["receptor_x"].values,
-        ds["receptor_y"].values,
-        "o",
-        mfc="none",
-        mec=RECEPTOR_COLOUR,
-        mew=1.4,
-        ms=7,
-    )
-    for name, rx, ry in zip(
-        ds["receptor"].values, ds["receptor_x"].values, ds["receptor_y"].values, strict=True
-    ):
-        ax.annotate(
-            str(name),
-            (rx, ry),
-            xytext=(5, 4),
-            textcoords="offset points",
-            fontsize=7,
-            color=RECEPTOR_COLOUR,
-        )
-
-
 def plot_receptor_distributions(
-    ds_or_path: xr.Dataset | str | os.PathLike, path: str | os.PathLike
+    ds_or_path: xr.Dataset | str | os.PathLike, path: str | os.PathLike, units: str | None = None
 ) -> Path:
-    """Per receptor: histogram of the members' peak concentration (kg m-3, thresholds dashed) and
-    the empirical CDF of the arrival time (h after the run start) for each threshold."""
+    """Per receptor: histogram of the members' peak concentration (display unit ``units``;
+    thresholds dashed) and the empirical CDF of the arrival time (h after the run start) for
+    each threshold."""
     ds = _load(ds_or_path)
+    unit = concentration_unit(ds, units)
     nrec = int(ds.sizes.get("receptor", 0))
     if nrec == 0 or "member_receptor_peak" not in ds:
         raise InputError("the ensemble has no receptors: nothing to draw")
@@ -161,25 +123,25 @@ def plot_receptor_distributions(
     colours = colormaps["cividis"](np.linspace(0.0, 0.8, max(len(thresholds), 1)))
     fig = _figure(8.0, 2.3 * nrec + 1.2)
     axes = fig.subplots(nrec, 2, squeeze=False)
-    run_hours = float(elapsed_seconds(ds["time"])[-1]) / 3600.0
+    run_hours = (output_times(ds)[-1] - run_start(ds)).total_seconds() / 3600.0
     for r, name in enumerate(ds["receptor"].values):
-        peaks = ds["member_receptor_peak"].values[:, r]
+        peaks = unit.value(ds["member_receptor_peak"].values[:, r])
         ax = axes[r, 0]
         ax.hist(peaks, bins=min(30, max(5, n // 4)), color="0.55", edgecolor="white")
         for k, level in enumerate(thresholds):
             ax.axvline(
-                level,
+                unit.value(level),
                 color=colours[k],
                 ls="--",
                 lw=1.0,
-                label=f"threshold {_mg_per_litre(float(level))}",
+                label=f"threshold {unit.text(float(level))}",
             )
-        top = max(float(peaks.max(initial=0.0)), float(np.max(thresholds, initial=0.0)))
+        top = max(float(peaks.max(initial=0.0)), float(unit.value(np.max(thresholds, initial=0.0))))
         ax.set_xlim(0.0, 1.05 * top if top > 0 else 1.0)
-        ax.set_xlabel("peak concentration (kg m-3)")
+        ax.set_xlabel(f"peak concentration ({unit.name})")
         ax.set_ylabel("members")
         ax.set_title(f"{name}: peak concentration", fontsize=9)
-        ax.ticklabel_format(axis="x", style="sci", scilimits=(-3, 3))
+        ax.xaxis.set_major_formatter(PLAIN_TICKS)
         if len(thresholds):
             ax.legend(fontsize=6, frameon=False)
         ax = axes[r, 1]
@@ -195,11 +157,11 @@ def plot_receptor_distributions(
                 where="post",
                 color=colours[k],
                 lw=1.4,
-                label=f"> {_mg_per_litre(float(level))} ({share:.0%} of members)",
+                label=f"> {unit.text(float(level))} ({share:.0%} of members)",
             )
         ax.set_xlim(0.0, run_hours)
         ax.set_ylim(0.0, 1.02)
-        ax.set_xlabel("arrival time after the run start (h)")
+        ax.set_xlabel(f"arrival, hours since the run start, {utc(run_start(ds))}")
         ax.set_ylabel("fraction of members arrived")
         ax.set_title(f"{name}: arrival time (empirical CDF)", fontsize=9)
         ax.grid(True, lw=0.4, color="0.88")
@@ -212,7 +174,7 @@ def plot_receptor_distributions(
 
 
 def plot_ensemble(
-    ds_or_path: xr.Dataset | str | os.PathLike, outdir: str | os.PathLike
+    ds_or_path: xr.Dataset | str | os.PathLike, outdir: str | os.PathLike, units: str | None = None
 ) -> list[Path]:
     """Draw the ensemble figures into the existing directory ``outdir``; return the files.
 
@@ -224,9 +186,11 @@ def plot_ensemble(
         raise InputError(f"figure directory {str(folder)!r} does not exist; create it first")
     ds = _load(ds_or_path)
     written = [
-        plot_probability_map(ds, folder / f"probability_thr{k}.png", threshold=k)
+        plot_probability_map(ds, folder / f"probability_thr{k}.png", threshold=k, units=units)
         for k in range(ds.sizes.get("threshold", 0) if "threshold" in ds.dims else 0)
     ]
     if ds.sizes.get("receptor", 0) and "member_receptor_peak" in ds:
-        written.append(plot_receptor_distributions(ds, folder / "receptor_distributions.png"))
+        written.append(
+            plot_receptor_distributions(ds, folder / "receptor_distributions.png", units)
+        )
     return written

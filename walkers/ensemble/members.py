@@ -165,7 +165,7 @@ class _BatchResult:
 
 
 def run_member(
-    prepared: _Prepared, member: int, *, engine: str = "compiled"
+    prepared: _Prepared, member: int, *, stepper: str = "fast"
 ) -> tuple[SourceDraw, xr.Dataset]:
     """Draw member ``member``'s source and run it; return the draw and the result Dataset."""
     from walkers.run.runner import shift_release
@@ -206,7 +206,7 @@ def run_member(
         seed=sc.seed,
         member=member,
         time_step_check="substep" if sc.substep else "fail",
-        engine=engine,  # type: ignore[arg-type]
+        stepper=stepper,  # type: ignore[arg-type]
         title=sc.title,
     )
     return draw, ds

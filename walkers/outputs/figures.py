@@ -1,10 +1,12 @@
 """Figures of a run: concentration maps, receptor series, the mass budget and a plume animation.
 
 Every figure carries a title, axis labels with units, a colour bar with units where colour means a
-value, the time it shows (ISO 8601 with zone) and the caution in small print at the bottom. Maps use
-a logarithmic colour scale; cells with no particles stay blank, so the eye sees where the estimate
-has no support. Figures are drawn on the Agg canvas directly (no pyplot state), so plotting never
-changes the caller's matplotlib backend.
+value, the time it shows (UTC, from the run start) and the caution in small print at the bottom.
+Concentrations are shown in one display unit (:mod:`walkers.outputs.display`) with plain numbers.
+Maps use a logarithmic colour scale over the ground and furniture of :mod:`walkers.outputs.mapping`
+(clean water, land, outside the flow grid, thinly sampled cells hatched, release, receptors with
+their circles, scale bar, north arrow, CRS). Figures are drawn on the Agg canvas directly (no
+pyplot state), so plotting never changes the caller's matplotlib backend.
 """
 
 from __future__ import annotations
@@ -17,55 +19,77 @@ from pathlib import Path
 
 import numpy as np
 import xarray as xr
-from matplotlib import colormaps, patheffects
+from matplotlib import colormaps
 from matplotlib.animation import PillowWriter
 from matplotlib.axes import Axes
 from matplotlib.backends.backend_agg import FigureCanvasAgg
-from matplotlib.colors import ListedColormap, LogNorm
+from matplotlib.colors import LogNorm
 from matplotlib.figure import Figure
 from matplotlib.layout_engine import ConstrainedLayoutEngine
-from matplotlib.ticker import MaxNLocator, ScalarFormatter
+from matplotlib.lines import Line2D
+from matplotlib.ticker import FuncFormatter
 
 import walkers
 from walkers.errors import InputError
-from walkers.fields.times import elapsed_seconds, iso_times
+from walkers.outputs.display import (
+    ConcentrationUnit,
+    concentration_unit,
+    hours_since_start,
+    output_times,
+    plain,
+    time_axis_label,
+    utc,
+)
+from walkers.outputs.mapping import (
+    RECEPTOR_COLOUR,
+    RELEASE_COLOUR,
+    cell_edges,
+    draw_furniture,
+    draw_ground,
+    draw_places,
+    hatch_thin_cells,
+    is_geographic,
+    legend_handles,
+)
 from walkers.outputs.reader import open_results
 
 CONC_CMAP = "viridis"
-LAND_COLOUR = "#cfc8b8"
-RECEPTOR_COLOUR = "#d1495b"
-FOOTER_HEIGHT = 0.09  # fraction of the figure height kept free for the time and the caution
+FOOTER_FONT = 6.0  # points
 MAX_FRAMES = 25  # frames in the animated GIF at most (every k-th output time)
 DECADES = 4  # decades of concentration shown below the maximum on the log colour scale
+PLAIN_TICKS = FuncFormatter(lambda v, _pos: plain(v, 2))
 
 
 @dataclass
 class _Run:
-    """What the figures need from a result, gathered once."""
+    """What the figures need from a result, gathered once (concentrations in the display unit)."""
 
     ds: xr.Dataset
     stamps: list[str]
     hours: np.ndarray
-    geographic: bool
     land: np.ndarray | None
     norm: LogNorm
-    units: str
+    unit: ConcentrationUnit
 
     @property
     def one_dimensional(self) -> bool:
         return self.ds.sizes["y"] == 1
 
-    def axis_label(self, axis: str) -> str:
-        if self.geographic:
-            return "longitude (degrees east)" if axis == "x" else "latitude (degrees north)"
-        return f"{axis} ({self.ds[axis].attrs.get('units', 'm')})"
+    @property
+    def geographic(self) -> bool:
+        return is_geographic(self.ds)
 
     @property
     def time_label(self) -> str:
-        return f"time since {self.stamps[0]} (h)"
+        return time_axis_label(self.ds)
+
+    def conc(self, si: np.ndarray) -> np.ndarray:
+        return self.unit.value(si)
 
 
-def _load(ds_or_path: xr.Dataset | str | os.PathLike, land: xr.DataArray | None) -> _Run:
+def _load(
+    ds_or_path: xr.Dataset | str | os.PathLike, land: xr.DataArray | None, units: str | None
+) -> _Run:
     ds = ds_or_path if isinstance(ds_or_path, xr.Dataset) else open_results(ds_or_path)
     if "concentration" not in ds:
         raise InputError("result has no 'concentration' variable; is this a walkers result?")
@@ -79,7 +103,8 @@ def _load(ds_or_path: xr.Dataset | str | os.PathLike, land: xr.DataArray | None)
         mask = np.asarray(land.values, dtype=bool)
     elif "land" in ds:
         mask = np.asarray(ds["land"].values) == 1
-    conc = np.asarray(ds["concentration"].values)
+    unit = concentration_unit(ds, units)
+    conc = unit.value(ds["concentration"].values)
     positive = conc[conc > 0]
     vmax = float(positive.max()) if positive.size else 1.0
     vmin = max(float(positive.min()) if positive.size else vmax, vmax * 10.0**-DECADES)
@@ -87,115 +112,106 @@ def _load(ds_or_path: xr.Dataset | str | os.PathLike, land: xr.DataArray | None)
         vmin = vmax / 10.0
     return _Run(
         ds=ds,
-        stamps=iso_times(ds["time"]),
-        hours=elapsed_seconds(ds["time"]) / 3600.0,
-        geographic=bool(int(ds.attrs.get("geographic", 0)))
-        or ds["x"].attrs.get("units") == "degrees_east",
+        stamps=[utc(t) for t in output_times(ds)],
+        hours=hours_since_start(ds),
         land=mask,
         norm=LogNorm(vmin=vmin, vmax=vmax),
-        units=str(ds["concentration"].attrs.get("units", "kg m-3")),
+        unit=unit,
     )
 
 
-def _figure(width: float, height: float) -> Figure:
-    layout = ConstrainedLayoutEngine(rect=(0.0, FOOTER_HEIGHT, 1.0, 1.0 - FOOTER_HEIGHT))
+def _footer_text(width_in: float, when: str) -> str:
+    caution = textwrap.fill(walkers.CAUTION, width=int(width_in * 19))
+    return f"{when}\n{caution}"
+
+
+def _figure(width: float, height: float, lines: int = 3) -> Figure:
+    """A figure whose layout keeps exactly the room the footer's ``lines`` need."""
+    footer = (lines * FOOTER_FONT * 1.3 + 4.0) / 72.0 / height
+    layout = ConstrainedLayoutEngine(rect=(0.0, footer, 1.0, 1.0 - footer))
     fig = Figure(figsize=(width, height), dpi=110, layout=layout)
     FigureCanvasAgg(fig)
     return fig
 
 
 def _footer(fig: Figure, when: str) -> None:
-    width_chars = int(fig.get_figwidth() * 19)
-    caution = textwrap.fill(walkers.CAUTION, width=width_chars)
-    fig.text(0.01, 0.005, f"{when}\n{caution}", fontsize=6, va="bottom", ha="left", color="0.25")
+    fig.text(
+        0.01,
+        0.005,
+        _footer_text(fig.get_figwidth(), when),
+        fontsize=FOOTER_FONT,
+        va="bottom",
+        ha="left",
+        color="0.25",
+    )
 
 
-def _edges(centres: np.ndarray) -> np.ndarray:
-    """Cell edges midway between centres and half a cell beyond the outer ones."""
-    c = np.asarray(centres, dtype=np.float64)
-    if c.size == 1:
-        return np.array([c[0] - 0.5, c[0] + 0.5])
-    mid = 0.5 * (c[1:] + c[:-1])
-    return np.concatenate([[2 * c[0] - mid[0]], mid, [2 * c[-1] - mid[-1]]])
-
-
-def _style_map_axes(run: _Run, ax: Axes) -> None:
-    ax.set_xlabel(run.axis_label("x"))
-    ax.set_ylabel(run.axis_label("y"))
-    for axis in (ax.xaxis, ax.yaxis):
-        axis.set_major_locator(MaxNLocator(5))
-        formatter = ScalarFormatter(useOffset=False)
-        formatter.set_scientific(False)
-        axis.set_major_formatter(formatter)
-    if run.geographic:
-        ax.set_aspect(1.0 / np.cos(np.deg2rad(float(run.ds["y"].mean()))))
-    else:
-        ax.set_aspect("equal")
-
-
-def _draw_receptors(run: _Run, ax: Axes, one_d: bool = False) -> None:
+def _draw_receptor_lines(run: _Run, ax: Axes) -> None:
+    """A 1-D run: each receptor as a dotted vertical line, labelled at the top."""
     ds = run.ds
     if "receptor_x" not in ds.coords or ds.sizes.get("receptor", 0) == 0:
         return
-    halo = [patheffects.withStroke(linewidth=2.5, foreground="white")]
-    for name, x, y in zip(
-        ds["receptor"].values, ds["receptor_x"].values, ds["receptor_y"].values, strict=True
-    ):
-        if one_d:
-            ax.axvline(x, color=RECEPTOR_COLOUR, lw=0.8, ls=":")
-            ax.annotate(
-                str(name),
-                (x, 1.0),
-                xycoords=("data", "axes fraction"),
-                fontsize=7,
-                color=RECEPTOR_COLOUR,
-                ha="left",
-                va="top",
-                xytext=(2, -2),
-                textcoords="offset points",
-            )
-            continue
-        ax.plot(x, y, marker="^", ms=7, mfc=RECEPTOR_COLOUR, mec="white", mew=0.8, ls="none")
+    for name, x in zip(ds["receptor"].values, ds["receptor_x"].values, strict=True):
+        ax.axvline(x, color=RECEPTOR_COLOUR, lw=0.8, ls=":")
         ax.annotate(
             str(name),
-            (x, y),
-            xytext=(5, 4),
-            textcoords="offset points",
+            (x, 1.0),
+            xycoords=("data", "axes fraction"),
             fontsize=7,
-            color="black",
-            path_effects=halo,
+            color=RECEPTOR_COLOUR,
+            ha="left",
+            va="top",
+            xytext=(2, -2),
+            textcoords="offset points",
         )
 
 
-def _draw_map(run: _Run, ax: Axes, field: np.ndarray):
-    """Land, the concentration field (log scale, empty cells blank) and the receptors.
-
-    The output grid is regular, so both layers are images (far faster to draw than meshes,
-    which matters for the animation).
-    """
-    xe, ye = _edges(run.ds["x"].values), _edges(run.ds["y"].values)
-    extent = (xe[0], xe[-1], ye[0], ye[-1])
-    if run.land is not None:
-        ax.imshow(
-            np.ma.masked_where(~run.land, run.land.astype(float)),
-            cmap=ListedColormap([LAND_COLOUR]),
-            extent=extent,
-            origin="lower",
-            interpolation="nearest",
-        )
+def _draw_map(run: _Run, ax: Axes, field: np.ndarray, counts: np.ndarray | None):
+    """Ground, the concentration field (log scale, display unit), thin cells hatched, the
+    release, the receptors and the map furniture. The output grid is regular, so the field is
+    an image (far faster to draw than a mesh, which matters for the animation)."""
+    ds = run.ds
+    xe, ye = cell_edges(ds["x"].values), cell_edges(ds["y"].values)
+    land = (
+        None
+        if run.land is None
+        else np.where(run.land, 1, ds["land"].values if "land" in ds else 0)
+    )
+    draw_ground(ax, ds, land)
     cmap = colormaps[CONC_CMAP].with_extremes(bad=(0, 0, 0, 0), under=(0, 0, 0, 0))
     image = ax.imshow(
-        np.ma.masked_less_equal(field, 0.0),
+        np.ma.masked_less_equal(run.conc(field), 0.0),
         cmap=cmap,
         norm=run.norm,
-        extent=extent,
+        extent=(xe[0], xe[-1], ye[0], ye[-1]),
         origin="lower",
         interpolation="nearest",
     )
-    _style_map_axes(run, ax)
-    _draw_receptors(run, ax)
-    ax.set_xlim(xe[0], xe[-1])
-    ax.set_ylim(ye[0], ye[-1])
+    thin = counts is not None and hatch_thin_cells(ax, ds, counts)
+    draw_places(ax, ds)
+    draw_furniture(ax, ds)
+    handles = legend_handles(ds, thin)
+    handles.append(
+        Line2D(
+            [], [], marker="*", ms=9, mfc=RELEASE_COLOUR, mec="white", ls="none", label="release"
+        )
+    )
+    if ds.sizes.get("receptor", 0):
+        handles.append(
+            Line2D(
+                [],
+                [],
+                marker="^",
+                ms=6,
+                mfc=RECEPTOR_COLOUR,
+                mec="white",
+                ls="--",
+                color=RECEPTOR_COLOUR,
+                lw=0.8,
+                label="receptor and its circle",
+            )
+        )
+    ax.legend(handles=handles, fontsize=6, loc="upper left", framealpha=0.85)
     return image
 
 
@@ -203,27 +219,35 @@ def _map_size(run: _Run, width: float) -> tuple[float, float]:
     """Figure size (in) whose map panel keeps the grid's true aspect without wide margins."""
     if run.one_dimensional:
         return width, 0.65 * width
-    xe, ye = _edges(run.ds["x"].values), _edges(run.ds["y"].values)
+    xe, ye = cell_edges(run.ds["x"].values), cell_edges(run.ds["y"].values)
     ratio = (ye[-1] - ye[0]) / (xe[-1] - xe[0])
     if run.geographic:
         ratio /= np.cos(np.deg2rad(float(run.ds["y"].mean())))
     panel = width - 2.3  # room for the y labels and the colour bar
-    return width, float(np.clip(panel * ratio + 1.4, 3.2, 1.4 * width)) / (1.0 - FOOTER_HEIGHT)
+    height = float(np.clip(panel * ratio + 1.0, 3.2, 1.4 * width))
+    if panel * ratio + 1.0 > height:  # a tall map: narrow the figure so no side band is left
+        width = float(np.clip((height - 1.0) / ratio + 2.3, 4.0, width))
+    return width, height
 
 
 def _colour_bar(run: _Run, fig: Figure, ax: Axes, mesh) -> None:
     """A colour bar as tall as the map itself (an inset follows the aspect-fixed axes)."""
     cax = ax.inset_axes((1.03, 0.0, 0.035, 1.0))
-    fig.colorbar(mesh, cax=cax).set_label(f"concentration ({run.units})")
+    bar = fig.colorbar(mesh, cax=cax)
+    bar.set_label(f"concentration ({run.unit.name}, log scale)")
+    bar.ax.yaxis.set_major_formatter(PLAIN_TICKS)
+    bar.ax.yaxis.set_minor_formatter(FuncFormatter(lambda v, _pos: ""))
 
 
-def _map_figure(run: _Run, field: np.ndarray, title: str, when: str, path: Path) -> Path:
+def _map_figure(
+    run: _Run, field: np.ndarray, counts: np.ndarray | None, title: str, when: str, path: Path
+) -> Path:
     fig = _figure(*_map_size(run, 7.0))
     ax = fig.add_subplot()
     if run.one_dimensional:
         _draw_profile(run, ax, field[0])
     else:
-        mesh = _draw_map(run, ax, field)
+        mesh = _draw_map(run, ax, field, counts)
         _colour_bar(run, fig, ax, mesh)
     ax.set_title(title, fontsize=10)
     _footer(fig, when)
@@ -235,18 +259,19 @@ def _draw_profile(run: _Run, ax: Axes, profile: np.ndarray):
     """A 1-D run: concentration along the channel on a log axis; empty cells are gaps."""
     (line,) = ax.plot(
         run.ds["x"].values,
-        np.where(profile > 0, profile, np.nan),
+        np.where(profile > 0, run.conc(profile), np.nan),
         color=colormaps[CONC_CMAP](0.35),
         lw=1.4,
     )
     ax.set_yscale("log")
-    xe = _edges(run.ds["x"].values)
+    xe = cell_edges(run.ds["x"].values)
     ax.set_xlim(xe[0], xe[-1])
     ax.set_ylim(float(run.norm.vmin or 0.0), float(run.norm.vmax or 1.0) * 2.0)
-    ax.set_xlabel(run.axis_label("x") if run.geographic else "distance along channel x (m)")
-    ax.set_ylabel(f"concentration ({run.units})")
+    ax.set_xlabel("longitude (degrees east)" if run.geographic else "distance along channel x (m)")
+    ax.set_ylabel(f"concentration ({run.unit.name})")
+    ax.yaxis.set_major_formatter(PLAIN_TICKS)
     ax.grid(True, which="major", lw=0.4, color="0.85")
-    _draw_receptors(run, ax, one_d=True)
+    _draw_receptor_lines(run, ax)
     return line
 
 
@@ -256,9 +281,9 @@ def _receptor_figure(run: _Run, path: Path) -> Path:
     n = ds.sizes["receptor"]
     fig = _figure(7.5, 1.2 + 1.55 * n)
     axes = fig.subplots(n, 1, sharex=True, squeeze=False)[:, 0]
-    series = ds["receptor_concentration"].transpose("receptor", "time").values
+    series = run.conc(ds["receptor_concentration"].transpose("receptor", "time").values)
     thresholds = (
-        ds["receptor_threshold"].transpose("receptor", ...).values
+        run.conc(ds["receptor_threshold"].transpose("receptor", ...).values)
         if "receptor_threshold" in ds
         else np.empty((n, 0))
     )
@@ -277,7 +302,7 @@ def _receptor_figure(run: _Run, path: Path) -> Path:
         for level in levels:
             ax.axhline(level, color="#b5432f", lw=0.9, ls="--")
             ax.annotate(
-                f"threshold {level:.3g} {run.units}",
+                f"threshold {plain(level)} {run.unit.name}",
                 (1.0, level),
                 xycoords=("axes fraction", "data"),
                 xytext=(-3, 2),
@@ -290,6 +315,8 @@ def _receptor_figure(run: _Run, path: Path) -> Path:
         if top > 0:
             ax.set_yscale("log")
             ax.set_ylim(top * 1e-4, top * 3.0)
+            ax.yaxis.set_major_formatter(PLAIN_TICKS)
+            ax.yaxis.set_minor_formatter(FuncFormatter(lambda v, _pos: ""))
         else:
             ax.text(
                 0.5,
@@ -301,7 +328,7 @@ def _receptor_figure(run: _Run, path: Path) -> Path:
                 fontsize=8,
                 color="0.4",
             )
-        ax.set_ylabel(run.units, fontsize=8)
+        ax.set_ylabel(run.unit.name, fontsize=8)
         ax.set_title(str(name), fontsize=9, loc="left")
         ax.grid(True, lw=0.4, color="0.88")
         ax.set_xlim(run.hours[0], run.hours[-1])
@@ -314,13 +341,13 @@ def _receptor_figure(run: _Run, path: Path) -> Path:
 
 def _budget_figure(run: _Run, path: Path) -> Path:
     ds = run.ds
-    parts: list[tuple[str, np.ndarray]] = [("in water", ds["mass_in_water"].values)]
-    if "mass_left" in ds:
+    parts: list[tuple[str, np.ndarray]] = [("in water", ds["budget_in_water"].values)]
+    if "budget_outflow" in ds:
         for name in ds["edge"].values:
-            left = ds["mass_left"].sel(edge=name).values
-            if np.any(left > 0):
-                parts.append((f"left, {name} edge", left))
-    for var, label in (("mass_decayed", "decayed"), ("mass_stranded", "stranded")):
+            outflow = ds["budget_outflow"].sel(edge=name).values
+            if np.any(outflow > 0):
+                parts.append((f"out through the {name} edge", outflow))
+    for var, label in (("budget_decayed", "decayed"), ("budget_held_dry", "held on dry cells")):
         if var in ds and np.any(ds[var].values > 0):
             parts.append((label, ds[var].values))
     fig = _figure(7.5, 4.4)
@@ -334,9 +361,11 @@ def _budget_figure(run: _Run, path: Path) -> Path:
         alpha=0.9,
         lw=0,
     )
-    ax.plot(run.hours, ds["mass_released"].values, color="black", lw=1.3, ls="--", label="released")
+    ax.plot(
+        run.hours, ds["budget_released"].values, color="black", lw=1.3, ls="--", label="released"
+    )
     ax.set_xlabel(run.time_label)
-    ax.set_ylabel(f"mass ({ds['mass_released'].attrs.get('units', 'kg')})")
+    ax.set_ylabel(f"mass ({ds['budget_released'].attrs.get('units', 'kg')})")
     ax.set_xlim(run.hours[0], run.hours[-1])
     ax.set_ylim(bottom=0.0)
     ax.grid(True, lw=0.4, color="0.88")
@@ -355,7 +384,7 @@ def _animation(run: _Run, path: Path, fps: int) -> Path:
     if run.one_dimensional:
         artist = _draw_profile(run, ax, conc[0, 0])
     else:
-        artist = _draw_map(run, ax, conc[0])
+        artist = _draw_map(run, ax, conc[0], None)
         _colour_bar(run, fig, ax, artist)
     title = ax.set_title(f"Concentration at {run.stamps[0]}", fontsize=10)
     _footer(fig, f"{run.stamps[0]} to {run.stamps[-1]}")
@@ -367,9 +396,9 @@ def _animation(run: _Run, path: Path, fps: int) -> Path:
     with writer.saving(fig, path, dpi=fig.dpi):
         for i in range(0, conc.shape[0], stride):
             if run.one_dimensional:
-                artist.set_ydata(np.where(conc[i, 0] > 0, conc[i, 0], np.nan))
+                artist.set_ydata(np.where(conc[i, 0] > 0, run.conc(conc[i, 0]), np.nan))
             else:
-                artist.set_data(np.ma.masked_less_equal(conc[i], 0.0))
+                artist.set_data(np.ma.masked_less_equal(run.conc(conc[i]), 0.0))
             title.set_text(f"Concentration at {run.stamps[i]}")
             writer.grab_frame()
     return path
@@ -384,8 +413,8 @@ def _chosen_indices(run: _Run, times: Sequence[float] | None) -> list[int]:
     for t in times:
         if not np.isfinite(t) or t < seconds[0] - 1e-9 or t > seconds[-1] + 1e-9:
             raise InputError(
-                f"figure time {t!r} s: must lie within the output times, 0 to {seconds[-1]:g} s "
-                "after the first output"
+                f"figure time {t / 3600.0:g} h: must lie within the output times, "
+                f"{seconds[0] / 3600.0:g} to {seconds[-1] / 3600.0:g} h after the run start"
             )
         chosen.append(int(np.argmin(np.abs(seconds - t))))
     return sorted(set(chosen))
@@ -398,6 +427,7 @@ def plot_results(
     times: Sequence[float] | None = None,
     land: xr.DataArray | None = None,
     fps: int = 4,
+    units: str | None = None,
 ) -> list[Path]:
     """Draw the figures of a run into ``outdir``; return the files written.
 
@@ -406,11 +436,12 @@ def plot_results(
     ds_or_path : a result Dataset, or the path of a file written by
         ``walkers.outputs.writer.write_results``.
     outdir : an existing, writable directory.
-    times : output times to map, in seconds after the first output time; the nearest output time
+    times : output times to map, in seconds after the run start; the nearest output time
         is drawn. Default: three times spread evenly after the start.
-    land : boolean (y, x) mask on the output grid, True on land; default: ``land_fraction >= 0.5``
-        from the result when present, else no land is drawn.
+    land : boolean (y, x) mask on the output grid, True on land; default: the result's ``land``
+        flags when present, else no land is drawn.
     fps : frames per second of the animation.
+    units : concentration unit to show (default: the scenario thresholds' unit, else mg/L).
 
     Files: ``concentration_max.png``, ``concentration_tNNNN.png`` (NNNN = output-time index),
     ``receptors.png`` (when there are receptors), ``mass_budget.png`` and ``plume.gif``.
@@ -420,36 +451,62 @@ def plot_results(
         raise InputError(f"figure directory {str(folder)!r} does not exist; create it first")
     if not os.access(folder, os.W_OK | os.X_OK):
         raise InputError(f"figure directory {str(folder)!r} is not writable; choose another")
-    run = _load(ds_or_path, land)
+    run = _load(ds_or_path, land, units)
     chosen = _chosen_indices(run, times)
-    written: list[Path] = []
-    cmax = (
-        run.ds["concentration_max"].values
-        if "concentration_max" in run.ds
-        else run.ds["concentration"].max("time").values
-    )
-    written.append(
-        _map_figure(
-            run,
-            np.asarray(cmax),
-            "Maximum concentration over the run",
-            f"{run.stamps[0]} to {run.stamps[-1]}",
-            folder / "concentration_max.png",
-        )
-    )
+    written = _summary_figures(run, folder)
+    conc = np.asarray(run.ds["concentration"].values)
+    counts = np.asarray(run.ds["particle_count"].values) if "particle_count" in run.ds else None
     for i in chosen:
         written.append(
             _map_figure(
                 run,
-                np.asarray(run.ds["concentration"].isel(time=i).values),
-                f"Concentration at {run.stamps[i]}",
+                conc[i],
+                None if counts is None else counts[i],
+                f"Concentration at {run.stamps[i]} ({run.hours[i]:g} h after the run start)",
                 run.stamps[i],
                 folder / f"concentration_t{i:04d}.png",
             )
         )
-    if "receptor_concentration" in run.ds and run.ds.sizes.get("receptor", 0) > 0:
-        written.append(_receptor_figure(run, folder / "receptors.png"))
-    if "mass_in_water" in run.ds:
-        written.append(_budget_figure(run, folder / "mass_budget.png"))
     written.append(_animation(run, folder / "plume.gif", fps))
     return written
+
+
+def _summary_figures(run: _Run, folder: Path) -> list[Path]:
+    """The maximum map (thin cells judged by the particle count at each cell's maximum), the
+    receptor series (when there are receptors) and the mass budget."""
+    conc = np.asarray(run.ds["concentration"].values)
+    cmax = (
+        np.asarray(run.ds["concentration_max"].values)
+        if "concentration_max" in run.ds
+        else conc.max(axis=0)
+    )
+    at_max = (
+        np.take_along_axis(
+            np.asarray(run.ds["particle_count"].values), conc.argmax(axis=0)[None], axis=0
+        )[0]
+        if "particle_count" in run.ds
+        else None
+    )
+    written = [
+        _map_figure(
+            run,
+            cmax,
+            at_max,
+            "Maximum concentration over the run",
+            f"{run.stamps[0]} to {run.stamps[-1]}",
+            folder / "concentration_max.png",
+        )
+    ]
+    if "receptor_concentration" in run.ds and run.ds.sizes.get("receptor", 0) > 0:
+        written.append(_receptor_figure(run, folder / "receptors.png"))
+    if "budget_in_water" in run.ds:
+        written.append(_budget_figure(run, folder / "mass_budget.png"))
+    return written
+
+
+def report_figures(
+    ds_or_path: xr.Dataset | str | os.PathLike, outdir: str | os.PathLike, units: str | None = None
+) -> list[Path]:
+    """The figures a report shows: the maximum map, the receptor series (when there are
+    receptors) and the mass budget, drawn into the existing folder ``outdir``."""
+    return _summary_figures(_load(ds_or_path, None, units), Path(outdir))

@@ -280,7 +280,7 @@ def _tracks_to_cf(ds: xr.Dataset, history: str) -> tuple[xr.Dataset, dict]:
         ("trajectory", "time"),
         in_water.astype(np.int8),
         {
-            "long_name": "particle is in the water (1) or has left or stranded (0)",
+            "long_name": "particle is in the water (1), or gone out, decayed or held dry (0)",
             "units": "1",
             "flag_values": np.array([0, 1], dtype=np.int8),
             "flag_meanings": "gone in_water",

@@ -39,9 +39,9 @@ class _Accumulator:
         self.receptor = np.zeros((nrec, nt))
         self.budget = {
             k: np.zeros(nt)
-            for k in ("mass_released", "mass_in_water", "mass_decayed", "mass_stranded")
+            for k in ("budget_released", "budget_in_water", "budget_decayed", "budget_held_dry")
         }
-        self.left = np.zeros((len(EDGE_NAMES), nt))
+        self.outflow = np.zeros((len(EDGE_NAMES), nt))
         self.in_water = np.zeros(nt, dtype=np.int32)
         self.moments = {
             k: np.full(nt, np.nan)
@@ -56,7 +56,7 @@ class _Accumulator:
         out = {
             "conc_max": self.conc_max,
             "receptor": self.receptor,
-            "left": self.left,
+            "outflow": self.outflow,
             "in_water": self.in_water,
         }
         if isinstance(self.fields, MemoryFields):
@@ -83,11 +83,11 @@ class _Accumulator:
         for fields on disk, ``fields`` (KeyError if an array is missing)."""
         acc = cls.__new__(cls)
         acc.conc_max, acc.receptor = arrays["conc_max"], arrays["receptor"]
-        acc.left, acc.in_water = arrays["left"], arrays["in_water"]
+        acc.outflow, acc.in_water = arrays["outflow"], arrays["in_water"]
         acc.track_x, acc.track_y = arrays.get("track_x"), arrays.get("track_y")
         acc.budget = {
             k: arrays[f"budget.{k}"]
-            for k in ("mass_released", "mass_in_water", "mass_decayed", "mass_stranded")
+            for k in ("budget_released", "budget_in_water", "budget_decayed", "budget_held_dry")
         }
         acc.moments = {
             k: arrays[f"moment.{k}"]
@@ -116,7 +116,7 @@ class _Accumulator:
         b = reduce.mass_budget(particles)
         for name in self.budget:
             self.budget[name][k] = b[name]
-        self.left[:, k] = b["mass_left"]
+        self.outflow[:, k] = b["budget_outflow"]
         self.in_water[k] = b["particles_in_water"]
         for name, value in reduce.cloud_moments(particles, flow.geographic).items():
             self.moments[name][k] = value
@@ -171,10 +171,10 @@ class _Accumulator:
                 self.receptor,
                 {"units": kgm3, "long_name": "concentration at receptor"},
             ),
-            "mass_left": (
+            "budget_outflow": (
                 ("edge", "time"),
-                self.left,
-                {"units": "kg", "long_name": "mass that left through the edge"},
+                self.outflow,
+                {"units": "kg", "long_name": "mass that went out through the open edge"},
             ),
             "particles_in_water": (
                 "time",
@@ -193,10 +193,10 @@ class _Accumulator:
                 },
             )
         long_names = {
-            "mass_released": "mass released so far",
-            "mass_in_water": "mass in the water",
-            "mass_decayed": "mass lost to decay",
-            "mass_stranded": "mass held in dry cells",
+            "budget_released": "mass released so far",
+            "budget_in_water": "mass in the water",
+            "budget_decayed": "mass lost to decay",
+            "budget_held_dry": "mass held in dry cells",
         }
         for name, values in self.budget.items():
             data[name] = ("time", values, {"units": "kg", "long_name": long_names[name]})

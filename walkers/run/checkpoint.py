@@ -3,7 +3,7 @@
 A checkpoint holds everything :func:`walkers.run.simulate.simulate` needs to go on (a
 :class:`~walkers.run.simulate.RunState`): the particle arrays, the owner of each particle, the index
 of the next output time and the reductions recorded so far, plus a fingerprint of the run (the
-scenario text, seed, engine, walkers version and the size and modification time of every flow
+scenario text, seed, stepper, walkers version and the size and modification time of every flow
 file). The random numbers of a step are a hash of (run key, particle, step index), so a run
 continued from an exactly restored state gives bitwise the same result as one never interrupted.
 
@@ -64,11 +64,11 @@ def fields_folder(path: str | os.PathLike) -> Path:
     return path.with_name(path.name + ".fields")
 
 
-def run_fingerprint(scenario: Scenario, engine: str) -> dict[str, Any]:
+def run_fingerprint(scenario: Scenario, stepper: str) -> dict[str, Any]:
     """What must not change between an interrupted run and its continuation.
 
     Keys: ``scenario_sha256`` (SHA-256 of the scenario text; of ``repr`` for a scenario given as
-    a dict), ``seed``, ``engine``, ``walkers_version`` and ``flow_files`` (path, bytes,
+    a dict), ``seed``, ``stepper``, ``walkers_version`` and ``flow_files`` (path, bytes,
     modification time in ns, for each flow file).
     """
     text = scenario.text if scenario.text is not None else repr(scenario)
@@ -79,7 +79,7 @@ def run_fingerprint(scenario: Scenario, engine: str) -> dict[str, Any]:
     return {
         "scenario_sha256": hashlib.sha256(text.encode("utf-8")).hexdigest(),
         "seed": int(scenario.seed),
-        "engine": str(engine),
+        "stepper": str(stepper),
         "walkers_version": walkers.__version__,
         "flow_files": files,
     }
@@ -139,8 +139,8 @@ def _differences(saved: dict[str, Any], now: dict[str, Any]) -> list[str]:
         out.append(f"the seed changed (was {saved.get('seed')}, now {now['seed']})")
     if saved.get("scenario_sha256") != now["scenario_sha256"]:
         out.append("the scenario text changed")
-    if saved.get("engine") != now["engine"]:
-        out.append(f"the engine changed (was {saved.get('engine')}, now {now['engine']})")
+    if saved.get("stepper") != now["stepper"]:
+        out.append(f"the stepper changed (was {saved.get('stepper')}, now {now['stepper']})")
     if saved.get("walkers_version") != now["walkers_version"]:
         out.append(
             f"walkers changed (was {saved.get('walkers_version')}, now {now['walkers_version']})"
@@ -167,7 +167,7 @@ def load_checkpoint(path: str | os.PathLike, fingerprint: dict[str, Any]) -> Run
     """The run state saved in ``path``, if it was written for the run ``fingerprint`` describes.
 
     Raises InputError if the file is missing, damaged, of another format, or written for a run
-    that differs (scenario text, seed, engine, walkers version or flow files), saying what
+    that differs (scenario text, seed, stepper, walkers version or flow files), saying what
     differs and what to do.
     """
     path = Path(path)

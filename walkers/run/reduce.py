@@ -15,7 +15,7 @@ import numpy as np
 from scipy.ndimage import gaussian_filter
 
 from walkers.engine import kernels
-from walkers.engine.state import DECAYED, IN_WATER, LEFT, STRANDED, WAITING, ParticleState
+from walkers.engine.state import DECAYED, EXITED, HELD_DRY, IN_WATER, WAITING, ParticleState
 from walkers.fields.geo import metres_per_degree
 from walkers.scenario.config import EDGE_NAMES, OutputGrid, Receptor
 
@@ -98,23 +98,23 @@ def receptor_values(
 
 
 def mass_budget(state: ParticleState) -> dict[str, np.ndarray | float]:
-    """Mass (kg) released, in water, left through each edge, decayed and stranded.
+    """Mass (kg) released, in water, out through each edge, decayed and held dry.
 
-    released = in water + Σ left + decayed + stranded holds to round-off: decayed is what each
+    released = in water + Σ outflow + decayed + held dry holds to round-off: decayed is what each
     released particle lost since release, plus the remainder of particles retired as decayed.
     """
     st = state.status
     released = st != WAITING
-    left = np.array([state.mass[st == LEFT + e].sum() for e in range(len(EDGE_NAMES))])
+    outflow = np.array([state.mass[st == EXITED + e].sum() for e in range(len(EDGE_NAMES))])
     return {
-        "mass_released": float(state.initial_mass[released].sum()),
-        "mass_in_water": float(state.mass[st == IN_WATER].sum()),
-        "mass_stranded": float(state.mass[st == STRANDED].sum()),
-        "mass_decayed": float(
+        "budget_released": float(state.initial_mass[released].sum()),
+        "budget_in_water": float(state.mass[st == IN_WATER].sum()),
+        "budget_held_dry": float(state.mass[st == HELD_DRY].sum()),
+        "budget_decayed": float(
             (state.initial_mass[released] - state.mass[released]).sum()
             + state.mass[st == DECAYED].sum()
         ),
-        "mass_left": left,
+        "budget_outflow": outflow,
         "particles_in_water": int(np.count_nonzero(st == IN_WATER)),
     }
 

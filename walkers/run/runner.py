@@ -66,8 +66,25 @@ def check_places(scenario: Scenario, flow: FlowField, offset: float) -> None:
         )
 
 
+def release_places(scenario: Scenario) -> str:
+    """JSON list of each release's name and centre in grid coordinates (the mean of its
+    vertices), kept in the result's ``release_places`` attribute for maps and reports."""
+    return json.dumps(
+        [
+            {
+                "name": r.name,
+                "x": float(np.mean(r.coords[:, 0])),
+                "y": float(np.mean(r.coords[:, 1])),
+            }
+            for r in scenario.releases
+        ]
+    )
+
+
 def land_on_output_grid(flow: FlowField, scenario: Scenario, t0: float, t1: float) -> np.ndarray:
-    """1 where the output cell centre lies in a flow cell that is dry in every frame of the run."""
+    """Per output cell: 1 where its centre lies in a flow cell that is dry in every frame of the
+    run, 2 where it lies outside the flow grid (more than half a flow cell beyond its outer cell
+    centres), 0 in water."""
     g = scenario.output
     xe = np.concatenate([[-np.inf], 0.5 * (flow.x[1:] + flow.x[:-1]), [np.inf]])
     ye = np.concatenate([[-np.inf], 0.5 * (flow.y[1:] + flow.y[:-1]), [np.inf]])
@@ -77,7 +94,13 @@ def land_on_output_grid(flow: FlowField, scenario: Scenario, t0: float, t1: floa
     i0, i1 = flow.frame_range(t0, t1)
     for k in range(i0, i1 + 1):
         ever_wet |= flow.wet.frames(k, k)[0] > 0.5
-    return (~ever_wet[np.ix_(j, i)]).astype(np.int8)
+    land = (~ever_wet[np.ix_(j, i)]).astype(np.int8)
+    half_x = 0.5 * (flow.x[-1] - flow.x[0]) / max(flow.x.size - 1, 1)
+    half_y = 0.5 * (flow.y[-1] - flow.y[0]) / max(flow.y.size - 1, 1)
+    outside_x = (g.x < flow.x[0] - half_x) | (g.x > flow.x[-1] + half_x)
+    outside_y = (g.y < flow.y[0] - half_y) | (g.y > flow.y[-1] + half_y)
+    land[outside_y[:, None] | outside_x[None, :]] = 2
+    return land
 
 
 def memory_estimate(scenario: Scenario, flow: FlowField) -> tuple[int, int]:
@@ -160,7 +183,7 @@ def input_provenance(scenario: Scenario) -> list[dict[str, Any]]:
 def simulate_scenario(
     scenario: Scenario,
     *,
-    engine: Literal["compiled", "numpy"] = "compiled",
+    stepper: Literal["fast", "reference"] = "fast",
     progress: Callable[[float, float, int], None] | None = None,
     resume: RunState | None = None,
     on_output: Callable[[RunState], None] | None = None,
@@ -185,7 +208,7 @@ def simulate_scenario(
         seed=scenario.seed,
         tracks=scenario.tracks,
         time_step_check="substep" if scenario.substep else "fail",
-        engine=engine,
+        stepper=stepper,
         progress=progress,
         title=scenario.title,
         scenario_text=scenario.text or "",
@@ -197,12 +220,15 @@ def simulate_scenario(
         land_on_output_grid(flow, scenario, offset, offset + scenario.duration),
         {
             "units": "1",
-            "long_name": "land or never-wet cell (1) in the flow",
-            "flag_values": np.array([0, 1], dtype=np.int8),
-            "flag_meanings": "water land",
+            "long_name": "water (0), land or never-wet cell (1), outside the flow grid (2)",
+            "flag_values": np.array([0, 1, 2], dtype=np.int8),
+            "flag_meanings": "water land outside_flow_grid",
         },
     )
     ds.attrs["input_files"] = json.dumps(input_provenance(scenario))
+    if scenario.comment:
+        ds.attrs["comment"] = scenario.comment
+    ds.attrs["release_places"] = release_places(scenario)
     ds.attrs["run_start"] = scenario.start_iso
     ds.attrs["run_end"] = scenario.end_iso
     return ds

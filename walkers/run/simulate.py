@@ -225,7 +225,7 @@ def simulate(
     member: int | None = None,
     tracks: int = 0,
     time_step_check: Literal["fail", "substep", "warn", "off"] = "fail",
-    engine: Literal["compiled", "numpy"] = "compiled",
+    stepper: Literal["fast", "reference"] = "fast",
     progress: ProgressCallback | None = None,
     title: str = "",
     scenario_text: str = "",
@@ -248,7 +248,7 @@ def simulate(
     seed : the run's seed; ``member`` selects an ensemble member's independent streams.
     tracks : number of particles whose positions are kept at every output time.
     time_step_check : on a too-long time step, fail, sub-step, warn, or skip the check.
-    engine : the compiled kernels, or their numpy twin (same numbers, slower).
+    stepper : "fast", the compiled kernels, or their numpy twin (same numbers, slower).
     progress : called as progress(simulated seconds, total seconds, particles in water).
     resume : continue from a saved :class:`RunState` (same arguments otherwise).
     on_output : called with the :class:`RunState` after each output time (for checkpoints).
@@ -312,7 +312,7 @@ def simulate(
                     steps_per_output,
                     step0,
                     walk_key,
-                    engine,
+                    stepper,
                 )
             depths = _particle_depths_at(particles, flow, t, xe, ye)
             conc, count = reduce.concentration(particles, depths, output_grid, measure)
@@ -379,7 +379,7 @@ def _advance_interval(
     steps: int,
     step0: int,
     walk_key: int,
-    engine: Literal["compiled", "numpy"],
+    stepper: Literal["fast", "reference"],
 ) -> None:
     """Move the particles through the output interval from ``t_prev`` to ``t`` in ``steps`` steps
     of ``dt`` (the first numbered ``step0``), in calls of at most :data:`PARTICLE_STEPS_PER_CALL`
@@ -391,7 +391,7 @@ def _advance_interval(
     for s in range(0, steps, per_call):
         n = min(per_call, steps - s)
         t_call = t_prev + s * dt
-        mover.advance(particles, inputs, t_call, dt, n, step0 + s, walk_key, engine)
+        mover.advance(particles, inputs, t_call, dt, n, step0 + s, walk_key, stepper)
         _check_positions(particles, owner, releases, flow, t_call, t_call + n * dt)
 
 

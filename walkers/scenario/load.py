@@ -151,6 +151,7 @@ def _build(
         text=text,
         source_path=source_path,
         transport_base=base_transport,
+        comment=run["comment"] or "",
     )
 
 

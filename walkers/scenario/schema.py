@@ -11,8 +11,8 @@ from walkers.scenario.keys import FLOW_ROLES, Choice, Key, Section
 
 _EDGE = Key(
     "choice",
-    "What happens to a particle that reaches this edge of the flow domain: 'absorbing' (it leaves "
-    "and its mass is booked to this edge in the budget) or 'reflecting' (it is mirrored back).",
+    "What happens to a particle that reaches this edge of the flow domain: 'absorbing' (it goes "
+    "out and its mass is booked to this edge in the budget) or 'reflecting' (it is mirrored back).",
     default="absorbing",
     allowed=("absorbing", "reflecting"),
 )
@@ -26,6 +26,11 @@ SCHEMA = Section(
             "The run's time span, time step and numerical options.",
             {
                 "title": Key("text", "A title carried into the outputs (default: file name)."),
+                "comment": Key(
+                    "text",
+                    "A note carried into the outputs as their 'comment' attribute, e.g. that the "
+                    "place is invented.",
+                ),
                 "start": Key(
                     "time",
                     "Start of the run, ISO 8601 with a zone, e.g. 2026-05-04T06:00:00Z.",

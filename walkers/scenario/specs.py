@@ -145,6 +145,7 @@ class Scenario:
     transport_base : the same without a meaningful dispersion (zero coefficients); internal.
     geographic : positions are lon/lat degrees (grid coordinates of a geographic flow grid).
     text : the scenario file's text (TOML; for a dict input, None).
+    comment : a note for the outputs' ``comment`` attribute (may be empty).
     """
 
     title: str
@@ -169,6 +170,7 @@ class Scenario:
     text: str | None
     source_path: Path | None
     transport_base: Transport = dataclasses.field(repr=False)
+    comment: str = ""
 
     @property
     def duration(self) -> float:

@@ -18,7 +18,7 @@ from collections.abc import Callable
 import numpy as np
 from scipy import stats
 
-from walkers.engine.state import IN_WATER, LEFT, ParticleState
+from walkers.engine.state import EXITED, IN_WATER, ParticleState
 from walkers.fields.analytic import analytic_flow, grid_flow
 from walkers.fields.base import centre_to_edges
 from walkers.run import reduce
@@ -198,7 +198,7 @@ def case_absorbing_edge(particles: int, seed: int, velocity_factor: float = 1.0)
         np.zeros(particles), np.zeros(particles), np.ones(particles), np.zeros(particles)
     )
     st = evolve(flow, tr, st, 0.0, t_end, seed)
-    arrivals = np.where(st.status == LEFT + 1, st.exit_time, np.inf)
+    arrivals = np.where(st.status == EXITED + 1, st.exit_time, np.inf)
     result = CaseResult("absorbing-edge", "Absorbing downstream edge: first passage", particles)
     for q in (0.1, 0.5, 0.9):
         t = float(law.ppf(q))
@@ -328,24 +328,24 @@ def case_decay_budget(particles: int, seed: int, decay_factor: float = 1.0) -> C
     midpoint_bound = expected * (rate_k * delta) ** 2 / 24.0 + 1e-12 * expected
     src = "first-order decay M0·exp(−kt) (Fischer et al. 1979, from memory)"
     residual = (
-        ds.mass_released
-        - ds.mass_in_water
-        - ds.mass_left.sum("edge")
-        - ds.mass_decayed
-        - ds.mass_stranded
+        ds.budget_released
+        - ds.budget_in_water
+        - ds.budget_outflow.sum("edge")
+        - ds.budget_decayed
+        - ds.budget_held_dry
     )
     result = CaseResult("decay-budget", "Decay of a continuous release; mass budget", particles)
     result.checks += [
         Check(
             "mass in water at end (kg)",
-            float(ds.mass_in_water[-1]),
+            float(ds.budget_in_water[-1]),
             expected,
             midpoint_bound,
             src + "; midpoint-rule error bound for stratified release times",
         ),
         Check(
             "mass released (kg) = rate × duration",
-            float(ds.mass_released[-1]),
+            float(ds.budget_released[-1]),
             q * duration,
             1e-12 * q * duration,
             "definition of a constant-rate release",

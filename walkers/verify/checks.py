@@ -103,14 +103,14 @@ def evolve(
     t0: float,
     t1: float,
     seed: int,
-    engine: Literal["compiled", "numpy"] = "compiled",
+    stepper: Literal["fast", "reference"] = "fast",
 ) -> ParticleState:
     """Move particles from t0 to t1 (s) in one window (steady or short flows), with the compiled
     kernels or their numpy twin."""
     walk_key, _ = run_streams(seed)
     nsteps = int(round((t1 - t0) / transport.dt))
     inputs = mover.kernel_inputs(flow, flow.window(t0, t1), transport)
-    mover.advance(state, inputs, t0, transport.dt, nsteps, 0, walk_key, engine=engine)
+    mover.advance(state, inputs, t0, transport.dt, nsteps, 0, walk_key, stepper=stepper)
     return state
 
 

@@ -9,7 +9,7 @@ condition; Hunter, Craig & Phillips 1993, J. Comput. Phys. 106; Visser 1997, Mar
 Ser. 158; from memory). The cases run at steps whose spread σ = √(2K dt) is 0.25 to 2 cells and
 Courant numbers u dt / Δx up to 1.
 
-The ``engine`` override runs the numpy twin instead of the compiled kernel, so that the tests can
+The ``stepper`` override runs the numpy twin instead of the compiled kernel, so that the tests can
 swap the twin's path tracer for a deliberately wrong wall rule and show every check can fail.
 """
 
@@ -22,7 +22,7 @@ from typing import Literal
 import numpy as np
 from scipy import stats
 
-from walkers.engine.state import IN_WATER, LEFT, ParticleState
+from walkers.engine.state import EXITED, IN_WATER, ParticleState
 from walkers.fields.analytic import grid_flow
 from walkers.fields.base import FlowField
 from walkers.scenario.config import Dispersion, Transport
@@ -35,7 +35,7 @@ WELL_MIXED = (
     "scipy.stats.chisquare"
 )
 HOLDS = "a reflecting wall lets nothing through (common practice)"
-Engine = Literal["compiled", "numpy"]
+Stepper = Literal["fast", "reference"]
 SIGMAS = (0.25, 0.5, 1.0, 2.0)  # spread of one step, in cells
 GEOMETRIES = ("walls-x", "walls-y", "one-cell-channel", "staircase", "headland")
 ALL_EDGES = ("west", "east", "south", "north")
@@ -48,11 +48,11 @@ def _walk(
     y: np.ndarray,
     nsteps: int,
     seed: int,
-    engine: Engine,
+    stepper: Stepper,
 ) -> ParticleState:
     """Move unit-mass particles released at t = 0 over nsteps steps of a steady flow."""
     state = ParticleState.from_arrays(x, y, np.ones(x.size), np.zeros(x.size))
-    return evolve(flow, transport, state, 0.0, nsteps * transport.dt, seed, engine)
+    return evolve(flow, transport, state, 0.0, nsteps * transport.dt, seed, stepper)
 
 
 def _uniform_in_water(
@@ -109,7 +109,7 @@ def _near_land(wet: np.ndarray) -> np.ndarray:
 
 
 def _basin_checks(
-    result: CaseResult, geometry: str, sigma: float, particles: int, seed: int, engine: Engine
+    result: CaseResult, geometry: str, sigma: float, particles: int, seed: int, stepper: Stepper
 ) -> None:
     """A closed basin with no flow: counts per wet cell against uniform after 100 steps."""
     xe, ye, wet = _basin(geometry)
@@ -121,7 +121,7 @@ def _basin_checks(
     )
     rng = np.random.default_rng(seed)
     x0, y0 = _uniform_in_water(rng, particles, xe, ye, wet)
-    st = _walk(flow, tr, x0, y0, 100, seed, engine)
+    st = _walk(flow, tr, x0, y0, 100, seed, stepper)
     label = f"{geometry}, σ = {sigma:g} cell"
     result.checks.append(
         Check(
@@ -159,7 +159,7 @@ def _channel_checks(
     courant: float,
     particles: int,
     seed: int,
-    engine: Engine,
+    stepper: Stepper,
 ) -> None:
     """A channel `width` cells wide between single rows of land cells, flow along it at the
     given Courant number, absorbing domain edges beyond the land. Particles start uniform over a
@@ -191,10 +191,10 @@ def _channel_checks(
     tr = Transport(
         dt=1.0, dispersion=Dispersion(k1=k, k2=k), edges=dict.fromkeys(ALL_EDGES, "absorbing")
     )
-    st = _walk(flow, tr, x0, y0, nsteps, seed, engine)
+    st = _walk(flow, tr, x0, y0, nsteps, seed, stepper)
     pa, pc = (st.x, st.y) if axis == "x" else (st.y, st.x)
     label = f"walls along {axis}, {width} cell(s) wide, σ = {sigma:g}, Courant {courant:g}"
-    side_edges = (LEFT + 2, LEFT + 3) if axis == "x" else (LEFT + 0, LEFT + 1)
+    side_edges = (EXITED + 2, EXITED + 3) if axis == "x" else (EXITED + 0, EXITED + 1)
     through_banks = float(np.isin(st.status, side_edges).sum())
     result.checks.append(
         Check(
@@ -243,7 +243,7 @@ def _channel_checks(
 def case_coast_well_mixed(
     particles: int,
     seed: int,
-    engine: Engine = "compiled",
+    stepper: Stepper = "fast",
     sigmas: tuple[float, ...] = SIGMAS,
     geometries: tuple[str, ...] = GEOMETRIES,
 ) -> CaseResult:
@@ -256,18 +256,18 @@ def case_coast_well_mixed(
     for n, sigma in enumerate(sigmas):
         s = seed + 10 * n
         if "walls-x" in geometries:
-            _channel_checks(result, "x", 10, sigma, 1.0, particles, s, engine)
+            _channel_checks(result, "x", 10, sigma, 1.0, particles, s, stepper)
         if "walls-y" in geometries:
-            _channel_checks(result, "y", 10, sigma, 0.5, particles, s + 1, engine)
+            _channel_checks(result, "y", 10, sigma, 0.5, particles, s + 1, stepper)
         if "one-cell-channel" in geometries:
-            _channel_checks(result, "x", 1, sigma, 1.0, particles // 4, s + 2, engine)
+            _channel_checks(result, "x", 1, sigma, 1.0, particles // 4, s + 2, stepper)
         for k, basin in enumerate(("staircase", "headland")):
             if basin in geometries:
-                _basin_checks(result, basin, sigma, particles, s + 3 + k, engine)
+                _basin_checks(result, basin, sigma, particles, s + 3 + k, stepper)
     return result
 
 
-def case_thin_barrier(particles: int, seed: int, engine: Engine = "compiled") -> CaseResult:
+def case_thin_barrier(particles: int, seed: int, stepper: Stepper = "fast") -> CaseResult:
     """A still basin split by a land wall one cell thick: nothing crosses at any step size."""
     result = CaseResult(
         "thin-barrier", "A land wall one cell thick holds, steps up to 2 cells", particles
@@ -287,7 +287,7 @@ def case_thin_barrier(particles: int, seed: int, engine: Engine = "compiled") ->
         )
         x0 = rng.uniform(0.0, 40.0, particles)
         y0 = rng.uniform(0.0, 40.0, particles)
-        st = _walk(flow, tr, x0, y0, int(round(600.0 / dt)), seed, engine)
+        st = _walk(flow, tr, x0, y0, int(round(600.0 / dt)), seed, stepper)
         beyond = float(np.sum(st.x > 40.0))
         result.checks.append(
             Check(
@@ -302,7 +302,7 @@ def case_thin_barrier(particles: int, seed: int, engine: Engine = "compiled") ->
     return result
 
 
-def case_land_wall_images(particles: int, seed: int, engine: Engine = "compiled") -> CaseResult:
+def case_land_wall_images(particles: int, seed: int, stepper: Stepper = "fast") -> CaseResult:
     """A point release 5 m from a land wall one cell thick (water behind it too): positions follow
     the method-of-images law at step spreads of 1 and 2 cells."""
     result = CaseResult(
@@ -328,7 +328,7 @@ def case_land_wall_images(particles: int, seed: int, engine: Engine = "compiled"
             np.zeros(particles),
             int(round(t_end / dt)),
             seed,
-            engine,
+            stepper,
         )
         behind = float(np.sum(st.x < 0.0))
         result.checks.append(
