@@ -829,6 +829,32 @@ def depth_at_particles(x, y, depth, xe, ye, out):
 
 
 @nb.njit(**JIT)
+def water_moments(x, y, m, status, ox, oy, sx, sy):
+    """Mass-weighted sums over the particles in water, in particle order (serial, so bitwise
+    reproducible): (Σm, Σm·dx, Σm·dy, Σm·dx², Σm·dy², Σm·dx·dy) with dx = (x - ox)·sx and
+    dy = (y - oy)·sy (sx, sy: metres per grid unit, or 1)."""
+    s0 = 0.0
+    s1x = 0.0
+    s1y = 0.0
+    sxx = 0.0
+    syy = 0.0
+    sxy = 0.0
+    for p in range(x.shape[0]):
+        if status[p] != STATUS_WATER:
+            continue
+        w = m[p]
+        dx = (x[p] - ox) * sx
+        dy = (y[p] - oy) * sy
+        s0 += w
+        s1x += w * dx
+        s1y += w * dy
+        sxx += w * dx * dx
+        syy += w * dy * dy
+        sxy += w * dx * dy
+    return s0, s1x, s1y, sxx, syy, sxy
+
+
+@nb.njit(**JIT)
 def normals_for(key, particles, step):
     """The two normal deviates of each listed particle at a step (for tests and the twin)."""
     n = particles.shape[0]
