@@ -32,7 +32,7 @@ SCENARIOS = REPO / "scenarios"
 REFERENCE = Path(__file__).resolve().parent / "data" / "demo_reference.json"
 PARTICLES = 2000  # of the demo's 20 000: the same code paths in a tenth of the time
 #: Attributes that name files on the machine that ran the demo, so differ between checkouts.
-MACHINE_ATTRS = {"input_files"}
+MACHINE_ATTRS = {"input_files", "source"}
 
 
 def demo_result() -> xr.Dataset:
