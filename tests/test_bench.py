@@ -22,6 +22,14 @@ FIELDS = {
     "gridding_particles_per_s",
     "concentration_particles_per_s",
     "first_step_warm_s",
+    "scenario_steps_per_s_1thread",
+    "scenario_steps_per_cpu_s_1thread",
+    "scenario_steps_per_s_2threads",
+    "scenario_over_reference",
+    "scenario_speedup_1_to_2_threads",
+    "rk4_over_euler_cost",
+    "scenario_compiled_minus_numpy_max_m",
+    "scenario_workload",
     "machine",
     "workload",
     "caution",
@@ -38,7 +46,8 @@ def small_result():
 def test_quick_benchmark_reports_every_field(small_result):
     r = small_result
     assert FIELDS <= set(r)
-    for key in FIELDS - {"machine", "workload", "caution", "peak_memory_method"}:
+    texts = {"machine", "workload", "scenario_workload", "caution", "peak_memory_method"}
+    for key in FIELDS - texts:
         assert np.isfinite(r[key]) and r[key] >= 0, key
     assert r["peak_memory_method"].startswith("projected from 50,000")
     assert r["workload"]["grid_cells"] == [200, 100] and r["workload"]["frames"] >= 3
@@ -55,6 +64,24 @@ def test_benchmark_engines_agree_on_the_same_particles(small_result):
     """The compiled fast path and the numpy twin move the benchmark's particles alike (DESIGN.md
     §4.7: 1e-12 of the 4 km basin)."""
     assert small_result["compiled_minus_numpy_max_m"] <= 1e-12 * 4000.0
+    assert small_result["scenario_compiled_minus_numpy_max_m"] <= 1e-12 * 4000.0
+
+
+def test_scenario_workload_takes_the_general_step():
+    """The scenario workload leaves the fast path on every option the estuary demo uses: gridded
+    flow-aligned K with the drift term, flats that dry as the tide falls, decay, the bridge test
+    at absorbing edges; some of its particles start on the flats and strand."""
+    flow, transport = bench.scenario_workload()
+    inputs = mover.kernel_inputs(flow, flow.window(0.0, float(flow.times[-1])), transport)
+    ndim, scheme, aligned, drift, bridge = inputs.opts[:5]
+    assert (ndim, scheme, aligned, drift, bridge) == (2, 0, 1, 1, 1)
+    assert inputs.disp[4][0] < 0.0  # K on the grid
+    assert transport.decay_rate > 0.0 and "absorbing" in transport.edges.values()
+    dry = 1.0 - flow.wet.data.mean(axis=(1, 2))
+    assert dry[-1] > dry[0] > 1.0 - bench.reference_workload()[0].wet.data[0].mean()
+    state = bench.initial_state(2000, flow)
+    mover.advance(state, inputs, 0.0, bench.DT, 2, 0, bench.KEY)
+    assert 0 < np.count_nonzero(state.status == 2) < 1000
 
 
 def test_reference_workload_has_land_walls_and_open_edges():

@@ -31,8 +31,7 @@ REPO = Path(__file__).resolve().parents[1]
 SCENARIOS = REPO / "scenarios"
 REFERENCE = Path(__file__).resolve().parent / "data" / "demo_reference.json"
 PARTICLES = 2000  # of the demo's 20 000: the same code paths in a tenth of the time
-#: Attributes that name files on the machine that ran the demo (input paths, the flow file
-#: named in `source`), so differ between checkouts.
+#: Attributes that name files on the machine that ran the demo, so differ between checkouts.
 MACHINE_ATTRS = {"input_files", "source"}
 
 

@@ -90,3 +90,27 @@ def test_cloud_moments_match_sample_moments():
     m = reduce.cloud_moments(st, geographic=False)
     assert m["variance_x"] == pytest.approx(np.var(st.x), rel=1e-12)
     assert m["centroid_y"] == pytest.approx(np.mean(st.y), rel=1e-9, abs=1e-9)
+
+
+def test_cloud_moments_weigh_by_mass_and_count_only_water():
+    """Weighted centroid and (co)variances equal numpy's weighted average and covariance
+    (``numpy.cov`` with ``aweights``, ``bias=True``) over the particles in water only."""
+    st = gaussian_cloud(20000, 30.0, seed=5)
+    rng = np.random.default_rng(6)
+    st.mass[:] = rng.uniform(0.1, 2.0, len(st))
+    st.y += 0.4 * (st.x - st.x.mean())  # a correlated cloud
+    st.status[::7] = EXITED
+    water = st.status == IN_WATER
+    m = reduce.cloud_moments(st, geographic=False)
+    w = st.mass[water]
+    cov = np.cov(st.x[water], st.y[water], aweights=w, bias=True)
+    assert m["centroid_x"] == pytest.approx(np.average(st.x[water], weights=w), rel=1e-12)
+    assert m["centroid_y"] == pytest.approx(np.average(st.y[water], weights=w), rel=1e-12)
+    expected = {"variance_x": cov[0, 0], "variance_y": cov[1, 1], "covariance_xy": cov[0, 1]}
+    for key, value in expected.items():
+        assert m[key] == pytest.approx(value, rel=1e-10)
+    # twin: counting every particle, or ignoring the masses, gives another spread
+    assert np.cov(st.x, st.y, aweights=st.mass, bias=True)[0, 1] != pytest.approx(
+        m["covariance_xy"], rel=1e-3
+    )
+    assert np.var(st.y[water]) != pytest.approx(m["variance_y"], rel=1e-3)

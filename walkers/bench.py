@@ -6,6 +6,9 @@ flow, bilinear in space and linear in time, with land, reflecting and absorbing 
 - particle-steps per second of the compiled engine on one and on two threads, and of the
   plain-numpy twin on the same particles, with their ratio (and the largest difference between
   the two, which must stay at round-off);
+- the same for the scenario workload, the basin run with the estuary demo's options (estimated
+  flow-aligned dispersion on the grid with the drift term, drying flats, decay), its rate beside
+  the reference one, and the cost of an RK4 step against an Euler step;
 - bytes of particle state per particle, and the peak memory of a 10-million-particle run (measured
   in a child process with ``resource.getrusage``, or projected from a smaller one in quick mode);
 - concentration-gridding throughput (particles per second through ``reduce.concentration``);
@@ -19,6 +22,7 @@ load average is reported and one-thread rates are also given per CPU-second of t
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import os
 import resource
@@ -27,17 +31,19 @@ import subprocess
 import sys
 import time
 from collections.abc import Callable
-from typing import Any
+from typing import Any, Literal
 
 import numba
 import numpy as np
 
 import walkers
 from walkers.engine import kernels, mover
+from walkers.engine.dispersion import resolve_dispersion
 from walkers.engine.state import ParticleState
 from walkers.fields.analytic import grid_flow
-from walkers.fields.base import FlowField, centre_to_edges
+from walkers.fields.base import FlowField, GriddedVariable, centre_to_edges
 from walkers.scenario.config import Dispersion, OutputGrid, Transport
+from walkers.scenario.specs import DispersionSpec
 
 CELL = 20.0  # m, cell size of the reference workload
 DT = 30.0  # s, time step
@@ -78,6 +84,32 @@ def reference_workload(
     return flow, transport
 
 
+def scenario_workload(nx: int = 200, ny: int = 100, frames: int = 7) -> tuple[FlowField, Transport]:
+    """The reference basin with the settings of the estuary demo: a tide of 1 m amplitude over a
+    bed that shoals to the north, so that tidal flats dry and flood (wet mask per frame, minimum
+    depth 0.1 m); dispersion estimated from depth and speed (Manning n = 0.025, meandering,
+    floor 0.5 m2 s-1), gridded and aligned with the flow, with the drift term; decay with a
+    half-life of 2 days; absorbing edges with the bridge test; the demo's 60 s step taken as two
+    sub-steps of 30 s (``DT``)."""
+    flow, transport = reference_workload(nx, ny, frames)
+    land = flow.wet.data[0] < 0.5
+    Y = np.broadcast_to(flow.y[:, None], land.shape)
+    bed = 8.0 - 10.0 * np.clip((Y / (ny * CELL) - 0.4) / 0.4, 0.0, 1.0)  # m below datum
+    tide = np.cos(2.0 * np.pi * flow.times / 44712.0)  # m above datum
+    depth = np.maximum(bed[None] + tide[:, None, None], 0.0)
+    wet = (depth >= 0.1) & ~land[None]
+    flow.depth = GriddedVariable(flow.x, flow.y, depth, "depth", "m")
+    flow.wet = GriddedVariable(flow.x, flow.y, wet.astype(np.float64), "wet", "1")
+    spec = DispersionSpec("estimated", manning_n=0.025, transverse_factor=0.6, minimum=0.5)
+    scenario = Transport(
+        dt=DT,
+        dispersion=resolve_dispersion(spec, flow),
+        decay_rate=np.log(2.0) / (2 * 86400.0),
+        edges=transport.edges,
+    )
+    return flow, scenario
+
+
 def initial_state(n: int, flow: FlowField, seed: int = 1) -> ParticleState:
     """n particles spread over the western water of the basin, all released at t = 0."""
     rng = np.random.default_rng(seed)
@@ -105,7 +137,7 @@ def _rate(
     start: ParticleState,
     steps: int,
     repeats: int,
-    stepper: str,
+    stepper: Literal["fast", "reference"] = "fast",
 ) -> tuple[float, float, ParticleState]:
     """Median particle-steps per wall second and per CPU second; the state after the last run."""
     walls, cpus = [], []
@@ -120,6 +152,41 @@ def _rate(
         walls.append(len(start) * steps / w)
         cpus.append(len(start) * steps / max(c, 1e-9))
     return statistics.median(walls), statistics.median(cpus), out
+
+
+def _engine_rates(
+    flow: FlowField,
+    transport: Transport,
+    start: ParticleState,
+    steps: int,
+    repeats: int,
+    two: int,
+    note: Callable[[str], None],
+    name: str,
+) -> dict[str, Any]:
+    """One workload through the compiled engine on one and on ``two`` threads (the kernel is
+    compiled or loaded first): wall and CPU rates of one thread, wall rate of two, and the state
+    after the last run on two threads."""
+    inputs = _inputs(flow, transport)
+    note(f"compiling or loading the kernels, {name} workload")
+    mover.advance(start.copy(), inputs, 0.0, DT, 2, 0, KEY)
+    note(f"compiled engine, {name} workload, 1 thread")
+    numba.set_num_threads(1)
+    one_wall, one_cpu, _ = _rate(flow, inputs, start, steps, repeats)
+    note(f"compiled engine, {name} workload, {two} threads")
+    numba.set_num_threads(two)
+    two_wall, _, moved = _rate(flow, inputs, start, steps, repeats)
+    return {"one_wall": one_wall, "one_cpu": one_cpu, "two_wall": two_wall, "moved": moved}
+
+
+def _largest_difference(
+    flow: FlowField, transport: Transport, start: ParticleState, steps: int, twin: ParticleState
+) -> float:
+    """Largest difference (grid units) between the compiled engine and the numpy twin's state
+    ``twin`` after the same steps from ``start``."""
+    same = start.copy()
+    mover.advance(same, _inputs(flow, transport), 0.0, DT, steps, 0, KEY, "fast")
+    return max(float(np.max(np.abs(same.x - twin.x))), float(np.max(np.abs(same.y - twin.y))))
 
 
 def _cpu_model() -> str:
@@ -284,7 +351,7 @@ def _machine(load_before: tuple[float, float, float]) -> dict[str, Any]:
 def _workload(
     flow: FlowField, transport: Transport, n: int, nsteps: int, twin_steps: int, reps: int
 ) -> dict[str, Any]:
-    """The reference workload as measured: grid, frames, time step, particles, steps, repeats."""
+    """A workload as measured: grid, frames, time step, particles, steps, repeats, options."""
     return {
         "grid_cells": [int(flow.x.size), int(flow.y.size)],
         "frames": int(flow.times.size),
@@ -295,7 +362,11 @@ def _workload(
         "repeats": reps,
         "edges": dict(transport.edges),
         "dispersion_m2_s": [transport.dispersion.k1, transport.dispersion.k2],
+        "dispersion_mode": transport.dispersion.mode,
+        "dispersion_gridded": transport.dispersion.k1_field is not None,
+        "decay_rate_per_s": transport.decay_rate,
         "land_fraction": float(1.0 - flow.wet.data[0].mean()),
+        "dry_fraction_first_last_frame": [float(1.0 - f.mean()) for f in flow.wet.data[[0, -1]]],
     }
 
 
@@ -308,7 +379,7 @@ def run_benchmark(
     memory_particles: int | None = None,
     progress: Callable[[str], None] | None = None,
 ) -> dict:
-    """Measure the engine on the reference workload and return every figure in one dict.
+    """Measure the engine on the reference and the scenario workloads; every figure in one dict.
 
     Parameters
     ----------
@@ -335,26 +406,25 @@ def run_benchmark(
     load_before = os.getloadavg()
     threads_before = numba.get_num_threads()
     two = min(2, MAX_THREADS)
-    note("compiling or loading the kernels")
-    warm = initial_state(min(n, 1000), flow)
-    mover.advance(warm, inputs, 0.0, DT, 2, 0, KEY)
     try:
-        note("compiled engine, 1 thread")
-        numba.set_num_threads(1)
-        one_wall, one_cpu, _ = _rate(flow, inputs, start, nsteps, reps, "fast")
-        note(f"compiled engine, {two} threads")
-        numba.set_num_threads(two)
-        two_wall, _two_cpu, moved = _rate(flow, inputs, start, nsteps, reps, "fast")
-        note("numpy twin")
+        ref = _engine_rates(flow, transport, start, nsteps, reps, two, note, "reference")
+        note("numpy twin, reference workload")
         numba.set_num_threads(1)
         twin_wall, twin_cpu, twin_out = _rate(flow, inputs, start, twin_steps, reps, "reference")
-        same = start.copy()
-        mover.advance(same, inputs, 0.0, DT, twin_steps, 0, KEY, "fast")
+        s_flow, s_transport = scenario_workload()
+        s_start = initial_state(n, s_flow)
+        sce = _engine_rates(s_flow, s_transport, s_start, nsteps, reps, two, note, "scenario")
+        rk4 = dataclasses.replace(s_transport, scheme="rk4")
+        note("scenario workload with RK4, 1 thread")
+        numba.set_num_threads(1)
+        rk4_wall, rk4_cpu, _ = _rate(s_flow, _inputs(s_flow, rk4), s_start, nsteps, reps)
+        note("numpy twin, scenario workload")
+        s_twin = _rate(s_flow, _inputs(s_flow, s_transport), s_start, twin_steps, 1, "reference")[2]
     finally:
         numba.set_num_threads(threads_before)
-    difference = max(
-        float(np.max(np.abs(same.x - twin_out.x))), float(np.max(np.abs(same.y - twin_out.y)))
-    )
+    difference = _largest_difference(flow, transport, start, twin_steps, twin_out)
+    s_difference = _largest_difference(s_flow, s_transport, s_start, twin_steps, s_twin)
+    moved = ref["moved"]
     note("gridding")
     gridding, concentration = _gridding_rates(flow, moved, max(reps, 5))
     note("first step on a warm cache (child processes)")
@@ -366,16 +436,27 @@ def run_benchmark(
         "caution": walkers.CAUTION,
         "machine": _machine(load_before),
         "workload": _workload(flow, transport, n, nsteps, twin_steps, reps),
-        "compiled_steps_per_s_1thread": one_wall,
-        "compiled_steps_per_cpu_s_1thread": one_cpu,
-        "compiled_steps_per_s_2threads": two_wall,
+        "scenario_workload": _workload(s_flow, s_transport, n, nsteps, twin_steps, reps),
+        "compiled_steps_per_s_1thread": ref["one_wall"],
+        "compiled_steps_per_cpu_s_1thread": ref["one_cpu"],
+        "compiled_steps_per_s_2threads": ref["two_wall"],
         "threads_used_for_2": two,
         "numpy_steps_per_s": twin_wall,
         "numpy_steps_per_cpu_s": twin_cpu,
-        "compiled_over_numpy": one_wall / twin_wall,
-        "compiled_over_numpy_cpu": one_cpu / twin_cpu,
-        "speedup_1_to_2_threads": two_wall / one_wall,
+        "compiled_over_numpy": ref["one_wall"] / twin_wall,
+        "compiled_over_numpy_cpu": ref["one_cpu"] / twin_cpu,
+        "speedup_1_to_2_threads": ref["two_wall"] / ref["one_wall"],
         "compiled_minus_numpy_max_m": difference,
+        "scenario_steps_per_s_1thread": sce["one_wall"],
+        "scenario_steps_per_cpu_s_1thread": sce["one_cpu"],
+        "scenario_steps_per_s_2threads": sce["two_wall"],
+        "scenario_over_reference": sce["one_wall"] / ref["one_wall"],
+        "scenario_over_reference_cpu": sce["one_cpu"] / ref["one_cpu"],
+        "scenario_speedup_1_to_2_threads": sce["two_wall"] / sce["one_wall"],
+        "scenario_rk4_steps_per_s_1thread": rk4_wall,
+        "rk4_over_euler_cost": sce["one_wall"] / rk4_wall,
+        "rk4_over_euler_cost_cpu": sce["one_cpu"] / rk4_cpu,
+        "scenario_compiled_minus_numpy_max_m": s_difference,
         "bytes_per_particle": ParticleState.from_arrays(
             np.zeros(1), np.zeros(1), np.ones(1), np.zeros(1)
         ).nbytes,
@@ -395,6 +476,10 @@ TARGETS = {
     "compiled_steps_per_s_1thread": (">=", 40e6),
     "compiled_over_numpy": (">=", 8.0),
     "speedup_1_to_2_threads": (">=", 1.8),
+    "scenario_steps_per_s_1thread": (">=", 15e6),
+    "scenario_over_reference": (">=", 0.6),
+    "rk4_over_euler_cost": ("<=", 2.5),
+    "scenario_speedup_1_to_2_threads": (">=", 1.8),
     "bytes_per_particle": ("<=", 64),
     "peak_memory_10m_bytes": ("<=", 1.5e9),
     "gridding_particles_per_s": (">=", 100e6),
@@ -428,6 +513,21 @@ def format_report(r: dict) -> str:
         f"1 -> 2 threads        {r['speedup_1_to_2_threads']:8.2f} x "
         f"{mark('speedup_1_to_2_threads')}",
         f"compiled vs twin      {r['compiled_minus_numpy_max_m']:8.1e} m largest difference",
+        "scenario workload (the estuary demo's options: estimated flow-aligned K on the grid, "
+        "drift, drying flats, decay, bridge test):",
+        f"compiled, 1 thread    {r['scenario_steps_per_s_1thread'] / 1e6:8.1f} M particle-steps/s "
+        f"{mark('scenario_steps_per_s_1thread')}; "
+        f"{r['scenario_steps_per_cpu_s_1thread'] / 1e6:.1f} M per CPU-second",
+        f"scenario / reference  {r['scenario_over_reference']:8.2f} "
+        f"{mark('scenario_over_reference')}; {r['scenario_over_reference_cpu']:.2f} per CPU-s",
+        f"RK4 / Euler cost      {r['rk4_over_euler_cost']:8.2f} {mark('rk4_over_euler_cost')}; "
+        f"{r['rk4_over_euler_cost_cpu']:.2f} per CPU-s",
+        f"compiled, {r['threads_used_for_2']} threads   "
+        f"{r['scenario_steps_per_s_2threads'] / 1e6:8.1f} M particle-steps/s",
+        f"1 -> 2 threads        {r['scenario_speedup_1_to_2_threads']:8.2f} x "
+        f"{mark('scenario_speedup_1_to_2_threads')}",
+        f"compiled vs twin      {r['scenario_compiled_minus_numpy_max_m']:8.1e} m largest "
+        "difference",
         f"state per particle    {r['bytes_per_particle']:8d} bytes {mark('bytes_per_particle')}",
         f"peak, 10 M particles  {r['peak_memory_10m_bytes'] / 1e9:8.2f} GB, "
         f"{r['peak_memory_method']} {mark('peak_memory_10m_bytes')}",

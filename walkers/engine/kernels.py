@@ -302,12 +302,14 @@ def velocity(ux, uy, U, vx, vy, V, inv, shared, it, wt, x, y):
 
 
 @nb.njit(**JIT)
-def step_tables(times, t0, dt, nsteps, out_i, out_w):
+def step_tables(times, t0, dt, nsteps, decay_rate, out_i, out_w, out_decay):
     """Time weights of every step of a call: at the start t, the middle t + h/2 and the end t + h
-    of each step (columns 0, 1, 2), with t and h computed as the step kernel computes them."""
+    of each step (columns 0, 1, 2), with t and h computed as the step kernel computes them; and
+    the decay factor exp(-rate h) of each step."""
     for s in range(nsteps):
         t = t0 + s * dt
         h = (t + dt) - t
+        out_decay[s] = math.exp(-decay_rate * h)
         out_i[s, 0], out_w[s, 0] = time_weight(times, t)
         out_i[s, 1], out_w[s, 1] = time_weight(times, t + 0.5 * h)
         out_i[s, 2], out_w[s, 2] = time_weight(times, t + h)
@@ -415,6 +417,13 @@ def trace_path(px, py, pi, pj, qx, qy, xe, ye, wet_now, edges_mode, max_refl):
 
 
 @nb.njit(**JIT)
+def edge_product(edge, p, q, s):
+    """d0·d1: the product of the distances (m) of the start p and the end q of a step from an
+    edge, with s grid units per metre (the same bits whichever side of the edge is water)."""
+    return ((p - edge) / s) * ((q - edge) / s)
+
+
+@nb.njit(**JIT)
 def bridge_exit(stream, step, px, py, qx, qy, sx, sy, kxx, kyy, h, ndim, edges_mode, xe, ye, ij):
     """Brownian-bridge test of a crossing of an absorbing edge inside the step: the path from
     d0 to d1 metres from the edge crossed it with probability exp(-d0 d1 / (K h)) (Lépingle 1995,
@@ -425,34 +434,30 @@ def bridge_exit(stream, step, px, py, qx, qy, sx, sy, kxx, kyy, h, ndim, edges_m
     reached only through water."""
     ncx = xe.shape[0] - 1
     ncy = ye.shape[0] - 1
-    x_w = xe[0]
-    x_e = xe[ncx]
-    dxw = (px - x_w) / sx
-    dqw = (qx - x_w) / sx
-    dxe = (x_e - px) / sx
-    dqe = (x_e - qx) / sx
-    west = edges_mode[0] == 1 and (ij[0] == 0 or ij[2] == 0)
-    east = edges_mode[1] == 1 and (ij[0] == ncx - 1 or ij[2] == ncx - 1)
-    if west and kxx > 0.0 and dxw * dqw < 20.0 * kxx * h:
-        if uniform(stream, step, COMP_BRIDGE_X) < math.exp(-dxw * dqw / (kxx * h)):
+    # The cells are tested first: most steps start and end away from every open edge, and the
+    # distances (four divisions per axis) are then not computed.
+    west = edges_mode[0] == 1 and (ij[0] == 0 or ij[2] == 0) and kxx > 0.0
+    east = edges_mode[1] == 1 and (ij[0] == ncx - 1 or ij[2] == ncx - 1) and kxx > 0.0
+    pw = edge_product(xe[0], px, qx, sx) if west else math.inf
+    if pw < 20.0 * kxx * h:
+        if uniform(stream, step, COMP_BRIDGE_X) < math.exp(-pw / (kxx * h)):
             return 0
-    elif east and kxx > 0.0 and dxe * dqe < 20.0 * kxx * h:
-        if uniform(stream, step, COMP_BRIDGE_X) < math.exp(-dxe * dqe / (kxx * h)):
+    else:
+        pe = edge_product(xe[ncx], px, qx, sx) if east else math.inf
+        if pe < 20.0 * kxx * h and uniform(stream, step, COMP_BRIDGE_X) < math.exp(-pe / (kxx * h)):
             return 1
     if ndim == 2:
-        y_s = ye[0]
-        y_n = ye[ncy]
-        dys = (py - y_s) / sy
-        dqs = (qy - y_s) / sy
-        dyn = (y_n - py) / sy
-        dqn = (y_n - qy) / sy
-        south = edges_mode[2] == 1 and (ij[1] == 0 or ij[3] == 0)
-        north = edges_mode[3] == 1 and (ij[1] == ncy - 1 or ij[3] == ncy - 1)
-        if south and kyy > 0.0 and dys * dqs < 20.0 * kyy * h:
-            if uniform(stream, step, COMP_BRIDGE_Y) < math.exp(-dys * dqs / (kyy * h)):
+        south = edges_mode[2] == 1 and (ij[1] == 0 or ij[3] == 0) and kyy > 0.0
+        north = edges_mode[3] == 1 and (ij[1] == ncy - 1 or ij[3] == ncy - 1) and kyy > 0.0
+        ps = edge_product(ye[0], py, qy, sy) if south else math.inf
+        if ps < 20.0 * kyy * h:
+            if uniform(stream, step, COMP_BRIDGE_Y) < math.exp(-ps / (kyy * h)):
                 return 2
-        elif north and kyy > 0.0 and dyn * dqn < 20.0 * kyy * h:
-            if uniform(stream, step, COMP_BRIDGE_Y) < math.exp(-dyn * dqn / (kyy * h)):
+        else:
+            pn = edge_product(ye[ncy], py, qy, sy) if north else math.inf
+            if pn < 20.0 * kyy * h and uniform(stream, step, COMP_BRIDGE_Y) < math.exp(
+                -pn / (kyy * h)
+            ):
                 return 3
     return -1
 
@@ -521,7 +526,8 @@ def compiled_mover(ndim, scheme, aligned, drift, geographic, kgrid, shared, cent
         DX, DY, K1, K2, kconst = disp[0], disp[1], disp[2], disp[3], disp[4]
         tab_i = np.zeros((nsteps, 3), np.int64)
         tab_w = np.zeros((nsteps, 3))
-        step_tables(times, t0, dt, nsteps, tab_i, tab_w)
+        tab_decay = np.ones(nsteps)
+        step_tables(times, t0, dt, nsteps, decay_rate, tab_i, tab_w, tab_decay)
         n = x.shape[0]
         nblocks = (n + BLOCK - 1) // BLOCK
         for b in nb.prange(nblocks):
@@ -576,7 +582,7 @@ def compiled_mover(ndim, scheme, aligned, drift, geographic, kgrid, shared, cent
                     elif st == STATUS_HELD_DRY:
                         st = STATUS_WATER
                     if decay_rate > 0.0:
-                        pm = bm[k] * math.exp(-decay_rate * h)
+                        pm = bm[k] * (math.exp(-decay_rate * h) if own_time else tab_decay[s])
                         bm[k] = pm
                         if pm <= DECAYED_FRACTION * m0[p]:
                             bst[k] = STATUS_DECAYED
@@ -826,6 +832,32 @@ def depth_at_particles(x, y, depth, xe, ye, out):
     invy = axis_inverse_spacing(ye)
     for p in nb.prange(x.shape[0]):
         out[p] = depth[cell_index(ye, invy, y[p]), cell_index(xe, invx, x[p])]
+
+
+@nb.njit(**JIT)
+def water_moments(x, y, m, status, ox, oy, sx, sy):
+    """Mass-weighted sums over the particles in water, in particle order (serial, so bitwise
+    reproducible): (Σm, Σm·dx, Σm·dy, Σm·dx², Σm·dy², Σm·dx·dy) with dx = (x - ox)·sx and
+    dy = (y - oy)·sy (sx, sy: metres per grid unit, or 1)."""
+    s0 = 0.0
+    s1x = 0.0
+    s1y = 0.0
+    sxx = 0.0
+    syy = 0.0
+    sxy = 0.0
+    for p in range(x.shape[0]):
+        if status[p] != STATUS_WATER:
+            continue
+        w = m[p]
+        dx = (x[p] - ox) * sx
+        dy = (y[p] - oy) * sy
+        s0 += w
+        s1x += w * dx
+        s1y += w * dy
+        sxx += w * dx * dx
+        syy += w * dy * dy
+        sxy += w * dx * dy
+    return s0, s1x, s1y, sxx, syy, sxy
 
 
 @nb.njit(**JIT)

@@ -120,24 +120,25 @@ def mass_budget(state: ParticleState) -> dict[str, np.ndarray | float]:
 
 
 def cloud_moments(state: ParticleState, geographic: bool) -> dict[str, float]:
-    """Mass-weighted centroid (grid units) and spatial variances (m2) of the particles in water."""
-    water = state.status == IN_WATER
-    m = state.mass[water]
-    total = m.sum()
+    """Mass-weighted centroid (grid units) and spatial variances (m2) of the particles in water.
+
+    Two passes of ``kernels.water_moments``: the centroid, then the spread about it (no
+    cancellation between large sums)."""
+    args = (state.x, state.y, state.mass, state.status)
+    total, sx, sy = kernels.water_moments(*args, 0.0, 0.0, 1.0, 1.0)[:3]
     if not total > 0:
         nan = float("nan")
         return dict.fromkeys(
             ("centroid_x", "centroid_y", "variance_x", "variance_y", "covariance_xy"), nan
         )
-    cx = float(np.dot(m, state.x[water]) / total)
-    cy = float(np.dot(m, state.y[water]) / total)
+    cx = sx / total
+    cy = sy / total
     mx, my = metres_per_degree(cy) if geographic else (1.0, 1.0)
-    dx = (state.x[water] - cx) * mx
-    dy = (state.y[water] - cy) * my
+    sxx, syy, sxy = kernels.water_moments(*args, cx, cy, float(mx), float(my))[3:]
     return {
         "centroid_x": cx,
         "centroid_y": cy,
-        "variance_x": float(np.dot(m, dx * dx) / total),
-        "variance_y": float(np.dot(m, dy * dy) / total),
-        "covariance_xy": float(np.dot(m, dx * dy) / total),
+        "variance_x": sxx / total,
+        "variance_y": syy / total,
+        "covariance_xy": sxy / total,
     }
