@@ -675,10 +675,14 @@ def compiled_mover(ndim, scheme, aligned, drift, geographic, kgrid, shared, cent
                     qy = py
                     if two_d:
                         qy = py + ay_ + dym * sy
-                    edge, frac, placed, qx, qy, ci, cj = trace_path(
-                        px, py, pi, pj, qx, qy, xe, ye, wet_now, edges_mode, max_refl
-                    )
-                    tcross = tstart + h * frac
+                    if xe[pi] <= qx < xe[pi + 1] and ye[pj] <= qy < ye[pj + 1]:
+                        # Still in its own cell: what trace_path would find, without the call.
+                        edge, placed, ci, cj, tcross = -1, True, pi, pj, t_end
+                    else:
+                        edge, frac, placed, qx, qy, ci, cj = trace_path(
+                            px, py, pi, pj, qx, qy, xe, ye, wet_now, edges_mode, max_refl
+                        )
+                        tcross = tstart + h * frac
                     if edge < 0 and bridge and placed:
                         edge = bridge_exit(
                             stream,
