@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import os
 import textwrap
-from collections.abc import Sequence
+from collections.abc import Iterator, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -29,6 +29,7 @@ from matplotlib.ticker import MaxNLocator, ScalarFormatter
 import walkers
 from walkers.errors import InputError
 from walkers.fields.times import elapsed_seconds, iso_times
+from walkers.files import refuse_inputs
 from walkers.outputs.reader import open_results
 
 CONC_CMAP = "viridis"
@@ -66,7 +67,11 @@ class _Run:
 
 
 def _load(ds_or_path: xr.Dataset | str | os.PathLike, land: xr.DataArray | None) -> _Run:
-    ds = ds_or_path if isinstance(ds_or_path, xr.Dataset) else open_results(ds_or_path)
+    ds = (
+        ds_or_path
+        if isinstance(ds_or_path, xr.Dataset)
+        else open_results(ds_or_path, stream=True)
+    )
     if "concentration" not in ds:
         raise InputError("result has no 'concentration' variable; is this a walkers result?")
     mask = None
@@ -79,10 +84,8 @@ def _load(ds_or_path: xr.Dataset | str | os.PathLike, land: xr.DataArray | None)
         mask = np.asarray(land.values, dtype=bool)
     elif "land" in ds:
         mask = np.asarray(ds["land"].values) == 1
-    conc = np.asarray(ds["concentration"].values)
-    positive = conc[conc > 0]
-    vmax = float(positive.max()) if positive.size else 1.0
-    vmin = max(float(positive.min()) if positive.size else vmax, vmax * 10.0**-DECADES)
+    lowest, vmax = _positive_range(ds["concentration"])
+    vmin = max(lowest, vmax * 10.0**-DECADES)
     if vmin >= vmax:
         vmin = vmax / 10.0
     return _Run(
@@ -95,6 +98,23 @@ def _load(ds_or_path: xr.Dataset | str | os.PathLike, land: xr.DataArray | None)
         norm=LogNorm(vmin=vmin, vmax=vmax),
         units=str(ds["concentration"].attrs.get("units", "kg m-3")),
     )
+
+
+def _frames(conc: xr.DataArray, stride: int = 1) -> Iterator[tuple[int, np.ndarray]]:
+    """(index, field) of every ``stride``-th output time, read one at a time (a result opened with
+    ``stream=True`` is never all in memory)."""
+    for i in range(0, conc.sizes["time"], stride):
+        yield i, np.asarray(conc.isel(time=i).values)
+
+
+def _positive_range(conc: xr.DataArray) -> tuple[float, float]:
+    """Smallest and largest positive concentration over all output times; (1, 1) if none."""
+    lowest, highest = np.inf, 0.0
+    for _, field in _frames(conc):
+        positive = field[field > 0]
+        if positive.size:
+            lowest, highest = min(lowest, float(positive.min())), max(highest, float(positive.max()))
+    return (lowest, highest) if highest > 0 else (1.0, 1.0)
 
 
 def _figure(width: float, height: float) -> Figure:
@@ -348,14 +368,15 @@ def _budget_figure(run: _Run, path: Path) -> Path:
 
 
 def _animation(run: _Run, path: Path, fps: int) -> Path:
-    conc = np.asarray(run.ds["concentration"].values)
+    conc = run.ds["concentration"]
+    first = np.asarray(conc.isel(time=0).values)
     fig = _figure(*_map_size(run, 6.4))
     fig.set_dpi(80)
     ax = fig.add_subplot()
     if run.one_dimensional:
-        artist = _draw_profile(run, ax, conc[0, 0])
+        artist = _draw_profile(run, ax, first[0])
     else:
-        artist = _draw_map(run, ax, conc[0])
+        artist = _draw_map(run, ax, first)
         _colour_bar(run, fig, ax, artist)
     title = ax.set_title(f"Concentration at {run.stamps[0]}", fontsize=10)
     _footer(fig, f"{run.stamps[0]} to {run.stamps[-1]}")
@@ -363,13 +384,13 @@ def _animation(run: _Run, path: Path, fps: int) -> Path:
     fig.canvas.draw()
     fig.set_layout_engine("none")  # freeze the layout: solving it anew for every frame is slow
     writer = PillowWriter(fps=max(1, int(fps)))
-    stride = max(1, -(-conc.shape[0] // MAX_FRAMES))
+    stride = max(1, -(-conc.sizes["time"] // MAX_FRAMES))
     with writer.saving(fig, path, dpi=fig.dpi):
-        for i in range(0, conc.shape[0], stride):
+        for i, field in _frames(conc, stride):
             if run.one_dimensional:
-                artist.set_ydata(np.where(conc[i, 0] > 0, conc[i, 0], np.nan))
+                artist.set_ydata(np.where(field[0] > 0, field[0], np.nan))
             else:
-                artist.set_data(np.ma.masked_less_equal(conc[i], 0.0))
+                artist.set_data(np.ma.masked_less_equal(field, 0.0))
             title.set_text(f"Concentration at {run.stamps[i]}")
             writer.grab_frame()
     return path
@@ -420,6 +441,10 @@ def plot_results(
         raise InputError(f"figure directory {str(folder)!r} does not exist; create it first")
     if not os.access(folder, os.W_OK | os.X_OK):
         raise InputError(f"figure directory {str(folder)!r} is not writable; choose another")
+    if not isinstance(ds_or_path, xr.Dataset):
+        for entry in folder.iterdir():  # a figure name that leads to the result: never drawn over
+            if entry.suffix in (".png", ".gif"):
+                refuse_inputs(entry, [ds_or_path])
     run = _load(ds_or_path, land)
     chosen = _chosen_indices(run, times)
     written: list[Path] = []

@@ -6,21 +6,18 @@ import numpy as np
 import xarray as xr
 
 import walkers
-
-
-def _iso(ds: xr.Dataset, seconds: float) -> str:
-    from walkers.fields.times import iso_times
-
-    t = xr.DataArray([seconds], dims="time", attrs=ds.time.attrs)
-    return iso_times(t)[0]
+from walkers.fields.times import elapsed_seconds, iso_times
 
 
 def summary_text(ds: xr.Dataset) -> str:
-    """The end-of-run summary: mass budget, and per receptor the peak, arrival and exceedance."""
-    t = ds.time.values
+    """The end-of-run summary: mass budget, and per receptor the peak, arrival and exceedance.
+
+    ``ds``: a result as a run returns it, or read back with numeric or decoded times."""
+    stamps = iso_times(ds.time)
+    t = elapsed_seconds(ds.time)
     lines = [f"{ds.attrs.get('title') or 'walkers run'}", ""]
     released = float(ds.mass_released[-1])
-    lines.append(f"Mass budget at {_iso(ds, float(t[-1]))} (kg):")
+    lines.append(f"Mass budget at {stamps[-1]} (kg):")
     lines.append(f"  released        {released:12.6g}")
     lines.append(f"  in water        {float(ds.mass_in_water[-1]):12.6g}")
     for e in ds.edge.values:
@@ -40,14 +37,14 @@ def summary_text(ds: xr.Dataset) -> str:
         for k, name in enumerate(ds.receptor.values):
             series = ds.receptor_concentration.values[k]
             peak = float(np.nanmax(series)) if np.isfinite(series).any() else float("nan")
-            when = _iso(ds, float(t[int(np.nanargmax(series))])) if peak > 0 else "-"
+            when = stamps[int(np.nanargmax(series))] if peak > 0 else "-"
             lines.append(f"  {name}: peak {peak * 1e3:.4g} mg/L at {when}")
             if "receptor_threshold" in ds:
                 for thr in ds.receptor_threshold.values[k]:
                     if not np.isfinite(thr):
                         continue
                     above = series > thr
-                    first = _iso(ds, float(t[np.argmax(above)])) if above.any() else "never"
+                    first = stamps[int(np.argmax(above))] if above.any() else "never"
                     lines.append(
                         f"    above {thr * 1e3:.4g} mg/L: first at {first}, for about "
                         f"{above.sum() * dt / 3600.0:.3g} h (output interval {dt / 60:.3g} min)"

@@ -348,7 +348,16 @@ def field_store(
     """
     if mode not in FIELD_MODES:
         raise InputError(f"fields = {mode!r}: expected one of {', '.join(FIELD_MODES)}")
-    nbytes = math.prod(shape) * sum(np.dtype(d).itemsize for d in variables.values())
-    if mode == "disk" or (mode == "auto" and nbytes > FIELD_MEMORY_BUDGET):
+    if streams_to_disk(shape, variables, mode):
         return DiskFields(shape, variables, folder)
     return MemoryFields(shape, variables)
+
+
+def streams_to_disk(
+    shape: tuple[int, ...], variables: Mapping[str, Any], mode: FieldMode = "auto"
+) -> bool:
+    """Whether :func:`field_store` keeps fields of this shape (output times, ny, nx) and these
+    variables (name -> dtype) on disk: always for ``"disk"``, never for ``"memory"``, and for
+    ``"auto"`` when they would take more than :data:`FIELD_MEMORY_BUDGET` bytes."""
+    nbytes = math.prod(shape) * sum(np.dtype(d).itemsize for d in variables.values())
+    return mode == "disk" or (mode == "auto" and nbytes > FIELD_MEMORY_BUDGET)
