@@ -206,14 +206,14 @@ def run_command(
         every = None
         if checkpoint_every is not None:
             every = parse_quantity(checkpoint_every, "time", "--checkpoint-every")
+        if every is not None:
+            refuse_inputs(ckpt, scenario_inputs(sc))
         state = load_checkpoint(ckpt, fingerprint) if resume else None
         if state is None and ckpt.exists():
             raise InputError(
                 f"{str(ckpt)!r}: a checkpoint of an interrupted run of this output exists; "
                 "continue that run with --resume, or delete the checkpoint to start afresh"
             )
-        if every is not None:
-            refuse_inputs(ckpt, scenario_inputs(sc))
         saver = None if every is None else _checkpointer(sc, ckpt, fingerprint, every)
         try:
             outcome = run_scenario(

@@ -111,7 +111,8 @@ def _temporary_names(finals: list[Path]) -> Iterator[list[Path]]:
         yield temps
     finally:
         for temp in temps:
-            temp.unlink(missing_ok=True)
+            if os.path.lexists(temp):  # (a read-only folder refuses even to unlink a name it lacks)
+                temp.unlink()
 
 
 # --------------------------------------------------------------------------------------------

@@ -23,8 +23,8 @@ def _open(path: str | os.PathLike, *, decode_times: bool, stream: bool) -> xr.Da
         raise InputError(f"result file {str(path)!r} does not exist")
     try:
         ds = xr.open_dataset(
-            path, decode_times=decode_times, chunks={"time": 1} if stream else None
-        )
+            path, decode_times=decode_times, chunks={} if stream else None
+        )  # chunks={}: dask chunks as stored, one output time of a field each (writer._encoding)
         for var in ds.variables.values():
             if not (stream and var.ndim == 3):
                 var.load()
