@@ -31,6 +31,7 @@ import sys
 import time
 from pathlib import Path
 
+import flowfiles as ff
 import netCDF4
 import numpy as np
 import pytest
@@ -38,7 +39,6 @@ import xarray as xr
 from test_bad_inputs import invoke, one_thread  # noqa: F401 (autouse: runs on one thread)
 from test_interrupts import leftovers
 
-import flowfiles as ff
 import walkers.outputs.writer as writer
 import walkers.run.checkpoint as checkpoint
 from walkers.api import run_scenario
@@ -91,7 +91,7 @@ name = "beach"
 x = "2000 m"
 y = "1000 m"
 """
-FRAMES = ["2026-03-01T0{h}:00:00+00:00".format(h=h) for h in range(5)]
+FRAMES = [f"2026-03-01T0{h}:00:00+00:00" for h in range(5)]
 
 
 def sha(path: Path) -> str:
@@ -232,8 +232,8 @@ def test_the_tracks_file_and_the_checkpoint_may_not_be_an_input(case):
     refused(result, 2, "out_tracks.nc", "is the input file")
     os.replace(case / "out_tracks.nc", case / "x.nc.checkpoint.npz")
     (case / "bend.toml").write_text(SCENARIO.replace('"bend.nc"', '"x.nc.checkpoint.npz"'))
-    result = invoke(["run", "bend.toml", "-q", "--no-plot", "-o", "x.nc", "--checkpoint-every",
-                     "1 h"], case)  # fmt: skip
+    args = ["run", "bend.toml", "-q", "--no-plot", "-o", "x.nc", "--checkpoint-every", "1 h"]
+    result = invoke(args, case)
     refused(result, 2, "x.nc.checkpoint.npz", "is the input file")
 
 
@@ -253,8 +253,8 @@ def test_export_plot_and_ensemble_refuse_their_inputs(case, bend):
     refused(invoke(["plot", result, "--outdir", figures], case), 2, "plume.gif", str(result))
     ensemble = SCENARIO + "\n[ensemble]\nmembers = 2\n"
     (case / "bend.toml").write_text(ensemble)
-    refused(invoke(["ensemble", "bend.toml", "-q", "--no-plot", "-o", "bend.nc"], case), 2,
-            "is the input file")  # fmt: skip
+    result = invoke(["ensemble", "bend.toml", "-q", "--no-plot", "-o", "bend.nc"], case)
+    refused(result, 2, "is the input file")
     assert sha(case / "bend.nc") == sha(bend[0] / "bend.nc")
 
 
@@ -603,8 +603,8 @@ def test_inspect_describes_a_file_without_depth(tmp_path):
 
 def test_every_documented_reader_gives_a_summary(bend):
     path = bend[1]
-    texts = [summary_text(read(path, stream=s)) for read in (read_results, open_results)
-             for s in (False, True)]  # fmt: skip
+    readers = [(read, s) for read in (read_results, open_results) for s in (False, True)]
+    texts = [summary_text(read(path, stream=s)) for read, s in readers]
     # the same budget and peaks whatever the reader (times are shown in UTC once decoded)
     numbers = [[w for w in t.split() if w[:1].isdigit() and "T" not in w] for t in texts]
     assert all(n == numbers[0] for n in numbers)
@@ -656,3 +656,38 @@ def test_plot_and_export_read_a_result_frame_by_frame(tmp_path, monkeypatch):
     largest.clear()
     read_results(path)  # the twin: reading the whole result reads every output time at once
     assert largest["concentration"] == 9 * frame
+
+
+# --------------------------------------------------------------------------------------------
+# 7. exit codes: every kind of error the catalogue knows, and a real defect
+# --------------------------------------------------------------------------------------------
+
+EXITS = [  # what a command meets, the exit code the user sees
+    (InputError("a bad key"), 2),
+    (RunFailure("a damaged frame"), 1),
+    (OSError(errno.ENOSPC, "No space left on device", "/full/out.nc"), 1),
+    (OSError(errno.EDQUOT, "Disk quota exceeded", "/full/out.nc"), 1),
+    (OSError(errno.EACCES, "Permission denied", "/locked/out.nc"), 1),
+    (OSError(errno.EROFS, "Read-only file system", "/locked/out.nc"), 1),
+    (OSError(errno.EIO, "Input/output error"), 3),  # not a fault walkers can name: a defect
+    (ZeroDivisionError("a real defect"), 3),
+]
+
+
+@pytest.mark.parametrize(
+    "error,code", EXITS, ids=[f"{type(e).__name__}{e.args[0]}" for e, _ in EXITS]
+)
+def test_each_kind_of_error_reaches_the_user_with_its_exit_code(error, code, capsys):
+    from walkers.cli import friendly_errors
+
+    @friendly_errors
+    def command():
+        raise error
+
+    with pytest.raises(SystemExit) as stop:
+        command()
+    message = capsys.readouterr().err
+    assert stop.value.code == code, message
+    assert ("defect of walkers" in message) == (code == 3), message
+    if isinstance(error, OSError) and code == 1:
+        assert error.filename in message

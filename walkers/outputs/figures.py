@@ -67,11 +67,7 @@ class _Run:
 
 
 def _load(ds_or_path: xr.Dataset | str | os.PathLike, land: xr.DataArray | None) -> _Run:
-    ds = (
-        ds_or_path
-        if isinstance(ds_or_path, xr.Dataset)
-        else open_results(ds_or_path, stream=True)
-    )
+    ds = ds_or_path if isinstance(ds_or_path, xr.Dataset) else open_results(ds_or_path, stream=True)
     if "concentration" not in ds:
         raise InputError("result has no 'concentration' variable; is this a walkers result?")
     mask = None
@@ -113,7 +109,8 @@ def _positive_range(conc: xr.DataArray) -> tuple[float, float]:
     for _, field in _frames(conc):
         positive = field[field > 0]
         if positive.size:
-            lowest, highest = min(lowest, float(positive.min())), max(highest, float(positive.max()))
+            lowest = min(lowest, float(positive.min()))
+            highest = max(highest, float(positive.max()))
     return (lowest, highest) if highest > 0 else (1.0, 1.0)
 
 

@@ -130,9 +130,11 @@ def check_memory(scenario: Scenario, flow: FlowField) -> None:
     cells = scenario.output.nx * scenario.output.ny
     if fixed >= available:
         raise InputError(
-            f"output: {nt} output times of {cells} cells need about {fixed / 1e9:.3g} GB of "
-            f"memory, more than the {available / 1e9:.3g} GB available; use a coarser "
-            "output.grid (larger cell_size or a smaller area) or a longer run.output_interval"
+            f"output: {nt} output times of {cells} cells, {len(scenario.receptors)} receptors "
+            f"and {scenario.tracks} sampled tracks need about {fixed / 1e9:.3g} GB of memory, "
+            f"more than the {available / 1e9:.3g} GB available; use a coarser output.grid "
+            "(larger cell_size or a smaller area), fewer run.tracks or a longer "
+            "run.output_interval"
         )
     fit = (available - fixed) // per_particle
     raise InputError(
