@@ -556,8 +556,14 @@ def test_a_flow_file_replaced_during_the_run_is_refused(case):
 
 
 def test_twin_an_untouched_flow_file_passes_the_check(case):
+    # the scenario file, read once before the run, may be edited meanwhile
     sc = load_scenario(case / "bend.toml")
-    run_scenario(sc, output=case / "out.nc", progress=lambda *a: None)
+
+    def edit_scenario(done, total, in_water):
+        with open(case / "bend.toml", "a") as fh:
+            fh.write("# edited during the run\n")
+
+    run_scenario(sc, output=case / "out.nc", progress=edit_scenario)
     assert (case / "out.nc").exists()
 
 

@@ -174,11 +174,15 @@ def input_provenance(scenario: Scenario) -> list[dict[str, Any]]:
 
 
 def check_inputs_unchanged(before: list[dict[str, Any]], scenario: Scenario) -> None:
-    """Raise RunFailure if an input file's SHA-256 differs from ``before`` (its
+    """Raise RunFailure if a flow file's SHA-256 differs from ``before`` (its
     :func:`input_provenance` at the run start): the file was changed or replaced while the run
-    read it, so the result could mix two versions of it."""
+    read it, so the result could mix two versions of it. (The scenario file is read once, before
+    the run, so editing it meanwhile is no concern.)"""
     now = {r["path"]: r for r in input_provenance(scenario)}
+    flows = {str(Path(p)) for p in scenario.flow.paths}
     for record in before:
+        if record["path"] not in flows:
+            continue
         after = now[record["path"]]
         if after["sha256"] != record["sha256"]:
             raise RunFailure(
