@@ -36,8 +36,8 @@ import netCDF4
 import numpy as np
 import pytest
 import xarray as xr
-from test_bad_inputs import invoke, one_thread  # noqa: F401 (autouse: runs on one thread)
-from test_interrupts import leftovers
+from test_bad_inputs import FLOWFILE, apply, invoke, one_thread  # noqa: F401 (autouse)
+from test_interrupts import assert_same_results, leftovers
 
 import walkers.outputs.writer as writer
 import walkers.run.checkpoint as checkpoint
@@ -54,43 +54,17 @@ from walkers.scenario.load import load_scenario
 # An invented river bend on the synthetic flow of tests/flowfiles.py (hourly frames from
 # 2026-03-01T00:00Z to 04:00Z; an island at x 1400..1600 m, y 600..800 m). The scenario is named
 # like its flow file, so its default output name is the flow file's.
-SCENARIO = """\
-[run]
-title = "Fault campaign: invented river bend"
-start = "2026-03-01T00:00:00Z"
-end = "2026-03-01T04:00:00Z"
-time_step = "60 s"
-output_interval = "10 min"
-seed = 5
-tracks = 3
-
-[flow]
-files = "bend.nc"
-
-[dispersion]
-coefficient = "0.5 m2/s"
-
-[[releases]]
-name = "outfall"
-x = "1000 m"
-y = "500 m"
-start = "2026-03-01T00:00:00Z"
-duration = "1 h"
-mass = "1 kg"
-particles = 300
-
-[output.grid]
-west = "500 m"
-east = "2500 m"
-south = "200 m"
-north = "1200 m"
-cell_size = "100 m"
-
-[[receptors]]
-name = "beach"
-x = "2000 m"
-y = "1000 m"
-"""
+SCENARIO = apply(
+    FLOWFILE,
+    [
+        ("[run]", '[run]\ntitle = "Fault campaign: invented river bend"\nseed = 5\ntracks = 3'),
+        ('end = "2026-03-01T03:00:00Z"', 'end = "2026-03-01T04:00:00Z"'),
+        ('output_interval = "30 min"', 'output_interval = "10 min"'),
+        ('files = "flow.nc"', 'files = "bend.nc"'),
+        ('mass = "1 kg"', 'duration = "1 h"\nmass = "1 kg"'),
+        ("particles = 100", "particles = 300"),
+    ],
+)
 FRAMES = [f"2026-03-01T0{h}:00:00+00:00" for h in range(5)]
 
 
@@ -177,17 +151,8 @@ def case(bend, tmp_path):
 
 
 def same_numbers(a: Path, b: Path) -> None:
-    """Every variable of two results (and of their tracks files) bitwise equal (NaN equal to NaN);
-    attributes may differ where they name the folder of the flow file."""
-    for fa, fb in ((a, b), (writer.tracks_path(a), writer.tracks_path(b))):
-        with (
-            xr.open_dataset(fa, decode_times=False) as da,
-            xr.open_dataset(fb, decode_times=False) as db,
-        ):
-            assert set(da.variables) == set(db.variables)
-            for name in da.variables:
-                x, y = da[name].values, db[name].values
-                assert np.array_equal(x, y, equal_nan=x.dtype.kind == "f"), name
+    """Bitwise the same results; the attributes that name the flow file's folder may differ."""
+    assert_same_results(a, b, ignore=frozenset({"source", "input_files"}))
 
 
 def refused(result, code: int, *parts: str) -> str:

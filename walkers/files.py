@@ -140,6 +140,19 @@ def check_room(path: Path, need: int) -> None:
         )
 
 
+@contextmanager
+def failures_named(path: Path, need: int) -> Iterator[None]:
+    """Within: a write to ``path`` (about ``need`` bytes) that fails for want of room or
+    permission raises the RunFailure of :func:`write_failure`; other errors pass unchanged."""
+    try:
+        yield
+    except (OSError, RuntimeError) as exc:  # netCDF reports a full disk as a RuntimeError
+        failure = write_failure(exc, path, need)
+        if failure is None:
+            raise
+        raise failure from exc
+
+
 def write_failure(exc: BaseException, path: Path, need: int) -> RunFailure | None:
     """The RunFailure of a write to ``path`` that failed for want of room or permission (from the
     error's errno, or from the free space left when the library reports no errno, as netCDF does

@@ -17,7 +17,7 @@ from walkers.files import (
     _temporary_names,
     check_room,
     check_target,
-    write_failure,
+    failures_named,
 )
 
 
@@ -47,19 +47,13 @@ def receptors_to_csv(
     need = 32 * (values.size + len(times)) + 64 * len(header)  # bytes: 32 a number, 64 a heading
     check_room(path, need)
     with _temporary_names([path]) as (temp,):
-        try:
-            with open(temp, "w", newline="", encoding="utf-8") as handle:
-                writer = csv.writer(handle)
-                writer.writerow(header)
-                for i, stamp in enumerate(times):
-                    writer.writerow([stamp] + [repr(float(v)) for v in values[:, i]])
-                handle.flush()
-                os.fsync(handle.fileno())
-        except OSError as exc:
-            failure = write_failure(exc, path, need)
-            if failure is None:
-                raise
-            raise failure from exc
+        with failures_named(path, need), open(temp, "w", newline="", encoding="utf-8") as handle:
+            writer = csv.writer(handle)
+            writer.writerow(header)
+            for i, stamp in enumerate(times):
+                writer.writerow([stamp] + [repr(float(v)) for v in values[:, i]])
+            handle.flush()
+            os.fsync(handle.fileno())
         _place(temp, path, overwrite)
     _fsync_dir(path.parent)
     return path

@@ -56,7 +56,7 @@ from walkers.files import (
     _temporary_names,
     check_room,
     check_target,
-    write_failure,
+    failures_named,
 )
 
 CONVENTIONS = "CF-1.8"
@@ -367,17 +367,12 @@ def _write_atomic(
     with _temporary_names(finals) as temps:
         try:
             for (data, encoding, final), temp in zip(items, temps, strict=True):
-                try:
+                with failures_named(final, need[final]):
                     # fields streamed to disk are dask arrays: written one chunk (output time) at
                     # a time, in this thread (the store's files are read under one lock)
                     with dask.config.set(scheduler="synchronous"), _chunk_cache(data, encoding):
                         data.to_netcdf(temp, format="NETCDF4", encoding=encoding)
                     _fsync_file(temp)
-                except (OSError, RuntimeError) as exc:
-                    failure = write_failure(exc, final, need[final])
-                    if failure is None:
-                        raise
-                    raise failure from exc
             for temp, final in zip(temps, finals, strict=True):
                 _place(temp, final, overwrite)
                 placed.append(final)
