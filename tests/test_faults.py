@@ -368,6 +368,25 @@ def test_a_disk_that_fills_while_writing_is_a_named_fault(case, small_disk, monk
     assert leftovers(folder) == []
 
 
+def test_a_full_disk_under_the_run_s_field_store_is_a_named_fault(small_disk, monkeypatch):
+    """A run whose fields stream to a store on a full disk stops naming the store's folder."""
+    from test_long_runs import small_run
+
+    if small_disk is not None:
+        folder = small_disk
+        fill(folder, 4_000)
+    else:
+        folder = Path(os.environ.get("TMPDIR", "/tmp"))
+
+        def full(*args, **kwargs):
+            raise OSError(errno.ENOSPC, "No space left on device (simulated)")
+
+        monkeypatch.setattr("walkers.run.store.netCDF4.Dataset", full)
+    with pytest.raises(RunFailure, match="walkers-fields-.*the disk is full"):
+        small_run("disk", folder)
+    assert [p.name for p in folder.iterdir() if p.name.startswith("walkers-fields-")] == []
+
+
 def test_a_folder_made_read_only_during_the_run_is_a_named_fault(case, small_disk, monkeypatch):
     """The folder turns read-only after the check before the run (os.access then said yes)."""
     folder = small_disk or case

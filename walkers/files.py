@@ -155,21 +155,24 @@ def failures_named(path: Path, need: int) -> Iterator[None]:
 
 def write_failure(exc: BaseException, path: Path, need: int) -> RunFailure | None:
     """The RunFailure of a write to ``path`` that failed for want of room or permission (from the
-    error's errno, or from the free space left when the library reports no errno, as netCDF does
-    for a full disk); None for any other failure."""
+    error's errno; when the library reports none or "permission denied", as netCDF and HDF5 may
+    for a full disk, from the free space left: under ``need`` bytes, the disk is full); None for
+    any other failure."""
     code = getattr(exc, "errno", None)
     free = free_bytes(path.parent)
-    if code in NO_PERMISSION:
+    # HDF5 reports a file it could not create on a full disk as "permission denied"
+    full = free < need and (code is None or code in NO_PERMISSION)
+    if code in NO_ROOM or full:
         return RunFailure(
-            f"output file {str(path)!r} cannot be written ({exc}); the folder "
-            f"{str(path.parent)!r} does not allow it: choose another or change its permissions. "
-            "Nothing was written under the output name"
-        )
-    if code in NO_ROOM or (code is None and free < need):
-        return RunFailure(
-            f"output file {str(path)!r}: the disk is full ({exc}); about {_size(need)} are "
+            f"{str(path)!r} cannot be written: the disk is full ({exc}); about {_size(need)} are "
             f"needed and {_size(free)} are free in {str(path.parent)!r}. Free space there or "
             "choose another folder; nothing was written under the output name"
+        )
+    if code in NO_PERMISSION:
+        return RunFailure(
+            f"{str(path)!r} cannot be written ({exc}); the folder "
+            f"{str(path.parent)!r} does not allow it: choose another or change its permissions. "
+            "Nothing was written under the output name"
         )
     return None
 

@@ -23,7 +23,7 @@ import netCDF4
 import numpy as np
 
 from walkers.errors import InputError
-from walkers.files import _fsync_dir, _fsync_file, check_folder
+from walkers.files import _fsync_dir, _fsync_file, check_folder, failures_named
 
 # --------------------------------------------------------------------------------------------
 # field store: the 3-D fields of a run while it goes on
@@ -177,7 +177,9 @@ class DiskFields:
         """Append the fields of output time ``k`` (the next one: ``k == count``)."""
         if k != self.count:
             raise ValueError(f"field store: output {k} given when output {self.count} is next")
-        with _STORE_LOCK:
+        need = sum(int(np.asarray(values).nbytes) for values in fields.values())
+        with _STORE_LOCK, failures_named(self.folder, need):
+            # (a full disk or a folder that refuses writing is a named fault, not a defect)
             if self.writing is None:
                 self._start_segment(k)
             assert self.writing is not None and self._files.writer is not None
@@ -209,7 +211,9 @@ class DiskFields:
 
     def seal(self) -> None:
         """Close the segment being written, so it is a complete file."""
-        with _STORE_LOCK:
+        _, ny, nx = self.shape
+        last = ny * nx * sum(dtype.itemsize for dtype in self.variables.values())  # bytes
+        with _STORE_LOCK, failures_named(self.folder, last):  # the last output time's chunks
             if self._files.writer is not None:
                 self._files.writer.close()
                 self._files.writer = None
