@@ -322,10 +322,10 @@ SCENARIO_CASES = [
     case(
         "output arrays beyond memory",
         [
-            ('end = "2026-05-04T07:00:00Z"', 'end = "2026-05-04T08:00:00Z"'),
-            ('output_interval = "30 min"', 'output_interval = "1 min"'),
-            ('cell_size = "200 m"', 'cell_size = "0.25 m"'),
-        ],  # 121 x 6.4e7 cells: 190 GB
+            ('end = "2026-05-04T07:00:00Z"', 'end = "2026-05-11T07:00:00Z"'),
+            ('output_interval = "30 min"', 'output_interval = "1 min"\ntracks = 1000000'),
+            ("particles = 200", "particles = 1000000"),
+        ],  # 10 081 output times of 1e6 sampled tracks: 320 GB (fields would stream to disk)
         expected=["output:", "output times", "GB", "coarser output.grid"],
     ),
     case(

@@ -29,7 +29,7 @@ import xarray as xr
 import walkers
 import walkers.files
 import walkers.outputs.writer as wio
-from walkers.errors import InputError
+from walkers.errors import InputError, RunFailure
 from walkers.fields.times import iso_times
 from walkers.outputs.export import receptors_to_csv
 from walkers.outputs.reader import read_results
@@ -328,7 +328,7 @@ def test_failure_mid_write_leaves_no_final_and_no_temporary_file(tmp_path, monke
         raise OSError(28, "No space left on device (injected)")
 
     monkeypatch.setattr(xr.Dataset, "to_netcdf", write_then_fail)
-    with pytest.raises(OSError, match="injected"):
+    with pytest.raises(RunFailure, match="the disk is full .*injected"):
         write_results(gaussian_puff_results(), tmp_path / "run.nc")
     assert list(tmp_path.iterdir()) == []
 

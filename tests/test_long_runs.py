@@ -37,7 +37,7 @@ from test_interrupts import CLI, SCENARIO, assert_same_results, leftovers
 import walkers.run.checkpoint as checkpoint
 import walkers.run.store as run_store
 from walkers.api import run_scenario
-from walkers.errors import InputError
+from walkers.errors import InputError, RunFailure
 from walkers.fields.analytic import analytic_flow
 from walkers.outputs.writer import write_results
 from walkers.run.simulate import simulate
@@ -202,7 +202,7 @@ def test_no_store_and_no_output_after_a_failed_write(tmp_path, monkeypatch):
         raise OSError(28, "No space left on device")
 
     monkeypatch.setattr(xr.Dataset, "to_netcdf", disk_full)
-    with pytest.raises(OSError, match="No space left"):
+    with pytest.raises(RunFailure, match="the disk is full .*No space left"):
         write_results(ds, tmp_path / "run.nc")
     assert not (tmp_path / "run.nc").exists() and leftovers(tmp_path) == []
     del ds

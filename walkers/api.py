@@ -7,7 +7,7 @@ command line.
 from __future__ import annotations
 
 import os
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Literal
@@ -16,8 +16,8 @@ import xarray as xr
 
 from walkers.files import check_target
 from walkers.outputs.summary import summary_text
-from walkers.outputs.writer import write_results
-from walkers.run.runner import simulate_scenario
+from walkers.outputs.writer import tracks_path, write_results
+from walkers.run.runner import scenario_inputs, simulate_scenario
 from walkers.run.simulate import RunState
 from walkers.scenario.load import load_scenario
 from walkers.scenario.specs import Scenario
@@ -42,19 +42,24 @@ def run_scenario(
     resume: RunState | None = None,
     on_output: Callable[[RunState], None] | None = None,
     units: str | None = None,
+    inputs: Sequence[str | os.PathLike] = (),
 ) -> RunOutcome:
     """Run a scenario, write its CF-NetCDF output atomically and return the outcome.
 
-    The target is checked before the run starts, so a long run never ends on "file exists".
+    The targets (the output and, with sampled tracks, its tracks file) are checked before the run
+    starts, so a long run never ends on "file exists"; none may be an input of the run (the
+    scenario file, the flow files, or any of ``inputs``, e.g. a checkpoint being resumed).
     ``units``: the concentration unit of the summary (default: the scenario thresholds' unit,
     else mg/L).
     """
     if not isinstance(scenario, Scenario):
         scenario = load_scenario(Path(scenario))
     path = Path(output) if output is not None else Path(scenario.output_path)
-    check_target(path, overwrite)
+    sources = [*scenario_inputs(scenario), *inputs]
+    for target in [path, tracks_path(path)] if scenario.tracks else [path]:
+        check_target(target, overwrite, sources)
     ds = simulate_scenario(
         scenario, stepper=stepper, progress=progress, resume=resume, on_output=on_output
     )
-    write_results(ds, path, overwrite=overwrite)
+    write_results(ds, path, overwrite=overwrite, inputs=inputs)
     return RunOutcome(ds, path, summary_text(ds, units))

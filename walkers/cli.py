@@ -1,8 +1,9 @@
 """The ``walkers`` command line: a thin layer over the Python API.
 
 Every command turns :class:`walkers.errors.InputError` into a one-line message on stderr and exit
-code 2; a run that fails for another known reason exits 1; anything unexpected is reported as a
-defect (exit 3) with the traceback only when WALKERS_DEBUG=1 is set.
+code 2; a run that fails for another known reason (a damaged flow file, a full disk, a folder that
+refuses writing) exits 1; anything unexpected is reported as a defect (exit 3) with the traceback
+only when WALKERS_DEBUG=1 is set.
 """
 
 from __future__ import annotations
@@ -19,7 +20,8 @@ import click
 
 import walkers
 from walkers.cli_outputs import OUTPUT_COMMANDS, UNITS_OPTION
-from walkers.errors import InputError, WalkersError
+from walkers.errors import InputError, RunFailure, WalkersError
+from walkers.files import NO_PERMISSION, NO_ROOM
 
 if TYPE_CHECKING:
     from walkers.run.checkpoint import Checkpointer
@@ -45,17 +47,31 @@ def friendly_errors(func):
             sys.exit(130)
         except (click.exceptions.Exit, click.ClickException, SystemExit):
             raise
-        except Exception as exc:  # a defect of the tool, not of the input
-            if os.environ.get("WALKERS_DEBUG"):
-                traceback.print_exc()
+        except OSError as exc:
+            if exc.errno not in NO_ROOM | NO_PERMISSION:
+                _defect(exc)
             click.echo(
-                f"walkers: unexpected failure ({type(exc).__name__}: {exc}). This is a defect of "
-                "walkers; rerun with WALKERS_DEBUG=1 to see the traceback and report it.",
+                f"walkers: error: {exc.filename or 'a file'!r} cannot be written "
+                f"({exc.strerror}); free space there, allow writing, or choose another folder",
                 err=True,
             )
-            sys.exit(EXIT_DEFECT)
+            sys.exit(EXIT_FAILURE)
+        except Exception as exc:  # a defect of the tool, not of the input
+            _defect(exc)
 
     return wrapper
+
+
+def _defect(exc: Exception) -> None:
+    """Report an unexpected exception as a defect of walkers (exit 3)."""
+    if os.environ.get("WALKERS_DEBUG"):
+        traceback.print_exc()
+    click.echo(
+        f"walkers: unexpected failure ({type(exc).__name__}: {exc}). This is a defect of "
+        "walkers; rerun with WALKERS_DEBUG=1 to see the traceback and report it.",
+        err=True,
+    )
+    sys.exit(EXIT_DEFECT)
 
 
 class Progress:
@@ -170,12 +186,14 @@ def run_command(
     import threading
 
     from walkers.api import run_scenario
+    from walkers.files import refuse_inputs
     from walkers.run.checkpoint import (
         checkpoint_path,
         load_checkpoint,
         remove_checkpoint,
         run_fingerprint,
     )
+    from walkers.run.runner import scenario_inputs
     from walkers.scenario.load import load_scenario
     from walkers.scenario.units import parse_quantity
 
@@ -192,6 +210,8 @@ def run_command(
         every = None
         if checkpoint_every is not None:
             every = parse_quantity(checkpoint_every, "time", "--checkpoint-every")
+        if every is not None:
+            refuse_inputs(ckpt, scenario_inputs(sc))
         state = load_checkpoint(ckpt, fingerprint) if resume else None
         if state is None and ckpt.exists():
             raise InputError(
@@ -209,8 +229,9 @@ def run_command(
                 resume=state,
                 on_output=saver,
                 units=units,
+                inputs=[ckpt] if resume else [],
             )
-        except KeyboardInterrupt:
+        except (KeyboardInterrupt, RunFailure):
             _say_how_to_resume(ckpt, scenario, output, stepper, checkpoint_every)
             raise
         remove_checkpoint(ckpt)
@@ -299,10 +320,9 @@ def inspect_command(
     files, dispersion: float, dt: float | None, map_png: Path | None, frame: int
 ) -> None:
     """Describe flow FILES: grid, CRS, times, variables found, land, speeds, time step."""
-    from walkers.fields.netcdf.open import open_flow
-    from walkers.inspect import describe_flow, draw_speed_map
+    from walkers.inspect import describe_flow, draw_speed_map, open_for_inspection
 
-    flow = open_flow(list(files))
+    flow = open_for_inspection(list(files))
     click.echo(describe_flow(flow, dispersion=dispersion, dt=dt))
     if map_png is not None:
         draw_speed_map(flow, map_png, frame=frame)
@@ -460,6 +480,7 @@ def ensemble_command(
     from walkers.ensemble.assemble import summary_text, write_ensemble
     from walkers.ensemble.execute import run_ensemble
     from walkers.files import check_target
+    from walkers.run.runner import scenario_inputs
     from walkers.scenario.load import load_scenario
     from walkers.scenario.units import parse_quantity
 
@@ -472,7 +493,8 @@ def ensemble_command(
         output = sc.output_path.with_name(
             f"{stem}.nc" if stem.endswith("_ensemble") else f"{stem}_ensemble.nc"
         )
-    check_target(output, overwrite)
+    inputs = scenario_inputs(sc)
+    check_target(output, overwrite, inputs)
     started = time.monotonic()
     last = [0.0]
 
@@ -498,7 +520,7 @@ def ensemble_command(
         thresholds=extra,
     )
     elapsed = time.monotonic() - started
-    write_ensemble(ds, output, overwrite=overwrite)
+    write_ensemble(ds, output, overwrite=overwrite, inputs=inputs)
     click.echo(summary_text(ds, units))
     click.echo(
         f"\n{ds.sizes['member']} members, {ds.attrs['particle_steps']:.3g} "

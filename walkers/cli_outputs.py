@@ -96,17 +96,17 @@ def export_command(
     from walkers.outputs.gis import write_geojson, write_geotiff
     from walkers.outputs.reader import open_results
 
-    ds = open_results(result)
+    ds = open_results(result, stream=True)
     written = []
     if csv is not None:
-        written.append(receptors_to_csv(ds, csv, overwrite=overwrite, units=units))
+        written.append(receptors_to_csv(ds, csv, overwrite=overwrite, units=units, inputs=[result]))
     if not no_gis:
         stem = result.with_name(result.stem)
         target = geojson or Path(f"{stem}_layers.geojson")
-        written.append(write_geojson(ds, target, overwrite=overwrite, units=units))
+        written.append(write_geojson(ds, target, overwrite=overwrite, units=units, inputs=[result]))
         if "concentration_max" in ds:
             tif = geotiff or Path(f"{stem}_concentration_max.tif")
-            written.append(write_geotiff(ds, tif, overwrite=overwrite))
+            written.append(write_geotiff(ds, tif, overwrite=overwrite, inputs=[result]))
     for path in written:
         click.echo(f"wrote {path}")
 

@@ -6,12 +6,13 @@ from __future__ import annotations
 
 import errno
 import os
+import shutil
 import uuid
-from collections.abc import Iterator
+from collections.abc import Iterable, Iterator
 from contextlib import contextmanager
 from pathlib import Path
 
-from walkers.errors import InputError
+from walkers.errors import InputError, RunFailure
 
 # --------------------------------------------------------------------------------------------
 # atomic writing
@@ -26,10 +27,32 @@ def check_folder(folder: Path, what: str) -> None:
         raise InputError(f"{what} {str(folder)!r} is not writable; choose another")
 
 
-def check_target(path: Path, overwrite: bool) -> None:
-    """Raise InputError if ``path`` cannot be written: no such or no writable directory, or the
-    file exists and ``overwrite`` is false."""
+def same_file(a: str | os.PathLike, b: str | os.PathLike) -> bool:
+    """True if ``a`` and ``b`` name one file: the same inode (hard and symbolic links, other
+    spellings of the path) or, when either does not exist yet, the same resolved path."""
+    try:
+        return os.path.samefile(a, b)
+    except OSError:
+        return os.path.realpath(a) == os.path.realpath(b)
+
+
+def refuse_inputs(target: str | os.PathLike, inputs: Iterable[str | os.PathLike]) -> None:
+    """Raise InputError if ``target`` is one of ``inputs`` (by :func:`same_file`): an input of
+    a run is never written over, with or without ``--overwrite``."""
+    for source in inputs:
+        if same_file(target, source):
+            raise InputError(
+                f"output file {str(target)!r} is the input file {str(source)!r} of this run "
+                "(the same file, perhaps through a link or another spelling); inputs are never "
+                "written over, with or without --overwrite: choose another output name"
+            )
+
+
+def check_target(path: Path, overwrite: bool, inputs: Iterable[str | os.PathLike] = ()) -> None:
+    """Raise InputError if ``path`` cannot be written: no such or no writable directory, the file
+    is one of ``inputs`` (never written over), or it exists and ``overwrite`` is false."""
     check_folder(path.parent, "output directory")
+    refuse_inputs(path, inputs)
     if path.exists() and not overwrite:
         raise InputError(
             f"output file {str(path)!r} exists; pass --overwrite or choose another name"
@@ -88,4 +111,75 @@ def _temporary_names(finals: list[Path]) -> Iterator[list[Path]]:
         yield temps
     finally:
         for temp in temps:
-            temp.unlink(missing_ok=True)
+            if os.path.lexists(temp):  # (a read-only folder refuses even to unlink a name it lacks)
+                temp.unlink()
+
+
+# --------------------------------------------------------------------------------------------
+# a full disk, a folder that refuses writing
+# --------------------------------------------------------------------------------------------
+
+#: errno values of a write that failed for want of room or of permission, not for a defect.
+NO_ROOM = {errno.ENOSPC, errno.EDQUOT, errno.EFBIG}
+NO_PERMISSION = {errno.EACCES, errno.EPERM, errno.EROFS}
+
+
+def free_bytes(folder: Path) -> int:
+    """Bytes free for an ordinary user in ``folder``'s file system."""
+    return int(shutil.disk_usage(folder).free)
+
+
+def check_room(path: Path, need: int) -> None:
+    """Raise RunFailure if the file system of ``path`` has fewer than ``need`` bytes free."""
+    free = free_bytes(path.parent)
+    if need > free:
+        raise RunFailure(
+            f"output file {str(path)!r}: about {_size(need)} are needed but only {_size(free)} "
+            f"are free in {str(path.parent)!r}; free at least {_size(need - free)} there or "
+            "choose another folder. Nothing was written"
+        )
+
+
+@contextmanager
+def failures_named(path: Path, need: int) -> Iterator[None]:
+    """Within: a write to ``path`` (about ``need`` bytes) that fails for want of room or
+    permission raises the RunFailure of :func:`write_failure`; other errors pass unchanged."""
+    try:
+        yield
+    except (OSError, RuntimeError) as exc:  # netCDF reports a full disk as a RuntimeError
+        failure = write_failure(exc, path, need)
+        if failure is None:
+            raise
+        raise failure from exc
+
+
+def write_failure(exc: BaseException, path: Path, need: int) -> RunFailure | None:
+    """The RunFailure of a write to ``path`` that failed for want of room or permission (from the
+    error's errno; when the library reports none or "permission denied", as netCDF and HDF5 may
+    for a full disk, from the free space left: under ``need`` bytes, the disk is full); None for
+    any other failure."""
+    code = getattr(exc, "errno", None)
+    free = free_bytes(path.parent)
+    # HDF5 reports a file it could not create on a full disk as "permission denied"
+    full = free < need and (code is None or code in NO_PERMISSION)
+    if code in NO_ROOM or full:
+        return RunFailure(
+            f"{str(path)!r} cannot be written: the disk is full ({exc}); about {_size(need)} are "
+            f"needed and {_size(free)} are free in {str(path.parent)!r}. Free space there or "
+            "choose another folder; nothing was written under the output name"
+        )
+    if code in NO_PERMISSION:
+        return RunFailure(
+            f"{str(path)!r} cannot be written ({exc}); the folder "
+            f"{str(path.parent)!r} does not allow it: choose another or change its permissions. "
+            "Nothing was written under the output name"
+        )
+    return None
+
+
+def _size(n: int) -> str:
+    """A byte count for people: kB, MB or GB (SI prefixes)."""
+    for unit, scale in (("GB", 1e9), ("MB", 1e6), ("kB", 1e3)):
+        if abs(n) >= scale:
+            return f"{n / scale:.3g} {unit}"
+    return f"{n} bytes"

@@ -17,6 +17,7 @@ from scipy.interpolate import interp1d
 
 from walkers import CAUTION
 from walkers.engine.timestep import check_time_step
+from walkers.errors import InputError
 from walkers.fields.base import FlowField, GriddedVariable
 from walkers.fields.geo import cell_sizes
 from walkers.fields.netcdf.open import open_flow
@@ -97,7 +98,7 @@ def describe_flow(
     flow = (
         path_or_flow
         if isinstance(path_or_flow, FlowField)
-        else open_flow(path_or_flow, **open_options)
+        else open_for_inspection(path_or_flow, **open_options)
     )
     lines = [f"Flow field: {flow.source}"]
     _describe_grid(flow, lines)
@@ -127,8 +128,60 @@ def describe_flow(
             f"  time step {dt:.10g} s {verdict} (velocity {report.advection_ratio:.3g} cells, "
             f"sqrt(2 K dt) {report.dispersion_ratio:.3g} cells)"
         )
+    _describe_missing(flow, lines)
     lines.append(f"  Caution: {CAUTION}")
     return "\n".join(lines)
+
+
+#: The report's word for a flow opened without the water depth it lacks (see open_for_inspection).
+NO_DEPTH = "no_depth"
+
+
+def open_for_inspection(paths: Any, **open_options: Any) -> FlowField:
+    """Open flow file(s) to describe them, also when they hold no water depth.
+
+    A file the reader accepts is opened as a run opens it. One that it refuses only for want of
+    a water depth is opened with a stand-in depth of 1 m (wet cells then follow the velocities'
+    fill values) and marked ``attrs[NO_DEPTH]``, so the report can say what a run needs; the
+    stand-in is not reported. Any other refusal is raised.
+    """
+    try:
+        return open_flow(paths, **open_options)
+    except InputError as refusal:
+        if open_options.get("constant_depth") is not None:
+            raise
+        try:
+            flow = open_flow(paths, **{**open_options, "constant_depth": 1.0})
+        except InputError:
+            raise refusal from None
+    flow.attrs["constant_depth"] = None
+    flow.attrs[NO_DEPTH] = True
+    return flow
+
+
+def _describe_missing(flow: FlowField, lines: list[str]) -> None:
+    """Report lines on what a run needs that the file does not give, and the keys that give it."""
+    missing = []
+    if flow.attrs.get(NO_DEPTH):
+        missing.append(
+            "water depth: none found (land and dry cells above are where the velocities are "
+            'missing); a run needs [flow] depth = "<depth> m" (a constant depth; in 1-D the '
+            "cross-section in m2), or the depth variable named in [flow.variables] depth (or "
+            "water_level with bed_level)"
+        )
+    if not flow.crs_wkt and not flow.geographic:
+        missing.append(
+            'coordinate reference system: none stated; [flow] crs = "EPSG:<code>" places the '
+            "grid on Earth (a run in local metres works without it)"
+        )
+    if flow.steady:
+        missing.append(
+            "time: one frame, taken as a steady flow valid at every time; a flow that changes "
+            "needs frames along a CF time axis (units such as 'seconds since <ISO 8601 time>')"
+        )
+    if missing:
+        lines.append("  missing for a run:")
+        lines += [f"    {item}" for item in missing]
 
 
 def _describe_grid(flow: FlowField, lines: list[str]) -> None:

@@ -5,6 +5,8 @@ statistics, its file and its summary text.
 from __future__ import annotations
 
 import math
+import os
+from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
@@ -305,13 +307,19 @@ def _add_percentiles(data, stem, dims, est, lo, hi, units, what, comment) -> Non
         )
 
 
-def write_ensemble(ds: xr.Dataset, path: str | Path, *, overwrite: bool = False) -> Path:
+def write_ensemble(
+    ds: xr.Dataset,
+    path: str | Path,
+    *,
+    overwrite: bool = False,
+    inputs: Sequence[str | os.PathLike] = (),
+) -> Path:
     """Write an ensemble Dataset as CF-1.8 NetCDF through
     :func:`walkers.outputs.writer.write_results` (temporary name, then rename; an existing file is
-    kept unless ``overwrite``)."""
+    kept unless ``overwrite``; none of ``inputs``, the files the ensemble read, is written over)."""
     from walkers.outputs.writer import write_results
 
-    return write_results(ds, path, overwrite=overwrite)
+    return write_results(ds, path, overwrite=overwrite, inputs=inputs)
 
 
 def members_for_convergence(members: int, change: float, standard_error: float) -> int:

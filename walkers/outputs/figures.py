@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import os
 import textwrap
-from collections.abc import Sequence
+from collections.abc import Iterator, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -31,6 +31,7 @@ from matplotlib.ticker import FuncFormatter
 
 import walkers
 from walkers.errors import InputError
+from walkers.files import refuse_inputs
 from walkers.outputs.display import (
     ConcentrationUnit,
     concentration_unit,
@@ -90,7 +91,7 @@ class _Run:
 def _load(
     ds_or_path: xr.Dataset | str | os.PathLike, land: xr.DataArray | None, units: str | None
 ) -> _Run:
-    ds = ds_or_path if isinstance(ds_or_path, xr.Dataset) else open_results(ds_or_path)
+    ds = ds_or_path if isinstance(ds_or_path, xr.Dataset) else open_results(ds_or_path, stream=True)
     if "concentration" not in ds:
         raise InputError("result has no 'concentration' variable; is this a walkers result?")
     mask = None
@@ -104,10 +105,9 @@ def _load(
     elif "land" in ds:
         mask = np.asarray(ds["land"].values) == 1
     unit = concentration_unit(ds, units)
-    conc = unit.value(ds["concentration"].values)
-    positive = conc[conc > 0]
-    vmax = float(positive.max()) if positive.size else 1.0
-    vmin = max(float(positive.min()) if positive.size else vmax, vmax * 10.0**-DECADES)
+    lowest, highest = _positive_range(ds["concentration"])
+    vmax = float(unit.value(highest))
+    vmin = max(float(unit.value(lowest)), vmax * 10.0**-DECADES)
     if vmin >= vmax:
         vmin = vmax / 10.0
     return _Run(
@@ -118,6 +118,46 @@ def _load(
         norm=LogNorm(vmin=vmin, vmax=vmax),
         unit=unit,
     )
+
+
+def _frames(conc: xr.DataArray, stride: int = 1) -> Iterator[tuple[int, np.ndarray]]:
+    """(index, field) of every ``stride``-th output time, read one at a time (a result opened with
+    ``stream=True`` is never all in memory)."""
+    for i in range(0, conc.sizes["time"], stride):
+        yield i, np.asarray(conc.isel(time=i).values)
+
+
+def _positive_range(conc: xr.DataArray) -> tuple[float, float]:
+    """Smallest and largest positive concentration (kg m-3) over all output times; (1, 1) when
+    there is none."""
+    lowest, highest = np.inf, 0.0
+    for _, field in _frames(conc):
+        positive = field[field > 0]
+        if positive.size:
+            lowest = min(lowest, float(positive.min()))
+            highest = max(highest, float(positive.max()))
+    return (lowest, highest) if highest > 0 else (1.0, 1.0)
+
+
+def _max_and_count(run: _Run) -> tuple[np.ndarray, np.ndarray | None]:
+    """The maximum over time of each cell's concentration, and the particle count at the output
+    time of that maximum (None without counts), read one output time at a time."""
+    counts = run.ds["particle_count"] if "particle_count" in run.ds else None
+    cmax: np.ndarray | None = None
+    at_max: np.ndarray | None = None
+    for i, field in _frames(run.ds["concentration"]):
+        if cmax is None:
+            cmax = field.copy()
+            at_max = None if counts is None else np.asarray(counts.isel(time=i).values).copy()
+            continue
+        higher = field > cmax
+        cmax = np.where(higher, field, cmax)
+        if counts is not None and at_max is not None and higher.any():
+            at_max = np.where(higher, np.asarray(counts.isel(time=i).values), at_max)
+    assert cmax is not None  # a result has at least one output time
+    if "concentration_max" in run.ds:
+        cmax = np.asarray(run.ds["concentration_max"].values)
+    return cmax, at_max
 
 
 def _footer_text(width_in: float, when: str) -> str:
@@ -377,14 +417,15 @@ def _budget_figure(run: _Run, path: Path) -> Path:
 
 
 def _animation(run: _Run, path: Path, fps: int) -> Path:
-    conc = np.asarray(run.ds["concentration"].values)
+    conc = run.ds["concentration"]
+    first = np.asarray(conc.isel(time=0).values)
     fig = _figure(*_map_size(run, 6.4))
     fig.set_dpi(80)
     ax = fig.add_subplot()
     if run.one_dimensional:
-        artist = _draw_profile(run, ax, conc[0, 0])
+        artist = _draw_profile(run, ax, first[0])
     else:
-        artist = _draw_map(run, ax, conc[0], None)
+        artist = _draw_map(run, ax, first, None)
         _colour_bar(run, fig, ax, artist)
     title = ax.set_title(f"Concentration at {run.stamps[0]}", fontsize=10)
     _footer(fig, f"{run.stamps[0]} to {run.stamps[-1]}")
@@ -392,13 +433,13 @@ def _animation(run: _Run, path: Path, fps: int) -> Path:
     fig.canvas.draw()
     fig.set_layout_engine("none")  # freeze the layout: solving it anew for every frame is slow
     writer = PillowWriter(fps=max(1, int(fps)))
-    stride = max(1, -(-conc.shape[0] // MAX_FRAMES))
+    stride = max(1, -(-conc.sizes["time"] // MAX_FRAMES))
     with writer.saving(fig, path, dpi=fig.dpi):
-        for i in range(0, conc.shape[0], stride):
+        for i, field in _frames(conc, stride):
             if run.one_dimensional:
-                artist.set_ydata(np.where(conc[i, 0] > 0, run.conc(conc[i, 0]), np.nan))
+                artist.set_ydata(np.where(field[0] > 0, run.conc(field[0]), np.nan))
             else:
-                artist.set_data(np.ma.masked_less_equal(run.conc(conc[i]), 0.0))
+                artist.set_data(np.ma.masked_less_equal(run.conc(field), 0.0))
             title.set_text(f"Concentration at {run.stamps[i]}")
             writer.grab_frame()
     return path
@@ -451,17 +492,21 @@ def plot_results(
         raise InputError(f"figure directory {str(folder)!r} does not exist; create it first")
     if not os.access(folder, os.W_OK | os.X_OK):
         raise InputError(f"figure directory {str(folder)!r} is not writable; choose another")
+    if not isinstance(ds_or_path, xr.Dataset):
+        for entry in folder.iterdir():  # a figure name that leads to the result: never drawn over
+            if entry.suffix in (".png", ".gif"):
+                refuse_inputs(entry, [ds_or_path])
     run = _load(ds_or_path, land, units)
     chosen = _chosen_indices(run, times)
     written = _summary_figures(run, folder)
-    conc = np.asarray(run.ds["concentration"].values)
-    counts = np.asarray(run.ds["particle_count"].values) if "particle_count" in run.ds else None
+    conc = run.ds["concentration"]
+    counts = run.ds["particle_count"] if "particle_count" in run.ds else None
     for i in chosen:
         written.append(
             _map_figure(
                 run,
-                conc[i],
-                None if counts is None else counts[i],
+                np.asarray(conc.isel(time=i).values),
+                None if counts is None else np.asarray(counts.isel(time=i).values),
                 f"Concentration at {run.stamps[i]} ({run.hours[i]:g} h after the run start)",
                 run.stamps[i],
                 folder / f"concentration_t{i:04d}.png",
@@ -474,19 +519,7 @@ def plot_results(
 def _summary_figures(run: _Run, folder: Path) -> list[Path]:
     """The maximum map (thin cells judged by the particle count at each cell's maximum), the
     receptor series (when there are receptors) and the mass budget."""
-    conc = np.asarray(run.ds["concentration"].values)
-    cmax = (
-        np.asarray(run.ds["concentration_max"].values)
-        if "concentration_max" in run.ds
-        else conc.max(axis=0)
-    )
-    at_max = (
-        np.take_along_axis(
-            np.asarray(run.ds["particle_count"].values), conc.argmax(axis=0)[None], axis=0
-        )[0]
-        if "particle_count" in run.ds
-        else None
-    )
+    cmax, at_max = _max_and_count(run)
     written = [
         _map_figure(
             run,

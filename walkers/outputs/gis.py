@@ -20,6 +20,7 @@ from __future__ import annotations
 
 import json
 import os
+from collections.abc import Iterable
 from pathlib import Path
 from typing import Any
 
@@ -182,16 +183,29 @@ def result_features(ds: xr.Dataset, units: str | None = None) -> dict[str, Any]:
 
 
 def write_geojson(
-    ds: xr.Dataset, path: str | os.PathLike, *, overwrite: bool = False, units: str | None = None
+    ds: xr.Dataset,
+    path: str | os.PathLike,
+    *,
+    overwrite: bool = False,
+    units: str | None = None,
+    inputs: Iterable[str | os.PathLike] = (),
 ) -> Path:
-    """Write :func:`result_features` as GeoJSON (RFC 7946), atomically; return the path."""
+    """Write :func:`result_features` as GeoJSON (RFC 7946), atomically, never onto one of
+    ``inputs`` (the result read); return the path."""
     path = Path(path)
-    check_target(path, overwrite)
+    check_target(path, overwrite, inputs)
     return write_text(path, json.dumps(result_features(ds, units)), overwrite=overwrite)
 
 
-def write_geotiff(ds: xr.Dataset, path: str | os.PathLike, *, overwrite: bool = False) -> Path:
-    """Write ``concentration_max`` (kg m-3) as a north-up GeoTIFF on the result's CRS."""
+def write_geotiff(
+    ds: xr.Dataset,
+    path: str | os.PathLike,
+    *,
+    overwrite: bool = False,
+    inputs: Iterable[str | os.PathLike] = (),
+) -> Path:
+    """Write ``concentration_max`` (kg m-3) as a north-up GeoTIFF on the result's CRS, never onto
+    one of ``inputs`` (the result read)."""
     try:
         import rasterio
         from rasterio.crs import CRS
@@ -204,7 +218,7 @@ def write_geotiff(ds: xr.Dataset, path: str | os.PathLike, *, overwrite: bool = 
     path = Path(path)
     if "concentration_max" not in ds:
         raise InputError("result has no 'concentration_max': a GeoTIFF is written for runs only")
-    check_target(path, overwrite)
+    check_target(path, overwrite, inputs)
     x, y = ds["x"].values, ds["y"].values
     xe, ye = cell_edges(x), cell_edges(y)
     dx, dy = float(xe[1] - xe[0]), float(ye[1] - ye[0])

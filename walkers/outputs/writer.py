@@ -32,9 +32,10 @@ On disk the string coordinates ``receptor`` and ``edge`` become the auxiliary la
 from __future__ import annotations
 
 import datetime as dt
+import json
 import math
 import os
-from collections.abc import Iterator
+from collections.abc import Iterable, Iterator
 from contextlib import contextmanager
 from pathlib import Path
 from typing import Any
@@ -48,7 +49,15 @@ from pyproj import CRS, Transformer
 
 import walkers
 from walkers.errors import InputError
-from walkers.files import _fsync_dir, _fsync_file, _place, _temporary_names, check_target
+from walkers.files import (
+    _fsync_dir,
+    _fsync_file,
+    _place,
+    _temporary_names,
+    check_room,
+    check_target,
+    failures_named,
+)
 
 CONVENTIONS = "CF-1.8"
 GRID_MAPPING = "crs"
@@ -329,24 +338,41 @@ def _chunk_cache(data: xr.Dataset, encoding: dict[str, dict]) -> Iterator[None]:
         netCDF4.set_chunk_cache(*before)
 
 
-def _write_atomic(items: list[tuple[xr.Dataset, dict, Path]], overwrite: bool) -> None:
+def estimated_bytes(data: xr.Dataset) -> int:
+    """About how many bytes ``data`` takes in a file: the values of the (time, y, x) fields that
+    are not zero (compression leaves little of the zeros), every other variable whole, and 16 kB
+    of metadata. Fields streamed from the run's store are counted one output time at a time."""
+    total = 16_000
+    for var in data.variables.values():
+        if var.ndim == 3:
+            with dask.config.set(scheduler="synchronous"):
+                nonzero = int(dask.array.count_nonzero(dask.array.asarray(var.data)).compute())
+            total += nonzero * var.dtype.itemsize
+        else:
+            total += int(var.nbytes)
+    return total
+
+
+def _write_atomic(
+    items: list[tuple[xr.Dataset, dict, Path]], overwrite: bool, inputs: list[str]
+) -> None:
+    """Write each (data, encoding, path) to a temporary name, then give all their final names;
+    refuse a target that is one of ``inputs`` or lacks the room the data needs."""
     finals = [path for _, _, path in items]
     for path in finals:
-        check_target(path, overwrite)
+        check_target(path, overwrite, inputs)
+    need = {path: estimated_bytes(data) for data, _, path in items}
+    check_room(finals[0], sum(need.values()))
     placed: list[Path] = []
     with _temporary_names(finals) as temps:
         try:
-            for (data, encoding, _), temp in zip(items, temps, strict=True):
-                try:
+            for (data, encoding, final), temp in zip(items, temps, strict=True):
+                with failures_named(final, need[final]):
                     # fields streamed to disk are dask arrays: written one chunk (output time) at
                     # a time, in this thread (the store's files are read under one lock)
                     with dask.config.set(scheduler="synchronous"), _chunk_cache(data, encoding):
                         data.to_netcdf(temp, format="NETCDF4", encoding=encoding)
-                except PermissionError as exc:
-                    raise InputError(
-                        f"output directory {str(temp.parent)!r} is not writable; choose another"
-                    ) from exc
-                _fsync_file(temp)
+                    _fsync_file(temp)
             for temp, final in zip(temps, finals, strict=True):
                 _place(temp, final, overwrite)
                 placed.append(final)
@@ -370,16 +396,30 @@ def tracks_path(path: str | os.PathLike) -> Path:
     return path.with_name(f"{path.stem}_tracks.nc")
 
 
-def write_results(ds: xr.Dataset, path: str | os.PathLike, *, overwrite: bool = False) -> Path:
+def input_paths(ds: xr.Dataset) -> list[str]:
+    """The input files a result records in its ``input_files`` attribute (none if it has none)."""
+    text = ds.attrs.get("input_files")
+    return [str(record["path"]) for record in json.loads(text)] if text else []
+
+
+def write_results(
+    ds: xr.Dataset,
+    path: str | os.PathLike,
+    *,
+    overwrite: bool = False,
+    inputs: Iterable[str | os.PathLike] = (),
+) -> Path:
     """Write a run's result Dataset as CF-1.8 NetCDF4, atomically; return the path written.
 
     Sampled tracks (``track_x``/``track_y``), if present, go to :func:`tracks_path` ``(path)`` as
     a CF trajectory file, because CF allows one featureType per file and the main file is a
     ``timeSeries`` of the receptors; the two files are placed together or not at all.
 
-    Raises InputError if the output directory is missing or not writable, or if a target file
-    exists and ``overwrite`` is false. On any error no file is left under a final name and the
-    temporary files are removed.
+    Raises InputError if the output directory is missing or not writable, if a target file is an
+    input of the run (those the result records in ``input_files``, and ``inputs``) or exists and
+    ``overwrite`` is false; RunFailure if the disk has no room for it (checked before writing
+    against :func:`estimated_bytes`, and when a write fails for want of room) or refuses the write.
+    On any error no file is left under a final name and the temporary files are removed.
     """
     path = Path(path)
     history = _history()
@@ -388,7 +428,7 @@ def write_results(ds: xr.Dataset, path: str | os.PathLike, *, overwrite: bool = 
     if "track_x" in ds and ds.sizes.get("trajectory", 0) > 0:
         data.attrs["tracks_file"] = tracks_path(path).name
         items.append((*_tracks_to_cf(ds, history), tracks_path(path)))
-    _write_atomic(items, overwrite)
+    _write_atomic(items, overwrite, [*input_paths(ds), *map(str, inputs)])
     return path
 
 
@@ -400,5 +440,5 @@ def write_tracks(ds: xr.Dataset, path: str | os.PathLike, *, overwrite: bool = F
     if "track_x" not in ds or ds.sizes.get("trajectory", 0) == 0:
         raise InputError("result has no sampled tracks; request tracks in the run to write them")
     path = Path(path)
-    _write_atomic([(*_tracks_to_cf(ds, _history()), path)], overwrite)
+    _write_atomic([(*_tracks_to_cf(ds, _history()), path)], overwrite, input_paths(ds))
     return path

@@ -20,10 +20,12 @@ import xarray as xr
 
 from walkers.engine.dispersion import transport_for
 from walkers.engine.state import BYTES_PER_PARTICLE
-from walkers.errors import InputError
+from walkers.errors import InputError, RunFailure
 from walkers.fields.base import FlowField
 from walkers.fields.scenario_flow import build_flow, check_flow
+from walkers.run.accumulate import _field_variables
 from walkers.run.simulate import RunState, simulate
+from walkers.run.store import streams_to_disk
 from walkers.scenario.config import Release
 from walkers.scenario.specs import Scenario
 
@@ -106,17 +108,25 @@ def land_on_output_grid(flow: FlowField, scenario: Scenario, t0: float, t1: floa
 def memory_estimate(scenario: Scenario, flow: FlowField) -> tuple[int, int]:
     """(bytes per particle, bytes of everything else) a run of ``scenario`` on ``flow`` needs.
 
-    Everything else: the output arrays kept for every output time (concentration float64, counts
-    int32, smoothed concentration float64 if asked, receptor series and sampled tracks), counted
-    twice because the file writer holds a copy, and the window of flow frames in memory (about
-    ten float64 arrays per frame on the flow grid: velocities, depth, wet mask, drift and
-    dispersion coefficients).
+    Everything else:
+
+    - the 3-D fields (concentration float64, counts int32, smoothed concentration float64 if
+      asked): held for every output time and counted twice (the file writer holds a copy) when
+      the run keeps them in memory; when they stream to disk
+      (:func:`walkers.run.store.streams_to_disk`), three output times' worth (the one being
+      reduced, the store's write and the writer's chunk);
+    - the running maximum of the concentration (float64 on the output grid);
+    - the series over time (receptors, sampled tracks), counted twice;
+    - the window of flow frames in memory (about ten float64 arrays per frame on the flow grid:
+      velocities, depth, wet mask, drift and dispersion coefficients).
     """
     g = scenario.output
     nt = int(round(scenario.duration / scenario.output_interval)) + 1
-    per_time = g.nx * g.ny * (8 + 4 + (8 if g.bandwidth > 0 else 0))
-    per_time += 8 * len(scenario.receptors) + 2 * 8 * scenario.tracks
-    outputs = 2 * nt * per_time
+    variables = _field_variables(g)
+    field_bytes = g.nx * g.ny * sum(np.dtype(d).itemsize for d in variables.values())
+    held = 3 if streams_to_disk((nt, g.ny, g.nx), variables) else 2 * nt
+    series = 2 * nt * (8 * len(scenario.receptors) + 2 * 8 * scenario.tracks)
+    outputs = held * field_bytes + 8 * g.nx * g.ny + series
     frames = 1
     if not flow.steady:
         spacing = float(np.median(np.diff(flow.times)))
@@ -143,9 +153,11 @@ def check_memory(scenario: Scenario, flow: FlowField) -> None:
     cells = scenario.output.nx * scenario.output.ny
     if fixed >= available:
         raise InputError(
-            f"output: {nt} output times of {cells} cells need about {fixed / 1e9:.3g} GB of "
-            f"memory, more than the {available / 1e9:.3g} GB available; use a coarser "
-            "output.grid (larger cell_size or a smaller area) or a longer run.output_interval"
+            f"output: {nt} output times of {cells} cells, {len(scenario.receptors)} receptors "
+            f"and {scenario.tracks} sampled tracks need about {fixed / 1e9:.3g} GB of memory, "
+            f"more than the {available / 1e9:.3g} GB available; use a coarser output.grid "
+            "(larger cell_size or a smaller area), fewer run.tracks or a longer "
+            "run.output_interval"
         )
     fit = (available - fixed) // per_particle
     raise InputError(
@@ -156,14 +168,18 @@ def check_memory(scenario: Scenario, flow: FlowField) -> None:
     )
 
 
-def input_provenance(scenario: Scenario) -> list[dict[str, Any]]:
-    """Name, size, modification time and SHA-256 of every input file of the scenario."""
-    paths = list(scenario.flow.paths)
+def scenario_inputs(scenario: Scenario) -> list[Path]:
+    """The files a run of ``scenario`` reads: its scenario file (if any) and its flow files."""
+    paths = [Path(p) for p in scenario.flow.paths]
     if scenario.source_path is not None:
         paths.insert(0, Path(scenario.source_path))
+    return paths
+
+
+def input_provenance(scenario: Scenario) -> list[dict[str, Any]]:
+    """Name, size, modification time and SHA-256 of every input file of the scenario."""
     records = []
-    for p in paths:
-        p = Path(p)
+    for p in scenario_inputs(scenario):
         digest = hashlib.sha256()
         with open(p, "rb") as fh:
             while block := fh.read(1 << 20):
@@ -180,6 +196,26 @@ def input_provenance(scenario: Scenario) -> list[dict[str, Any]]:
     return records
 
 
+def check_inputs_unchanged(before: list[dict[str, Any]], scenario: Scenario) -> None:
+    """Raise RunFailure if a flow file's SHA-256 differs from ``before`` (its
+    :func:`input_provenance` at the run start): the file was changed or replaced while the run
+    read it, so the result could mix two versions of it. (The scenario file is read once, before
+    the run, so editing it meanwhile is no concern.)"""
+    now = {r["path"]: r for r in input_provenance(scenario)}
+    flows = {str(Path(p)) for p in scenario.flow.paths}
+    for record in before:
+        if record["path"] not in flows:
+            continue
+        after = now[record["path"]]
+        if after["sha256"] != record["sha256"]:
+            raise RunFailure(
+                f"input file {record['path']!r} changed while the run was reading it (SHA-256 "
+                f"{record['sha256'][:12]}... at the start, {after['sha256'][:12]}... now; "
+                f"{record['bytes']} then {after['bytes']} bytes); the result could mix two "
+                "versions of it, so nothing was written. Run again once the file is final"
+            )
+
+
 def simulate_scenario(
     scenario: Scenario,
     *,
@@ -190,6 +226,7 @@ def simulate_scenario(
     flow: FlowField | None = None,
 ) -> xr.Dataset:
     """Run a scenario and return its result Dataset (nothing is written)."""
+    provenance = input_provenance(scenario)
     flow = build_flow(scenario.flow) if flow is None else flow
     offset = flow_offset(scenario, flow)
     check_places(scenario, flow, offset)
@@ -225,7 +262,8 @@ def simulate_scenario(
             "flag_meanings": "water land outside_flow_grid",
         },
     )
-    ds.attrs["input_files"] = json.dumps(input_provenance(scenario))
+    check_inputs_unchanged(provenance, scenario)
+    ds.attrs["input_files"] = json.dumps(provenance)
     if scenario.comment:
         ds.attrs["comment"] = scenario.comment
     ds.attrs["release_places"] = release_places(scenario)

@@ -39,7 +39,7 @@ import xarray as xr
 from walkers.engine import mover
 from walkers.engine.randomness import run_streams
 from walkers.engine.releases import make_particles
-from walkers.engine.state import ParticleState
+from walkers.engine.state import IN_WATER, WAITING, ParticleState
 from walkers.engine.timestep import check_time_step
 from walkers.errors import InputError, RunFailure
 from walkers.fields.base import FlowField, FlowWindow, centre_to_edges
@@ -314,6 +314,7 @@ def simulate(
                     walk_key,
                     stepper,
                 )
+            enter_water(particles, t)
             depths = _particle_depths_at(particles, flow, t, xe, ye)
             conc, count = reduce.concentration(particles, depths, output_grid, measure)
             acc.record(
@@ -330,6 +331,14 @@ def simulate(
         # a failed or interrupted run leaves no temporary files (a checkpoint keeps its own)
         acc.fields.discard()
         raise
+
+
+def enter_water(particles: ParticleState, t: float) -> None:
+    """Particles released at or before time ``t`` (s) that still wait enter the water now, so
+    the output at ``t`` holds them (a release at an output time is in that output). The engine's
+    next step then moves them from ``t``, as it would have from their release time."""
+    waiting = particles.status == WAITING
+    particles.status[waiting & (particles.release_time <= t)] = IN_WATER
 
 
 def _substeps(

@@ -23,7 +23,7 @@ import netCDF4
 import numpy as np
 
 from walkers.errors import InputError
-from walkers.files import _fsync_dir, _fsync_file, check_folder
+from walkers.files import _fsync_dir, _fsync_file, check_folder, failures_named
 
 # --------------------------------------------------------------------------------------------
 # field store: the 3-D fields of a run while it goes on
@@ -177,7 +177,9 @@ class DiskFields:
         """Append the fields of output time ``k`` (the next one: ``k == count``)."""
         if k != self.count:
             raise ValueError(f"field store: output {k} given when output {self.count} is next")
-        with _STORE_LOCK:
+        need = sum(int(np.asarray(values).nbytes) for values in fields.values())
+        with _STORE_LOCK, failures_named(self.folder, need):
+            # (a full disk or a folder that refuses writing is a named fault, not a defect)
             if self.writing is None:
                 self._start_segment(k)
             assert self.writing is not None and self._files.writer is not None
@@ -209,7 +211,9 @@ class DiskFields:
 
     def seal(self) -> None:
         """Close the segment being written, so it is a complete file."""
-        with _STORE_LOCK:
+        _, ny, nx = self.shape
+        last = ny * nx * sum(dtype.itemsize for dtype in self.variables.values())  # bytes
+        with _STORE_LOCK, failures_named(self.folder, last):  # the last output time's chunks
             if self._files.writer is not None:
                 self._files.writer.close()
                 self._files.writer = None
@@ -348,7 +352,16 @@ def field_store(
     """
     if mode not in FIELD_MODES:
         raise InputError(f"fields = {mode!r}: expected one of {', '.join(FIELD_MODES)}")
-    nbytes = math.prod(shape) * sum(np.dtype(d).itemsize for d in variables.values())
-    if mode == "disk" or (mode == "auto" and nbytes > FIELD_MEMORY_BUDGET):
+    if streams_to_disk(shape, variables, mode):
         return DiskFields(shape, variables, folder)
     return MemoryFields(shape, variables)
+
+
+def streams_to_disk(
+    shape: tuple[int, ...], variables: Mapping[str, Any], mode: FieldMode = "auto"
+) -> bool:
+    """Whether :func:`field_store` keeps fields of this shape (output times, ny, nx) and these
+    variables (name -> dtype) on disk: always for ``"disk"``, never for ``"memory"``, and for
+    ``"auto"`` when they would take more than :data:`FIELD_MEMORY_BUDGET` bytes."""
+    nbytes = math.prod(shape) * sum(np.dtype(d).itemsize for d in variables.values())
+    return mode == "disk" or (mode == "auto" and nbytes > FIELD_MEMORY_BUDGET)

@@ -9,7 +9,7 @@ from typing import Any
 import netCDF4
 import numpy as np
 
-from walkers.errors import InputError
+from walkers.errors import InputError, RunFailure
 from walkers.fields.netcdf.discovery import _Layout
 from walkers.fields.netcdf.layers import (
     VerticalCoordinate,
@@ -90,6 +90,15 @@ def _wet_mean(eta: np.ndarray, bed: np.ndarray, brackets) -> tuple[np.ndarray, n
     return eta_v, bed_v
 
 
+def _readable(variable: netCDF4.Variable, index: Any) -> bool:
+    """True if ``variable[index]`` can be read."""
+    try:
+        variable[index]
+    except (RuntimeError, OSError):
+        return False
+    return True
+
+
 class _FlowSource:
     """Reads frames of every role from one or more files and derives depth and wet per frame.
 
@@ -131,10 +140,17 @@ class _FlowSource:
         self._cache: tuple[tuple[int, int], dict[str, np.ndarray]] | None = None
         self._handles: dict[int, netCDF4.Dataset] = {}
         self.static: dict[str, np.ndarray] = {}
-        with netCDF4.Dataset(paths[int(frame_file[0]) if frame_file.size else 0]) as ds:
+        path = paths[int(frame_file[0]) if frame_file.size else 0]
+        with netCDF4.Dataset(path) as ds:
             for role, lay in layouts.items():
                 if lay.time_axis is None:
-                    self.static[role] = lay.arrange(ds.variables[lay.name][lay.index()])
+                    try:
+                        self.static[role] = lay.arrange(ds.variables[lay.name][lay.index()])
+                    except (RuntimeError, OSError) as exc:
+                        raise InputError(
+                            f"flow file {path!r}: variable {lay.name!r} cannot be read ({exc}); "
+                            "the file may be damaged or incomplete: copy or write it again"
+                        ) from exc
         self.varying = [r for r, lay in layouts.items() if lay.time_axis is not None]
         depth_roles = {"depth", "water_level", "bed_level", "area"} & set(layouts)
         self.wet_from_file = bool(depth_roles) or "mask" in layouts
@@ -188,13 +204,28 @@ class _FlowSource:
             ):
                 k_end += 1
             a, b = int(self.frame_local[k]), int(self.frame_local[k_end]) + 1
-            ds = self._dataset(f)
             for role in self.varying:
-                lay = self.layouts[role]
-                out[role].append(lay.arrange(ds.variables[lay.name][lay.index(a, b)]))
+                out[role].append(self._read_frames(f, self.layouts[role], k, a, b))
             k = k_end + 1
         self.frames_read += i1 - i0 + 1
         return {r: np.concatenate(parts, axis=0) for r, parts in out.items()}
+
+    def _read_frames(self, f: int, lay: _Layout, k: int, a: int, b: int) -> np.ndarray:
+        """Frames a..b-1 of file f (frames k.. of the flow) of one variable, arranged.
+
+        Raises RunFailure naming the file, the variable and the time of the first frame that
+        cannot be read (a damaged or incomplete file)."""
+        variable = self._dataset(f).variables[lay.name]
+        try:
+            return lay.arrange(variable[lay.index(a, b)])
+        except (RuntimeError, OSError) as exc:
+            bad = next((j for j in range(a, b) if not _readable(variable, lay.index(j, j + 1))), a)
+            raise RunFailure(
+                f"flow file {self.paths[f]!r}: variable {lay.name!r} cannot be read in the frame "
+                f"at {self.time_iso(k + bad - a)} ({exc}); the file may be damaged or incomplete. "
+                "Copy or write it again; a run saved by --checkpoint-every can then go on with "
+                "--resume"
+            ) from exc
 
     def _get(self, raw: dict[str, np.ndarray], role: str) -> np.ndarray:
         return raw[role] if role in raw else self.static[role]

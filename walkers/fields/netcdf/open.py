@@ -185,9 +185,15 @@ def open_flow(
     _check_arguments(variables, min_depth, constant_depth)
     layers = layers or LayerSelection()
     file_list = _expand_paths(paths)
-    first, dates, calendar, cell, wkt = _read_schemas(
-        file_list, variables, units, constant_depth is not None, crs
-    )
+    try:
+        first, dates, calendar, cell, wkt = _read_schemas(
+            file_list, variables, units, constant_depth is not None, crs
+        )
+    except RuntimeError as exc:  # netCDF's error for data it cannot read
+        raise InputError(
+            f"flow file(s) {', '.join(repr(p) for p in file_list)}: cannot be read ({exc}); a "
+            "file may be damaged or incomplete: copy or write it again"
+        ) from exc
     _check_layer_selection(first, layers)
     has_time, time_units, frame_file, frame_local, seconds = _frame_times(
         first, dates, calendar, file_list
