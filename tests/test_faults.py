@@ -262,7 +262,7 @@ def test_a_damaged_frame_keeps_the_checkpoint_and_the_repaired_run_resumes(case,
     sc = load_scenario(case / "bend.toml")
     ckpt = checkpoint.checkpoint_path(out)
     saver = checkpoint.Checkpointer(
-        ckpt, checkpoint.run_fingerprint(sc, "compiled"), 600.0, sc.output_interval, 25
+        ckpt, checkpoint.run_fingerprint(sc, "fast"), 600.0, sc.output_interval, 25
     )
 
     def stop_at_two(state):
@@ -446,7 +446,7 @@ for line in sys.stdin:
         try:
             saver = checkpoint.Checkpointer(
                 checkpoint.checkpoint_path(out),
-                checkpoint.run_fingerprint(sc, "compiled"),
+                checkpoint.run_fingerprint(sc, "fast"),
                 600.0,
                 sc.output_interval,
                 25,
@@ -479,7 +479,7 @@ def test_sigkill_at_20_points_then_resume_gives_the_same_bits(case, bend):
     targets = rng.integers(1, 24, size=KILLS)  # kill once this output is saved ...
     delays = rng.uniform(0.0, 0.03, size=KILLS)  # ... and this many seconds later
     sc = load_scenario(case / "bend.toml")
-    fingerprint = checkpoint.run_fingerprint(sc, "compiled")
+    fingerprint = checkpoint.run_fingerprint(sc, "fast")
     env = {**os.environ, "NUMBA_THREADING_LAYER": "workqueue", "NUMBA_NUM_THREADS": "1"}
     zygote = subprocess.Popen(
         [sys.executable, "-c", ZYGOTE, str(case / "bend.toml"), str(case / "warm.nc")],

@@ -51,8 +51,8 @@ def test_particles_released_at_the_start_are_in_the_first_output(case):
     ds = start_cloud(case)
     # mass conservation (common practice): the box-counted concentration times the cell volume
     # (100 m x 100 m x 8 m of water) sums to the 1 kg released, all of it in water at 00:00
-    assert float(ds["mass_released"][0]) == pytest.approx(1.0, rel=1e-12)
-    assert float(ds["mass_in_water"][0]) == pytest.approx(1.0, rel=1e-12)
+    assert float(ds["budget_released"][0]) == pytest.approx(1.0, rel=1e-12)
+    assert float(ds["budget_in_water"][0]) == pytest.approx(1.0, rel=1e-12)
     assert float(ds["concentration"][0].sum()) * 100.0 * 100.0 * 8.0 == pytest.approx(1.0, 1e-12)
     assert int(ds["particles_in_water"][0]) == 300
     assert np.isfinite(ds["track_x"].values[:, 0]).all()
@@ -61,7 +61,7 @@ def test_particles_released_at_the_start_are_in_the_first_output(case):
 def test_twin_without_entering_the_water_the_first_output_is_empty(case, monkeypatch):
     monkeypatch.setattr("walkers.run.simulate.enter_water", lambda particles, t: None)
     ds = start_cloud(case)
-    assert float(ds["mass_released"][0]) == 0.0 and float(ds["concentration"][0].sum()) == 0.0
+    assert float(ds["budget_released"][0]) == 0.0 and float(ds["concentration"][0].sum()) == 0.0
 
 
 def test_inspect_describes_a_file_without_depth(tmp_path):
