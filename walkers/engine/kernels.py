@@ -361,6 +361,9 @@ def trace_path(px, py, pi, pj, qx, qy, xe, ye, wet_now, edges_mode, max_refl):
     still reflecting after ``max_refl`` reflections, or whose end is not a finite number, is not
     placed (the particle keeps its position).
     """
+    if xe[pi] <= qx < xe[pi + 1] and ye[pj] <= qy < ye[pj + 1]:
+        # Still in its own cell, as most steps are: the result of the trace below, found at once.
+        return -1, 1.0, True, qx, qy, pi, pj
     if not (math.isfinite(qx) and math.isfinite(qy)):
         # A velocity or coefficient that is not finite (a hole beside land): no step is taken.
         return -1, 1.0, False, px, py, pi, pj
@@ -675,14 +678,10 @@ def compiled_mover(ndim, scheme, aligned, drift, geographic, kgrid, shared, cent
                     qy = py
                     if two_d:
                         qy = py + ay_ + dym * sy
-                    if xe[pi] <= qx < xe[pi + 1] and ye[pj] <= qy < ye[pj + 1]:
-                        # Still in its own cell: what trace_path would find, without the call.
-                        edge, placed, ci, cj, tcross = -1, True, pi, pj, t_end
-                    else:
-                        edge, frac, placed, qx, qy, ci, cj = trace_path(
-                            px, py, pi, pj, qx, qy, xe, ye, wet_now, edges_mode, max_refl
-                        )
-                        tcross = tstart + h * frac
+                    edge, frac, placed, qx, qy, ci, cj = trace_path(
+                        px, py, pi, pj, qx, qy, xe, ye, wet_now, edges_mode, max_refl
+                    )
+                    tcross = tstart + h * frac
                     if edge < 0 and bridge and placed:
                         edge = bridge_exit(
                             stream,

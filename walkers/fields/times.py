@@ -46,19 +46,8 @@ def _to_seconds(when: Any, time_units: str, calendar: str) -> float:
     Strings are parsed here rather than by :mod:`datetime` so that dates of non-standard
     calendars (e.g. 30 February in a 360_day calendar) can be written.
     """
-    if isinstance(when, cftime.datetime):
-        parts = (
-            when.year,
-            when.month,
-            when.day,
-            when.hour,
-            when.minute,
-            when.second,
-            when.microsecond,
-        )
-        offset = _dt.timedelta(0)
-    elif isinstance(when, _dt.datetime):
-        if when.tzinfo is None or when.utcoffset() is None:
+    if isinstance(when, cftime.datetime | _dt.datetime):
+        if isinstance(when, _dt.datetime) and (when.tzinfo is None or when.utcoffset() is None):
             raise InputError(
                 f"time {when.isoformat()!r}: no time zone; add one, e.g. 'Z' for UTC or '+01:00'"
             )
@@ -71,7 +60,8 @@ def _to_seconds(when: Any, time_units: str, calendar: str) -> float:
             when.second,
             when.microsecond,
         )
-        offset = when.utcoffset() or _dt.timedelta(0)
+        given = when.utcoffset() if isinstance(when, _dt.datetime) else None  # cftime: UTC
+        offset = given or _dt.timedelta(0)
     elif isinstance(when, str):
         m = _ISO_RE.match(when.strip())
         if m is None:
