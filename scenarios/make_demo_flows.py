@@ -1,4 +1,5 @@
-"""Write the demo flow files: Saltmarsh Estuary (depth-averaged and layered), Millbrook Canal.
+"""Write the demo flow files: Saltmarsh Estuary (depth-averaged, layered, and layered on a
+curvilinear grid: see demo_curvilinear.py), Millbrook Canal.
 
 Usage::
 
@@ -555,14 +556,22 @@ def main(argv: list[str] | None = None) -> None:
         "--outdir",
         type=Path,
         default=Path(__file__).resolve().parent,
-        help="folder for the three NetCDF files (default: this script's folder)",
+        help="folder for the four NetCDF files (default: this script's folder)",
     )
     args = parser.parse_args(argv)
     args.outdir.mkdir(parents=True, exist_ok=True)
+    import sys
+
+    sys.path.insert(0, str(Path(__file__).resolve().parent))
+    import demo_curvilinear
+
     estuary = build_estuary()
+    layered = build_estuary_layered(estuary)
+    curvilinear = demo_curvilinear.build(estuary, layered, sys.modules[__name__])
     for name, ds in (
         ("saltmarsh_estuary_flow.nc", estuary),
-        ("saltmarsh_estuary_layered_flow.nc", build_estuary_layered(estuary)),
+        ("saltmarsh_estuary_layered_flow.nc", layered),
+        ("saltmarsh_estuary_curvilinear_flow.nc", curvilinear),
         ("millbrook_canal_flow.nc", build_canal()),
     ):
         path = args.outdir / name

@@ -3,7 +3,8 @@
 Sources are named in ``walkers.verify`` beside every check: Fischer et al. 1979 (Gaussian
 solution), Carslaw & Jaeger 1959 (method of images), Cox & Miller 1965 (inverse Gaussian first
 passage), Hunter, Craig & Phillips 1993 and Visser 1997 (well-mixed condition), the shear-dispersion
-variance 2Kt(1 + γ²t²/3), first-order decay, and the RK4 stability function. Tolerances are five
+variance 2Kt(1 + γ²t²/3), first-order decay, the RK4 stability function, and on curvilinear grids
+the line vortex (Batchelor 1967) and the cases above in index space. Tolerances are five
 standard errors or the 5-sigma critical values of the distribution tests (see walkers/verify.py).
 """
 
@@ -25,6 +26,10 @@ CASES = [
     ("decay-budget", 2000, {"decay_factor": 1.01}, "mass in water"),
     ("tidal", 10, {"frame_interval": 7200.0}, "displacement"),
     ("rotation", 1, {"scheme": "euler"}, "RK4 radius"),
+    ("curvilinear-vortex", 40, {"speed_factor": 1.01}, "angle travelled"),
+    ("curvilinear-channel", 20000, {"dispersion_factor": 1.15}, "variance x"),
+    ("curvilinear-wall", 10000, {"wall": "absent"}, "KS distance to images law"),
+    ("curvilinear-well-mixed", 20000, {"drift": False}, "largest |C − 1|"),
 ]
 
 

@@ -481,7 +481,9 @@ def block_scratch(lo, hi, x, y, xe, ye, invc, key):
 
 
 @functools.cache
-def compiled_mover(ndim, scheme, aligned, drift, geographic, kgrid, shared, centred, parallel):
+def compiled_mover(
+    ndim, scheme, aligned, drift, geographic, kgrid, tensor, shared, centred, parallel
+):
     """The step loop, compiled for one set of options (the branches of the others removed).
 
     There is one source of the step: this function. Each option below is a constant of the
@@ -494,6 +496,8 @@ def compiled_mover(ndim, scheme, aligned, drift, geographic, kgrid, shared, cent
     drift : add the drift (1/h) ∇·(h K), given on cell centres.
     geographic : positions in degrees (steps converted through the WGS84 radii).
     kgrid : K varies on the cell grid (else constant).
+    tensor : K is a full tensor on the cell grid (K1 = Kxx, K2 = Kyy, K3 = Kxy; the index-space
+        tensor of a curvilinear grid); the noise is its Cholesky factor times two normals.
     shared : u and v lie on the same axes (located once).
     centred : u and v lie on the cell centres (the location is shared with K and the drift).
     parallel : blocks of particles spread over threads (otherwise one thread).
@@ -526,7 +530,7 @@ def compiled_mover(ndim, scheme, aligned, drift, geographic, kgrid, shared, cent
     ):
         ux, uy, U, vx, vy, V, invu = flow[0], flow[1], flow[2], flow[3], flow[4], flow[5], flow[6]
         xe, ye, wet, cx, cy, invc = cells[0], cells[1], cells[2], cells[3], cells[4], cells[5]
-        DX, DY, K1, K2, kconst = disp[0], disp[1], disp[2], disp[3], disp[4]
+        DX, DY, K1, K2, kconst, K3 = disp[0], disp[1], disp[2], disp[3], disp[4], disp[5]
         tab_i = np.zeros((nsteps, 3), np.int64)
         tab_w = np.zeros((nsteps, 3))
         tab_decay = np.ones(nsteps)
@@ -651,7 +655,18 @@ def compiled_mover(ndim, scheme, aligned, drift, geographic, kgrid, shared, cent
                     k2 *= kconst[2]
                     stream = streams[k]
                     z1, z2 = normal_pair(stream, step0 + s)
-                    if aligned:
+                    if tensor:
+                        # B = chol(2 h K): B Bᵀ = 2 h K with K = [[k1, k12], [k12, k2]]
+                        k12 = bilinear(K3, it, wt, ic, jc, wxc, wyc) * kconst[2]
+                        l11 = math.sqrt(max(k1, 0.0))
+                        l21 = k12 / l11 if l11 > 0.0 else 0.0
+                        l22 = math.sqrt(max(k2 - l21 * l21, 0.0))
+                        root = math.sqrt(2.0 * h)
+                        dxm = root * l11 * z1
+                        dym = root * (l21 * z1 + l22 * z2)
+                        kxx = k1
+                        kyy = k2
+                    elif aligned:
                         speed = math.sqrt(u1 * u1 + v1 * v1)
                         if speed > 0.0:
                             ex = u1 / speed
@@ -754,11 +769,12 @@ def advance(
         inv holds the inverse spacings of ux, uy, vx, vy (0 for non-uniform axes).
     cells : (xe, ye, wet, cx, cy, inv) — cell edges, wet mask (nf or 1, ny, nx), cell centres;
         inv holds inverse spacings of xe, ye, cx, cy.
-    disp : (DX, DY, K1, K2, kconst) — drift (m s-1) and dispersion coefficient (m2 s-1) frames on
-        cell centres; kconst = (k1, k2, multiplier), with k1 < 0 meaning "use the K1/K2 grids".
+    disp : (DX, DY, K1, K2, kconst, K3) — drift (m s-1) and dispersion coefficient (m2 s-1)
+        frames on cell centres; kconst = (k1, k2, multiplier), with k1 < 0 meaning "use the K1/K2
+        grids"; K3 the off-diagonal K of a full tensor (opts[7] = 1), else unused.
     times : frame times of the window (s).
     opts : int64 (ndim, scheme 0 Euler / 1 RK4, aligned, has_drift, bridge, max_reflections,
-        geographic).
+        geographic, tensor).
     edges_mode : int64 (west, east, south, north), 1 absorbing, 0 reflecting.
     t0, dt, nsteps : start time (s), step (s), number of steps.
     step0 : global index of the first step (keys the random numbers).
@@ -779,6 +795,7 @@ def advance(
         bool(opts[3]),
         bool(opts[6]),
         bool(disp[4][0] < 0.0),
+        bool(opts[7]),
         shared,
         centred,
         x.shape[0] > BLOCK,

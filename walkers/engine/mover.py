@@ -16,9 +16,10 @@ import numpy as np
 
 from walkers.engine import kernels, twin
 from walkers.engine.state import ParticleState
+from walkers.errors import InputError
 from walkers.fields.base import FlowField, FlowWindow, centre_to_edges
 from walkers.fields.geo import metres_per_degree
-from walkers.scenario.config import EDGE_NAMES, Transport
+from walkers.scenario.config import Transport
 
 MIN_DRIFT_DEPTH = 0.05  # m; depths are floored here when dividing by h (drying cells).
 
@@ -62,12 +63,13 @@ def _gradient(a: np.ndarray, coord_m: np.ndarray, axis: int) -> np.ndarray:
 class DispersionFrames:
     """Drift and dispersion coefficients on cell centres for a window of frames."""
 
-    drift_x: np.ndarray  # (nf, ny, nx) m s-1
+    drift_x: np.ndarray  # (nf, ny, nx) m s-1 (index units s-1 on curvilinear grids)
     drift_y: np.ndarray
     k1: np.ndarray  # (nf or 1, ny, nx) m2 s-1, or (1, 1, 1) when constant
     k2: np.ndarray
     constant: bool
     has_drift: bool
+    k12: np.ndarray | None = None  # off-diagonal of a full tensor (curvilinear grids)
 
 
 CACHE_ENTRIES = 96  # windows of dispersion frames kept per flow (ensemble members reuse them)
@@ -87,7 +89,10 @@ def dispersion_frames(
     if key in cache:
         cache.move_to_end(key)
         return cache[key][0]
-    frames = _dispersion_frames(flow, window, transport)
+    if flow.curvilinear:
+        frames = _index_space_dispersion(flow, window, transport)
+    else:
+        frames = _dispersion_frames(flow, window, transport)
     # the field arrays are held with the entry so that their ids cannot be reused meanwhile
     cache[key] = (frames, d.k1_field, d.k2_field)
     while len(cache) > CACHE_ENTRIES:
@@ -159,6 +164,90 @@ def _dispersion_frames(
     return DispersionFrames(drift_x, drift_y, k1f, k2f, constant, True)
 
 
+def _physical_tensor(flow, window, transport, f, k1, k2):
+    """K (m2 s-1) on cell centres in the world's east/north frame: (Kxx, Kyy, Kxy)."""
+    d = transport.dispersion
+    if d.mode != "aligned":
+        return k1, k2, np.zeros_like(k1)
+    # the physical velocity u = J ũ at cell centres gives the flow direction
+    ua, va = _velocity_at_centres(flow, window, f)
+    jac = flow.grid.jacobian
+    u = jac[..., 0, 0] * ua + jac[..., 0, 1] * va
+    v = jac[..., 1, 0] * ua + jac[..., 1, 1] * va
+    speed2 = u * u + v * v
+    moving = speed2 > 0.0
+    safe = np.where(moving, speed2, 1.0)
+    kl = np.where(moving, k1, k2)
+    kxx = k2 + (kl - k2) * np.where(moving, u * u / safe, 1.0)
+    kyy = k2 + (kl - k2) * np.where(moving, v * v / safe, 0.0)
+    kxy = (kl - k2) * np.where(moving, u * v / safe, 0.0)
+    return kxx, kyy, kxy
+
+
+def _index_space_dispersion(
+    flow: FlowField, window: FlowWindow, transport: Transport
+) -> DispersionFrames:
+    """The index-space tensor K̃ = J⁻¹ K J⁻ᵀ and drift (1/H) ∇_ξ·(H K̃), H = h |J|, on the cell
+    centres of a curvilinear grid, for each frame of the window (see
+    :mod:`walkers.fields.grids`; the drift as in :func:`_dispersion_frames`, with unit spacing)."""
+    d = transport.dispersion
+    grid = flow.grid
+    ny, nx = grid.shape
+    nf = max(window.u.shape[0], window.depth.shape[0])
+    k1 = np.broadcast_to(d.k1_field if d.k1_field is not None else d.k1, (ny, nx)).astype(float)
+    k2 = np.broadcast_to(d.k2_field if d.k2_field is not None else d.k2, (ny, nx)).astype(float)
+    inv = grid.inverse
+    varies = d.mode == "aligned"
+    nk = nf if varies else 1
+    out = {name: np.zeros((nk, ny, nx)) for name in ("k11", "k22", "k12")}
+    drift_x = np.zeros((nf, ny, nx))
+    drift_y = np.zeros((nf, ny, nx))
+    for f in range(nf):
+        wet = window.wet[min(f, window.wet.shape[0] - 1)] > 0
+        h = np.maximum(_fill_land(window.depth[min(f, window.depth.shape[0] - 1)], wet), 0.0)
+        big_h = np.maximum(h, MIN_DRIFT_DEPTH) * grid.area
+        if f < nk:
+            kxx, kyy, kxy = _physical_tensor(flow, window, transport, f, k1, k2)
+            # K̃ = J⁻¹ K J⁻ᵀ, written out for 2 x 2
+            a, b, c, e = inv[..., 0, 0], inv[..., 0, 1], inv[..., 1, 0], inv[..., 1, 1]
+            out["k11"][f] = a * a * kxx + 2 * a * b * kxy + b * b * kyy
+            out["k22"][f] = c * c * kxx + 2 * c * e * kxy + e * e * kyy
+            out["k12"][f] = a * c * kxx + (a * e + b * c) * kxy + b * e * kyy
+        g = min(f, nk - 1)
+        hk11 = _fill_land(big_h * out["k11"][g], wet)
+        hk22 = _fill_land(big_h * out["k22"][g], wet)
+        hk12 = _fill_land(big_h * out["k12"][g], wet)
+        ones_x, ones_y = np.arange(nx, dtype=float), np.arange(ny, dtype=float)
+        drift_x[f] = (_gradient(hk11, ones_x, 1) + _gradient(hk12, ones_y, 0)) / big_h
+        drift_y[f] = (_gradient(hk12, ones_x, 1) + _gradient(hk22, ones_y, 0)) / big_h
+    return DispersionFrames(drift_x, drift_y, out["k11"], out["k22"], False, True, k12=out["k12"])
+
+
+def edge_modes(transport: Transport, flow: FlowField) -> np.ndarray:
+    """1 (absorbing) or 0 (reflecting) for each edge of the flow's grid, in the engine's order.
+
+    The scenario names edges by the grid's names (west ... north on rectilinear grids, first_i
+    ... last_j on curvilinear ones); edges not named are absorbing. Naming edges the grid does
+    not have is an InputError (a setting would otherwise be ignored)."""
+    kind = flow.kind()
+    names = kind.edge_names
+    unknown = [e for e in transport.edges if e not in names]
+    if unknown:
+        from walkers.fields.grids import compass
+
+        faces = ", ".join(
+            f"{n} (faces {compass(b)})" for n, b in zip(names, kind.edge_bearings(), strict=True)
+        )
+        raise InputError(
+            f"[edges] {', '.join(unknown)}: this flow's grid ({kind.describe()}) has the edges "
+            f"{faces}; name those in [edges]"
+        )
+    return np.array(
+        [1 if transport.edges.get(e, "absorbing") == "absorbing" else 0 for e in names],
+        dtype=np.int64,
+    )
+
+
 def _velocity_at_centres(flow: FlowField, window: FlowWindow, f: int):
     """u and v of frame f interpolated to cell centres (for the flow-aligned tensor)."""
     from scipy.interpolate import RegularGridInterpolator
@@ -222,14 +311,12 @@ def kernel_inputs(flow: FlowField, window: FlowWindow, transport: Transport) -> 
             1 if disp.has_drift and transport.drift_correction else 0,
             1 if transport.bridge else 0,
             transport.max_reflections,
-            1 if flow.geographic else 0,
+            1 if flow.geographic and not flow.curvilinear else 0,
+            1 if disp.k12 is not None else 0,
         ],
         dtype=np.int64,
     )
-    edges_mode = np.array(
-        [1 if transport.edges.get(e, "absorbing") == "absorbing" else 0 for e in EDGE_NAMES],
-        dtype=np.int64,
-    )
+    edges_mode = edge_modes(transport, flow)
     flow_t = (
         ux,
         uy,
@@ -240,7 +327,15 @@ def kernel_inputs(flow: FlowField, window: FlowWindow, transport: Transport) -> 
         np.array([inv(ux), inv(uy), inv(vx), inv(vy)]),
     )
     cells_t = (xe, ye, window.wet, cx, cy, np.array([inv(xe), inv(ye), inv(cx), inv(cy)]))
-    disp_t = (disp.drift_x * d.multiplier, disp.drift_y * d.multiplier, disp.k1, disp.k2, kconst)
+    k12 = disp.k12 if disp.k12 is not None else np.zeros((1, 1, 1))
+    disp_t = (
+        disp.drift_x * d.multiplier,
+        disp.drift_y * d.multiplier,
+        disp.k1,
+        disp.k2,
+        kconst,
+        k12,
+    )
     return KernelInputs(
         flow_t, cells_t, disp_t, window.times, opts, edges_mode, transport.decay_rate
     )
@@ -304,7 +399,7 @@ def advect_points(
         dt=dt,
         dispersion=Dispersion(k1=0.0, k2=0.0),
         scheme=scheme,
-        edges=dict.fromkeys(EDGE_NAMES, "reflecting"),
+        edges=dict.fromkeys(flow.kind().edge_names, "reflecting"),
     )
     x = np.atleast_1d(np.asarray(x, dtype=np.float64)).copy()
     y = np.atleast_1d(np.asarray(y, dtype=np.float64)).copy()

@@ -99,7 +99,10 @@ class TimeStepReport:
 
 def _cell_widths(flow: FlowField) -> tuple[np.ndarray, np.ndarray]:
     """Cell widths (m) along x and along y on the cell grid, shape (ny, nx) each (inf along y in
-    1-D)."""
+    1-D). On a curvilinear grid, the lengths of the cell's sides along each index axis."""
+    if flow.curvilinear:
+        jac = flow.grid.jacobian
+        return np.hypot(jac[..., 0, 0], jac[..., 1, 0]), np.hypot(jac[..., 0, 1], jac[..., 1, 1])
     mx, my = metres_per_grid_unit(flow)
     xe, ye = flow.cell_edges()
     wx = np.diff(xe)[None, :] * mx[:, None]
@@ -141,12 +144,15 @@ def check_time_step(flow: FlowField, transport: Transport, t0: float, t1: float)
                 continue
             across = _on_cells(var.x, var.y, flow, widths)
             water = _on_cells(var.x, var.y, flow, w.wet[0] > 0)
-            ratio = np.where(water, np.abs(arr), 0.0) * dt / across
+            # curvilinear grids carry velocity in index units per second: one index unit is
+            # the cell's side along that axis
+            speed = np.abs(arr) * across if flow.curvilinear else np.abs(arr)
+            ratio = np.where(water, speed, 0.0) * dt / across
             j, k = np.unravel_index(int(np.nanargmax(ratio)), ratio.shape)
             if ratio[j, k] > advection:
                 advection = float(ratio[j, k])
                 advection_cell = float(across[j, k])
-                max_speed = float(abs(arr[j, k]))
+                max_speed = float(speed[j, k])
                 fastest = (
                     f"along {axis} at x = {var.x[k]:.6g}, y = {var.y[j]:.6g} (frame time "
                     f"{flow.times[i]:g} s, {flow.time_units})"
@@ -171,6 +177,13 @@ def check_time_step(flow: FlowField, transport: Transport, t0: float, t1: float)
     curvature = 0.0
     for f in fields:
         f = np.asarray(f, dtype=np.float64) * d.multiplier
+        if flow.curvilinear:
+            # second differences along each index axis over the cell's side along it
+            for along, side in ((1, wx), (0, wy)):
+                if f.shape[along] > 2:
+                    second = np.gradient(np.gradient(f, axis=along), axis=along) / side**2
+                    curvature = max(curvature, float(np.abs(second).max()))
+            continue
         if f.shape[1] > 2:
             gx = np.gradient(np.gradient(f, flow.x * mx.mean(), axis=1), flow.x * mx.mean(), axis=1)
             curvature = max(curvature, float(np.abs(gx).max()))

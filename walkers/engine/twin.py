@@ -307,9 +307,9 @@ def advance(
     decay_rate,
 ):
     """Numpy twin of :func:`walkers.engine.kernels.advance` (same arguments, in place)."""
-    ndim, scheme, aligned, has_drift, bridge, max_refl, geographic = (int(o) for o in opts)
+    ndim, scheme, aligned, has_drift, bridge, max_refl, geographic, tensor = (int(o) for o in opts)
     xe, ye, wet, cx, cy, invc = cells
-    DX, DY, K1, K2, kconst = disp
+    DX, DY, K1, K2, kconst, K3 = disp
     x_w, x_e, y_s, y_n = xe[0], xe[-1], ye[0], ye[-1]
     streams_all = particle_streams(key, np.arange(x.shape[0]))
     for s in range(nsteps):
@@ -356,7 +356,16 @@ def advance(
         k2 = k2 * kconst[2]
         z1, z2 = normal_pairs(streams, step0 + s)
         sx, sy = _metres_to_grid(geographic, py)
-        if aligned:
+        if tensor:
+            k12 = _sample(K3, cx, cy, invc[2], invc[3], it, wt, px, py) * kconst[2]
+            l11 = np.sqrt(np.maximum(k1, 0.0))
+            l21 = np.where(l11 > 0.0, k12 / np.where(l11 > 0.0, l11, 1.0), 0.0)
+            l22 = np.sqrt(np.maximum(k2 - l21 * l21, 0.0))
+            root = np.sqrt(2.0 * h)
+            nxm = root * l11 * z1
+            nym = root * (l21 * z1 + l22 * z2)
+            kxx, kyy = k1, k2
+        elif aligned:
             u, v = _velocity(flow, times, tstart, px, py)
             speed = np.sqrt(u * u + v * v)
             moving_flow = speed > 0.0

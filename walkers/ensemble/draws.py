@@ -55,6 +55,11 @@ def _metres_per_unit(flow: FlowField, y: float) -> tuple[float, float]:
 
 def _in_water(flow: FlowField, x: float, y: float, frame: int) -> bool:
     """Whether (x, y) lies inside the flow grid in a wet cell of the given frame."""
+    if flow.curvilinear:
+        a, b = flow.grid.to_engine(np.array([x]), np.array([y]))
+        x, y = float(a[0]), float(b[0])
+        if not np.isfinite(x):
+            return False
     xe, ye = centre_to_edges(flow.x), centre_to_edges(flow.y)
     if flow.ndim == 1:
         y = float(flow.y[0])

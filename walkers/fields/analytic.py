@@ -15,6 +15,7 @@ import numpy.typing as npt
 
 from walkers.errors import InputError
 from walkers.fields.base import FlowField, GriddedVariable
+from walkers.fields.grids import Curvilinear
 
 FLOW_KINDS = ("uniform", "shear", "rotation", "tidal")
 
@@ -121,3 +122,46 @@ def analytic_flow(
             )
 
     return grid_flow(x, y, times, velocity, depth=depth, ndim=ndim)
+
+
+def curvilinear_flow(
+    corner_x: npt.ArrayLike,
+    corner_y: npt.ArrayLike,
+    times: npt.ArrayLike,
+    velocity: Callable[[np.ndarray, np.ndarray, float], tuple[np.ndarray, np.ndarray]],
+    depth: npt.ArrayLike = 10.0,
+    wet: npt.ArrayLike | None = None,
+    time_units: str = "seconds since 2000-01-01T00:00:00+00:00",
+) -> FlowField:
+    """A :class:`FlowField` on a curvilinear grid of cells with the given corners (m).
+
+    ``velocity(X, Y, t)`` gives the eastward and northward velocity (m s-1) at world points; it is
+    sampled at the cell centres and turned into the index-space components ũ = J⁻¹ u the engine
+    steps with (see :mod:`walkers.fields.grids`). ``depth`` (m) and ``wet`` are per cell (ny, nx)
+    or constant.
+    """
+    grid = Curvilinear(np.asarray(corner_x, float), np.asarray(corner_y, float))
+    ny, nx = grid.shape
+    times = np.atleast_1d(np.asarray(times, dtype=np.float64))
+    X, Y = grid.centres()
+    inv = grid.inverse
+    us, vs = [], []
+    for t in times:
+        ue, vn = (np.broadcast_to(c, X.shape) for c in velocity(X, Y, float(t)))
+        us.append(inv[..., 0, 0] * ue + inv[..., 0, 1] * vn)
+        vs.append(inv[..., 1, 0] * ue + inv[..., 1, 1] * vn)
+    a, b = grid.x, grid.y
+    h = np.asarray(depth, dtype=np.float64)
+    if h.ndim < 3:
+        h = np.broadcast_to(h, (ny, nx))[None].copy()
+    mask = np.ones((ny, nx)) if wet is None else np.asarray(wet, dtype=np.float64)
+    speed = "s-1 (grid index units)"
+    return FlowField(
+        u=GriddedVariable(a, b, np.stack(us), "u", speed),
+        v=GriddedVariable(a, b, np.stack(vs), "v", speed),
+        depth=GriddedVariable(a, b, h, "depth", "m"),
+        wet=GriddedVariable(a, b, mask[None], "wet", "1"),
+        times=times,
+        time_units=time_units,
+        grid=grid,
+    )

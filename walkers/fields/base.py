@@ -20,6 +20,10 @@ Contract of a flow source (what every reader must deliver):
 5. ``data`` of each :class:`GriddedVariable` may be lazy: anything with ``shape`` and
    ``__getitem__`` that returns a float64 numpy array in SI units for a slice of frames.
 6. A 1-D channel is a grid with one row: ``y == [0.0]``, ``v`` zero, ``depth`` the cross-section.
+7. On a curvilinear grid (``grid`` a :class:`walkers.fields.grids.Curvilinear`) ``x`` and ``y``
+   are cell indices (0, 1, ..., n - 1), ``u`` and ``v`` are the contravariant velocity components
+   in index units per second (ũ = J⁻¹u), ``depth`` and ``wet`` are as above, and ``geographic``
+   says whether the grid's own coordinates are degrees.
 """
 
 from __future__ import annotations
@@ -94,6 +98,21 @@ class FlowField:
     ndim: int = 2
     source: str = "analytic"
     attrs: dict[str, Any] = field(default_factory=dict)
+    #: the grid kind (:mod:`walkers.fields.grids`); None is the rectilinear grid of x and y
+    grid: Any = None
+
+    def kind(self) -> Any:
+        """The grid kind: how the engine's coordinates (``x``, ``y``) lie in the world."""
+        if self.grid is not None:
+            return self.grid
+        from walkers.fields.grids import Rectilinear
+
+        return Rectilinear(self.x, self.y, self.geographic)
+
+    @property
+    def curvilinear(self) -> bool:
+        """Whether the engine steps in the index space of a curvilinear grid."""
+        return self.grid is not None and bool(self.grid.curvilinear)
 
     def __getstate__(self) -> dict[str, Any]:
         # caches of derived arrays (e.g. the engine's dispersion frames) stay in their process

@@ -33,11 +33,27 @@ def check_points_in_water(
     k = 0 if t is None or flow.wet.steady else flow.frame_range(t, t)[0]
     wet = flow.wet.frames(k, k)[0]
     unit = "degrees" if flow.geographic else "m"
+    # the engine's coordinates of the points (index space on a curvilinear grid)
+    ax, ay = flow.kind().to_engine(xs, ys) if flow.curvilinear else (xs, ys)
     for n, (x, y) in enumerate(zip(xs, ys, strict=True)):
         label = what if xs.size == 1 else f"{what} point {n}"
         where = f"({x:.10g}, {y:.10g})" if flow.ndim == 2 else f"x = {x:.10g}"
         if not (np.isfinite(x) and np.isfinite(y)):
             raise InputError(f"{label}: position {where} is not a finite number")
+        if flow.curvilinear:
+            if not np.isfinite(ax[n]):
+                raise InputError(
+                    f"{label} at {where} lies outside the cells of the curvilinear grid of "
+                    f"{flow.source}; move it inside (see 'walkers inspect --map')"
+                )
+            i = min(max(int(np.floor(ax[n] + 0.5)), 0), flow.x.size - 1)
+            j = min(max(int(np.floor(ay[n] + 0.5)), 0), flow.y.size - 1)
+            if wet[j, i] < 0.5:
+                raise InputError(
+                    f"{label} at {where} lies on land or in a dry cell of {flow.source} (grid "
+                    f"cell i={i}, j={j}); move it into the water"
+                )
+            continue
         inside_x = xe[0] <= x <= xe[-1]
         inside_y = flow.ndim == 1 or ye[0] <= y <= ye[-1]
         if not (inside_x and inside_y):
@@ -73,6 +89,7 @@ def build_flow(spec: FlowSpec) -> FlowField:
             constant_depth=spec.constant_depth,
             time_range=spec.time_range,
             layers=spec.layers,
+            velocity_axes=spec.velocity_axes,
         )
     from walkers.fields.analytic import analytic_flow
 
@@ -89,6 +106,9 @@ def check_flow(scenario: Scenario, flow: FlowField) -> None:
             f"the flow grid is {'geographic' if flow.geographic else 'projected'}: give "
             f"release and receptor positions as {want}"
         )
+    if flow.curvilinear:
+        _check_inside_grid(scenario, flow)
+        return
     west, east, south, north = flow.extent()
     if flow.ndim == 1:
         south, north = -math.inf, math.inf
@@ -114,3 +134,30 @@ def check_flow(scenario: Scenario, flow: FlowField) -> None:
             f"output.grid does not overlap the flow domain x {west:g}..{east:g}, "
             f"y {south:g}..{north:g}"
         )
+
+
+def _check_inside_grid(scenario: Scenario, flow: FlowField) -> None:
+    """Releases and receptors inside the cells of a curvilinear grid, and the output grid
+    overlapping it (InputError naming the key otherwise)."""
+    grid = flow.grid
+
+    def inside(x, y) -> np.ndarray:
+        return np.isfinite(grid.to_engine(np.asarray(x, float), np.asarray(y, float))[0])
+
+    where = "the curvilinear grid's cells"
+    for i, rel in enumerate(scenario.releases):
+        pts = np.atleast_2d(np.asarray(rel.coords, dtype=float))
+        if not inside(pts[:, 0], pts[:, 1]).all():
+            raise InputError(
+                f"releases[{i}] ({rel.name}): position outside {where}; see 'walkers inspect "
+                "--map' for the grid"
+            )
+    for i, rec in enumerate(scenario.receptors):
+        if not inside([rec.x], [rec.y]).all():
+            raise InputError(
+                f"receptors[{i}] ({rec.name}): ({rec.x:g}, {rec.y:g}) is outside {where}"
+            )
+    g = scenario.output
+    gx, gy = np.meshgrid(g.x, g.y)
+    if not inside(gx.ravel(), gy.ravel()).any():
+        raise InputError(f"output.grid does not overlap {where}")

@@ -146,3 +146,15 @@ def open_edges(ds: xr.Dataset) -> list[str]:
     if "budget_outflow" not in ds:
         return []
     return [e for e in names if float(ds["budget_outflow"].sel(edge=e).max()) > 0]
+
+
+def edge_facing(ds: xr.Dataset) -> dict[str, str]:
+    """ " (faces south)" and so on for edges whose names do not say which way they face (those
+    of a curvilinear grid), from the result's ``edge_faces`` coordinate."""
+    if "edge_faces" not in ds.coords:
+        return {}
+    return {
+        str(e): f" (faces {f})"
+        for e, f in zip(ds["edge"].values, ds["edge_faces"].values, strict=True)
+        if str(e) != str(f)
+    }

@@ -16,6 +16,7 @@ from walkers.outputs.display import (
     after_start,
     concentration_unit,
     duration,
+    edge_facing,
     open_edges,
     output_times,
     run_start,
@@ -36,8 +37,14 @@ def budget_rows(ds: xr.Dataset) -> list[tuple[str, float]]:
         ("released", float(ds.budget_released[-1])),
         ("in water", float(ds.budget_in_water[-1])),
     ]
+    facing = edge_facing(ds)
     for e in open_edges(ds):
-        rows.append((f"out through the {e} edge", float(ds.budget_outflow.sel(edge=e)[-1])))
+        rows.append(
+            (
+                f"out through the {e} edge{facing.get(e, '')}",
+                float(ds.budget_outflow.sel(edge=e)[-1]),
+            )
+        )
     return rows + [
         ("decayed", float(ds.budget_decayed[-1])),
         ("held on dry cells", float(ds.budget_held_dry[-1])),

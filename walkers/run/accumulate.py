@@ -11,6 +11,7 @@ import xarray as xr
 
 import walkers
 from walkers.fields.base import FlowField
+from walkers.fields.grids import compass
 from walkers.run import reduce
 from walkers.run.store import DiskFields, MemoryFields
 from walkers.scenario.config import EDGE_NAMES, OutputGrid, Receptor
@@ -229,6 +230,10 @@ def _result_coordinates(
     yunits: str,
 ) -> dict[str, Any]:
     """The result's coordinates: output times, cell centres, edges and receptors."""
+    kind = flow.kind()
+    edge_attrs = {"long_name": "domain edge"}
+    if kind.curvilinear:
+        edge_attrs["comment"] = "the edges of a curvilinear grid, named by grid index"
     coords = {
         "time": (
             "time",
@@ -242,7 +247,12 @@ def _result_coordinates(
         ),
         "x": ("x", grid.x, {"units": xunits, "axis": "X", "long_name": "output cell centre"}),
         "y": ("y", grid.y, {"units": yunits, "axis": "Y", "long_name": "output cell centre"}),
-        "edge": ("edge", np.array(EDGE_NAMES), {"long_name": "domain edge"}),
+        "edge": ("edge", np.array(kind.edge_names), edge_attrs),
+        "edge_faces": (
+            "edge",
+            np.array([compass(b) for b in kind.edge_bearings()]),
+            {"long_name": "compass direction the edge faces, outward, on average"},
+        ),
         "receptor": (
             "receptor",
             np.array([r.name for r in receptors], dtype=object),

@@ -88,21 +88,44 @@ def land_on_output_grid(flow: FlowField, scenario: Scenario, t0: float, t1: floa
     run, 2 where it lies outside the flow grid (more than half a flow cell beyond its outer cell
     centres), 0 in water."""
     g = scenario.output
+    if flow.curvilinear:
+        return _land_on_output_grid_curvilinear(flow, scenario, t0, t1)
     xe = np.concatenate([[-np.inf], 0.5 * (flow.x[1:] + flow.x[:-1]), [np.inf]])
     ye = np.concatenate([[-np.inf], 0.5 * (flow.y[1:] + flow.y[:-1]), [np.inf]])
     i = np.searchsorted(xe, g.x, side="right") - 1
     j = np.searchsorted(ye, g.y, side="right") - 1
-    ever_wet = np.zeros((flow.y.size, flow.x.size), dtype=bool)
-    i0, i1 = flow.frame_range(t0, t1)
-    for k in range(i0, i1 + 1):
-        ever_wet |= flow.wet.frames(k, k)[0] > 0.5
-    land = (~ever_wet[np.ix_(j, i)]).astype(np.int8)
+    land = (~_ever_wet(flow, t0, t1)[np.ix_(j, i)]).astype(np.int8)
     half_x = 0.5 * (flow.x[-1] - flow.x[0]) / max(flow.x.size - 1, 1)
     half_y = 0.5 * (flow.y[-1] - flow.y[0]) / max(flow.y.size - 1, 1)
     outside_x = (g.x < flow.x[0] - half_x) | (g.x > flow.x[-1] + half_x)
     outside_y = (g.y < flow.y[0] - half_y) | (g.y > flow.y[-1] + half_y)
     land[outside_y[:, None] | outside_x[None, :]] = 2
     return land
+
+
+def _ever_wet(flow: FlowField, t0: float, t1: float) -> np.ndarray:
+    """Flow cells wet in at least one frame of [t0, t1] (s)."""
+    ever_wet = np.zeros((flow.y.size, flow.x.size), dtype=bool)
+    i0, i1 = flow.frame_range(t0, t1)
+    for k in range(i0, i1 + 1):
+        ever_wet |= flow.wet.frames(k, k)[0] > 0.5
+    return ever_wet
+
+
+def _land_on_output_grid_curvilinear(
+    flow: FlowField, scenario: Scenario, t0: float, t1: float
+) -> np.ndarray:
+    """As :func:`land_on_output_grid`, on a curvilinear grid: the flow cell holding each output
+    cell centre is found in index space (2 where no cell holds it)."""
+    g = scenario.output
+    gx, gy = np.meshgrid(g.x, g.y)
+    a, b = flow.grid.to_engine(gx.ravel(), gy.ravel())
+    outside = ~np.isfinite(a)
+    i = np.clip(np.floor(np.nan_to_num(a) + 0.5).astype(np.int64), 0, flow.x.size - 1)
+    j = np.clip(np.floor(np.nan_to_num(b) + 0.5).astype(np.int64), 0, flow.y.size - 1)
+    land = (~_ever_wet(flow, t0, t1)[j, i]).astype(np.int8)
+    land[outside] = 2
+    return land.reshape(gx.shape)
 
 
 def memory_estimate(scenario: Scenario, flow: FlowField) -> tuple[int, int]:

@@ -26,6 +26,7 @@ Guards on the way (each names the time and, where there is one, the place):
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import os
 import warnings
@@ -43,6 +44,7 @@ from walkers.engine.state import IN_WATER, WAITING, ParticleState
 from walkers.engine.timestep import check_time_step
 from walkers.errors import InputError, RunFailure
 from walkers.fields.base import FlowField, FlowWindow, centre_to_edges
+from walkers.fields.geo import metres_per_degree
 from walkers.run import reduce
 from walkers.run.accumulate import _Accumulator, _field_variables
 from walkers.run.store import FieldMode, field_store
@@ -274,13 +276,12 @@ def simulate(
         dt,
     )
     walk_key, release_rng = run_streams(seed, member)
-    mx, my = mover.metres_per_grid_unit(flow)
     shape = (len(times), output_grid.ny, output_grid.nx)
     variables = _field_variables(output_grid)
     if resume is None:
         centre = np.mean([np.atleast_2d(r.coords)[0] for r in releases], axis=0)
-        j = int(np.clip(np.searchsorted(flow.y, centre[1]), 0, flow.y.size - 1))
-        particles, owner = make_particles(releases, release_rng, (float(mx[j]), float(my[j])))
+        particles, owner = make_particles(releases, release_rng, _metres_per_unit(flow, centre[1]))
+        _to_engine_coordinates(particles, owner, releases, flow)
         first = 0
         store = field_store(shape, variables, fields, field_folder)
         acc = _Accumulator(len(times), output_grid, len(receptors), tracks, store)
@@ -290,7 +291,7 @@ def simulate(
         acc = resume.results
     xe, ye = centre_to_edges(flow.x), centre_to_edges(flow.y)
     measure = reduce.cell_measure(output_grid, flow.geographic, flow.ndim)
-    mpu = (float(mx.mean()), float(my.mean()))
+    mpu = _metres_per_unit(flow, None)
     track_index = (
         np.linspace(0, len(particles) - 1, tracks).round().astype(np.int64) if tracks else None
     )
@@ -316,10 +317,9 @@ def simulate(
                 )
             enter_water(particles, t)
             depths = _particle_depths_at(particles, flow, t, xe, ye)
-            conc, count = reduce.concentration(particles, depths, output_grid, measure)
-            acc.record(
-                k, particles, depths, conc, count, receptors, output_grid, flow, mpu, track_index
-            )
+            seen = physical_view(particles, flow)
+            conc, count = reduce.concentration(seen, depths, output_grid, measure)
+            acc.record(k, seen, depths, conc, count, receptors, output_grid, flow, mpu, track_index)
             if progress is not None:
                 progress(t - start, end - start, int(acc.in_water[k]))
             if on_output is not None:
@@ -331,6 +331,52 @@ def simulate(
         # a failed or interrupted run leaves no temporary files (a checkpoint keeps its own)
         acc.fields.discard()
         raise
+
+
+def _metres_per_unit(flow: FlowField, y: float | None) -> tuple[float, float]:
+    """Metres per unit of the scenario's coordinates along x and y: 1 on projected grids, the
+    WGS84 radii of curvature on geographic ones, at the grid row nearest ``y`` (degrees north),
+    or their mean over the grid when ``y`` is None."""
+    if not flow.geographic:
+        return 1.0, 1.0
+    if flow.curvilinear:
+        rows = flow.grid.centres()[1].ravel() if y is None else np.array([float(y)])
+        mx, my = metres_per_degree(rows)
+        return float(mx.mean()), float(my.mean())
+    mx, my = metres_per_degree(flow.y)
+    if y is None:
+        return float(mx.mean()), float(my.mean())
+    j = int(np.clip(np.searchsorted(flow.y, y), 0, flow.y.size - 1))
+    return float(mx[j]), float(my[j])
+
+
+def _to_engine_coordinates(
+    particles: ParticleState, owner: np.ndarray, releases: Sequence[Release], flow: FlowField
+) -> None:
+    """Particle positions from the scenario's coordinates to the engine's (index space on a
+    curvilinear grid; nothing to do on a rectilinear one). A release outside the grid is an
+    InputError naming it."""
+    if not flow.curvilinear:
+        return
+    a, b = flow.grid.to_engine(particles.x, particles.y)
+    outside = ~np.isfinite(a)
+    if outside.any():
+        p = int(np.flatnonzero(outside)[0])
+        raise InputError(
+            f"release {releases[int(owner[p])].name!r}: {int(outside.sum())} particle(s) start "
+            f"outside the curvilinear grid (first at x={particles.x[p]:.10g}, "
+            f"y={particles.y[p]:.10g}); move the release into the grid's cells"
+        )
+    particles.x[:], particles.y[:] = a, b
+
+
+def physical_view(particles: ParticleState, flow: FlowField) -> ParticleState:
+    """The particles with positions in the scenario's coordinates (the particles themselves on
+    a rectilinear grid; a copy of the positions mapped out of index space on a curvilinear one)."""
+    if not flow.curvilinear:
+        return particles
+    x, y = flow.grid.to_physical(particles.x, particles.y)
+    return dataclasses.replace(particles, x=x, y=y)
 
 
 def enter_water(particles: ParticleState, t: float) -> None:

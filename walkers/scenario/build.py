@@ -302,6 +302,7 @@ def _files_flow(f: dict[str, Any], base_dir: Path, start: datetime, end: datetim
         constant_depth=f["depth"],
         time_range=(start.isoformat(), end.isoformat()),
         layers=_layer_selection(f["layers"] or {}),
+        velocity_axes=f["velocity_axes"] or "auto",
     )
 
 

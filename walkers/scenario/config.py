@@ -15,6 +15,10 @@ import numpy as np
 from walkers.errors import InputError
 
 EDGE_NAMES = ("west", "east", "south", "north")
+#: The edges of a curvilinear grid, named by index (the column i = 0, the last column, the row
+#: j = 0, the last row), in the same order as EDGE_NAMES; `walkers inspect` says which way each
+#: faces.
+INDEX_EDGE_NAMES = ("first_i", "last_i", "first_j", "last_j")
 
 
 @dataclass(frozen=True)
@@ -59,7 +63,8 @@ class Transport:
     dt : time step (s).
     scheme : ``"euler"`` or ``"rk4"`` for the advective (deterministic) part.
     decay_rate : first-order decay rate k (s-1); mass m <- m exp(-k dt) each step.
-    edges : behaviour of each domain edge (west, east, south, north).
+    edges : behaviour of the domain edges named (west, east, south, north on rectilinear grids;
+        first_i, last_i, first_j, last_j on curvilinear ones); edges not named are absorbing.
     substeps : sub-steps per step (1 = none); set by the time-step check when asked to sub-step.
     bridge : correct absorbing edges for crossings inside a step (Brownian-bridge probability).
     max_reflections : reflections of one step's path at coasts and reflecting edges before the
@@ -72,7 +77,7 @@ class Transport:
     dispersion: Dispersion = field(default_factory=Dispersion)
     scheme: str = "euler"
     decay_rate: float = 0.0
-    edges: dict[str, str] = field(default_factory=lambda: dict.fromkeys(EDGE_NAMES, "absorbing"))
+    edges: dict[str, str] = field(default_factory=dict)
     substeps: int = 1
     bridge: bool = True
     max_reflections: int = 100
@@ -85,9 +90,14 @@ class Transport:
             raise InputError(f"decay rate {self.decay_rate!r} 1/s: must be finite and >= 0")
         if self.scheme not in ("euler", "rk4"):
             raise InputError(f"scheme {self.scheme!r}: expected 'euler' or 'rk4'")
+        named = set(self.edges)
+        if not (named <= set(EDGE_NAMES) or named <= set(INDEX_EDGE_NAMES)):
+            raise InputError(
+                f"edges {', '.join(sorted(named))}: name the edges of a rectilinear grid "
+                f"{', '.join(EDGE_NAMES)}, or those of a curvilinear grid "
+                f"{', '.join(INDEX_EDGE_NAMES)} (by grid index), not a mix or other names"
+            )
         for name, mode in self.edges.items():
-            if name not in EDGE_NAMES:
-                raise InputError(f"edge {name!r}: expected one of {', '.join(EDGE_NAMES)}")
             if mode not in ("reflecting", "absorbing"):
                 raise InputError(f"edge {name} = {mode!r}: expected 'reflecting' or 'absorbing'")
         if int(self.substeps) < 1:

@@ -31,7 +31,7 @@ from walkers.scenario.build import (
     _build_receptors,
     _build_releases,
 )
-from walkers.scenario.config import EDGE_NAMES, Dispersion, Transport
+from walkers.scenario.config import Dispersion, Transport
 from walkers.scenario.keys import MAX_PARTICLES
 from walkers.scenario.schema import SCHEMA
 from walkers.scenario.specs import DispersionSpec, Scenario
@@ -192,7 +192,9 @@ def _transports(
         decay_rate = math.log(2.0) / decay["half_life"]
     else:
         decay_rate = decay["rate"] or 0.0
-    edges = s["edges"] or {name: "absorbing" for name in EDGE_NAMES}
+    # only the edges the scenario names (the others are absorbing): the flow's grid decides
+    # which names apply (see walkers.engine.mover.edge_modes)
+    edges = {name: mode for name, mode in (s["edges"] or {}).items() if mode is not None}
     base_transport = Transport(
         dt=dt,
         dispersion=Dispersion(k1=0.0, k2=0.0, multiplier=dispersion.multiplier),

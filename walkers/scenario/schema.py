@@ -6,14 +6,14 @@ The validator (:mod:`walkers.scenario.walk`) and the reference page ``docs/scena
 
 from __future__ import annotations
 
-from walkers.scenario.config import EDGE_NAMES
+from walkers.scenario.config import EDGE_NAMES, INDEX_EDGE_NAMES
 from walkers.scenario.keys import FLOW_ROLES, Choice, Key, Section
 
 _EDGE = Key(
     "choice",
     "What happens to a particle that reaches this edge of the flow domain: 'absorbing' (it goes "
-    "out and its mass is booked to this edge in the budget) or 'reflecting' (it is mirrored back).",
-    default="absorbing",
+    "out and its mass is booked to this edge in the budget) or 'reflecting' (it is mirrored back). "
+    "Default: absorbing.",
     allowed=("absorbing", "reflecting"),
 )
 
@@ -118,6 +118,16 @@ SCHEMA = Section(
                     dimension="length",
                     default="0.05 m",
                     bound="nonnegative",
+                    only_when="files",
+                ),
+                "velocity_axes": Key(
+                    "choice",
+                    "On a curvilinear grid, how the files' velocity components are oriented: "
+                    "'auto' (from their standard names and a grid-angle variable), 'east_north' "
+                    "(eastward and northward, or along the projected x and y) or 'grid' (along "
+                    "the grid's own axes i and j).",
+                    default="auto",
+                    allowed=("auto", "east_north", "grid"),
                     only_when="files",
                 ),
                 "depth": Key(
@@ -352,8 +362,11 @@ SCHEMA = Section(
             choices=(Choice((("rate",), ("half_life",)), required=False),),
         ),
         "edges": Section(
-            "Behaviour of the four edges of the flow domain.",
-            {name: _EDGE for name in EDGE_NAMES},
+            "Behaviour of the four edges of the flow domain. On a rectilinear grid they are "
+            "west, east, south and north; on a curvilinear grid they are named by grid index: "
+            "first_i (the column i = 0), last_i, first_j (the row j = 0) and last_j ('walkers "
+            "inspect' says which way each faces). Edges not named are absorbing.",
+            {name: _EDGE for name in EDGE_NAMES + INDEX_EDGE_NAMES},
         ),
         "releases": Section(
             "One table [[releases]] per release.",

@@ -57,6 +57,8 @@ class FlowSpec:
     time_origin : ISO 8601 time of an analytic flow's time 0 (the run start).
     time_range : (run start, run end) in ISO 8601: flow files keep only the frames covering it.
     layers : which part of the water column a layered flow file stands for.
+    velocity_axes : orientation of the velocity components on a curvilinear grid ("auto",
+        "east_north" or "grid").
     """
 
     kind: Literal["files", "analytic"]
@@ -70,6 +72,7 @@ class FlowSpec:
     time_origin: str = ""
     time_range: tuple[str, str] | None = None
     layers: LayerSelection = LayerSelection()
+    velocity_axes: str = "auto"
 
 
 @dataclass(frozen=True)

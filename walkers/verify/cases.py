@@ -38,6 +38,7 @@ from walkers.verify.checks import (
     variance_check,
 )
 from walkers.verify.coast import COAST_CASES
+from walkers.verify.curvilinear import CURVILINEAR_CASES
 
 
 def _final_state(flow, transport, releases, end, interval, grid, seed):
@@ -452,6 +453,7 @@ CASES: dict[str, tuple[Callable[..., CaseResult], int]] = {
     "tidal": (case_tidal, 10),
     "rotation": (case_rotation, 1),
     **COAST_CASES,
+    **CURVILINEAR_CASES,
 }
 
 

@@ -13,6 +13,16 @@ import numpy as np
 
 from walkers.errors import InputError
 from walkers.fields.geo import crs_from_cf, crs_from_user
+from walkers.fields.netcdf.curvilinear import (
+    GridFromFile,
+    IndexVelocity,
+    components_of,
+    coordinate_pair,
+    find_angle,
+    read_angle,
+    read_grid,
+    staggered_axis,
+)
 from walkers.fields.netcdf.layers import find_vertical
 from walkers.fields.netcdf.roles import (
     _DEG_EAST,
@@ -132,6 +142,7 @@ class _FileSchema:
         variables: dict[str, str],
         units: dict[str, str],
         has_constant_depth: bool,
+        velocity_axes: str = "auto",
     ) -> None:
         self.ds = ds
         self.path = path
@@ -167,6 +178,7 @@ class _FileSchema:
         mask = self._find("mask", required=False)
         if mask is not None:
             self.roles["mask"] = mask
+        self.curvilinear = self._curvilinear_grid()
         self.layouts = {role: self._layout(role, name) for role, name in self.roles.items()}
         geos = {lay.x.dim: self._is_geographic(lay.x.dim) for lay in self.layouts.values()}
         if len(set(geos.values())) > 1:
@@ -175,6 +187,46 @@ class _FileSchema:
                 "projected coordinates; all roles must share one kind of grid"
             )
         self.geographic = self.ndim == 2 and next(iter(geos.values()))
+        self.index_velocity = (
+            None if self.curvilinear is None else self._index_velocity(velocity_axes)
+        )
+
+    def _index_velocity(self, setting: str) -> IndexVelocity:
+        """How the velocity components of a curvilinear grid become index-space components."""
+        cells = self.curvilinear
+        assert cells is not None
+        u_var = self.ds.variables[self.roles["u"]]
+        components = components_of(u_var, self.ds, cells.grid, setting)
+        angle_name = find_angle(self.ds)
+        angle = None
+        if components == "grid" and angle_name is not None:
+            angle = read_angle(self.ds, self.path, angle_name)
+            if angle.shape != cells.grid.shape:
+                angle = None  # on another grid (e.g. the faces): the cell sides are used
+        lu, lv = self.layouts["u"], self.layouts["v"]
+        assert lu.y is not None and lv.y is not None
+        mapping = IndexVelocity(
+            cells.grid, components, lu.x.values, lu.y.values, lv.x.values, lv.y.values, angle
+        )
+        mapping.check(self.path)
+        return mapping
+
+    def _curvilinear_grid(self) -> GridFromFile | None:
+        """The curvilinear grid of the cell variable (depth, mask, ... or u), if its
+        ``coordinates`` attribute names 2-D coordinates (CF-1.8 §5.2); None otherwise."""
+        if self.ndim != 2:
+            return None
+        for role in ("depth", "area", "water_level", "mask", "bed_level", "u"):
+            if role in self.roles:
+                var = self.ds.variables[self.roles[role]]
+                break
+        try:
+            pair = coordinate_pair(self.ds, var)
+        except InputError as exc:
+            raise InputError(f"flow file {self.path!r}: {exc}") from exc
+        if pair is None:
+            return None
+        return read_grid(self.ds, self.path, var)
 
     def _find_depth(self, has_constant_depth: bool) -> None:
         """The depth roles of a 2-D file: its water depth, or water level and bed level.
@@ -293,6 +345,9 @@ class _FileSchema:
 
     def _axis_kind(self, dim: str, var_name: str) -> str:
         coord = self.ds.variables.get(dim)
+        if self.curvilinear is not None:
+            # on a curvilinear grid every horizontal dimension is a grid index
+            return self._index_axis_kind(dim, var_name)
         if coord is None or coord.ndim != 1:
             return ""
         std, axis = _attr(coord, "standard_name").lower(), _attr(coord, "axis").upper()
@@ -308,12 +363,39 @@ class _FileSchema:
             return "y"
         return ""
 
+    def _index_axis_kind(self, dim: str, var_name: str) -> str:
+        """On a curvilinear grid: "x" for a dimension along the grid index i, "y" along j, by the
+        variable's 2-D coordinates (their last dimension runs along i), else by position."""
+        cells = self.curvilinear
+        assert cells is not None
+        if dim == cells.x_dim:
+            return "x"
+        if dim == cells.y_dim:
+            return "y"
+        var = self.ds.variables[var_name]
+        pair = coordinate_pair(self.ds, var)
+        if pair is not None:
+            y_dim, x_dim = self.ds.variables[pair[0]].dimensions
+            return "x" if dim == x_dim else "y" if dim == y_dim else ""
+        skip = {self.time_dim, None if self.vertical is None else self.vertical.dim}
+        spatial = [d for d in var.dimensions if d not in skip]
+        if len(spatial) == 2:
+            return "x" if dim == spatial[1] else "y"
+        return ""
+
     def _is_geographic(self, dim: str) -> bool:
+        if self.curvilinear is not None:
+            return self.curvilinear.grid.geographic
         coord = self.ds.variables[dim]
         unit = _norm_units(_attr(coord, "units")).replace(" ", "")
         return unit in _DEG_EAST or _attr(coord, "standard_name") in ("longitude",)
 
     def _coordinate(self, dim: str, var_name: str) -> _Axis:
+        if self.curvilinear is not None:
+            along = self._index_axis_kind(dim, var_name)
+            var = self.ds.variables[var_name]
+            values = staggered_axis(self.ds, self.path, var, dim, along, self.curvilinear)
+            return _Axis(dim=dim, values=values, flip=False)
         coord = self.ds.variables[dim]
         values = np.ma.filled(np.ma.asarray(coord[:]).astype(np.float64), np.nan).ravel()
         where = f"flow file {self.path!r}: coordinate {dim!r} (of {var_name!r})"
@@ -432,6 +514,16 @@ class _FileSchema:
         if self.time_dim is None:
             return [], "standard"
         coord = self.ds.variables.get(self.time_dim)
+        if coord is None:
+            # a time variable named otherwise than its dimension (auxiliary, CF-1.8 §5)
+            coord = next(
+                (
+                    v
+                    for v in self.ds.variables.values()
+                    if v.dimensions == (self.time_dim,) and " since " in _attr(v, "units")
+                ),
+                None,
+            )
         units = "" if coord is None else _attr(coord, "units")
         if coord is None or " since " not in units:
             raise InputError(

@@ -137,6 +137,8 @@ class _FlowSource:
         self.min_depth = min_depth
         self.constant_depth = constant_depth
         self.frames_read = 0
+        #: turns velocities into index-space components on a curvilinear grid (else None)
+        self.index_velocity: Any = None
         self._cache: tuple[tuple[int, int], dict[str, np.ndarray]] | None = None
         self._handles: dict[int, netCDF4.Dataset] = {}
         self.static: dict[str, np.ndarray] = {}
@@ -257,9 +259,12 @@ class _FlowSource:
                 self._check_velocity_in_water(v, "v", wet, i0)
         else:
             wet = self._wet_from_velocity(u, v)
+        u, v = np.nan_to_num(u, nan=0.0), np.nan_to_num(v, nan=0.0)
+        if self.index_velocity is not None:
+            u, v = self.index_velocity(u, v)
         result = {
-            "u": np.nan_to_num(u, nan=0.0),
-            "v": np.nan_to_num(v, nan=0.0),
+            "u": u,
+            "v": v,
             "depth": np.where(np.isfinite(depth), depth, 0.0),
             "wet": wet.astype(np.float64),
         }

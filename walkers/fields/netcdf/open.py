@@ -158,6 +158,7 @@ def open_flow(
     time_range: tuple[Any, Any] | None = None,
     constant_depth: float | None = None,
     layers: LayerSelection | None = None,
+    velocity_axes: str = "auto",
 ) -> FlowField:
     """Open a hydrodynamic-model flow field from one NetCDF file or several along time.
 
@@ -175,6 +176,9 @@ def open_flow(
     constant_depth : depth (m; in 1-D the cross-section area, m2) to use when the file has none.
     layers : for layered velocities, the part of the water column to average over (the whole
         column by default); see :mod:`walkers.fields.netcdf.layers`.
+    velocity_axes : on a curvilinear grid, how the velocity components are oriented: "auto"
+        (from standard names and a grid-angle variable), "east_north" or "grid" (along the grid
+        axes); see :mod:`walkers.fields.netcdf.curvilinear`.
 
     Returns
     -------
@@ -187,7 +191,7 @@ def open_flow(
     file_list = _expand_paths(paths)
     try:
         first, dates, calendar, cell, wkt = _read_schemas(
-            file_list, variables, units, constant_depth is not None, crs
+            file_list, variables, units, constant_depth is not None, crs, velocity_axes
         )
     except RuntimeError as exc:  # netCDF's error for data it cannot read
         raise InputError(
@@ -219,6 +223,7 @@ def open_flow(
         first.vertical,
         layers,
     )
+    source.index_velocity = first.index_velocity
     flow = _build_flow(source, first, seconds, time_units, calendar, wkt, file_list)
     flow.attrs.update(
         roles=dict(first.roles),
@@ -280,6 +285,7 @@ def _read_schemas(
     units: dict[str, str],
     has_constant_depth: bool,
     crs: str | None,
+    velocity_axes: str = "auto",
 ) -> tuple[_FileSchema, list[list[Any]], str, tuple[np.ndarray, np.ndarray], str | None]:
     """Discover the layout of every file and check they agree: the first file's schema, each
     file's frame dates, the calendar, the cell grid and the CRS (WKT)."""
@@ -291,7 +297,7 @@ def _read_schemas(
         for path in file_list:
             ds = _open_dataset(path)
             datasets.append(ds)
-            schema = _FileSchema(ds, path, variables, units, has_constant_depth)
+            schema = _FileSchema(ds, path, variables, units, has_constant_depth, velocity_axes)
             schemas.append(schema)
             d, cal = schema.times()
             dates.append(d)
@@ -390,6 +396,14 @@ def _check_same_grid(first: _FileSchema, other: _FileSchema) -> None:
             and (lay.time_axis is None) == (lay2.time_axis is None)
             and lay2.factor == lay.factor
         )
+        if same and first.curvilinear is not None:
+            g1, g2 = first.curvilinear.grid, other.curvilinear and other.curvilinear.grid
+            same = bool(
+                g2
+                and g1.corner_x.shape == g2.corner_x.shape
+                and np.allclose(g1.corner_x, g2.corner_x)
+                and np.allclose(g1.corner_y, g2.corner_y)
+            )
         if not same:
             raise InputError(
                 f"flow file {other.path!r}: the {_ROLE_WORDS[role]} ({role}) differs from "
@@ -434,11 +448,12 @@ def _build_flow(
     lu = lays["u"]
     uy = np.array([0.0]) if lu.y is None else lu.y.values
     vel_steady = source.velocity_steady
-    u = var("u", lu.x.values, uy, vel_steady, lu.name, "m s-1")
+    speed_units = "m s-1" if schema.curvilinear is None else "s-1 (grid index units)"
+    u = var("u", lu.x.values, uy, vel_steady, lu.name, speed_units)
     if schema.ndim == 2:
         lv = lays["v"]
         assert lv.y is not None
-        v = var("v", lv.x.values, lv.y.values, vel_steady, lv.name, "m s-1")
+        v = var("v", lv.x.values, lv.y.values, vel_steady, lv.name, speed_units)
     else:
         v = GriddedVariable(lu.x.values, uy, np.zeros((1, 1, lu.x.values.size)), "v", "m s-1")
     depth_name = next(
@@ -458,4 +473,5 @@ def _build_flow(
         crs_wkt=wkt,
         ndim=schema.ndim,
         source=", ".join(file_list),
+        grid=None if schema.curvilinear is None else schema.curvilinear.grid,
     )
