@@ -6,7 +6,8 @@ and latitude (``degrees_east`` / ``degrees_north``) or projected x and y
 (``projection_x_coordinate`` / ``projection_y_coordinate`` with the variable's ``grid_mapping``).
 The last dimension of the coordinate variables runs along the grid index i, the first along j.
 Cell corners come from the coordinates' ``bounds`` (CF-1.8 §7.1, four vertices per cell) where
-the file gives them, and otherwise from the cell centres (:func:`walkers.fields.grids.corners_from_centres`).
+the file gives them, and otherwise from the cell centres
+(:func:`walkers.fields.grids.corners_from_centres`).
 
 Velocities may sit on the cell centres or on the cell faces (Arakawa C: u between cells along i,
 v between cells along j); the index positions of a staggered variable are found from its own
