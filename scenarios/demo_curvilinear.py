@@ -5,7 +5,7 @@ Grid: 120 rows from the sea (south) to the river (north), each row a straight li
 northing as in the rectilinear demo; its 24 cells span the funnel from bank to bank,
 centre(y) ± max(1.1 W(y), 400 m) with the funnel's centreline and half-width W of
 :func:`make_demo_flows.estuary_geometry`, so the grid lines along the estuary follow the banks and
-the cells narrow upstream (from about 220 m across at the mouth to 35 m). The coordinates are 2-D
+the cells narrow upstream (from about 220 m across at the mouth to 41 m). The coordinates are 2-D
 (``x_rho``, ``y_rho`` with cell bounds, CF-1.8 §5.2 and §7.1) on WGS 84 / UTM zone 30N.
 
 Flow: the rectilinear demo's bed is evaluated at the new cell centres from the same formulas; the

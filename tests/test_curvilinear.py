@@ -257,3 +257,16 @@ def test_layered_curvilinear_demo_runs_and_closes_its_budget(tmp_path):
     )
     assert abs(parts - released) < 1e-9 * released
     assert float(ds.budget_outflow.sel(edge="first_j")[-1]) > 0.0  # out to sea
+
+
+def test_inspect_describes_the_grid_and_draws_it(tmp_path):
+    from walkers.inspect import describe_flow, draw_speed_map
+
+    demo = Path(__file__).parents[1] / "scenarios/saltmarsh_estuary_curvilinear_flow.nc"
+    text = describe_flow(demo)
+    assert "curvilinear (projected 2-D coordinates), 24 x 120 cells" in text
+    assert "first_j faces south" in text and "last_j faces north" in text
+    assert "eastward/northward (or projected x/y) at the cell centres" in text
+    assert "ocean_sigma_coordinate" in text
+    draw_speed_map(open_flow(demo), tmp_path / "map.png", frame=10)
+    assert (tmp_path / "map.png").stat().st_size > 10_000

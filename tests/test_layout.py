@@ -28,7 +28,14 @@ STAGES: list[tuple[str, tuple[str, ...]]] = [
     ("verify", ("walkers.verify",)),
     (
         "front",
-        ("walkers.api", "walkers.cli", "walkers.cli_outputs", "walkers.bench", "walkers.inspect"),
+        (
+            "walkers.api",
+            "walkers.cli",
+            "walkers.cli_outputs",
+            "walkers.bench",
+            "walkers.inspect",
+            "walkers.workloads",
+        ),
     ),
 ]
 #: Files exempt from the size limit: the compiled kernels (one file by design, see DEVELOPERS.md).

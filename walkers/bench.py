@@ -9,6 +9,8 @@ flow, bilinear in space and linear in time, with land, reflecting and absorbing 
 - the same for the scenario workload, the basin run with the estuary demo's options (estimated
   flow-aligned dispersion on the grid with the drift term, drying flats, decay), its rate beside
   the reference one, and the cost of an RK4 step against an Euler step;
+- the same for the curvilinear workload, the basin on a rotated, bent curvilinear grid (stepped in
+  index space), its rate beside the reference one (workloads in :mod:`walkers.workloads`);
 - bytes of particle state per particle, and the peak memory of a 10-million-particle run (measured
   in a child process with ``resource.getrusage``, or projected from a smaller one in quick mode);
 - concentration-gridding throughput (particles per second through ``reduce.concentration``);
@@ -38,85 +40,20 @@ import numpy as np
 
 import walkers
 from walkers.engine import kernels, mover
-from walkers.engine.dispersion import resolve_dispersion
 from walkers.engine.state import ParticleState
-from walkers.fields.analytic import grid_flow
-from walkers.fields.base import FlowField, GriddedVariable, centre_to_edges
-from walkers.scenario.config import Dispersion, OutputGrid, Transport
-from walkers.scenario.specs import DispersionSpec
+from walkers.fields.base import FlowField, centre_to_edges
+from walkers.scenario.config import OutputGrid, Transport
+from walkers.workloads import (
+    CELL,
+    DT,
+    curvilinear_workload,
+    initial_state,
+    reference_workload,
+    scenario_workload,
+)
 
-CELL = 20.0  # m, cell size of the reference workload
-DT = 30.0  # s, time step
-FRAME_INTERVAL = 3600.0  # s between flow frames
 KEY = 20260101
 MAX_THREADS = int(numba.config.NUMBA_NUM_THREADS)  # type: ignore[attr-defined]
-
-
-def reference_workload(
-    nx: int = 200, ny: int = 100, frames: int = 7
-) -> tuple[FlowField, Transport]:
-    """The reference basin: nx × ny cells of 20 m, ``frames`` hourly frames of a tidal flow
-    (0.3 m s-1 amplitude, period 12.42 h) with a cross-channel swirl, an island and a jetty of
-    land, west and south edges reflecting, east and north absorbing, K = 1 and 0.5 m2 s-1."""
-    xc = CELL * (np.arange(nx) + 0.5)
-    yc = CELL * (np.arange(ny) + 0.5)
-    X, Y = np.meshgrid(xc, yc)
-    lx, ly = nx * CELL, ny * CELL
-    land = ((X - 0.6 * lx) / (0.08 * lx)) ** 2 + ((Y - 0.5 * ly) / (0.15 * ly)) ** 2 < 1.0
-    land |= (Y > 0.85 * ly) & (X > 0.2 * lx) & (X < 0.4 * lx)
-
-    def velocity(X, Y, t):
-        phase = np.cos(2.0 * np.pi * t / 44712.0)
-        return 0.3 * phase + 0.05 * np.sin(Y / 300.0), 0.05 * np.cos(X / 500.0) * phase
-
-    times = FRAME_INTERVAL * np.arange(frames, dtype=np.float64)
-    flow = grid_flow(xc, yc, times, velocity, depth=8.0, wet=~land)
-    transport = Transport(
-        dt=DT,
-        dispersion=Dispersion(k1=1.0, k2=0.5),
-        edges={
-            "west": "reflecting",
-            "east": "absorbing",
-            "south": "reflecting",
-            "north": "absorbing",
-        },
-    )
-    return flow, transport
-
-
-def scenario_workload(nx: int = 200, ny: int = 100, frames: int = 7) -> tuple[FlowField, Transport]:
-    """The reference basin with the settings of the estuary demo: a tide of 1 m amplitude over a
-    bed that shoals to the north, so that tidal flats dry and flood (wet mask per frame, minimum
-    depth 0.1 m); dispersion estimated from depth and speed (Manning n = 0.025, meandering,
-    floor 0.5 m2 s-1), gridded and aligned with the flow, with the drift term; decay with a
-    half-life of 2 days; absorbing edges with the bridge test; the demo's 60 s step taken as two
-    sub-steps of 30 s (``DT``)."""
-    flow, transport = reference_workload(nx, ny, frames)
-    land = flow.wet.data[0] < 0.5
-    Y = np.broadcast_to(flow.y[:, None], land.shape)
-    bed = 8.0 - 10.0 * np.clip((Y / (ny * CELL) - 0.4) / 0.4, 0.0, 1.0)  # m below datum
-    tide = np.cos(2.0 * np.pi * flow.times / 44712.0)  # m above datum
-    depth = np.maximum(bed[None] + tide[:, None, None], 0.0)
-    wet = (depth >= 0.1) & ~land[None]
-    flow.depth = GriddedVariable(flow.x, flow.y, depth, "depth", "m")
-    flow.wet = GriddedVariable(flow.x, flow.y, wet.astype(np.float64), "wet", "1")
-    spec = DispersionSpec("estimated", manning_n=0.025, transverse_factor=0.6, minimum=0.5)
-    scenario = Transport(
-        dt=DT,
-        dispersion=resolve_dispersion(spec, flow),
-        decay_rate=np.log(2.0) / (2 * 86400.0),
-        edges=transport.edges,
-    )
-    return flow, scenario
-
-
-def initial_state(n: int, flow: FlowField, seed: int = 1) -> ParticleState:
-    """n particles spread over the western water of the basin, all released at t = 0."""
-    rng = np.random.default_rng(seed)
-    lx, ly = flow.x[-1], flow.y[-1]
-    x = rng.uniform(0.05 * lx, 0.3 * lx, n)
-    y = rng.uniform(0.1 * ly, 0.8 * ly, n)
-    return ParticleState.from_arrays(x, y, np.ones(n), np.zeros(n))
 
 
 def _inputs(flow: FlowField, transport: Transport) -> mover.KernelInputs:
@@ -420,10 +357,17 @@ def run_benchmark(
         rk4_wall, rk4_cpu, _ = _rate(s_flow, _inputs(s_flow, rk4), s_start, nsteps, reps)
         note("numpy twin, scenario workload")
         s_twin = _rate(s_flow, _inputs(s_flow, s_transport), s_start, twin_steps, 1, "reference")[2]
+        c_flow, c_transport = curvilinear_workload()
+        c_start = initial_state(n, c_flow)
+        cur = _engine_rates(c_flow, c_transport, c_start, nsteps, reps, two, note, "curvilinear")
+        note("numpy twin, curvilinear workload")
+        numba.set_num_threads(1)
+        c_twin = _rate(c_flow, _inputs(c_flow, c_transport), c_start, twin_steps, 1, "reference")[2]
     finally:
         numba.set_num_threads(threads_before)
     difference = _largest_difference(flow, transport, start, twin_steps, twin_out)
     s_difference = _largest_difference(s_flow, s_transport, s_start, twin_steps, s_twin)
+    c_difference = _largest_difference(c_flow, c_transport, c_start, twin_steps, c_twin)
     moved = ref["moved"]
     note("gridding")
     gridding, concentration = _gridding_rates(flow, moved, max(reps, 5))
@@ -457,6 +401,13 @@ def run_benchmark(
         "rk4_over_euler_cost": sce["one_wall"] / rk4_wall,
         "rk4_over_euler_cost_cpu": sce["one_cpu"] / rk4_cpu,
         "scenario_compiled_minus_numpy_max_m": s_difference,
+        "curvilinear_workload": _workload(c_flow, c_transport, n, nsteps, twin_steps, reps),
+        "curvilinear_steps_per_s_1thread": cur["one_wall"],
+        "curvilinear_steps_per_cpu_s_1thread": cur["one_cpu"],
+        "curvilinear_steps_per_s_2threads": cur["two_wall"],
+        "curvilinear_over_reference": cur["one_wall"] / ref["one_wall"],
+        "curvilinear_over_reference_cpu": cur["one_cpu"] / ref["one_cpu"],
+        "curvilinear_compiled_minus_numpy_max_cells": c_difference,
         "bytes_per_particle": ParticleState.from_arrays(
             np.zeros(1), np.zeros(1), np.ones(1), np.zeros(1)
         ).nbytes,
@@ -478,6 +429,7 @@ TARGETS = {
     "speedup_1_to_2_threads": (">=", 1.8),
     "scenario_steps_per_s_1thread": (">=", 15e6),
     "scenario_over_reference": (">=", 0.6),
+    "curvilinear_over_reference": (">=", 1.0 / 1.5),
     "rk4_over_euler_cost": ("<=", 2.5),
     "scenario_speedup_1_to_2_threads": (">=", 1.8),
     "bytes_per_particle": ("<=", 64),
@@ -528,6 +480,17 @@ def format_report(r: dict) -> str:
         f"{mark('scenario_speedup_1_to_2_threads')}",
         f"compiled vs twin      {r['scenario_compiled_minus_numpy_max_m']:8.1e} m largest "
         "difference",
+        "curvilinear workload (the reference basin on a rotated, bent curvilinear grid, stepped "
+        "in index space with the full tensor K and the metric drift):",
+        f"compiled, 1 thread    {r['curvilinear_steps_per_s_1thread'] / 1e6:8.1f} M "
+        f"particle-steps/s; {r['curvilinear_steps_per_cpu_s_1thread'] / 1e6:.1f} M per CPU-second",
+        f"curvilinear / ref.    {r['curvilinear_over_reference']:8.2f} "
+        f"{mark('curvilinear_over_reference')}; {r['curvilinear_over_reference_cpu']:.2f} per "
+        "CPU-s",
+        f"compiled, {r['threads_used_for_2']} threads   "
+        f"{r['curvilinear_steps_per_s_2threads'] / 1e6:8.1f} M particle-steps/s",
+        f"compiled vs twin      {r['curvilinear_compiled_minus_numpy_max_cells']:8.1e} cells "
+        "largest difference",
         f"state per particle    {r['bytes_per_particle']:8d} bytes {mark('bytes_per_particle')}",
         f"peak, 10 M particles  {r['peak_memory_10m_bytes'] / 1e9:8.2f} GB, "
         f"{r['peak_memory_method']} {mark('peak_memory_10m_bytes')}",

@@ -46,6 +46,13 @@ def frame_speed(flow: FlowField, i0: int, i1: int) -> tuple[np.ndarray, np.ndarr
     u = _on_centres(flow.u, flow.u.frames(i0, i1), cx, cy)
     v = _on_centres(flow.v, flow.v.frames(i0, i1), cx, cy)
     wet = flow.wet.frames(i0, i1) > 0.5
+    if flow.curvilinear:
+        # index-space components back to metres per second: u = J ũ
+        jac = flow.grid.jacobian
+        u, v = (
+            jac[..., 0, 0] * u + jac[..., 0, 1] * v,
+            jac[..., 1, 0] * u + jac[..., 1, 1] * v,
+        )
     speed = np.hypot(u, v)
     nf = max(speed.shape[0], wet.shape[0])
     shape = (nf, cy.size, cx.size)
@@ -184,8 +191,36 @@ def _describe_missing(flow: FlowField, lines: list[str]) -> None:
         lines += [f"    {item}" for item in missing]
 
 
+def _describe_curvilinear(flow: FlowField, lines: list[str]) -> None:
+    """Report lines on a curvilinear grid: cells, their sides, extent, edges and how the
+    velocity components are read."""
+    from walkers.fields.grids import compass
+
+    grid = flow.grid
+    unit = "degrees" if flow.geographic else "m"
+    lines.append(f"  grid: {grid.describe()}")
+    jac = grid.jacobian
+    for axis, name in ((0, "i"), (1, "j")):
+        side = np.hypot(jac[..., 0, axis], jac[..., 1, axis])
+        lines.append(f"  cell side along {name}: {side.min():.4g} to {side.max():.4g} m")
+    lines.append(
+        f"  extent: x {grid.corner_x.min():.10g} to {grid.corner_x.max():.10g}, "
+        f"y {grid.corner_y.min():.10g} to {grid.corner_y.max():.10g} {unit}"
+    )
+    faces = ", ".join(
+        f"{n} faces {compass(b)}"
+        for n, b in zip(grid.edge_names, grid.edge_bearings(), strict=True)
+    )
+    lines.append(f"  edges (named by grid index in [edges]): {faces}")
+    lines.append(f"  velocity components: {flow.attrs.get('velocity_components', 'index space')}")
+    lines.append(f"  CRS: {_crs_text(flow)}")
+
+
 def _describe_grid(flow: FlowField, lines: list[str]) -> None:
     """Report lines on the grid: size, spacing, extent and CRS; returns the cell widths (m)."""
+    if flow.curvilinear:
+        _describe_curvilinear(flow, lines)
+        return
     unit = "degrees" if flow.geographic else "m"
     nx, ny = flow.x.size, flow.y.size
     lines.append(
@@ -266,19 +301,27 @@ def draw_speed_map(flow: FlowField, png_path: str | os.PathLike, frame: int = 0)
         import matplotlib
 
         xe, ye = flow.cell_edges()
+        if flow.curvilinear:
+            xe, ye = flow.grid.corner_x, flow.grid.corner_y  # the cells as they lie in the world
         data = np.ma.masked_where(~wet[0], speed[0])
         cmap = matplotlib.colormaps["viridis"].with_extremes(bad="0.7")
         mesh = ax.pcolormesh(xe, ye, data, cmap=cmap, shading="flat")
+        if flow.curvilinear:
+            for k in range(0, xe.shape[0], 5):
+                ax.plot(xe[k], ye[k], color="0.2", lw=0.3)
+            for k in range(0, xe.shape[1], 5):
+                ax.plot(xe[:, k], ye[:, k], color="0.2", lw=0.3)
         fig.colorbar(mesh, ax=ax, label="speed (m s-1)")
         if flow.geographic:
             ax.set_xlabel("longitude (degrees east)")
             ax.set_ylabel("latitude (degrees north)")
-            ax.set_aspect(1.0 / np.cos(np.radians(0.5 * (ye[0] + ye[-1]))))
+            ax.set_aspect(1.0 / np.cos(np.radians(0.5 * (np.min(ye) + np.max(ye)))))
         else:
             ax.set_xlabel("x (m)")
             ax.set_ylabel("y (m)")
             ax.set_aspect("equal")
-    ax.set_title(f"Flow speed, {when} (grey: land or dry)")
+    lines_note = "\nthin lines: every fifth grid line" if flow.curvilinear else ""
+    ax.set_title(f"Flow speed, {when} (grey: land or dry){lines_note}", fontsize=10)
     fig.text(0.01, 0.01, CAUTION, fontsize=6, wrap=True, va="bottom")
     fig.subplots_adjust(bottom=0.18)
     fig.savefig(os.fspath(png_path))

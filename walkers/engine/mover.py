@@ -113,6 +113,8 @@ def _dispersion_frames(
     d = transport.dispersion
     ny, nx = flow.depth.data.shape[1:]
     nf = max(window.u.shape[0], window.depth.shape[0])
+    if d.mode != "aligned" and window.depth.shape[0] == 1 and window.wet.shape[0] == 1:
+        nf = 1  # K, h and so the drift are the same in every frame
     gridded = d.k1_field is not None or d.k2_field is not None
     k1 = np.broadcast_to(d.k1_field if d.k1_field is not None else d.k1, (ny, nx))
     k2 = np.broadcast_to(d.k2_field if d.k2_field is not None else d.k2, (ny, nx))
@@ -199,6 +201,8 @@ def _index_space_dispersion(
     inv = grid.inverse
     varies = d.mode == "aligned"
     nk = nf if varies else 1
+    if not varies and window.depth.shape[0] == 1 and window.wet.shape[0] == 1:
+        nf = 1  # K̃, H and so the drift are the same in every frame
     out = {name: np.zeros((nk, ny, nx)) for name in ("k11", "k22", "k12")}
     drift_x = np.zeros((nf, ny, nx))
     drift_y = np.zeros((nf, ny, nx))

@@ -226,7 +226,7 @@ class Curvilinear:
         kind = "lon/lat" if self.geographic else "projected"
         side = np.sqrt(self.area)
         return (
-            f"curvilinear ({kind} 2-D coordinates), {nx} x {ny} cells of "
+            f"curvilinear ({kind} 2-D coordinates), {nx} x {ny} cells (i by j) of "
             f"{side.min():.3g} to {side.max():.3g} m (square root of the area)"
         )
 

@@ -244,6 +244,15 @@ class IndexVelocity:
                 '(set [flow] velocity_axes = "grid"), or give them at the cell centres'
             )
 
+    def describe(self) -> str:
+        """How the file's components are turned into the index-space ones (for ``inspect``)."""
+        where = "at the cell centres" if self._centred() else "on the cell faces (Arakawa C)"
+        if self.components == "east_north":
+            return f"eastward/northward (or projected x/y) {where}, through the inverse Jacobian"
+        if self.angle is not None and self._centred():
+            return f"along the grid axes {where}, rotated by the file's grid angle"
+        return f"along the grid axes {where}, over the cell side along each axis"
+
     def _centred(self) -> bool:
         ny, nx = self.grid.shape
         cx, cy = np.arange(nx), np.arange(ny)

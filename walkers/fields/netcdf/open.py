@@ -231,6 +231,11 @@ def open_flow(
         files=list(file_list),
         min_depth=float(min_depth),
         constant_depth=constant_depth,
+        velocity_components=(
+            "eastward/northward (or along projected x/y)"
+            if first.index_velocity is None
+            else first.index_velocity.describe()
+        ),
         vertical=(
             "none (depth-averaged velocities)"
             if first.vertical is None
