@@ -51,6 +51,7 @@ from __future__ import annotations
 import argparse
 from dataclasses import dataclass
 from pathlib import Path
+from types import SimpleNamespace
 
 import numpy as np
 import xarray as xr
@@ -567,7 +568,8 @@ def main(argv: list[str] | None = None) -> None:
 
     estuary = build_estuary()
     layered = build_estuary_layered(estuary)
-    curvilinear = demo_curvilinear.build(estuary, layered, sys.modules[__name__])
+    # the estuary's formulas and constants, as a namespace (this module may be loaded unnamed)
+    curvilinear = demo_curvilinear.build(estuary, layered, SimpleNamespace(**globals()))
     for name, ds in (
         ("saltmarsh_estuary_flow.nc", estuary),
         ("saltmarsh_estuary_layered_flow.nc", layered),

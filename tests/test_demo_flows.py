@@ -27,6 +27,7 @@ ROOT = Path(__file__).resolve().parents[1]
 SCENARIOS = ROOT / "scenarios"
 FILES = ("saltmarsh_estuary_flow.nc", "millbrook_canal_flow.nc")
 LAYERED = "saltmarsh_estuary_layered_flow.nc"
+CURVILINEAR = "saltmarsh_estuary_curvilinear_flow.nc"
 
 
 def _load_builder():
@@ -169,7 +170,7 @@ def averaging_bound(ds: xr.Dataset) -> float:
 # --- reproducibility, format, size ---------------------------------------------------------
 
 
-@pytest.mark.parametrize("name", (*FILES, LAYERED))
+@pytest.mark.parametrize("name", (*FILES, LAYERED, CURVILINEAR))
 def test_regenerated_file_equals_committed(regenerated: Path, name: str) -> None:
     with (
         xr.open_dataset(SCENARIOS / name, decode_times=False) as old,
@@ -182,7 +183,7 @@ def test_regenerated_file_equals_committed(regenerated: Path, name: str) -> None
         assert old.attrs == new.attrs
 
 
-@pytest.mark.parametrize("name", (*FILES, LAYERED))
+@pytest.mark.parametrize("name", (*FILES, LAYERED, CURVILINEAR))
 def test_file_is_small(name: str) -> None:
     assert (SCENARIOS / name).stat().st_size < 2.5e6
 
@@ -208,7 +209,7 @@ def test_roles_are_found_by_standard_name(name: str) -> None:
         assert ds["time"].attrs["calendar"] == "standard"
 
 
-@pytest.mark.parametrize("name", (*FILES, LAYERED))
+@pytest.mark.parametrize("name", (*FILES, LAYERED, CURVILINEAR))
 def test_cf_checker_reports_no_error(name: str) -> None:
     # CF conventions 1.8 (Eaton et al. 2020) through the cfchecker package with the CF tables
     errors, report = cf_errors(SCENARIOS / name)

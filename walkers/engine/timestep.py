@@ -153,10 +153,13 @@ def check_time_step(flow: FlowField, transport: Transport, t0: float, t1: float)
                 advection = float(ratio[j, k])
                 advection_cell = float(across[j, k])
                 max_speed = float(speed[j, k])
-                fastest = (
-                    f"along {axis} at x = {var.x[k]:.6g}, y = {var.y[j]:.6g} (frame time "
-                    f"{flow.times[i]:g} s, {flow.time_units})"
+                where = (
+                    f"along grid axis {'i' if axis == 'x' else 'j'} at grid index "
+                    f"i = {var.x[k]:.6g}, j = {var.y[j]:.6g}"
+                    if flow.curvilinear
+                    else f"along {axis} at x = {var.x[k]:.6g}, y = {var.y[j]:.6g}"
                 )
+                fastest = f"{where} (frame time {flow.times[i]:g} s, {flow.time_units})"
     d = transport.dispersion
     m = d.multiplier
     k1 = np.broadcast_to(d.k1_field if d.k1_field is not None else d.k1, wx.shape) * m
