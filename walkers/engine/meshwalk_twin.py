@@ -258,7 +258,8 @@ def trace_points(
         move = ~leaves & ~closed
         m = i[move]
         gm = g[move]
-        skip[m] = np.array([_entry_edge(neighbours, gg, ff) for gg, ff in zip(gm, f[m])], np.int64)
+        shared = neighbours[gm] == f[m][:, None]
+        skip[m] = np.where(shared.any(axis=1), np.argmax(shared, axis=1), -1)
         f[m] = gm
         keep = wall | move
         k_ = i[keep]
@@ -267,11 +268,6 @@ def trace_points(
     y[~placed & (boundary < 0)] = np.asarray(py, dtype=np.float64)[~placed & (boundary < 0)]
     face[~placed & (boundary < 0)] = f0[~placed & (boundary < 0)]
     return boundary, fraction, placed, x, y, face
-
-
-def _entry_edge(neighbours: np.ndarray, g: int, f: int) -> int:
-    hits = np.flatnonzero(neighbours[g] == f)
-    return int(hits[0]) if hits.size else -1
 
 
 def _green_gauss(node_x, node_y, face_nodes, area, values):
