@@ -151,14 +151,13 @@ def _length(ds: netCDF4.Dataset, name: str, path: str) -> np.ndarray:
     return _values(ds, name, path) * _LENGTH_UNITS.get(unit, 1.0)
 
 
-def local_projection(lon: np.ndarray, lat: np.ndarray) -> CRS:
+def local_projection(lon: np.ndarray, lat: np.ndarray) -> tuple[CRS, str]:
     """A transverse Mercator on the WGS84 ellipsoid centred on the mesh (central meridian and
     origin latitude at the mid-range, rounded to 1e-6 degree; scale 1; no false offsets)."""
     lon0 = round(0.5 * (float(np.min(lon)) + float(np.max(lon))), 6)
     lat0 = round(0.5 * (float(np.min(lat)) + float(np.max(lat))), 6)
-    return CRS.from_proj4(
-        f"+proj=tmerc +lat_0={lat0} +lon_0={lon0} +k=1 +x_0=0 +y_0=0 +ellps=WGS84 +units=m +no_defs"
-    )
+    text = f"+proj=tmerc +lat_0={lat0} +lon_0={lon0} +k=1 +x_0=0 +y_0=0 +ellps=WGS84 +units=m"
+    return CRS.from_proj4(text), text
 
 
 def _crs_of(ds: netCDF4.Dataset, path: str, topo: Topology, crs: str | None) -> CRS | None:
@@ -191,11 +190,11 @@ def project(
         raise InputError(f"mesh file {path!r}: latitude {names[1]!r} has values beyond ±90 degrees")
     node_lon = _values(ds, topo.node_x, path)
     node_lat = _values(ds, topo.node_y, path)
-    local = local_projection(node_lon, node_lat)
+    local, text = local_projection(node_lon, node_lat)
     source = given if given is not None else CRS.from_epsg(4326)
     to_local = Transformer.from_crs(source, local, always_xy=True)
     x, y = to_local.transform(lon, lat)
-    note = f"longitude/latitude projected onto {local.to_proj4()}"
+    note = f"longitude/latitude projected onto {text}"
     return np.asarray(x, np.float64), np.asarray(y, np.float64), local.to_wkt(), note
 
 
