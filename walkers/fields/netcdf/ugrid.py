@@ -257,7 +257,7 @@ def read_geometry(
                 f"mesh file {path!r}: face_coordinates of {topo.name!r} must name two variables "
                 f"in the file; {' '.join(centres)!r} given"
             )
-        fx, fy, _, _ = project(ds, path, topo, crs, tuple(_order_xy(ds, centres[:2])))
+        fx, fy, _, _ = project(ds, path, topo, crs, _order_xy(ds, centres[:2]))
         if fx.size != geometry.nface:
             raise InputError(
                 f"mesh file {path!r}: face coordinates {centres[0]!r} hold {fx.size} values for "

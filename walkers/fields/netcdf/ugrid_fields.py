@@ -139,8 +139,7 @@ class _MeshFile:
         var = self.ds.variables[name]
         if role == "mask":
             meanings = _attr(var, "flag_meanings").lower()
-            words = ("wet", "dry") + _WATER_WORDS + _LAND_WORDS
-            return bool(meanings) and any(w in meanings for w in words)
+            return bool(meanings) and any(w in meanings for w in _WATER_WORDS + _LAND_WORDS)
         names, words = _NAME_HINTS.get(role, (set(), ()))
         unit_ok = _norm_units(_attr(var, "units")) in _ROLE_UNITS.get(role, {})
         long_name = _attr(var, "long_name").lower()
@@ -199,7 +198,7 @@ class _MeshFile:
         var = self.ds.variables[name]
         loc, dim = self.location(name, role)
         keep = [d for d in (self.time_dim, self.layer_dim, dim) if d in var.dimensions]
-        index = []
+        index: list[Any] = []
         for d in var.dimensions:
             if d in keep:
                 index.append(slice(None))
@@ -331,7 +330,7 @@ def _depth(
     if level is not None and bed_name is not None:
         bed = mf.read(bed_name, "bed_level")
         roles["water_level"], roles["bed_level"] = level.name, bed_name
-        attrs = {
+        attrs: dict[str, Any] = {
             k: mf.ds.variables[bed_name].getncattr(k)
             for k in ("positive", "standard_name")
             if k in mf.ds.variables[bed_name].ncattrs()
