@@ -278,3 +278,64 @@ def test_bad_mesh_files_are_named(tmp_path, mesh, case, message):
 def test_is_ugrid_tells_a_mesh_file(tmp_path, mesh):
     assert is_ugrid(_write(tmp_path, mesh))
     assert not is_ugrid(tmp_path / "absent.nc")
+
+
+def _rename(old, new):
+    def edit(ds):
+        ds.renameVariable(old, new)
+
+    return edit
+
+
+@pytest.mark.parametrize(
+    ("case", "message"),
+    [
+        ("nonconvex", "quadrilateral 0 (nodes [0, 1, 14, 13], 0-based) is not convex"),
+        ("shared", "is shared by more than two faces"),
+        ("node-var", "mesh topology 'Mesh2' names variable 'Mesh2_node_x', which is not in"),
+        ("face-dim", "face_dimension 'nowhere' is not a dimension of 'Mesh2_face_nodes'"),
+        ("no-depth", "no water depth found among the variables of mesh 'Mesh2'"),
+        ("units", "variable 'v' (northward (y) velocity) has units 'furlongs'"),
+        ("override", "variable 'speed_x' given for the eastward (x) velocity (u) is not in"),
+        ("boundary-off", "does not lie on the mesh boundary: nodes 14 and 15"),
+        ("coord-units", "coordinate 'Mesh2_node_x' has units 'feet'"),
+    ],
+)
+def test_more_bad_mesh_files_are_named(tmp_path, mesh, case, message):
+    x, y, faces = (a.copy() for a in mesh)
+    fields = _fields(x, faces)
+    edit, boundary, kw = None, None, {}
+    if case == "nonconvex":
+        # move the third corner of the first quadrilateral (a cell at the south-west corner)
+        # inside it: the quadrilateral turns clockwise at one corner
+        x[faces[0, 2]], y[faces[0, 2]] = x[faces[0, 0]] + 10.0, y[faces[0, 0]] + 10.0
+    elif case == "shared":
+        faces = np.vstack([faces, faces[:1]])  # a face given twice
+        fields = _fields(x, faces)
+    elif case == "node-var":
+        edit = _rename("Mesh2_node_x", "other_x")
+    elif case == "face-dim":
+        edit = _set("Mesh2", "face_dimension", "nowhere")
+    elif case == "no-depth":
+        del fields["depth"]
+    elif case == "units":
+        edit = _set("v", "units", "furlongs")
+    elif case == "override":
+        kw["variables"] = {"u": "speed_x"}
+    elif case == "boundary-off":
+        boundary = {"sea": np.array([[14, 15]])}  # an interior edge
+    elif case == "coord-units":
+        edit = _set("Mesh2_node_x", "units", "feet")
+    path = write_ugrid(
+        tmp_path / "bad.nc", x, y, faces, fields=fields, times=TIMES, edit=edit, boundary=boundary
+    )
+    with pytest.raises(InputError, match=re.escape(message)) as err:
+        open_mesh_flow(path, **kw)
+    assert str(path) in str(err.value)
+
+
+def test_a_folded_mesh_is_refused():
+    # triangle B lies on top of A: both run from node 0 to node 1 along their shared edge
+    x, y = np.array([0.0, 1.0, 0.0, 0.5]), np.array([0.0, 0.0, 1.0, 0.5])
+    with pytest.raises(InputError, match="faces 0 and 1 run the same way along their shared edge"):
+        build_geometry(x, y, np.array([[0, 1, 2], [0, 1, 3]]), where="mesh file 'f.nc'")
