@@ -9,7 +9,7 @@ import re
 import numpy as np
 import pytest
 from mesh_files import jittered_mesh, write_ugrid
-from pyproj import Geod
+from pyproj import Geod, Proj
 
 from walkers.errors import InputError
 from walkers.fields.mesh import build_geometry
@@ -339,3 +339,30 @@ def test_a_folded_mesh_is_refused():
     x, y = np.array([0.0, 1.0, 0.0, 0.5]), np.array([0.0, 0.0, 1.0, 0.5])
     with pytest.raises(InputError, match="faces 0 and 1 run the same way along their shared edge"):
         build_geometry(x, y, np.array([[0, 1, 2], [0, 1, 3]]), where="mesh file 'f.nc'")
+
+
+def test_lon_lat_velocities_are_turned_onto_the_projection_axes(tmp_path, mesh):
+    """A northward current on a lon/lat mesh points along the meridian, which on the local
+    transverse Mercator leans from the y axis by the meridian convergence (PROJ's factors,
+    pyproj.Proj.get_factors; Snyder 1987, Map Projections, eq. 8-11, from memory)."""
+    x, y, faces = mesh
+    lon, lat = -4.5 + x * 1e-4, 52.0 + y * 1e-5
+    nface = faces.shape[0]
+    fields = {
+        "u": ("node", np.zeros((3, x.size))),
+        "v": ("node", np.full((3, x.size), 0.5)),
+        "depth": ("face", np.full((3, nface), 3.0)),
+    }
+    path = write_ugrid(
+        tmp_path / "geo.nc", lon, lat, faces, fields=fields, times=TIMES, geographic=True
+    )
+    flow = open_mesh_flow(path)
+    speed = np.hypot(flow.u.data, flow.v.data)
+    np.testing.assert_allclose(speed, 0.5, rtol=1e-12)
+    lean = np.degrees(np.arctan2(flow.u.data[0], flow.v.data[0]))
+    local = Proj(flow.geometry.projection.split("onto ")[1])
+    convergence = local.get_factors(lon, lat).meridian_convergence
+    np.testing.assert_allclose(np.abs(lean), np.abs(convergence), atol=1e-6)
+    assert np.max(np.abs(convergence)) > 1e-3  # degrees: the mesh reaches off the meridian
+    # the twin: the velocity left on the file's axes (no lean) is off by the convergence
+    assert np.max(np.abs(lean)) > 1e-3

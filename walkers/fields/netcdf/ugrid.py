@@ -8,7 +8,8 @@ What is read (UGRID Conventions 1.0, 2016, "2D triangular mesh topology" and "2D
   coordinates or on the topology variable, or given by the caller) or longitude / latitude
   (degrees), which are projected onto a local transverse Mercator centred on the mesh (WGS84
   ellipsoid, scale 1 on the central meridian) so that the engine works in metres; the projection
-  is recorded in the geometry (``projection``, ``crs_wkt``);
+  is recorded in the geometry (``projection``, ``crs_wkt``), and eastward / northward
+  velocities are turned onto its x / y axes (by the meridian convergence at each point);
 - ``face_node_connectivity`` with ``start_index`` 0 or 1 (0 by default), ``_FillValue`` for the
   missing corners of triangles in a mixed mesh, and ``face_dimension`` when the table is stored
   corners first;
@@ -198,6 +199,52 @@ def project(
     return np.asarray(x, np.float64), np.asarray(y, np.float64), local.to_wkt(), note
 
 
+def grid_north(
+    ds: netCDF4.Dataset, path: str, topo: Topology, crs: str | None
+) -> tuple[np.ndarray, np.ndarray]:
+    """(sin a, cos a) at each node of a lon/lat mesh, a the angle from the local projection's
+    y axis clockwise to true north (the meridian convergence, up to its sign convention), from
+    the projected direction of a short step north (1e-5 degree)."""
+    lon, lat = _values(ds, topo.node_x, path), _values(ds, topo.node_y, path)
+    given = _crs_of(ds, path, topo, crs)
+    local, _ = local_projection(lon, lat)
+    to_local = Transformer.from_crs(
+        given if given is not None else CRS.from_epsg(4326), local, always_xy=True
+    )
+    x0, y0 = to_local.transform(lon, lat)
+    x1, y1 = to_local.transform(lon, lat + 1e-5)
+    dx, dy = np.asarray(x1) - x0, np.asarray(y1) - y0
+    length = np.hypot(dx, dy)
+    return dx / length, dy / length
+
+
+def _to_grid_axes(flow: MeshFlow, north: tuple[np.ndarray, np.ndarray]) -> None:
+    """Eastward / northward velocities of a lon/lat mesh turned onto the projection's x / y axes:
+    with true north N = (sin a, cos a) and east E = (cos a, -sin a) in grid axes,
+    (u, v)_grid = u_east E + v_north N. Each component keeps its location; where the other one
+    sits elsewhere it is moved there (corner mean, or area-weighted face mean) for the turn."""
+    g = flow.geometry
+    sin_n, cos_n = north
+    old = {"u": flow.u, "v": flow.v}
+    new = {}
+    for role, var in old.items():
+        other = old["v" if role == "u" else "u"]
+        if other.location == var.location:
+            across = other.data
+        elif var.location == "face":
+            across = g.face_mean_of_nodes(other.data)
+        else:
+            across = g.node_mean_of_faces(other.data)
+        sin_a, cos_a = sin_n, cos_n
+        if var.location == "face":
+            sin_a, cos_a = g.face_mean_of_nodes(sin_n), g.face_mean_of_nodes(cos_n)
+        if role == "u":
+            new[role] = var.data * cos_a + across * sin_a
+        else:
+            new[role] = -across * sin_a + var.data * cos_a
+    flow.u.data, flow.v.data = new["u"], new["v"]
+
+
 def face_node_table(ds: netCDF4.Dataset, path: str, topo: Topology) -> np.ndarray:
     """The face-node table (nface, 3 or 4), 0-based, -1 for missing corners."""
     var = ds.variables[topo.face_nodes]
@@ -366,6 +413,8 @@ def open_mesh_flow(
             min_depth=min_depth,
             layers=layers or LayerSelection(),
         )
+        if geometry.projection:
+            _to_grid_axes(flow, grid_north(ds, path, topo, crs))
     flow.open_boundaries = bounds
     flow.attrs.update(attrs)
     flow.attrs["mesh"] = topo.name
