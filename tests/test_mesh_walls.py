@@ -132,9 +132,9 @@ def _walk(g, start, steps, sigma, rng, rule):
 def test_random_walk_beside_an_oblique_wall_follows_the_image_solution():
     """Particles released d0 = 10 m from the oblique west wall, K = 1 m2/s, 5 steps of 100 s
     (each 14 m rms, longer than d0): their distance from the wall has the density of the method
-    of images, N(d0, 2Kt) + N(−d0, 2Kt) folded onto d ≥ 0 (Carslaw & Jaeger 1959, Conduction of Heat in
-    Solids, §2.2, from memory); Kolmogorov–Smirnov test (scipy.stats.kstest) at the 5-sigma
-    level."""
+    of images, N(d0, 2Kt) + N(−d0, 2Kt) folded onto d ≥ 0 (Carslaw & Jaeger 1959, Conduction
+    of Heat in Solids, §2.2, from memory); Kolmogorov–Smirnov test (scipy.stats.kstest) at the
+    5-sigma level."""
     g = _turned(nx=12, ny=12, spacing=50, seed=12)
     k, dt, steps, d0 = 1.0, 100.0, 5, 10.0
     sigma = np.sqrt(2 * k * dt)
