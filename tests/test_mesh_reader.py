@@ -366,3 +366,40 @@ def test_lon_lat_velocities_are_turned_onto_the_projection_axes(tmp_path, mesh):
     assert np.max(np.abs(convergence)) > 1e-3  # degrees: the mesh reaches off the meridian
     # the twin: the velocity left on the file's axes (no lean) is off by the convergence
     assert np.max(np.abs(lean)) > 1e-3
+
+
+def test_open_boundaries_given_to_the_reader(tmp_path, mesh):
+    path = _write(tmp_path, mesh)
+    east = (np.arange(NY + 1) * (NX + 1) + NX).tolist()
+    flow = open_mesh_flow(
+        path,
+        open_boundaries={
+            "river": {"nodes": east},
+            "sea": {"polyline": [[0.0, 0.0], [NX * SPACING, 0.0]], "tolerance": 0.5},
+        },
+    )
+    assert flow.open_boundaries.names == ("river", "sea")
+    assert flow.open_boundaries.edge_count("sea") == NX
+    with pytest.raises(InputError, match="open boundary 'river': give 'nodes'") as err:
+        open_mesh_flow(path, open_boundaries={"river": {"points": east}})
+    assert str(path) in str(err.value)
+
+
+def test_layered_node_velocity_with_surface_and_bed_on_faces(tmp_path, mesh):
+    """Terms of the vertical coordinate on faces are moved to the nodes of a node velocity (the
+    area-weighted mean of the faces around each node); uniform terms stay uniform, so the depth
+    mean is the same 2.925 m/s as in the face test above (CF-1.8 Appendix D)."""
+    x, y, faces = mesh
+    nface = faces.shape[0]
+    layered = np.broadcast_to(np.array([1.0, 2.0, 3.0, 4.0])[None, :, None], (3, 4, x.size))
+    fields = {
+        "u": ("node", layered),
+        "v": ("node", layered),
+        "eta": ("face", np.full((3, nface), 0.4)),
+        "bed": ("face", np.full((3, nface), 4.6)),
+    }
+    flow = open_mesh_flow(
+        _write(tmp_path, mesh, fields=fields, sigma=np.array([-0.05, -0.2, -0.45, -0.8]))
+    )
+    assert flow.u.location == "node"
+    np.testing.assert_allclose(flow.u.data, 2.925, rtol=1e-13)
