@@ -403,3 +403,21 @@ def test_layered_node_velocity_with_surface_and_bed_on_faces(tmp_path, mesh):
     )
     assert flow.u.location == "node"
     np.testing.assert_allclose(flow.u.data, 2.925, rtol=1e-13)
+
+
+def test_depth_from_water_level_and_bed_depth(tmp_path, mesh):
+    """No depth variable: depth = level + bed for a bed given as a depth below the datum
+    (standard_name sea_floor_depth_below_geoid, CF standard name table)."""
+    x, y, faces = mesh
+    nface = faces.shape[0]
+    fields = _fields(x, faces)
+    del fields["depth"]
+    eta = np.linspace(-0.5, 0.5, 3)[:, None] * np.ones((1, nface))
+    fields["eta"] = ("face", eta)
+    fields["bed"] = ("face", np.tile(np.linspace(0.2, 3.0, nface), (3, 1)))
+    flow = open_mesh_flow(_write(tmp_path, mesh, fields=fields))
+    np.testing.assert_allclose(flow.depth.data, eta + np.linspace(0.2, 3.0, nface), rtol=1e-14)
+    assert flow.attrs["roles"]["bed_level"] == "bed"
+    # faces with less than the minimum depth (0.05 m) are dry
+    expected = (eta + np.linspace(0.2, 3.0, nface)) >= 0.05
+    np.testing.assert_array_equal(flow.wet.astype(bool), expected)

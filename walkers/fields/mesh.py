@@ -25,12 +25,15 @@ etc.) topology" (counter-clockwise corners, fill values for faces with fewer cor
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 from scipy.spatial import cKDTree
 
 from walkers.errors import InputError
+
+if TYPE_CHECKING:
+    from walkers.fields.mesh_open import OpenBoundaries
 
 NODE = "node"
 FACE = "face"
@@ -145,7 +148,8 @@ class MeshFlow:
     u, v : eastward / northward (projected x / y) velocity, m s-1, on nodes or faces.
     depth : water depth (m) on nodes or faces.
     wet : (nt or 1, nface) uint8, 1 where the face holds water (dry faces are walls).
-    open_boundaries : the named open boundaries (:class:`walkers.fields.mesh_open.OpenBoundaries`).
+    open_boundaries : the named open boundaries (:class:`walkers.fields.mesh_open.OpenBoundaries`;
+        none, every boundary edge coast, unless the file or the caller names some).
     """
 
     geometry: MeshGeometry
@@ -156,7 +160,7 @@ class MeshFlow:
     v: MeshVariable
     depth: MeshVariable
     wet: np.ndarray
-    open_boundaries: Any
+    open_boundaries: OpenBoundaries
     source: str = ""
     attrs: dict[str, Any] = field(default_factory=dict)
 

@@ -32,7 +32,7 @@ from walkers.errors import InputError
 from walkers.fields.mesh import FACE, NODE, MeshFlow, MeshGeometry, MeshVariable
 from walkers.fields.mesh_open import coast_only
 from walkers.fields.netcdf.discovery import file_times, time_dimension
-from walkers.fields.netcdf.frames import _mask_to_water
+from walkers.fields.netcdf.frames import _mask_to_water, depth_from_levels
 from walkers.fields.netcdf.layers import (
     VerticalCoordinate,
     find_vertical,
@@ -227,15 +227,6 @@ class _MeshFile:
         return self.geometry.node_mean_of_faces(variable.data)
 
 
-def _depth_from_levels(level: np.ndarray, bed: np.ndarray, attrs: dict[str, Any]) -> np.ndarray:
-    """Water depth from the water level and a bed level given positive down (a depth below the
-    datum: positive = 'down' or a sea_floor_depth standard name) or up (a height)."""
-    positive = str(attrs.get("positive", "")).lower()
-    std = str(attrs.get("standard_name", ""))
-    down = positive == "down" or (positive != "up" and std.startswith("sea_floor_depth"))
-    return level + bed if down else level - bed
-
-
 def read_mesh_fields(
     ds: netCDF4.Dataset,
     path: str,
@@ -336,7 +327,7 @@ def _depth(
             if k in mf.ds.variables[bed_name].ncattrs()
         }
         on = level.location
-        total = _depth_from_levels(mf.at(level, on), mf.at(bed, on), attrs)
+        total = depth_from_levels(mf.at(level, on), mf.at(bed, on), attrs)
         return MeshVariable(on, total, f"{level.name} and {bed_name}", "m"), level
     raise InputError(
         f"mesh file {mf.path!r}: no water depth found among the variables of mesh "
