@@ -557,7 +557,7 @@ def main(argv: list[str] | None = None) -> None:
         "--outdir",
         type=Path,
         default=Path(__file__).resolve().parent,
-        help="folder for the four NetCDF files (default: this script's folder)",
+        help="folder for the NetCDF files (default: this script's folder)",
     )
     args = parser.parse_args(argv)
     args.outdir.mkdir(parents=True, exist_ok=True)
@@ -579,6 +579,20 @@ def main(argv: list[str] | None = None) -> None:
         path = args.outdir / name
         write_flow(ds, path)
         print(f"wrote {path} ({path.stat().st_size / 1e6:.2f} MB)")
+    _mesh_builder().main(["--outdir", str(args.outdir)])
+
+
+def _mesh_builder():
+    """scenarios/make_demo_mesh.py (Curlew Basin, a UGRID mesh), loaded from beside this file."""
+    import importlib.util
+
+    spec = importlib.util.spec_from_file_location(
+        "make_demo_mesh", Path(__file__).resolve().parent / "make_demo_mesh.py"
+    )
+    assert spec is not None and spec.loader is not None
+    module = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(module)
+    return module
 
 
 if __name__ == "__main__":

@@ -312,7 +312,7 @@ def _say_how_to_resume(
     "--map",
     "map_png",
     type=click.Path(dir_okay=False, path_type=Path),
-    help="Draw the speed field with land to this PNG.",
+    help="Draw the speed field with land to this PNG (a mesh: with its coast and open boundaries).",
 )
 @click.option("--frame", default=0, show_default=True, help="Frame drawn by --map.")
 @friendly_errors
@@ -320,8 +320,22 @@ def inspect_command(
     files, dispersion: float, dt: float | None, map_png: Path | None, frame: int
 ) -> None:
     """Describe flow FILES: grid, CRS, times, variables found, land, speeds, time step."""
-    from walkers.inspect import describe_flow, draw_speed_map, open_for_inspection
+    from walkers.fields.netcdf.ugrid import is_ugrid, open_mesh_flow
+    from walkers.inspect import (
+        describe_flow,
+        describe_mesh,
+        draw_mesh_map,
+        draw_speed_map,
+        open_for_inspection,
+    )
 
+    if len(files) == 1 and is_ugrid(files[0]):
+        mesh = open_mesh_flow(files[0])
+        click.echo(describe_mesh(mesh, dispersion=dispersion, dt=dt))
+        if map_png is not None:
+            draw_mesh_map(mesh, map_png, frame=frame)
+            click.echo(f"wrote {map_png}")
+        return
     flow = open_for_inspection(list(files))
     click.echo(describe_flow(flow, dispersion=dispersion, dt=dt))
     if map_png is not None:

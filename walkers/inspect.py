@@ -20,8 +20,9 @@ from walkers.engine.timestep import check_time_step
 from walkers.errors import InputError
 from walkers.fields.base import FlowField, GriddedVariable
 from walkers.fields.geo import cell_sizes
+from walkers.fields.mesh import MeshFlow
 from walkers.fields.netcdf.open import open_flow
-from walkers.fields.times import flow_time_iso
+from walkers.fields.times import _seconds_iso, flow_time_iso
 from walkers.scenario.config import Dispersion, Transport
 
 _CHUNK = 24  # frames read at a time when scanning a whole file
@@ -322,6 +323,159 @@ def draw_speed_map(flow: FlowField, png_path: str | os.PathLike, frame: int = 0)
             ax.set_aspect("equal")
     lines_note = "\nthin lines: every fifth grid line" if flow.curvilinear else ""
     ax.set_title(f"Flow speed, {when} (grey: land or dry){lines_note}", fontsize=10)
+    fig.text(0.01, 0.01, CAUTION, fontsize=6, wrap=True, va="bottom")
+    fig.subplots_adjust(bottom=0.18)
+    fig.savefig(os.fspath(png_path))
+
+
+# ----------------------------------------------------------------------------------------------
+# Unstructured meshes (UGRID)
+# ----------------------------------------------------------------------------------------------
+
+
+def face_sizes(flow: MeshFlow) -> np.ndarray:
+    """Size (m) of each face for the time-step advice: 4 A / P (area A, perimeter P), the side of
+    a square and the diameter of the inscribed circle of a triangle (common practice)."""
+    g = flow.geometry
+    return 4.0 * g.area / g.edge_lengths().sum(axis=1)
+
+
+def mesh_face_speed(flow: MeshFlow) -> np.ndarray:
+    """Speed (m s-1) per frame and face, (nt, nface); node velocities averaged over each face's
+    corners."""
+    g = flow.geometry
+    u = flow.u.data if flow.u.location == "face" else g.face_mean_of_nodes(flow.u.data)
+    v = flow.v.data if flow.v.location == "face" else g.face_mean_of_nodes(flow.v.data)
+    return np.hypot(u, v)
+
+
+def describe_mesh(flow: MeshFlow, *, dispersion: float = 1.0, dt: float | None = None) -> str:
+    """A plain-text report of a flow on a mesh: nodes, faces, smallest and largest face, open
+    boundaries, times, variables, wet faces, speeds and the time-step advice (each face's speed
+    times dt and sqrt(2 K dt) under its size, :func:`face_sizes`)."""
+    g = flow.geometry
+    tri = int(np.sum(g.nvert == 3))
+    lines = [f"Mesh flow: {flow.source}"]
+    lines.append(
+        f"  mesh: {flow.attrs.get('mesh', '')!r} (UGRID 1.0): {g.nnode} nodes, {g.nface} faces "
+        f"({tri} triangles, {g.nface - tri} quadrilaterals)"
+    )
+    small, large = int(np.argmin(g.area)), int(np.argmax(g.area))
+    for word, f in (("smallest", small), ("largest", large)):
+        lines.append(
+            f"  {word} face: {g.area[f]:.4g} m2 (face {f}, centre x {g.centroid_x[f]:.10g}, "
+            f"y {g.centroid_y[f]:.10g} m)"
+        )
+    lines.append(
+        f"  extent: x {g.node_x.min():.10g} to {g.node_x.max():.10g}, y {g.node_y.min():.10g} "
+        f"to {g.node_y.max():.10g} m"
+    )
+    crs = "none stated (local metres)"
+    if g.crs_wkt:
+        from pyproj import CRS
+
+        parsed = CRS.from_wkt(g.crs_wkt)
+        code = parsed.to_epsg()
+        crs = parsed.name + (f" (EPSG:{code})" if code else "")
+    lines.append(f"  CRS: {crs}" + (f"; {g.projection}" if g.projection else ""))
+    bounds = flow.open_boundaries
+    nb = g.boundary_edges.shape[0]
+    n_open = int(np.sum(bounds.edge_open >= 0))
+    lines.append(f"  boundary: {nb} edges, {n_open} open, {nb - n_open} coast")
+    lengths = g.edge_lengths()
+    for k, name in enumerate(bounds.names):
+        lines.append(
+            f"    open boundary {name}: {bounds.edge_count(name)} edges, "
+            f"{lengths[bounds.edge_open == k].sum():.6g} m"
+        )
+    if flow.steady:
+        lines.append("  time: steady (one frame)")
+    else:
+        lines.append(
+            f"  time: {_seconds_iso(flow.times[0], flow.time_units, flow.calendar)} to "
+            f"{_seconds_iso(flow.times[-1], flow.time_units, flow.calendar)}, "
+            f"{flow.times.size} frames"
+        )
+    lines.append("  variables:")
+    for role, var in (("u", flow.u), ("v", flow.v), ("depth", flow.depth)):
+        lines.append(f"    {role:<12} {var.name} (on {var.location}s)")
+    if "vertical" in flow.attrs:
+        lines.append(f"  layers: {flow.attrs['vertical']}")
+    wet = flow.wet.astype(bool)
+    dry = 1.0 - wet.mean(axis=1)
+    lines.append(
+        f"  dry faces: {100 * dry.min():.1f} % to {100 * dry.max():.1f} % (min and max over frames)"
+    )
+    speed = mesh_face_speed(flow)
+    both = np.broadcast_to(wet, np.broadcast_shapes(wet.shape, speed.shape))
+    speed = np.broadcast_to(speed, both.shape)
+    top = speed[both].max() if np.any(both) else 0.0
+    lines.append(
+        f"  speed in water: {speed[both].min() if np.any(both) else 0.0:.4g} to {top:.4g} m s-1"
+    )
+    size = face_sizes(flow)
+    fastest = np.max(np.where(both, speed, 0.0), axis=0)
+    with np.errstate(divide="ignore"):
+        limit = min(float(np.min(size / fastest)), float(np.min(size**2 / (2.0 * dispersion))))
+    lines.append(
+        f"  largest stable time step: {limit:.4g} s for K = {dispersion:.10g} m2 s-1 (|u| dt and "
+        "sqrt(2 K dt) under each face's size 4 A / P)"
+    )
+    if dt is not None:
+        lines.append(f"  time step {dt:.10g} s " + ("fits" if dt <= limit else "is too long"))
+    lines.append(f"  Caution: {CAUTION}")
+    return "\n".join(lines)
+
+
+def draw_mesh_map(flow: MeshFlow, png_path: str | os.PathLike, frame: int = 0) -> None:
+    """Draw the mesh to a PNG: faces coloured by speed (dry faces grey), the coast in black and
+    each open boundary in its own colour, named in the legend."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.collections import LineCollection, PolyCollection
+    from matplotlib.figure import Figure
+
+    g = flow.geometry
+    k = min(max(int(frame), 0), flow.times.size - 1)
+    speed = mesh_face_speed(flow)
+    speed = speed[min(k, speed.shape[0] - 1)]
+    wet = flow.wet[min(k, flow.wet.shape[0] - 1)].astype(bool)
+    polys = [np.column_stack([g.node_x[c[c >= 0]], g.node_y[c[c >= 0]]]) for c in g.face_nodes]
+    fig = Figure(figsize=(8, 6), dpi=100)
+    FigureCanvasAgg(fig)
+    ax = fig.add_subplot(1, 1, 1)
+    import matplotlib
+
+    cmap = matplotlib.colormaps["viridis"].with_extremes(bad="0.7")
+    faces = PolyCollection(polys, cmap=cmap, edgecolors="0.35", linewidths=0.3)
+    faces.set_array(np.ma.masked_where(~wet, speed))
+    ax.add_collection(faces)
+    fig.colorbar(faces, ax=ax, label="speed (m s-1)")
+    pairs = g.boundary_node_pairs()
+    opened = flow.open_boundaries.edge_open[g.boundary_edges[:, 0], g.boundary_edges[:, 1]]
+    segments = np.stack(
+        [np.column_stack([g.node_x[pairs[:, i]], g.node_y[pairs[:, i]]]) for i in (0, 1)], axis=1
+    )
+    ax.add_collection(
+        LineCollection(segments[opened < 0], colors="black", linewidths=1.5, label="coast")
+    )
+    colours = matplotlib.colormaps["tab10"]
+    for i, name in enumerate(flow.open_boundaries.names):
+        ax.add_collection(
+            LineCollection(
+                segments[opened == i],
+                colors=[colours(i % 10)],
+                linewidths=3.0,
+                label=f"open: {name}",
+            )
+        )
+    ax.autoscale_view()
+    ax.ticklabel_format(useOffset=False, style="plain")
+    ax.set_aspect("equal")
+    ax.set_xlabel("x (m)")
+    ax.set_ylabel("y (m)")
+    ax.legend(loc="upper right", fontsize=8)
+    when = "steady" if flow.steady else _seconds_iso(flow.times[k], flow.time_units, flow.calendar)
+    ax.set_title(f"Mesh and flow speed, {when} (grey: dry)")
     fig.text(0.01, 0.01, CAUTION, fontsize=6, wrap=True, va="bottom")
     fig.subplots_adjust(bottom=0.18)
     fig.savefig(os.fspath(png_path))

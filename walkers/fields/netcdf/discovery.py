@@ -132,6 +132,57 @@ def _attr(var: Any, key: str, default: str = "") -> str:
     return str(var.getncattr(key)) if key in var.ncattrs() else default
 
 
+def time_dimension(ds: netCDF4.Dataset, var: Any) -> str | None:
+    """The time dimension of ``var``: one whose coordinate has CF time units, standard_name
+    time or axis T, or the unlimited dimension; None if it has none."""
+    for d in var.dimensions:
+        coord = ds.variables.get(d)
+        if coord is not None and (
+            " since " in _attr(coord, "units")
+            or _attr(coord, "standard_name") == "time"
+            or _attr(coord, "axis").upper() == "T"
+        ):
+            return d
+        if ds.dimensions[d].isunlimited():
+            return d
+    return None
+
+
+def file_times(ds: netCDF4.Dataset, path: str, time_dim: str | None) -> tuple[list[Any], str]:
+    """Frame times of a file along ``time_dim`` as cftime datetimes, and the calendar."""
+    if time_dim is None:
+        return [], "standard"
+    coord = ds.variables.get(time_dim)
+    if coord is None:
+        # a time variable named otherwise than its dimension (auxiliary, CF-1.8 §5)
+        coord = next(
+            (
+                v
+                for v in ds.variables.values()
+                if v.dimensions == (time_dim,) and " since " in _attr(v, "units")
+            ),
+            None,
+        )
+    units = "" if coord is None else _attr(coord, "units")
+    if coord is None or " since " not in units:
+        raise InputError(
+            f"flow file {path!r}: time dimension {time_dim!r} needs a coordinate "
+            "variable with CF units such as 'seconds since 2026-03-01T00:00:00Z'"
+        )
+    calendar = _attr(coord, "calendar", "standard").lower()
+    values = np.ma.filled(np.ma.asarray(coord[:]).astype(np.float64), np.nan)
+    if not np.all(np.isfinite(values)):
+        raise InputError(f"flow file {path!r}: time has missing values")
+    try:
+        dates = cftime.num2date(values, units, calendar, only_use_cftime_datetimes=True)
+    except ValueError as exc:
+        raise InputError(
+            f"flow file {path!r}: cannot decode time units {units!r} with calendar "
+            f"{calendar!r} ({exc})"
+        ) from exc
+    return list(np.atleast_1d(dates)), calendar
+
+
 class _FileSchema:
     """The roles, axes and time coordinate of one open NetCDF file."""
 
@@ -329,17 +380,7 @@ class _FileSchema:
         return None
 
     def _time_dim(self, var: Any) -> str | None:
-        for d in var.dimensions:
-            coord = self.ds.variables.get(d)
-            if coord is not None and (
-                " since " in _attr(coord, "units")
-                or _attr(coord, "standard_name") == "time"
-                or _attr(coord, "axis").upper() == "T"
-            ):
-                return d
-            if self.ds.dimensions[d].isunlimited():
-                return d
-        return None
+        return time_dimension(self.ds, var)
 
     # --- axes and units ------------------------------------------------------------------------
 
@@ -511,37 +552,7 @@ class _FileSchema:
 
     def times(self) -> tuple[list[Any], str]:
         """Frame times of this file as cftime datetimes, and the calendar."""
-        if self.time_dim is None:
-            return [], "standard"
-        coord = self.ds.variables.get(self.time_dim)
-        if coord is None:
-            # a time variable named otherwise than its dimension (auxiliary, CF-1.8 §5)
-            coord = next(
-                (
-                    v
-                    for v in self.ds.variables.values()
-                    if v.dimensions == (self.time_dim,) and " since " in _attr(v, "units")
-                ),
-                None,
-            )
-        units = "" if coord is None else _attr(coord, "units")
-        if coord is None or " since " not in units:
-            raise InputError(
-                f"flow file {self.path!r}: time dimension {self.time_dim!r} needs a coordinate "
-                "variable with CF units such as 'seconds since 2026-03-01T00:00:00Z'"
-            )
-        calendar = _attr(coord, "calendar", "standard").lower()
-        values = np.ma.filled(np.ma.asarray(coord[:]).astype(np.float64), np.nan)
-        if not np.all(np.isfinite(values)):
-            raise InputError(f"flow file {self.path!r}: time has missing values")
-        try:
-            dates = cftime.num2date(values, units, calendar, only_use_cftime_datetimes=True)
-        except ValueError as exc:
-            raise InputError(
-                f"flow file {self.path!r}: cannot decode time units {units!r} with calendar "
-                f"{calendar!r} ({exc})"
-            ) from exc
-        return list(np.atleast_1d(dates)), calendar
+        return file_times(self.ds, self.path, self.time_dim)
 
     def crs_wkt(self, crs: str | None) -> str | None:
         if crs is not None:

@@ -90,6 +90,16 @@ def _wet_mean(eta: np.ndarray, bed: np.ndarray, brackets) -> tuple[np.ndarray, n
     return eta_v, bed_v
 
 
+def depth_from_levels(level: np.ndarray, bed: np.ndarray, attrs: dict[str, Any]) -> np.ndarray:
+    """Water depth (m) from the water level and a bed level given positive down (a depth below
+    the datum: positive = 'down' or a sea_floor_depth standard name) or up (a height); ``attrs``
+    are the bed variable's attributes."""
+    positive = str(attrs.get("positive", "")).lower()
+    std = str(attrs.get("standard_name", ""))
+    down = positive == "down" or (positive != "up" and std.startswith("sea_floor_depth"))
+    return level + bed if down else level - bed
+
+
 def _readable(variable: netCDF4.Variable, index: Any) -> bool:
     """True if ``variable[index]`` can be read."""
     try:
@@ -333,11 +343,7 @@ class _FlowSource:
     def _depth_from_levels(self, raw: dict[str, np.ndarray]) -> np.ndarray:
         level = self._get(raw, "water_level")
         bed = self._get(raw, "bed_level")
-        lay = self.layouts["bed_level"]
-        positive = str(lay.attrs.get("positive", "")).lower()
-        std = str(lay.attrs.get("standard_name", ""))
-        down = positive == "down" or (positive != "up" and std.startswith("sea_floor_depth"))
-        return level + bed if down else level - bed
+        return depth_from_levels(level, bed, self.layouts["bed_level"].attrs)
 
     def _velocity_brackets(self, role: str, *, around_cells: bool = False):
         """Bracketing indices: cells around each velocity point, or (``around_cells``) velocity
