@@ -60,7 +60,7 @@ def detection_release(detection: Detection, t_ref: float, particles: int) -> Rel
     )
 
 
-class _PlaceCounts:
+class PlaceCounts:
     """Particles within each place's circle (or output cell) at every output time: the sampling
     error of a place's influence is about influence/√count (a multinomial count; common
     practice)."""
@@ -118,7 +118,7 @@ def backward_run(
     release = detection_release(detection, end, particles)
     receptors = [Receptor(name=c.name, x=c.x, y=c.y, radius=c.radius) for c in places]
     nt = int(round((end - start) / output_interval)) + 1
-    counter = _PlaceCounts(receptors, output_grid, backward, nt)
+    counter = PlaceCounts(receptors, output_grid, backward, nt)
     ds = simulate(
         backward,
         transport,
