@@ -189,7 +189,7 @@ def test_three_outfalls_two_samples_recover_the_source_and_its_mass(source):
     row = ds.sel(candidate=source)
     assert float(row["probability"]) > 0.9
     assert float(row["mass_lower"]) <= TRUE_MASS <= float(row["mass_upper"])
-    assert int(row["rank"]) == 1
+    assert int(row["candidate_rank"]) == 1
 
 
 def test_a_clean_sample_downstream_of_a_candidate_lowers_its_probability():

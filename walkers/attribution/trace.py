@@ -219,7 +219,11 @@ def _assemble(
             ranking.probability_by_bin,
             {"units": "1", "long_name": "posterior probability of the candidate and release bin"},
         ),
-        "rank": ("candidate", ranking.rank.astype(np.int32), {"units": "1", "long_name": "rank"}),
+        "candidate_rank": (
+            "candidate",
+            ranking.rank.astype(np.int32),
+            {"units": "1", "long_name": "rank by posterior probability (1 = most probable)"},
+        ),
         "mass_estimate": (
             "candidate",
             ranking.mass_median,
