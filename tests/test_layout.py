@@ -24,11 +24,19 @@ STAGES: list[tuple[str, tuple[str, ...]]] = [
     ("engine", ("walkers.engine",)),
     ("run", ("walkers.run",)),
     ("outputs", ("walkers.outputs",)),
+    ("attribution", ("walkers.attribution",)),
     ("ensemble", ("walkers.ensemble",)),
     ("verify", ("walkers.verify",)),
     (
         "front",
-        ("walkers.api", "walkers.cli", "walkers.cli_outputs", "walkers.bench", "walkers.inspect"),
+        (
+            "walkers.api",
+            "walkers.cli",
+            "walkers.cli_outputs",
+            "walkers.cli_trace",
+            "walkers.bench",
+            "walkers.inspect",
+        ),
     ),
 ]
 #: Files exempt from the size limit: the compiled kernels (one file by design, see DEVELOPERS.md).

@@ -74,20 +74,20 @@ def _to_cf(ds: xr.Dataset) -> tuple[xr.Dataset, dict[str, dict]]:
     attrs["crs_wkt"] = crs.to_wkt() if crs is not None else ""
     out.attrs = attrs
     encoding: dict[str, dict] = {}
-    for key, var in out.variables.items():
+    for key, variable in out.variables.items():
         name = str(key)
         enc: dict[str, object] = {}
-        if var.dtype.kind in "USO":
+        if variable.dtype.kind in "USO":
             enc.update({"dtype": "S1", "char_dim_name": f"{name}_strlen"})
-        elif var.ndim >= 1:
+        elif variable.ndim >= 1:
             enc.update(_COMPRESSION)
             enc["chunksizes"] = tuple(
-                1 if d in ("detection", "time") and var.ndim == 4 else n
-                for d, n in zip(var.dims, var.shape, strict=True)
+                1 if d in ("detection", "time") and variable.ndim == 4 else n
+                for d, n in zip(variable.dims, variable.shape, strict=True)
             )
-        if var.dtype.kind == "f":
+        if variable.dtype.kind == "f":
             enc["_FillValue"] = np.nan if name in out.data_vars else None
-        elif var.dtype.kind in "iu":
+        elif variable.dtype.kind in "iu":
             enc["_FillValue"] = None
         encoding[name] = enc
     return out, encoding

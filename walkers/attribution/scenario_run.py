@@ -19,6 +19,7 @@ from walkers.run.runner import (
     input_provenance,
     land_on_output_grid,
 )
+from walkers.scenario.sources import Candidate, Detection
 from walkers.scenario.trace import TraceScenario
 
 
@@ -38,15 +39,14 @@ def trace_scenario(
     flow = build_flow(scenario.flow)
     offset = flow_offset(scenario, flow)
     check_flow(scenario, flow)
-    for kind, items in (("detections", question.detections), ("candidates", question.candidates)):
-        for i, p in enumerate(items):
-            check_points_in_water(
-                flow,
-                np.array([p.x]),
-                np.array([p.y]),
-                f"{kind}[{i}] ({p.name})",
-                t=offset + p.start,
-            )
+    places: list[tuple[str, Detection | Candidate]] = [
+        *((f"detections[{i}]", d) for i, d in enumerate(question.detections)),
+        *((f"candidates[{i}]", c) for i, c in enumerate(question.candidates)),
+    ]
+    for where, p in places:
+        check_points_in_water(
+            flow, np.array([p.x]), np.array([p.y]), f"{where} ({p.name})", t=offset + p.start
+        )
     detections = [
         dataclasses.replace(d, start=d.start + offset, end=d.end + offset)
         for d in question.detections

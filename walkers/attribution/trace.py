@@ -266,7 +266,7 @@ def _assemble(
         "candidate_end": (can, per(candidates, "end"), tunits, "end of the release window"),
     }
     for name, (dims, values, units, long_name) in places.items():
-        attrs = dict(units) if isinstance(units, dict) else {"units": units}
+        attrs: dict[str, str] = dict(units) if isinstance(units, dict) else {"units": str(units)}
         fields[name] = (dims["dims"], values, {**attrs, "long_name": long_name})
     fields["detection_kind"] = (
         "detection",

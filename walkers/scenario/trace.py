@@ -13,7 +13,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 from datetime import datetime
 from pathlib import Path
-from typing import Any
+from typing import Any, Literal
 
 from walkers.errors import InputError
 from walkers.scenario.build import (
@@ -162,10 +162,23 @@ def _detections(items: list[dict[str, Any]], start: datetime, end: datetime) -> 
         else:
             t0, t1 = _window(d, where, start, end, "start", "end")
         if d["concentration"] is not None:
-            kind, value, limit = "measured", d["concentration"], float("nan")
+            out.append(
+                Detection(name, x, y, t0, t1, "measured", d["concentration"], radius=d["radius"])
+            )
         else:
-            kind, value, limit = d["result"], float("nan"), d["detection_limit"]
-        out.append(Detection(name, x, y, t0, t1, kind, value, limit, d["radius"]))
+            kind: Literal["present", "absent"] = d["result"]
+            out.append(
+                Detection(
+                    name,
+                    x,
+                    y,
+                    t0,
+                    t1,
+                    kind,
+                    detection_limit=d["detection_limit"],
+                    radius=d["radius"],
+                )
+            )
     return out
 
 
