@@ -128,3 +128,12 @@ def test_trace_command_reports_bad_input_without_a_traceback(tmp_path):
     result = CliRunner().invoke(main, ["trace", str(bad), "-o", str(tmp_path / "x.nc")])
     assert result.exit_code == 2
     assert "attribution.particles" in result.output and "Traceback" not in result.output
+
+
+def test_outputs_doc_names_every_variable_of_a_trace_file(demo_run):
+    import xarray as xr
+    from test_docs import DOCS, undocumented
+
+    with xr.open_dataset(demo_run[1], decode_times=False) as raw:
+        missing = undocumented(raw, (DOCS / "outputs.md").read_text(encoding="utf-8"))
+    assert not missing, f"docs/outputs.md does not name {missing}"
