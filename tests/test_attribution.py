@@ -233,3 +233,21 @@ def test_detections_outside_the_run_are_refused():
     late = Detection("late", -1000.0, 0.0, 7 * HOUR, 7 * HOUR, value=1e-6)
     with pytest.raises(InputError, match="detection 'late'.*outside the run"):
         attribute([late])
+
+
+def test_candidates_that_all_start_after_the_samples_are_refused():
+    late = [Candidate("late", -4000.0, 0.0, 5 * HOUR, 6 * HOUR)]
+    early = Detection("S1", *SAMPLES["S1"], *WINDOW, value=1e-6)
+    with pytest.raises(InputError, match="every candidate window starts at or after the end"):
+        trace(
+            FLOW,
+            TRANSPORT,
+            [early],
+            late,
+            TRACE_MODEL,
+            start=0.0,
+            end=6 * HOUR,
+            output_interval=600.0,
+            output_grid=GRID,
+            particles=10,
+        )

@@ -138,7 +138,16 @@ def test_no_module_is_over_the_size_limit() -> None:
 
 
 @pytest.mark.parametrize(
-    "name", ["load_scenario", "simulate_scenario", "simulate", "open_flow", "open_results"]
+    "name",
+    [
+        "load_scenario",
+        "simulate_scenario",
+        "simulate",
+        "open_flow",
+        "open_results",
+        "load_trace_scenario",
+        "trace_scenario",
+    ],
 )
 def test_the_public_api_is_importable_from_the_top_level(name: str) -> None:
     import walkers

@@ -46,14 +46,12 @@ def _check(
                     f"{kind} {d.name!r}: its window [{d.start:g} s, {d.end:g} s] lies outside "
                     f"the run [{start:g} s, {end:g} s]; widen run.start/run.end to cover it"
                 )
-    first = min(d.start for d in detections)
-    late = [
-        c.name for c in candidates if c.start >= first and c.end > max(d.end for d in detections)
-    ]
-    if len(late) == len(candidates):
+    last = max(d.end for d in detections)
+    if all(c.start >= last for c in candidates):
         raise InputError(
-            "candidates: every candidate window starts after the first detection and ends after "
-            "the last; a release after a sample cannot explain it"
+            "candidates: every candidate window starts at or after the end of the last detection "
+            f"({last:g} s); a release after the samples cannot explain them: give windows that "
+            "begin earlier"
         )
 
 
