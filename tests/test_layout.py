@@ -24,6 +24,7 @@ STAGES: list[tuple[str, tuple[str, ...]]] = [
     ("engine", ("walkers.engine",)),
     ("run", ("walkers.run",)),
     ("outputs", ("walkers.outputs",)),
+    ("attribution", ("walkers.attribution",)),
     ("ensemble", ("walkers.ensemble",)),
     ("verify", ("walkers.verify",)),
     (
@@ -32,6 +33,7 @@ STAGES: list[tuple[str, tuple[str, ...]]] = [
             "walkers.api",
             "walkers.cli",
             "walkers.cli_outputs",
+            "walkers.cli_trace",
             "walkers.bench",
             "walkers.inspect",
             "walkers.workloads",
@@ -137,7 +139,16 @@ def test_no_module_is_over_the_size_limit() -> None:
 
 
 @pytest.mark.parametrize(
-    "name", ["load_scenario", "simulate_scenario", "simulate", "open_flow", "open_results"]
+    "name",
+    [
+        "load_scenario",
+        "simulate_scenario",
+        "simulate",
+        "open_flow",
+        "open_results",
+        "load_trace_scenario",
+        "trace_scenario",
+    ],
 )
 def test_the_public_api_is_importable_from_the_top_level(name: str) -> None:
     import walkers

@@ -21,7 +21,12 @@ import walkers
 
 REPO = Path(__file__).resolve().parents[1]
 NOTEBOOKS = REPO / "notebooks"
-NAMES = ("01_estuary_demo.ipynb", "02_verification_gaussian.ipynb", "03_ensemble.ipynb")
+NAMES = (
+    "01_estuary_demo.ipynb",
+    "02_verification_gaussian.ipynb",
+    "03_ensemble.ipynb",
+    "04_source_attribution.ipynb",
+)
 CELL_TIMEOUT = 300  # s, per cell
 FIGURE_CALLS = ("plt.show()", "display(Image(")
 

@@ -6,11 +6,12 @@ budget. See README.md for users and DEVELOPERS.md for contributors.
 
 The stages, in the order a run goes through them (a module imports only from its own stage and
 the ones before it): the base (this module, ``errors``, ``files``), ``scenario``, ``fields``,
-``engine``, ``run``, ``outputs``, ``ensemble``, ``verify``; then the front ends ``api``, ``cli``
-and ``bench``.
+``engine``, ``run``, ``outputs``, ``attribution``, ``ensemble``, ``verify``; then the front
+ends ``api``, ``cli`` and ``bench``.
 
 The public Python API is importable from here: :func:`load_scenario`, :func:`simulate_scenario`,
-:func:`simulate`, :func:`open_flow`, :func:`open_results` (and :func:`run_scenario`). They are
+:func:`simulate`, :func:`open_flow`, :func:`open_results` (and :func:`run_scenario`); for
+source attribution :func:`load_trace_scenario` and :func:`trace_scenario`. They are
 imported on first use, so ``import walkers`` (and the command line) stays quick.
 """
 
@@ -35,26 +36,32 @@ _API = {
     "open_flow": "walkers.fields.netcdf.open",
     "open_results": "walkers.outputs.reader",
     "run_scenario": "walkers.api",
+    "load_trace_scenario": "walkers.scenario.trace",
+    "trace_scenario": "walkers.attribution.scenario_run",
 }
 
 __all__ = [
     "CAUTION",
     "__version__",
     "load_scenario",
+    "load_trace_scenario",
     "open_flow",
     "open_results",
     "run_scenario",
     "simulate",
     "simulate_scenario",
+    "trace_scenario",
 ]
 
 if TYPE_CHECKING:
     from walkers.api import run_scenario
+    from walkers.attribution.scenario_run import trace_scenario
     from walkers.fields.netcdf.open import open_flow
     from walkers.outputs.reader import open_results
     from walkers.run.runner import simulate_scenario
     from walkers.run.simulate import simulate
     from walkers.scenario.load import load_scenario
+    from walkers.scenario.trace import load_trace_scenario
 
 
 def __getattr__(name: str) -> Any:

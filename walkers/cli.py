@@ -20,6 +20,7 @@ import click
 
 import walkers
 from walkers.cli_outputs import OUTPUT_COMMANDS, UNITS_OPTION
+from walkers.cli_trace import TRACE_COMMANDS
 from walkers.errors import InputError, RunFailure, WalkersError
 from walkers.files import NO_PERMISSION, NO_ROOM
 
@@ -551,6 +552,6 @@ def ensemble_command(
             click.echo(f"wrote {p}")
 
 
-for _command in OUTPUT_COMMANDS:
+for _command in [*OUTPUT_COMMANDS, *TRACE_COMMANDS]:
     _command.callback = friendly_errors(_command.callback)
     main.add_command(_command)

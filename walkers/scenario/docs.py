@@ -10,6 +10,7 @@ from importlib import resources
 
 from walkers.scenario.keys import KINDS, Key, Section
 from walkers.scenario.schema import SCHEMA
+from walkers.scenario.trace_schema import TRACE_SCHEMA
 from walkers.scenario.units import UNIT_TABLE
 from walkers.scenario.walk import _condition_text
 
@@ -100,6 +101,22 @@ def schema_markdown() -> str:
     for name, spec in SCHEMA.keys.items():
         assert isinstance(spec, Section)
         lines += _section_markdown(spec, name, 2)
+    lines += [
+        "## Trace scenarios (`walkers trace`)",
+        "",
+        TRACE_SCHEMA.help,
+        "",
+        "A trace scenario has the tables `[run]` (without `tracks`), `[flow]`, `[dispersion]`, "
+        "`[decay]`, `[edges]` and `[output]` described above, and these in place of releases, "
+        "receptors and ensembles. Detection and candidate times are kept in seconds from "
+        "`run.start`; the backward run goes from `run.end` back to `run.start`.",
+        "",
+    ]
+    for name, spec in TRACE_SCHEMA.keys.items():
+        if name in SCHEMA.keys:
+            continue
+        assert isinstance(spec, Section)
+        lines += _section_markdown(spec, name, 3)
     return "\n".join(lines).rstrip() + "\n"
 
 

@@ -62,6 +62,18 @@ def load_scenario(
     InputError
         for anything wrong with the input, naming the file, the key path and what is accepted.
     """
+    raw, label, stem, text, source_path, base = read_source(source, base_dir)
+    try:
+        return _build(raw, base, stem, text, source_path)
+    except InputError as err:
+        raise InputError(f"{label}: {err}") from None
+
+
+def read_source(
+    source: str | Path | dict[str, Any], base_dir: str | Path | None
+) -> tuple[dict[str, Any], str, str, str | None, Path | None, Path]:
+    """A scenario's raw table, its label for messages, its stem, its text (None for a dict), its
+    file and the folder relative paths are resolved against."""
     text: str | None = None
     source_path: Path | None = None
     if isinstance(source, dict):
@@ -88,10 +100,7 @@ def load_scenario(
         base = source_path.parent if source_path is not None else Path.cwd()
     else:
         base = Path(base_dir)
-    try:
-        return _build(raw, base, stem, text, source_path)
-    except InputError as err:
-        raise InputError(f"{label}: {err}") from None
+    return raw, label, stem, text, source_path, base
 
 
 def _build(

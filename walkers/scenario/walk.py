@@ -338,7 +338,7 @@ def _check_lonlat(lon: float, lat: float, where: str) -> None:
 def _geographic(raw: dict[str, Any]) -> bool:
     """Whether positions are lon/lat; mixing lon/lat and x/y is refused."""
     styles = set()
-    for table in ("releases", "receptors"):
+    for table in ("releases", "receptors", "detections", "candidates"):
         items = raw.get(table)
         for i, item in enumerate(items if isinstance(items, list) else []):
             if not isinstance(item, dict):
