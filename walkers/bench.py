@@ -47,6 +47,7 @@ from walkers.workloads import (
     CELL,
     DT,
     curvilinear_workload,
+    gridded_workload,
     initial_state,
     reference_workload,
     scenario_workload,
@@ -360,6 +361,12 @@ def run_benchmark(
         c_flow, c_transport = curvilinear_workload()
         c_start = initial_state(n, c_flow)
         cur = _engine_rates(c_flow, c_transport, c_start, nsteps, reps, two, note, "curvilinear")
+        note("reference workload with K on the grid, 1 thread")
+        g_flow, g_transport = gridded_workload()
+        numba.set_num_threads(1)
+        gridded_wall, gridded_cpu, _ = _rate(
+            g_flow, _inputs(g_flow, g_transport), start, nsteps, reps
+        )
         note("numpy twin, curvilinear workload")
         numba.set_num_threads(1)
         c_twin = _rate(c_flow, _inputs(c_flow, c_transport), c_start, twin_steps, 1, "reference")[2]
@@ -408,6 +415,9 @@ def run_benchmark(
         "curvilinear_over_reference": cur["one_wall"] / ref["one_wall"],
         "curvilinear_over_reference_cpu": cur["one_cpu"] / ref["one_cpu"],
         "curvilinear_compiled_minus_numpy_max_cells": c_difference,
+        "gridded_steps_per_s_1thread": gridded_wall,
+        "curvilinear_over_gridded": cur["one_wall"] / gridded_wall,
+        "curvilinear_over_gridded_cpu": cur["one_cpu"] / gridded_cpu,
         "bytes_per_particle": ParticleState.from_arrays(
             np.zeros(1), np.zeros(1), np.ones(1), np.zeros(1)
         ).nbytes,
@@ -487,6 +497,9 @@ def format_report(r: dict) -> str:
         f"curvilinear / ref.    {r['curvilinear_over_reference']:8.2f} "
         f"{mark('curvilinear_over_reference')}; {r['curvilinear_over_reference_cpu']:.2f} per "
         "CPU-s",
+        f"curvilinear / the reference with K on the grid (the same step options on a "
+        f"rectilinear grid, {r['gridded_steps_per_s_1thread'] / 1e6:.1f} M/s) "
+        f"{r['curvilinear_over_gridded']:.2f}; {r['curvilinear_over_gridded_cpu']:.2f} per CPU-s",
         f"compiled, {r['threads_used_for_2']} threads   "
         f"{r['curvilinear_steps_per_s_2threads'] / 1e6:8.1f} M particle-steps/s",
         f"compiled vs twin      {r['curvilinear_compiled_minus_numpy_max_cells']:8.1e} cells "

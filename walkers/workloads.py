@@ -90,6 +90,17 @@ def initial_state(n: int, flow: FlowField, seed: int = 1) -> ParticleState:
     return ParticleState.from_arrays(x, y, np.ones(n), np.zeros(n))
 
 
+def gridded_workload(nx: int = 200, ny: int = 100, frames: int = 7):
+    """The reference basin with its (uniform) K given on the grid: the same physics, through the
+    general step (K sampled at each particle, the drift term on) — what a curvilinear grid's
+    step always does, measured on a rectilinear grid."""
+    flow, transport = reference_workload(nx, ny, frames)
+    shape = flow.wet.data.shape[1:]
+    k1, k2 = transport.dispersion.k1, transport.dispersion.k2
+    gridded = Dispersion(k1_field=np.full(shape, k1), k2_field=np.full(shape, k2))
+    return flow, Transport(dt=DT, dispersion=gridded, edges=transport.edges)
+
+
 CURVILINEAR_ANGLE = math.radians(30.0)  # the curvilinear workload's grid axis i from east
 
 

@@ -120,7 +120,6 @@ def _dispersion_frames(
     k2 = np.broadcast_to(d.k2_field if d.k2_field is not None else d.k2, (ny, nx))
     mx, my = metres_per_grid_unit(flow)
     x_m = flow.x * (mx.mean() if flow.geographic else 1.0)
-    y_m = flow.y * my if flow.geographic else flow.y
     drift_x = np.zeros((nf, ny, nx))
     drift_y = np.zeros((nf, ny, nx))
     depth_varies = window.depth.shape[0] > 1 or np.ptp(window.depth[0][window.wet[0] > 0]) > 0
@@ -153,8 +152,17 @@ def _dispersion_frames(
                 return np.gradient(a, flow.x, axis=1) / mx[:, None] if nx > 1 else 0 * a
             return _gradient(a, x_m, 1)
 
-        drift_x[f] = (gx(hkxx) + _gradient(hkxy, y_m, 0)) / h
-        drift_y[f] = (gx(hkxy) + _gradient(hkyy, y_m, 0)) / h
+        def gy(a: np.ndarray) -> np.ndarray:
+            """∂a/∂y in metres: the difference in degrees over the meridian radius of each row
+            (the distance along a meridian is ∫ M dφ, not φ·M(φ))."""
+            return (
+                _gradient(a, flow.y, 0) / my[:, None]
+                if flow.geographic
+                else _gradient(a, flow.y, 0)
+            )
+
+        drift_x[f] = (gx(hkxx) + gy(hkxy)) / h
+        drift_y[f] = (gx(hkxy) + gy(hkyy)) / h
     if flow.ndim == 1:
         drift_y[:] = 0.0
     k1f = np.ascontiguousarray(k1, dtype=np.float64)[None]
