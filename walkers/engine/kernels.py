@@ -37,6 +37,9 @@ import numpy as np
 
 JIT = {"cache": True, "error_model": "numpy", "nogil": True}
 
+# The mesh primitives import JIT from this module, so they are imported after it.
+from walkers.engine import meshwalk  # noqa: E402
+
 GOLDEN = np.uint64(0x9E3779B97F4A7C15)
 MIX1 = np.uint64(0xBF58476D1CE4E5B9)
 MIX2 = np.uint64(0x94D049BB133111EB)
@@ -466,6 +469,61 @@ def bridge_exit(stream, step, px, py, qx, qy, sx, sy, kxx, kyy, h, ndim, edges_m
 
 
 @nb.njit(**JIT)
+def frame_value(arr, it, wt, n):
+    """Value n of a (nf, 1, n) mesh variable, linear in time between frames it and it+1 (a
+    single frame as is); the arithmetic of :func:`bilinear` in time."""
+    if arr.shape[0] == 1:
+        return arr[0, 0, n]
+    f = arr[it, 0, n]
+    if wt > 0.0:
+        f = f + wt * (arr[it + 1, 0, n] - f)
+    return f
+
+
+@nb.njit(**JIT)
+def mesh_velocity(node_x, node_y, face_nodes, U, V, it, wt, f, px, py, w, on_nodes):
+    """(u, v) in m s-1 at p in face f of a mesh: node values interpolated with the corner
+    weights (barycentric or bilinear, ``meshwalk.face_weights``, written into w), or the face's
+    own value (piecewise constant)."""
+    if not on_nodes:
+        return frame_value(U, it, wt, f), frame_value(V, it, wt, f)
+    meshwalk.face_weights(node_x, node_y, face_nodes, f, px, py, w)
+    u = 0.0
+    v = 0.0
+    for c in range(meshwalk.corner_count(face_nodes, f)):
+        node = face_nodes[f, c]
+        u += w[c] * frame_value(U, it, wt, node)
+        v += w[c] * frame_value(V, it, wt, node)
+    return u, v
+
+
+@nb.njit(**JIT)
+def mesh_velocity_at(node_x, node_y, face_nodes, neighbours, U, V, it, wt, f, px, py, w, on_nodes):
+    """:func:`mesh_velocity` at a point found by walking from face f (an RK4 stage point; one
+    outside the mesh is evaluated with the weights of f, extrapolated)."""
+    g = meshwalk.walk_to_face(node_x, node_y, face_nodes, neighbours, f, px, py)
+    return mesh_velocity(
+        node_x, node_y, face_nodes, U, V, it, wt, g if g >= 0 else f, px, py, w, on_nodes
+    )
+
+
+@nb.njit(**JIT)
+def block_faces(lo, hi, x, y, node_x, node_y, face_nodes, neighbours, hint, key):
+    """Faces (walked to from each particle's last face, ``hint``) and random streams of
+    particles lo..hi-1 on a mesh; the second index array is unused (0)."""
+    nb_ = hi - lo
+    cell_i = np.empty(nb_, np.int64)
+    cell_j = np.zeros(nb_, np.int64)
+    streams = np.empty(nb_, np.uint64)
+    for k in range(nb_):
+        p = lo + k
+        start = hint[p] if hint[p] >= 0 else 0
+        cell_i[k] = meshwalk.walk_to_face(node_x, node_y, face_nodes, neighbours, start, x[p], y[p])
+        streams[k] = particle_stream(key, p)
+    return cell_i, cell_j, streams
+
+
+@nb.njit(**JIT)
 def block_scratch(lo, hi, x, y, xe, ye, invc, key):
     """Cell indices and random streams of particles lo..hi-1 (per-block scratch arrays)."""
     nb_ = hi - lo
@@ -482,7 +540,7 @@ def block_scratch(lo, hi, x, y, xe, ye, invc, key):
 
 @functools.cache
 def compiled_mover(
-    ndim, scheme, aligned, drift, geographic, kgrid, tensor, shared, centred, parallel
+    ndim, scheme, aligned, drift, geographic, kgrid, tensor, shared, centred, parallel, mesh=0
 ):
     """The step loop, compiled for one set of options (the branches of the others removed).
 
@@ -501,8 +559,13 @@ def compiled_mover(
     shared : u and v lie on the same axes (located once).
     centred : u and v lie on the cell centres (the location is shared with K and the drift).
     parallel : blocks of particles spread over threads (otherwise one thread).
+    mesh : 0 a lattice of cells; 1 an unstructured mesh with u, v on its nodes, 2 on its faces.
+        On a mesh the argument tuples keep their shapes with other contents (see ``advance``),
+        a particle's cell is its face, the walls and open boundaries are those of
+        ``meshwalk.trace_mesh_path``, the drift is per face, and there is no bridge test.
     """
     rk4 = scheme == 1
+    on_nodes = mesh == 1
     two_d = ndim == 2
 
     @nb.njit(parallel=parallel, **JIT)
@@ -527,8 +590,10 @@ def compiled_mover(
         decay_rate,
         max_refl,
         bridge,
+        topology,
     ):
         ux, uy, U, vx, vy, V, invu = flow[0], flow[1], flow[2], flow[3], flow[4], flow[5], flow[6]
+        face_nodes, neighbours, edge_open, hint = topology[0], topology[1], topology[2], topology[3]
         xe, ye, wet, cx, cy, invc = cells[0], cells[1], cells[2], cells[3], cells[4], cells[5]
         DX, DY, K1, K2, kconst, K3 = disp[0], disp[1], disp[2], disp[3], disp[4], disp[5]
         tab_i = np.zeros((nsteps, 3), np.int64)
@@ -541,7 +606,13 @@ def compiled_mover(
             lo = b * BLOCK
             hi = min(n, lo + BLOCK)
             nb_ = hi - lo
-            cell_i, cell_j, streams = block_scratch(lo, hi, x, y, xe, ye, invc, key)
+            if mesh:
+                cell_i, cell_j, streams = block_faces(
+                    lo, hi, x, y, xe, ye, face_nodes, neighbours, hint, key
+                )
+            else:
+                cell_i, cell_j, streams = block_scratch(lo, hi, x, y, xe, ye, invc, key)
+            w4 = np.zeros(4)
             # The block's state, gathered so that it stays in the L1 cache.
             bx = np.empty(nb_)
             by = np.empty(nb_)
@@ -584,7 +655,7 @@ def compiled_mover(
                     wet_now = wet[iw]
                     pi = cell_i[k]
                     pj = cell_j[k]
-                    if wet_now[pj, pi] == 0:
+                    if pi < 0 or wet_now[pj, pi] == 0:
                         st = STATUS_HELD_DRY
                     elif st == STATUS_HELD_DRY:
                         st = STATUS_WATER
@@ -603,18 +674,23 @@ def compiled_mover(
                     # velocity axes; located once and shared wherever the axes coincide.
                     ic, wxc = locate(cx, invc[2], px)
                     jc, wyc = locate(cy, invc[3], py)
-                    if centred:
-                        iu, wxu, ju, wyu = ic, wxc, jc, wyc
+                    if mesh:
+                        u1, v1 = mesh_velocity(
+                            xe, ye, face_nodes, U, V, it, wt, pi, px, py, w4, on_nodes
+                        )
                     else:
-                        iu, wxu = locate(ux, invu[0], px)
-                        ju, wyu = locate(uy, invu[1], py)
-                    u1 = bilinear(U, it, wt, iu, ju, wxu, wyu)
-                    if shared:
-                        v1 = bilinear(V, it, wt, iu, ju, wxu, wyu)
-                    else:
-                        iv, wxv = locate(vx, invu[2], px)
-                        jv, wyv = locate(vy, invu[3], py)
-                        v1 = bilinear(V, it, wt, iv, jv, wxv, wyv)
+                        if centred:
+                            iu, wxu, ju, wyu = ic, wxc, jc, wyc
+                        else:
+                            iu, wxu = locate(ux, invu[0], px)
+                            ju, wyu = locate(uy, invu[1], py)
+                        u1 = bilinear(U, it, wt, iu, ju, wxu, wyu)
+                        if shared:
+                            v1 = bilinear(V, it, wt, iu, ju, wxu, wyu)
+                        else:
+                            iv, wxv = locate(vx, invu[2], px)
+                            jv, wyv = locate(vy, invu[3], py)
+                            v1 = bilinear(V, it, wt, iv, jv, wxv, wyv)
                     if geographic:
                         sx, sy = metres_to_grid(True, py)
                     else:
@@ -632,13 +708,64 @@ def compiled_mover(
                             wte = tab_w[s, 2]
                         xm = px + 0.5 * h * u1 * sx
                         ym = py + 0.5 * h * v1 * sy
-                        u2, v2 = velocity(ux, uy, U, vx, vy, V, invu, shared, itm, wtm, xm, ym)
+                        if mesh:
+                            u2, v2 = mesh_velocity_at(
+                                xe,
+                                ye,
+                                face_nodes,
+                                neighbours,
+                                U,
+                                V,
+                                itm,
+                                wtm,
+                                pi,
+                                xm,
+                                ym,
+                                w4,
+                                on_nodes,
+                            )
+                        else:
+                            u2, v2 = velocity(ux, uy, U, vx, vy, V, invu, shared, itm, wtm, xm, ym)
                         xm = px + 0.5 * h * u2 * sx
                         ym = py + 0.5 * h * v2 * sy
-                        u3, v3 = velocity(ux, uy, U, vx, vy, V, invu, shared, itm, wtm, xm, ym)
+                        if mesh:
+                            u3, v3 = mesh_velocity_at(
+                                xe,
+                                ye,
+                                face_nodes,
+                                neighbours,
+                                U,
+                                V,
+                                itm,
+                                wtm,
+                                pi,
+                                xm,
+                                ym,
+                                w4,
+                                on_nodes,
+                            )
+                        else:
+                            u3, v3 = velocity(ux, uy, U, vx, vy, V, invu, shared, itm, wtm, xm, ym)
                         xm = px + h * u3 * sx
                         ym = py + h * v3 * sy
-                        u4, v4 = velocity(ux, uy, U, vx, vy, V, invu, shared, ite, wte, xm, ym)
+                        if mesh:
+                            u4, v4 = mesh_velocity_at(
+                                xe,
+                                ye,
+                                face_nodes,
+                                neighbours,
+                                U,
+                                V,
+                                ite,
+                                wte,
+                                pi,
+                                xm,
+                                ym,
+                                w4,
+                                on_nodes,
+                            )
+                        else:
+                            u4, v4 = velocity(ux, uy, U, vx, vy, V, invu, shared, ite, wte, xm, ym)
                         ax_ = h * sx * (u1 + 2.0 * u2 + 2.0 * u3 + u4) / 6.0
                         ay_ = h * sy * (v1 + 2.0 * v2 + 2.0 * v3 + v4) / 6.0
                     else:
@@ -686,18 +813,39 @@ def compiled_mover(
                         dym = math.sqrt(2.0 * k2 * h) * z2
                         kxx = k1
                         kyy = k2
-                    if drift:
+                    if drift and mesh:
+                        # the drift is per face (piecewise constant)
+                        dxm += frame_value(DX, it, wt, pi) * h
+                        dym += frame_value(DY, it, wt, pi) * h
+                    elif drift:
                         dxm += bilinear(DX, it, wt, ic, jc, wxc, wyc) * h
                         dym += bilinear(DY, it, wt, ic, jc, wxc, wyc) * h
                     qx = px + ax_ + dxm * sx
                     qy = py
                     if two_d:
                         qy = py + ay_ + dym * sy
-                    edge, frac, placed, qx, qy, ci, cj = trace_path(
-                        px, py, pi, pj, qx, qy, xe, ye, wet_now, edges_mode, max_refl
-                    )
+                    if mesh:
+                        edge, frac, placed, qx, qy, ci = meshwalk.trace_mesh_path(
+                            xe,
+                            ye,
+                            face_nodes,
+                            neighbours,
+                            edge_open,
+                            wet_now[0],
+                            pi,
+                            px,
+                            py,
+                            qx,
+                            qy,
+                            max_refl,
+                        )
+                        cj = 0
+                    else:
+                        edge, frac, placed, qx, qy, ci, cj = trace_path(
+                            px, py, pi, pj, qx, qy, xe, ye, wet_now, edges_mode, max_refl
+                        )
                     tcross = tstart + h * frac
-                    if edge < 0 and bridge and placed:
+                    if edge < 0 and bridge and placed and not mesh:
                         edge = bridge_exit(
                             stream,
                             step0 + s,
@@ -735,6 +883,8 @@ def compiled_mover(
                 y[lo + k] = by[k]
                 m[lo + k] = bm[k]
                 status[lo + k] = bst[k]
+                if mesh:
+                    hint[lo + k] = cell_i[k]
 
     return move
 
@@ -759,6 +909,7 @@ def advance(
     step0,
     key,
     decay_rate,
+    topology=None,
 ):
     """Advance every particle by ``nsteps`` steps of ``dt`` seconds from time ``t0``.
 
@@ -774,12 +925,17 @@ def advance(
         grids"; K3 the off-diagonal K of a full tensor (opts[7] = 1), else unused.
     times : frame times of the window (s).
     opts : int64 (ndim, scheme 0 Euler / 1 RK4, aligned, has_drift, bridge, max_reflections,
-        geographic, tensor).
+        geographic, tensor, mesh: 0 lattice, 1 mesh with node velocities, 2 with face velocities).
     edges_mode : int64 (west, east, south, north), 1 absorbing, 0 reflecting.
     t0, dt, nsteps : start time (s), step (s), number of steps.
     step0 : global index of the first step (keys the random numbers).
     key : uint64 key of the run's random stream.
     decay_rate : first-order decay rate (s-1).
+    topology : on a mesh (face_nodes, neighbours, edge_open, hint): the face-node and neighbour
+        tables, the open boundary of each edge (-1: coast or interior), and each particle's last
+        face (-1: unknown), updated in place. On a mesh ``flow`` is (_, _, U, _, _, V, _) with
+        U, V (nf, 1, nnode or nface), ``cells`` is (node_x, node_y, wet (nf, 1, nface), _, _, _),
+        and the drift (nf, 1, nface) is per face.
 
     Particles are independent, so any split over threads gives the same numbers bitwise. One block
     runs on the calling thread (waking the others would cost more than the work).
@@ -788,6 +944,9 @@ def advance(
     cx, cy = cells[3], cells[4]
     shared = bool(np.array_equal(ux, vx) and np.array_equal(uy, vy))
     centred = bool(shared and np.array_equal(ux, cx) and np.array_equal(uy, cy))
+    if topology is None:
+        none = np.zeros((1, 4), np.int64)
+        topology = (none, none, none, np.zeros(1, np.int64))
     move = compiled_mover(
         int(opts[0]),
         int(opts[1]),
@@ -799,6 +958,7 @@ def advance(
         shared,
         centred,
         x.shape[0] > BLOCK,
+        int(opts[8]) if opts.shape[0] > 8 else 0,
     )
     move(
         x,
@@ -821,6 +981,7 @@ def advance(
         float(decay_rate),
         int(opts[5]),
         bool(opts[4]),
+        topology,
     )
 
 

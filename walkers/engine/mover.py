@@ -296,6 +296,7 @@ class KernelInputs:
     opts: np.ndarray
     edges_mode: np.ndarray
     decay_rate: float
+    topology: tuple | None = None  # on a mesh: face_nodes, neighbours, edge_open (and faces)
 
 
 def kernel_inputs(flow: FlowField, window: FlowWindow, transport: Transport) -> KernelInputs:

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from walkers.engine import meshwalk_twin
 from walkers.engine.kernels import (
     COMP_BRIDGE_X,
     COMP_BRIDGE_Y,
@@ -206,6 +207,57 @@ def _advect(flow, times, scheme, geographic, x, y, t, h):
     )
 
 
+def _frame_value(arr, it, wt, n):
+    """Twin of ``kernels.frame_value``: values n of (nf, 1, n) arrays, linear in time."""
+    if arr.shape[0] == 1:
+        return arr[0, 0, n]
+    f = arr[it, 0, n]
+    return np.where(wt > 0.0, f + wt * (arr[np.minimum(it + 1, arr.shape[0] - 1), 0, n] - f), f)
+
+
+def _mesh_velocity(flow, mesh_t, on_nodes, it, wt, faces, x, y):
+    """Twin of ``kernels.mesh_velocity`` (node values with the corner weights, or per face)."""
+    U, V = flow[2], flow[5]
+    if not on_nodes:
+        return _frame_value(U, it, wt, faces), _frame_value(V, it, wt, faces)
+    node_x, node_y, face_nodes = mesh_t
+    w = meshwalk_twin.face_weights(node_x, node_y, face_nodes, faces, x, y)
+    u = np.zeros(x.size)
+    v = np.zeros(x.size)
+    for c in range(4):
+        node = face_nodes[faces, c]
+        present = node >= 0
+        safe = np.where(present, node, 0)
+        u = np.where(present, u + w[:, c] * _frame_value(U, it, wt, safe), u)
+        v = np.where(present, v + w[:, c] * _frame_value(V, it, wt, safe), v)
+    return u, v
+
+
+def _mesh_advect(flow, mesh_t, neighbours, on_nodes, times, scheme, x, y, t, h, faces):
+    """Twin of the advective part of the kernel's step on a mesh (Euler or RK4, the stage
+    points located by walking from the particle's face)."""
+    node_x, node_y, face_nodes = mesh_t
+
+    def at(tt, xx, yy, start):
+        it, wt = _time_weight(times, tt)
+        g = meshwalk_twin.locate_points(node_x, node_y, face_nodes, neighbours, start, xx, yy)
+        return _mesh_velocity(flow, mesh_t, on_nodes, it, wt, np.where(g >= 0, g, start), xx, yy)
+
+    it, wt = _time_weight(times, t)
+    u1, v1 = _mesh_velocity(flow, mesh_t, on_nodes, it, wt, faces, x, y)
+    if scheme == 0:
+        return u1 * h, v1 * h, u1, v1
+    u2, v2 = at(t + 0.5 * h, x + 0.5 * h * u1, y + 0.5 * h * v1, faces)
+    u3, v3 = at(t + 0.5 * h, x + 0.5 * h * u2, y + 0.5 * h * v2, faces)
+    u4, v4 = at(t + h, x + h * u3, y + h * v3, faces)
+    return (
+        h * (u1 + 2.0 * u2 + 2.0 * u3 + u4) / 6.0,
+        h * (v1 + 2.0 * v2 + 2.0 * v3 + v4) / 6.0,
+        u1,
+        v1,
+    )
+
+
 def trace_paths(px, py, pi, pj, qx, qy, xe, ye, wet, iw, edges_mode, max_refl):
     """Twin of ``kernels.trace_path``, vectorised over particles: each pass moves every path one
     event further (into the next cell, a reflection, an exit or the end); ``iw`` is each
@@ -305,11 +357,21 @@ def advance(
     step0,
     key,
     decay_rate,
+    topology=None,
 ):
     """Numpy twin of :func:`walkers.engine.kernels.advance` (same arguments, in place)."""
-    ndim, scheme, aligned, has_drift, bridge, max_refl, geographic, tensor = (int(o) for o in opts)
+    ndim, scheme, aligned, has_drift, bridge, max_refl, geographic, tensor = (
+        int(o) for o in opts[:8]
+    )
+    mesh = int(opts[8]) if opts.shape[0] > 8 else 0
     xe, ye, wet, cx, cy, invc = cells
     DX, DY, K1, K2, kconst, K3 = disp
+    if mesh:
+        face_nodes, neighbours, edge_open, hint = topology
+        mesh_t = (xe, ye, face_nodes)
+        faces_all = meshwalk_twin.locate_points(
+            xe, ye, face_nodes, neighbours, np.where(hint >= 0, hint, 0), x, y
+        )
     x_w, x_e, y_s, y_n = xe[0], xe[-1], ye[0], ye[-1]
     streams_all = particle_streams(key, np.arange(x.shape[0]))
     for s in range(nsteps):
@@ -329,7 +391,11 @@ def advance(
         iw = np.where(wt < 0.5, it, it + 1)
         if wet.shape[0] == 1:
             iw = np.zeros_like(iw)
-        wet_here = wet[iw, _cell(ye, py), _cell(xe, px)] != 0
+        if mesh:
+            face = faces_all[act]
+            wet_here = (face >= 0) & (wet[iw, 0, np.maximum(face, 0)] != 0)
+        else:
+            wet_here = wet[iw, _cell(ye, py), _cell(xe, px)] != 0
         st = status[act]
         st = np.where(~wet_here, STATUS_HELD_DRY, np.where(st == STATUS_HELD_DRY, STATUS_WATER, st))
         if decay_rate > 0.0:
@@ -345,7 +411,13 @@ def advance(
         if act.size == 0:
             continue
         streams = streams_all[act]
-        ax_, ay_ = _advect(flow, times, scheme, geographic, px, py, tstart, h)
+        if mesh:
+            face = faces_all[act]
+            ax_, ay_, u_start, v_start = _mesh_advect(
+                flow, mesh_t, neighbours, mesh == 1, times, scheme, px, py, tstart, h, face
+            )
+        else:
+            ax_, ay_ = _advect(flow, times, scheme, geographic, px, py, tstart, h)
         if kconst[0] >= 0.0:
             k1 = np.full(act.size, kconst[0])
             k2 = np.full(act.size, kconst[1])
@@ -366,7 +438,7 @@ def advance(
             nym = root * (l21 * z1 + l22 * z2)
             kxx, kyy = k1, k2
         elif aligned:
-            u, v = _velocity(flow, times, tstart, px, py)
+            u, v = (u_start, v_start) if mesh else _velocity(flow, times, tstart, px, py)
             speed = np.sqrt(u * u + v * v)
             moving_flow = speed > 0.0
             safe = np.where(moving_flow, speed, 1.0)
@@ -384,18 +456,43 @@ def advance(
             nym = np.sqrt(2.0 * k2 * h) * z2
             kxx, kyy = k1, k2
         dxm, dym = nxm, nym
-        if has_drift:
+        if has_drift and mesh:
+            dxm = dxm + _frame_value(DX, it, wt, face) * h
+            dym = dym + _frame_value(DY, it, wt, face) * h
+        elif has_drift:
             dxm = dxm + _sample(DX, cx, cy, invc[2], invc[3], it, wt, px, py) * h
             dym = dym + _sample(DY, cx, cy, invc[2], invc[3], it, wt, px, py) * h
         qx = px + ax_ + dxm * sx
         qy = py + ay_ + dym * sy if ndim == 2 else py.copy()
         iw_cells = iw if wet.shape[0] > 1 else np.zeros_like(iw)
-        pi, pj = _cell(xe, px), _cell(ye, py)
-        left, frac, placed, qx, qy, ci, cj = trace_paths(
-            px, py, pi, pj, qx, qy, xe, ye, wet, iw_cells, edges_mode, max_refl
-        )
+        if mesh:
+            left, frac, placed = np.full(act.size, -1), np.ones(act.size), np.zeros(act.size, bool)
+            ci = face.copy()
+            for frame in np.unique(iw_cells):
+                sel = iw_cells == frame
+                out = meshwalk_twin.trace_points(
+                    xe,
+                    ye,
+                    face_nodes,
+                    neighbours,
+                    edge_open,
+                    wet[frame, 0],
+                    face[sel],
+                    px[sel],
+                    py[sel],
+                    qx[sel],
+                    qy[sel],
+                    max_refl,
+                )
+                left[sel], frac[sel], placed[sel], qx[sel], qy[sel], ci[sel] = out
+            faces_all[act[placed]] = ci[placed]
+        else:
+            pi, pj = _cell(xe, px), _cell(ye, py)
+            left, frac, placed, qx, qy, ci, cj = trace_paths(
+                px, py, pi, pj, qx, qy, xe, ye, wet, iw_cells, edges_mode, max_refl
+            )
         tcross = tstart + h * frac
-        if bridge:
+        if bridge and not mesh:
             cand = (left < 0) & placed
             bx = np.full(act.size, -1)
             ux_ = uniforms(streams, step0 + s, COMP_BRIDGE_X)
@@ -433,3 +530,5 @@ def advance(
         moved = gone | placed
         x[act[moved]] = qx[moved]
         y[act[moved]] = qy[moved]
+    if mesh:
+        hint[:] = faces_all
