@@ -27,6 +27,12 @@ def resolve_dispersion(spec: DispersionSpec, flow: FlowField) -> Dispersion:
         assert spec.constant is not None
         return spec.constant
 
+    if getattr(flow.kind(), "mesh", False):
+        raise InputError(
+            "dispersion.method = 'estimated' is not available on unstructured meshes yet; give "
+            "the coefficients as constants (dispersion.longitudinal and transverse, or "
+            "coefficient)"
+        )
     if flow.ndim != 2:
         raise InputError(
             "dispersion.method = 'estimated' needs a 2-D flow with a water depth; for a 1-D "

@@ -13,60 +13,48 @@ drift (1/h) ∇·(hK) is computed per face and frame from the depth and K on the
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-
 import numpy as np
 
-from walkers.engine import kernels, meshwalk, twin
+from walkers.engine import meshwalk
 from walkers.engine.mover import KernelInputs
 from walkers.engine.state import ParticleState
 from walkers.errors import InputError
-from walkers.fields.mesh import NODE, MeshFlow, MeshVariable
+from walkers.fields.base import FlowField, FlowWindow
+from walkers.fields.mesh import NODE, MeshFlow
 from walkers.scenario.config import Transport
 
 MIN_DRIFT_DEPTH = 0.05  # m; as on grids (walkers.engine.mover)
 
 
-def _frames(var: MeshVariable, i0: int, i1: int) -> np.ndarray:
-    """Frames i0..i1 of a mesh variable as (nf, 1, n) float64 (a steady one: its one frame)."""
-    data = var.data[0:1] if var.steady else var.data[i0 : i1 + 1]
-    return np.ascontiguousarray(np.asarray(data, dtype=np.float64)[:, None, :])
-
-
-def frame_range(flow: MeshFlow, t0: float, t1: float) -> tuple[int, int]:
-    """Indices of the frames whose span covers [t0, t1] (s)."""
-    if flow.steady:
-        return 0, 0
-    i0 = int(np.searchsorted(flow.times, t0, side="right")) - 1
-    i1 = int(np.searchsorted(flow.times, t1, side="left"))
-    return max(i0, 0), min(i1, len(flow.times) - 1)
-
-
-def _on_nodes(flow: MeshFlow, var: MeshVariable, frames: np.ndarray) -> np.ndarray:
-    """(nf, nnode) node values of a variable given on nodes or faces."""
-    values = frames[:, 0, :]
-    if var.location == NODE:
+def _on_nodes(mesh: MeshFlow, location: str, values: np.ndarray) -> np.ndarray:
+    """(nf, nnode) node values of (nf, n) values given on nodes or faces."""
+    if location == NODE:
         return values
-    return flow.geometry.node_mean_of_faces(values)
+    return mesh.geometry.node_mean_of_faces(values)
 
 
 def mesh_drift(
-    flow: MeshFlow, u: np.ndarray, v: np.ndarray, depth: np.ndarray, transport: Transport
+    flow: FlowField, window: FlowWindow, transport: Transport
 ) -> tuple[np.ndarray, np.ndarray, bool]:
-    """The drift (1/h) ∇·(hK) per face for each frame, (nf, 1, nface) twice, and whether it can
-    be anything but zero (K and h both uniform: it cannot)."""
-    g = flow.geometry
+    """The drift (1/h) ∇·(hK) per face for each frame of the window, (nf, 1, nface) twice, and
+    whether it can be anything but zero (K and h both uniform: it cannot)."""
+    mesh: MeshFlow = flow.attrs["mesh"]
+    g = mesh.geometry
     d = transport.dispersion
-    nf = max(u.shape[0], depth.shape[0])
-    h_nodes = np.maximum(_on_nodes(flow, flow.depth, depth), MIN_DRIFT_DEPTH)
+    nf = max(window.u.shape[0], window.depth.shape[0])
+    h_nodes = np.maximum(
+        _on_nodes(mesh, mesh.depth.location, window.depth[:, 0, :]), MIN_DRIFT_DEPTH
+    )
     aligned = d.mode == "aligned" and d.k1 != d.k2
     if not aligned and np.ptp(h_nodes) == 0.0:
         zeros = np.zeros((1, 1, g.nface))
         return zeros, zeros, False
+    if not aligned and window.depth.shape[0] == 1:
+        nf = 1  # h and K the same in every frame
     dx = np.zeros((nf, 1, g.nface))
     dy = np.zeros((nf, 1, g.nface))
-    un = _on_nodes(flow, flow.u, u)
-    vn = _on_nodes(flow, flow.v, v)
+    un = _on_nodes(mesh, mesh.u.location, window.u[:, 0, :])
+    vn = _on_nodes(mesh, mesh.v.location, window.v[:, 0, :])
     for f in range(nf):
         h = h_nodes[min(f, h_nodes.shape[0] - 1)]
         if aligned:
@@ -88,24 +76,27 @@ def mesh_drift(
     return dx, dy, True
 
 
-def mesh_kernel_inputs(flow: MeshFlow, t0: float, t1: float, transport: Transport) -> KernelInputs:
-    """The kernel's argument tuples for the frames covering [t0, t1] (s) of a mesh flow."""
+def mesh_kernel_inputs(flow: FlowField, window: FlowWindow, transport: Transport) -> KernelInputs:
+    """The kernel's argument tuples for a window of frames of a mesh flow
+    (:func:`walkers.fields.mesh_field.mesh_field`)."""
     d = transport.dispersion
     if d.k1_field is not None or d.k2_field is not None:
         raise InputError(
             "dispersion on a mesh: coefficients on a grid (estimated from the flow) are not "
             "available on unstructured meshes yet; give constant coefficients"
         )
-    g = flow.geometry
-    i0, i1 = frame_range(flow, t0, t1)
-    times = np.ascontiguousarray(flow.times[i0 : i1 + 1] if not flow.steady else flow.times[:1])
-    u, v = _frames(flow.u, i0, i1), _frames(flow.v, i0, i1)
-    depth = _frames(flow.depth, i0, i1)
-    wet_rows = flow.wet[0:1] if flow.wet.shape[0] == 1 else flow.wet[i0 : i1 + 1]
-    wet = np.ascontiguousarray(np.asarray(wet_rows, dtype=np.uint8)[:, None, :])
-    drift_x, drift_y, has_drift = mesh_drift(flow, u, v, depth, transport)
-    if flow.u.location != flow.v.location:
-        raise InputError(f"mesh {flow.source!r}: u and v must be on the same location")
+    mesh: MeshFlow = flow.attrs["mesh"]
+    g = mesh.geometry
+    if transport.edges:
+        raise InputError(
+            f"[edges] {', '.join(transport.edges)}: a mesh has no such edges; its boundary is "
+            "coast except the open boundaries the file or [[flow.open_boundaries]] names "
+            "(absorbing)"
+        )
+    if mesh.u.location != mesh.v.location:
+        raise InputError(f"mesh {mesh.source!r}: u and v must be on the same location")
+    drift_x, drift_y, has_drift = mesh_drift(flow, window, transport)
+    wet = np.ascontiguousarray(window.wet, dtype=np.uint8)
     none = np.zeros(1)
     kconst = np.array([d.k1, d.k2, d.multiplier])
     opts = np.array(
@@ -118,12 +109,12 @@ def mesh_kernel_inputs(flow: MeshFlow, t0: float, t1: float, transport: Transpor
             transport.max_reflections,
             0,
             0,
-            1 if flow.u.location == NODE else 2,
+            1 if mesh.u.location == NODE else 2,
         ],
         dtype=np.int64,
     )
     return KernelInputs(
-        flow=(none, none, u, none, none, v, np.zeros(4)),
+        flow=(none, none, window.u, none, none, window.v, np.zeros(4)),
         cells=(g.node_x, g.node_y, wet, none, none, np.zeros(4)),
         disp=(
             drift_x * d.multiplier,
@@ -133,72 +124,43 @@ def mesh_kernel_inputs(flow: MeshFlow, t0: float, t1: float, transport: Transpor
             kconst,
             np.zeros((1, 1, 1)),
         ),
-        times=times,
+        times=window.times,
         opts=opts,
         edges_mode=np.zeros(4, dtype=np.int64),
         decay_rate=transport.decay_rate,
-        topology=(g.face_nodes, g.neighbours, flow.open_boundaries.edge_open, None),
+        topology=(g.face_nodes, g.neighbours, mesh.open_boundaries.edge_open),
     )
 
 
-@dataclass
-class MeshParticles:
-    """Each particle's last face (-1: not yet known), kept between calls of the step."""
-
-    face: np.ndarray
-
-    @classmethod
-    def locate(cls, flow: MeshFlow, state: ParticleState) -> MeshParticles:
-        """The faces of the particles' positions (a k-d tree on face centroids, then the walk);
-        InputError if one lies outside the mesh."""
-        g = flow.geometry
-        start = g.nearest_faces(state.x, state.y)
-        face = meshwalk.locate_points(
-            g.node_x, g.node_y, g.face_nodes, g.neighbours, start, state.x, state.y
+def locate_particles(flow: FlowField, state: ParticleState, what: str = "particle") -> None:
+    """Each particle's face (a k-d tree on face centroids, then the walk) into ``state.face``;
+    InputError naming ``what`` if one lies outside the mesh."""
+    g = flow.attrs["mesh"].geometry
+    start = g.nearest_faces(state.x, state.y)
+    face = meshwalk.locate_points(
+        g.node_x, g.node_y, g.face_nodes, g.neighbours, start, state.x, state.y
+    )
+    if np.any(face < 0):
+        p = int(np.flatnonzero(face < 0)[0])
+        raise InputError(
+            f"{what} {p} at ({state.x[p]:.10g}, {state.y[p]:.10g}) lies outside the mesh of "
+            f"{flow.source}; place releases inside its faces"
         )
-        if np.any(face < 0):
-            p = int(np.flatnonzero(face < 0)[0])
-            raise InputError(
-                f"mesh {flow.source!r}: particle {p} at ({state.x[p]:.10g}, {state.y[p]:.10g}) "
-                "lies outside the mesh; place releases inside its faces"
-            )
-        return cls(face)
+    state.face = face
 
 
-def advance_on_mesh(
-    state: ParticleState,
-    faces: MeshParticles,
-    inputs: KernelInputs,
-    t0: float,
-    dt: float,
-    nsteps: int,
-    step0: int,
-    key: int,
-    stepper: str = "fast",
-) -> None:
-    """Advance the particles on a mesh, their faces kept in ``faces``: the compiled step
-    (``stepper`` "fast") or its numpy twin ("reference"), the same numbers."""
-    assert inputs.topology is not None
-    topology = (*inputs.topology[:3], faces.face)
-    (kernels if stepper == "fast" else twin).advance(
-        state.x,
-        state.y,
-        state.mass,
-        state.initial_mass,
-        state.release_time,
-        state.exit_time,
-        state.status,
-        inputs.flow,
-        inputs.cells,
-        inputs.disp,
-        inputs.times,
-        inputs.opts,
-        inputs.edges_mode,
-        float(t0),
-        float(dt),
-        int(nsteps),
-        int(step0),
-        np.uint64(key),
-        float(inputs.decay_rate),
-        topology,
+def depths_at(flow: FlowField, depth: np.ndarray, state: ParticleState) -> np.ndarray:
+    """Water depth (m) at each particle from one frame of the mesh's depth (1, n): the face's
+    value, or the nodes' interpolated at the particle."""
+    mesh: MeshFlow = flow.attrs["mesh"]
+    g = mesh.geometry
+    if state.face is None:
+        locate_particles(flow, state)
+    assert state.face is not None
+    face = np.maximum(state.face, 0)
+    values = np.ascontiguousarray(depth[0])
+    if mesh.depth.location != NODE:
+        return values[face]
+    return meshwalk.interpolate_points(
+        g.node_x, g.node_y, g.face_nodes, values, face, state.x, state.y
     )

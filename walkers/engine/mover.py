@@ -369,6 +369,11 @@ def advance(
     ``stepper`` "fast" runs the compiled kernels, "reference" their numpy twin (same numbers).
     """
     mod = kernels if stepper == "fast" else twin
+    topology = None
+    if inputs.topology is not None:
+        if state.face is None or state.face.shape[0] != len(state):
+            state.face = np.full(len(state), -1, dtype=np.int64)
+        topology = (*inputs.topology[:3], state.face)
     mod.advance(
         state.x,
         state.y,
@@ -389,6 +394,7 @@ def advance(
         int(step0),
         np.uint64(key),
         float(inputs.decay_rate),
+        topology,
     )
 
 

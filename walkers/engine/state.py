@@ -44,6 +44,9 @@ class ParticleState:
     release_time: np.ndarray
     exit_time: np.ndarray
     status: np.ndarray
+    #: on a mesh, each particle's last face (-1 unknown): where the face walk starts; not part of
+    #: the state proper (a resumed run finds the faces again)
+    face: np.ndarray | None = None
 
     @classmethod
     def from_arrays(

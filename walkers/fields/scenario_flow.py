@@ -33,6 +33,21 @@ def check_points_in_water(
     k = 0 if t is None or flow.wet.steady else flow.frame_range(t, t)[0]
     wet = flow.wet.frames(k, k)[0]
     unit = "degrees" if flow.geographic else "m"
+    if getattr(flow.kind(), "mesh", False):
+        faces = flow.grid.locate(xs, ys)
+        for n, (x, y) in enumerate(zip(xs, ys, strict=True)):
+            label = what if xs.size == 1 else f"{what} point {n}"
+            if faces[n] < 0:
+                raise InputError(
+                    f"{label} at ({x:.10g}, {y:.10g}) lies outside the mesh of {flow.source}; "
+                    "move it inside (see 'walkers inspect --map')"
+                )
+            if wet[0, faces[n]] < 0.5:
+                raise InputError(
+                    f"{label} at ({x:.10g}, {y:.10g}) lies in a dry face ({int(faces[n])}) of "
+                    f"{flow.source}; move it into the water"
+                )
+        return
     # the engine's coordinates of the points (index space on a curvilinear grid)
     ax, ay = flow.kind().to_engine(xs, ys) if flow.curvilinear else (xs, ys)
     for n, (x, y) in enumerate(zip(xs, ys, strict=True)):
@@ -79,7 +94,16 @@ def build_flow(spec: FlowSpec) -> FlowField:
     """Open the flow files, or lay the analytic flow on its grid (time 0 = run start)."""
     if spec.kind == "files":
         from walkers.fields.netcdf.open import open_flow
+        from walkers.fields.netcdf.ugrid import is_ugrid
 
+        paths = [str(p) for p in spec.paths]
+        if any(is_ugrid(p) for p in paths if "*" not in p and "?" not in p):
+            return _mesh_flow(spec, paths)
+        if spec.open_boundaries:
+            raise InputError(
+                "flow.open_boundaries: open boundaries are named on unstructured meshes (UGRID "
+                "files) only; on a grid, say which edges are open in [edges]"
+            )
         return open_flow(
             [str(p) for p in spec.paths],
             variables=dict(spec.variables),
@@ -97,6 +121,28 @@ def build_flow(spec: FlowSpec) -> FlowField:
     return dataclasses.replace(flow, time_units=f"seconds since {spec.time_origin}")
 
 
+def _mesh_flow(spec: FlowSpec, paths: list[str]) -> FlowField:
+    """A UGRID mesh flow (one file) as the run stage's flow."""
+    from walkers.fields.mesh_field import mesh_field
+    from walkers.fields.netcdf.ugrid import open_mesh_flow
+
+    if len(paths) != 1:
+        raise InputError(
+            f"flow.files: {len(paths)} files given; a mesh flow (UGRID) is read from one file "
+            "(join its frames into one file)"
+        )
+    mesh = open_mesh_flow(
+        paths[0],
+        variables=dict(spec.variables),
+        units=dict(spec.units),
+        crs=spec.crs,
+        min_depth=spec.min_depth,
+        layers=spec.layers,
+        open_boundaries=dict(spec.open_boundaries),
+    )
+    return mesh_field(mesh)
+
+
 def check_flow(scenario: Scenario, flow: FlowField) -> None:
     """Check that positions fit the flow: coordinate kind, and releases, receptors and the
     output grid inside the flow domain. Raises InputError naming the offending key."""
@@ -106,7 +152,7 @@ def check_flow(scenario: Scenario, flow: FlowField) -> None:
             f"the flow grid is {'geographic' if flow.geographic else 'projected'}: give "
             f"release and receptor positions as {want}"
         )
-    if flow.curvilinear:
+    if flow.curvilinear or getattr(flow.kind(), "mesh", False):
         _check_inside_grid(scenario, flow)
         return
     west, east, south, north = flow.extent()
@@ -140,11 +186,14 @@ def _check_inside_grid(scenario: Scenario, flow: FlowField) -> None:
     """Releases and receptors inside the cells of a curvilinear grid, and the output grid
     overlapping it (InputError naming the key otherwise)."""
     grid = flow.grid
+    mesh = getattr(grid, "mesh", False)
 
     def inside(x, y) -> np.ndarray:
+        if mesh:
+            return grid.locate(np.asarray(x, float), np.asarray(y, float)) >= 0
         return np.isfinite(grid.to_engine(np.asarray(x, float), np.asarray(y, float))[0])
 
-    where = "the curvilinear grid's cells"
+    where = "the mesh's faces" if mesh else "the curvilinear grid's cells"
     for i, rel in enumerate(scenario.releases):
         pts = np.atleast_2d(np.asarray(rel.coords, dtype=float))
         if not inside(pts[:, 0], pts[:, 1]).all():

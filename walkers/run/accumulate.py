@@ -33,7 +33,13 @@ class _Accumulator:
     """
 
     def __init__(
-        self, nt: int, grid: OutputGrid, nrec: int, tracks: int, fields: MemoryFields | DiskFields
+        self,
+        nt: int,
+        grid: OutputGrid,
+        nrec: int,
+        tracks: int,
+        fields: MemoryFields | DiskFields,
+        edges: int = len(EDGE_NAMES),
     ):
         self.fields = fields
         self.conc_max = np.full((grid.ny, grid.nx), -np.inf)
@@ -42,7 +48,7 @@ class _Accumulator:
             k: np.zeros(nt)
             for k in ("budget_released", "budget_in_water", "budget_decayed", "budget_held_dry")
         }
-        self.outflow = np.zeros((len(EDGE_NAMES), nt))
+        self.outflow = np.zeros((edges, nt))
         self.in_water = np.zeros(nt, dtype=np.int32)
         self.moments = {
             k: np.full(nt, np.nan)
@@ -114,7 +120,7 @@ class _Accumulator:
             self.receptor[:, k] = reduce.receptor_values(
                 particles, depths, receptors, conc, grid, flow.geographic, flow.ndim
             )
-        b = reduce.mass_budget(particles)
+        b = reduce.mass_budget(particles, self.outflow.shape[0])
         for name in self.budget:
             self.budget[name][k] = b[name]
         self.outflow[:, k] = b["budget_outflow"]

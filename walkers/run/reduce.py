@@ -97,15 +97,18 @@ def receptor_values(
     return out
 
 
-def mass_budget(state: ParticleState) -> dict[str, np.ndarray | float]:
-    """Mass (kg) released, in water, out through each edge, decayed and held dry.
+def mass_budget(
+    state: ParticleState, edges: int = len(EDGE_NAMES)
+) -> dict[str, np.ndarray | float]:
+    """Mass (kg) released, in water, out through each of ``edges`` edges (or a mesh's open
+    boundaries), decayed and held dry.
 
     released = in water + Σ outflow + decayed + held dry holds to round-off: decayed is what each
     released particle lost since release, plus the remainder of particles retired as decayed.
     """
     st = state.status
     released = st != WAITING
-    outflow = np.array([state.mass[st == EXITED + e].sum() for e in range(len(EDGE_NAMES))])
+    outflow = np.array([state.mass[st == EXITED + e].sum() for e in range(edges)])
     return {
         "budget_released": float(state.initial_mass[released].sum()),
         "budget_in_water": float(state.mass[st == IN_WATER].sum()),

@@ -88,7 +88,7 @@ def land_on_output_grid(flow: FlowField, scenario: Scenario, t0: float, t1: floa
     run, 2 where it lies outside the flow grid (more than half a flow cell beyond its outer cell
     centres), 0 in water."""
     g = scenario.output
-    if flow.curvilinear:
+    if flow.curvilinear or getattr(flow.kind(), "mesh", False):
         return _land_on_output_grid_curvilinear(flow, scenario, t0, t1)
     xe = np.concatenate([[-np.inf], 0.5 * (flow.x[1:] + flow.x[:-1]), [np.inf]])
     ye = np.concatenate([[-np.inf], 0.5 * (flow.y[1:] + flow.y[:-1]), [np.inf]])
@@ -115,10 +115,15 @@ def _ever_wet(flow: FlowField, t0: float, t1: float) -> np.ndarray:
 def _land_on_output_grid_curvilinear(
     flow: FlowField, scenario: Scenario, t0: float, t1: float
 ) -> np.ndarray:
-    """As :func:`land_on_output_grid`, on a curvilinear grid: the flow cell holding each output
-    cell centre is found in index space (2 where no cell holds it)."""
+    """As :func:`land_on_output_grid`, on a curvilinear grid or a mesh: the cell (face) holding
+    each output cell centre is found in index space or by the face walk (2 where none)."""
     g = scenario.output
     gx, gy = np.meshgrid(g.x, g.y)
+    if getattr(flow.kind(), "mesh", False):
+        face = flow.grid.locate(gx.ravel(), gy.ravel())
+        land = (~_ever_wet(flow, t0, t1)[0, np.maximum(face, 0)]).astype(np.int8)
+        land[face < 0] = 2
+        return land.reshape(gx.shape)
     a, b = flow.grid.to_engine(gx.ravel(), gy.ravel())
     outside = ~np.isfinite(a)
     i = np.clip(np.floor(np.nan_to_num(a) + 0.5).astype(np.int64), 0, flow.x.size - 1)

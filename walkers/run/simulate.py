@@ -37,7 +37,7 @@ from typing import Literal
 import numpy as np
 import xarray as xr
 
-from walkers.engine import mover
+from walkers.engine import mesh_inputs, mover
 from walkers.engine.randomness import run_streams
 from walkers.engine.releases import make_particles
 from walkers.engine.state import IN_WATER, WAITING, ParticleState
@@ -284,7 +284,8 @@ def simulate(
         _to_engine_coordinates(particles, owner, releases, flow)
         first = 0
         store = field_store(shape, variables, fields, field_folder)
-        acc = _Accumulator(len(times), output_grid, len(receptors), tracks, store)
+        edges = len(flow.kind().edge_names)
+        acc = _Accumulator(len(times), output_grid, len(receptors), tracks, store, edges)
     else:
         _check_resume(resume, shape, variables, len(times))
         particles, owner, first = resume.particles, resume.owner, resume.next_output
@@ -356,6 +357,17 @@ def _to_engine_coordinates(
     """Particle positions from the scenario's coordinates to the engine's (index space on a
     curvilinear grid; nothing to do on a rectilinear one). A release outside the grid is an
     InputError naming it."""
+    if _on_mesh(flow):
+        inside = flow.grid.locate(particles.x, particles.y) >= 0
+        if not inside.all():
+            p = int(np.flatnonzero(~inside)[0])
+            raise InputError(
+                f"release {releases[int(owner[p])].name!r}: {int((~inside).sum())} particle(s) "
+                f"start outside the mesh (first at x={particles.x[p]:.10g}, "
+                f"y={particles.y[p]:.10g}); move the release into the mesh's faces"
+            )
+        mesh_inputs.locate_particles(flow, particles)
+        return
     if not flow.curvilinear:
         return
     a, b = flow.grid.to_engine(particles.x, particles.y)
@@ -440,8 +452,11 @@ def _advance_interval(
     of ``dt`` (the first numbered ``step0``), in calls of at most :data:`PARTICLE_STEPS_PER_CALL`
     particle-steps, checking positions after each call."""
     window = flow.window(t_prev, t)
-    check_window_velocity(flow, window)
-    inputs = mover.kernel_inputs(flow, window, transport)
+    if _on_mesh(flow):
+        inputs = mesh_inputs.mesh_kernel_inputs(flow, window, transport)
+    else:
+        check_window_velocity(flow, window)
+        inputs = mover.kernel_inputs(flow, window, transport)
     per_call = max(1, PARTICLE_STEPS_PER_CALL // max(len(particles), 1))
     for s in range(0, steps, per_call):
         n = min(per_call, steps - s)
@@ -456,4 +471,11 @@ def _particle_depths_at(
     """The water depth (m) at each particle at time ``t``: the flow frame nearest in time."""
     window_now = flow.window(t, t)
     frame = 0 if window_now.depth.shape[0] == 1 else int(np.argmin(np.abs(window_now.times - t)))
+    if _on_mesh(flow):
+        return mesh_inputs.depths_at(flow, window_now.depth[frame], particles)
     return reduce.particle_depths(particles, window_now.depth[frame], xe, ye)
+
+
+def _on_mesh(flow: FlowField) -> bool:
+    """Whether the flow is on an unstructured mesh (:mod:`walkers.fields.mesh_field`)."""
+    return bool(getattr(flow.kind(), "mesh", False))

@@ -303,7 +303,25 @@ def _files_flow(f: dict[str, Any], base_dir: Path, start: datetime, end: datetim
         time_range=(start.isoformat(), end.isoformat()),
         layers=_layer_selection(f["layers"] or {}),
         velocity_axes=f["velocity_axes"] or "auto",
+        open_boundaries=_open_boundaries(f["open_boundaries"] or []),
     )
+
+
+def _open_boundaries(items: list[dict[str, Any]]) -> dict[str, dict[str, Any]]:
+    """[[flow.open_boundaries]] as name -> {"nodes": [...]} or {"polyline": ..., "tolerance"}."""
+    out: dict[str, dict[str, Any]] = {}
+    for i, item in enumerate(items):
+        name = item["name"]
+        if name in out:
+            raise InputError(
+                f"flow.open_boundaries[{i}]: the name {name!r} is used twice; give each boundary "
+                "its own name"
+            )
+        if item.get("nodes") is not None:
+            out[name] = {"nodes": list(item["nodes"])}
+        else:
+            out[name] = {"polyline": item["polyline"], "tolerance": item["tolerance"]}
+    return out
 
 
 def _layer_selection(table: dict[str, Any]) -> LayerSelection:

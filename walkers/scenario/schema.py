@@ -120,6 +120,35 @@ SCHEMA = Section(
                     bound="nonnegative",
                     only_when="files",
                 ),
+                "open_boundaries": Section(
+                    "On an unstructured mesh (a UGRID file): the open boundaries, one table "
+                    "[[flow.open_boundaries]] each, beside those the file marks; the rest of the "
+                    "mesh boundary is coast. Particles that cross an open boundary leave, and the "
+                    "budget books each by name.",
+                    {
+                        "name": Key("text", "The boundary's name in the budget.", required=True),
+                        "nodes": Key(
+                            "integers",
+                            "Mesh nodes (0-based) along the mesh boundary, neighbour after "
+                            "neighbour.",
+                        ),
+                        "polyline": Key(
+                            "points",
+                            "Points [[x, y], ...] in metres (the mesh's coordinates) along the "
+                            "mesh boundary; the boundary edges within 'tolerance' of it open.",
+                        ),
+                        "tolerance": Key(
+                            "quantity",
+                            "How far a polyline may lie from the mesh boundary.",
+                            dimension="length",
+                            default="1 m",
+                            bound="positive",
+                        ),
+                    },
+                    many=True,
+                    choices=(Choice((("nodes",), ("polyline",))),),
+                    only_when="files",
+                ),
                 "velocity_axes": Key(
                     "choice",
                     "On a curvilinear grid, how the files' velocity components are oriented: "

@@ -59,6 +59,8 @@ class FlowSpec:
     layers : which part of the water column a layered flow file stands for.
     velocity_axes : orientation of the velocity components on a curvilinear grid ("auto",
         "east_north" or "grid").
+    open_boundaries : on a mesh, name -> {"nodes": [...]} or {"polyline": [[x, y], ...],
+        "tolerance": m}.
     """
 
     kind: Literal["files", "analytic"]
@@ -73,6 +75,7 @@ class FlowSpec:
     time_range: tuple[str, str] | None = None
     layers: LayerSelection = LayerSelection()
     velocity_axes: str = "auto"
+    open_boundaries: dict[str, dict[str, Any]] = dataclasses.field(default_factory=dict)
 
 
 @dataclass(frozen=True)
