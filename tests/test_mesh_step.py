@@ -214,3 +214,44 @@ def test_well_mixed_tracer_over_a_sloping_bed_stays_mixed_on_a_mesh(drift):
 
     p = stats.kstest(st.x, cdf).pvalue
     assert (p > FIVE_SIGMA_P) == drift
+
+
+def test_the_demo_mesh_scenario_runs_and_books_its_open_boundary(tmp_path):
+    """Curlew Basin as shipped: the budget closes, the open boundary read from the file is
+    booked by name, and a grid's [edges] or estimated dispersion on a mesh are refused."""
+    from pathlib import Path
+
+    from walkers.api import load_scenario, run_scenario
+    from walkers.errors import InputError
+
+    here = Path(__file__).parents[1] / "scenarios"
+    import tomllib
+
+    table = tomllib.loads((here / "curlew_basin.toml").read_text())
+    table["releases"][0]["particles"] = 2000
+    table["run"]["tracks"] = 0
+    scenario = load_scenario(table, base_dir=here)
+    out = run_scenario(scenario, output=tmp_path / "curlew.nc")
+    ds = out.results
+    assert list(ds["edge"].values) == ["saltmarsh_entrance"]
+    parts = (
+        float(ds.budget_in_water[-1])
+        + float(ds.budget_outflow[:, -1].sum())
+        + float(ds.budget_decayed[-1])
+        + float(ds.budget_held_dry[-1])
+    )
+    assert abs(parts - float(ds.budget_released[-1])) < 1e-9 * float(ds.budget_released[-1])
+    assert float(ds.budget_outflow.sel(edge="saltmarsh_entrance")[-1]) > 0.0
+    table["edges"] = {"west": "reflecting"}
+    with pytest.raises(InputError, match=r"\[edges\] west: a mesh has no such edges"):
+        run_scenario(load_scenario(table, base_dir=here), output=tmp_path / "again.nc")
+    del table["edges"]
+    table["dispersion"] = {"method": "estimated", "manning_n": 0.025}
+    with pytest.raises(InputError, match="not available on unstructured meshes"):
+        run_scenario(load_scenario(table, base_dir=here), output=tmp_path / "again2.nc")
+    table["dispersion"] = {"method": "constant", "coefficient": "1 m2/s"}
+    table["flow"]["open_boundaries"] = [
+        {"name": "quay", "polyline": [[436700.0, 4934000.0], [436750.0, 4934000.0]]}
+    ]
+    with pytest.raises(InputError, match="does not lie on the mesh boundary"):
+        run_scenario(load_scenario(table, base_dir=here), output=tmp_path / "again3.nc")

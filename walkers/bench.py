@@ -39,7 +39,7 @@ import numba
 import numpy as np
 
 import walkers
-from walkers.engine import kernels, mover
+from walkers.engine import kernels, mesh_inputs, mover
 from walkers.engine.state import ParticleState
 from walkers.fields.base import FlowField, centre_to_edges
 from walkers.scenario.config import OutputGrid, Transport
@@ -49,6 +49,7 @@ from walkers.workloads import (
     curvilinear_workload,
     gridded_workload,
     initial_state,
+    mesh_workload,
     reference_workload,
     scenario_workload,
 )
@@ -367,6 +368,15 @@ def run_benchmark(
         gridded_wall, gridded_cpu, _ = _rate(
             g_flow, _inputs(g_flow, g_transport), start, nsteps, reps
         )
+        m_flow, m_transport = mesh_workload()
+        m_start = initial_state(n, m_flow)
+        m_inputs = mesh_inputs.mesh_kernel_inputs(
+            m_flow, m_flow.window(0.0, float(m_flow.times[-1])), m_transport
+        )
+        note("compiled engine, mesh workload, 1 thread")
+        mesh_inputs.locate_particles(m_flow, m_start)
+        mover.advance(m_start.copy(), m_inputs, 0.0, DT, 2, 0, KEY)
+        mesh_wall, mesh_cpu, _ = _rate(m_flow, m_inputs, m_start, nsteps, reps)
         note("numpy twin, curvilinear workload")
         numba.set_num_threads(1)
         c_twin = _rate(c_flow, _inputs(c_flow, c_transport), c_start, twin_steps, 1, "reference")[2]
@@ -416,6 +426,10 @@ def run_benchmark(
         "curvilinear_over_reference_cpu": cur["one_cpu"] / ref["one_cpu"],
         "curvilinear_compiled_minus_numpy_max_cells": c_difference,
         "gridded_steps_per_s_1thread": gridded_wall,
+        "mesh_steps_per_s_1thread": mesh_wall,
+        "mesh_steps_per_cpu_s_1thread": mesh_cpu,
+        "mesh_over_reference": mesh_wall / ref["one_wall"],
+        "mesh_over_reference_cpu": mesh_cpu / ref["one_cpu"],
         "curvilinear_over_gridded": cur["one_wall"] / gridded_wall,
         "curvilinear_over_gridded_cpu": cur["one_cpu"] / gridded_cpu,
         "bytes_per_particle": ParticleState.from_arrays(
@@ -440,6 +454,7 @@ TARGETS = {
     "scenario_steps_per_s_1thread": (">=", 15e6),
     "scenario_over_reference": (">=", 0.6),
     "curvilinear_over_reference": (">=", 1.0 / 1.5),
+    "mesh_over_reference": (">=", 1.0 / 3.0),
     "rk4_over_euler_cost": ("<=", 2.5),
     "scenario_speedup_1_to_2_threads": (">=", 1.8),
     "bytes_per_particle": ("<=", 64),
@@ -504,6 +519,12 @@ def format_report(r: dict) -> str:
         f"{r['curvilinear_steps_per_s_2threads'] / 1e6:8.1f} M particle-steps/s",
         f"compiled vs twin      {r['curvilinear_compiled_minus_numpy_max_cells']:8.1e} cells "
         "largest difference",
+        "mesh workload (the reference basin cut into 40 000 triangles, velocities on the nodes, "
+        "the east and north sides open boundaries):",
+        f"compiled, 1 thread    {r['mesh_steps_per_s_1thread'] / 1e6:8.1f} M particle-steps/s; "
+        f"{r['mesh_steps_per_cpu_s_1thread'] / 1e6:.1f} M per CPU-second",
+        f"mesh / reference      {r['mesh_over_reference']:8.2f} {mark('mesh_over_reference')}; "
+        f"{r['mesh_over_reference_cpu']:.2f} per CPU-s",
         f"state per particle    {r['bytes_per_particle']:8d} bytes {mark('bytes_per_particle')}",
         f"peak, 10 M particles  {r['peak_memory_10m_bytes'] / 1e9:8.2f} GB, "
         f"{r['peak_memory_method']} {mark('peak_memory_10m_bytes')}",

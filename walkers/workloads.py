@@ -85,6 +85,9 @@ def initial_state(n: int, flow: FlowField, seed: int = 1) -> ParticleState:
     engine's coordinates: index space on the curvilinear workload)."""
     rng = np.random.default_rng(seed)
     lx, ly = flow.x[-1], flow.y[-1]
+    if getattr(flow.kind(), "mesh", False):
+        g = flow.attrs["mesh"].geometry
+        lx, ly = g.node_x.max(), g.node_y.max()
     x = rng.uniform(0.05 * lx, 0.3 * lx, n)
     y = rng.uniform(0.1 * ly, 0.8 * ly, n)
     return ParticleState.from_arrays(x, y, np.ones(n), np.zeros(n))
@@ -129,3 +132,50 @@ def curvilinear_workload(nx: int = 200, ny: int = 100, frames: int = 7):
     edges |= {"first_j": "reflecting", "last_j": "absorbing"}
     transport = Transport(dt=DT, dispersion=ref_transport.dispersion, edges=edges)
     return flow, transport
+
+
+def mesh_workload(nx: int = 200, ny: int = 100, frames: int = 7):
+    """The reference basin as an unstructured mesh: its nodes at the corners of the 20 m cells,
+    each cell cut into two triangles (diagonals alternating), the same land (dry faces), flow
+    (on the nodes) and dispersion, the east and north sides open boundaries. Returns the mesh
+    flow as the run stage sees it (:func:`walkers.fields.mesh_field.mesh_field`) and the
+    transport."""
+    from walkers.fields.mesh import MeshFlow, MeshVariable, build_geometry
+    from walkers.fields.mesh_field import mesh_field
+    from walkers.fields.mesh_open import coast_only, mark_nodes
+
+    ref, ref_transport = reference_workload(nx, ny, frames)
+    xs, ys = np.arange(nx + 1) * CELL, np.arange(ny + 1) * CELL
+    X, Y = np.meshgrid(xs, ys)
+    nid = np.arange(X.size).reshape(X.shape)
+    a, b = nid[:-1, :-1].ravel(), nid[:-1, 1:].ravel()
+    c, d = nid[1:, 1:].ravel(), nid[1:, :-1].ravel()
+    odd = ((np.arange(ny)[:, None] + np.arange(nx)[None, :]) % 2).ravel() == 1
+    fill = np.full(a.size, -1)
+    first = np.where(odd[:, None], np.stack([a, b, c, fill], 1), np.stack([a, b, d, fill], 1))
+    second = np.where(odd[:, None], np.stack([a, c, d, fill], 1), np.stack([b, c, d, fill], 1))
+    faces = np.concatenate([first, second])
+    g = build_geometry(X.ravel(), Y.ravel(), faces, where="the mesh workload")
+    land = (ref.wet.data[0] < 0.5).ravel()
+    wet = ~np.concatenate([land, land])
+    bounds = mark_nodes(g, coast_only(g), "east", nid[:, -1], where="the mesh workload")
+    bounds = mark_nodes(g, bounds, "north", nid[-1, ::-1], where="the mesh workload")
+    times = ref.times
+    # the reference flow at the nodes (the same function as reference_workload's)
+    phase = np.cos(2.0 * np.pi * times / 44712.0)[:, None]
+    u = 0.3 * phase + 0.05 * np.sin(Y.ravel() / 300.0)[None, :]
+    v = 0.05 * np.cos(X.ravel() / 500.0)[None, :] * phase
+    mesh = MeshFlow(
+        g,
+        times,
+        ref.time_units,
+        ref.calendar,
+        MeshVariable("node", u, "u", "m s-1"),
+        MeshVariable("node", v, "v", "m s-1"),
+        MeshVariable("node", np.full((1, g.nnode), 8.0), "depth", "m"),
+        wet[None].astype(np.uint8),
+        bounds,
+        source="the mesh workload",
+    )
+    transport = Transport(dt=DT, dispersion=ref_transport.dispersion)
+    return mesh_field(mesh), transport

@@ -68,7 +68,9 @@ class ParticleState:
         return len(self.x)
 
     def copy(self) -> ParticleState:
-        return ParticleState(**{k: v.copy() for k, v in self.arrays().items()})
+        out = ParticleState(**{k: v.copy() for k, v in self.arrays().items()})
+        out.face = None if self.face is None else self.face.copy()
+        return out
 
     def arrays(self) -> dict[str, np.ndarray]:
         return {
