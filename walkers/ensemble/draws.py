@@ -55,6 +55,9 @@ def _metres_per_unit(flow: FlowField, y: float) -> tuple[float, float]:
 
 def _in_water(flow: FlowField, x: float, y: float, frame: int) -> bool:
     """Whether (x, y) lies inside the flow grid in a wet cell of the given frame."""
+    if getattr(flow.kind(), "mesh", False):
+        face = int(flow.grid.locate(np.array([x]), np.array([y]))[0])
+        return face >= 0 and bool(flow.wet.frames(frame, frame)[0][0, face] >= 0.5)
     if flow.curvilinear:
         a, b = flow.grid.to_engine(np.array([x]), np.array([y]))
         x, y = float(a[0]), float(b[0])
