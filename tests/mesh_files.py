@@ -14,44 +14,9 @@ from typing import Any
 import netCDF4
 import numpy as np
 
+from walkers.verify.mesh import jittered_mesh  # noqa: F401 (the tests' meshes come from here)
+
 FILL = -999
-
-
-def jittered_mesh(
-    nx: int = 12,
-    ny: int = 8,
-    spacing: int = 64,
-    jitter: int = 12,
-    seed: int = 7,
-    quad_every: int = 3,
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """A rectangle of nx × ny cells, nodes jittered by whole metres inside the rectangle (the
-    outline stays straight), every ``quad_every``-th cell a quadrilateral and the others split
-    into two triangles along alternating diagonals. Coordinates are whole metres, so every edge
-    test on points with few binary digits is exact in floating point.
-
-    Returns node_x, node_y (m) and faces (nface, 4), 0-based, -1 as a triangle's fourth corner.
-    """
-    rng = np.random.default_rng(seed)
-    gx, gy = np.meshgrid(np.arange(nx + 1) * spacing, np.arange(ny + 1) * spacing)
-    jx = rng.integers(-jitter, jitter + 1, gx.shape)
-    jy = rng.integers(-jitter, jitter + 1, gy.shape)
-    jx[:, [0, -1]] = 0
-    jy[[0, -1], :] = 0
-    x = (gx + jx).astype(np.float64).ravel()
-    y = (gy + jy).astype(np.float64).ravel()
-    nid = np.arange((nx + 1) * (ny + 1)).reshape(ny + 1, nx + 1)
-    faces = []
-    for j in range(ny):
-        for i in range(nx):
-            a, b, c, d = nid[j, i], nid[j, i + 1], nid[j + 1, i + 1], nid[j + 1, i]
-            if quad_every and (i + j) % quad_every == 0:
-                faces.append([a, b, c, d])
-            elif (i + j) % 2:
-                faces += [[a, b, c, -1], [a, c, d, -1]]
-            else:
-                faces += [[a, b, d, -1], [b, c, d, -1]]
-    return x, y, np.array(faces, dtype=np.int64)
 
 
 def write_ugrid(

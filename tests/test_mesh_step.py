@@ -1,5 +1,6 @@
 """The engine's step on unstructured meshes (the mesh option of the one step loop) against
-published answers, and its numpy twin.
+published answers, and its numpy twin. The point release and the well-mixed check on meshes are
+verification cases (walkers.verify.mesh, run by tests/test_verification.py).
 
 Sources: the Gaussian plume of a point release in uniform flow (Fischer et al. 1979, Mixing in
 Inland and Coastal Waters, ch. 2, from memory), the method of images at a straight wall (Carslaw &
@@ -11,6 +12,7 @@ standard errors of a mean (σ/√n) and of a normal variance (σ²√(2/(n−1))
 
 from __future__ import annotations
 
+import copy
 import math
 
 import numpy as np
@@ -102,28 +104,6 @@ def test_compiled_step_equals_numpy_twin_on_a_mesh():
             assert (a.status == EXITED).sum() > 100  # through the open boundary "east" (index 0)
 
 
-@pytest.mark.parametrize("factor", [1.0, 1.15], ids=["right", "twin-wrong-K"])
-def test_point_release_in_uniform_flow_on_a_jittered_mesh(factor):
-    """Centroid x0 + u t and variances 2Kt (Fischer et al. 1979) on a jittered mesh of
-    triangles and quadrilaterals; the twin (K 15 % too large) fails the variance."""
-    x, y, faces = jittered_mesh(48, 32, 64, jitter=12, seed=5)
-    g = build_geometry(x, y, faces, where="test")
-    u, k, t_end, n = 0.2, 1.0, 3600.0, 20000
-    flow = steady_flow(g, u, 0.0, 5.0)
-    tr = Transport(dt=30.0, dispersion=Dispersion(k1=k * factor, k2=k * factor))
-    st, _ = run(flow, tr, 800.0, 1000.0, n, t_end)
-    assert np.all(st.status == IN_WATER)
-    var = 2 * k * t_end
-    se_mean, se_var = math.sqrt(var / n), var * math.sqrt(2.0 / (n - 1))
-    centroid_ok = abs(st.x.mean() - (800.0 + u * t_end)) < Z * se_mean
-    centroid_ok &= abs(st.y.mean() - 1000.0) < Z * se_mean
-    variance_ok = abs(st.x.var(ddof=1) - var) < Z * se_var and abs(st.y.var(ddof=1) - var) < (
-        Z * se_var
-    )
-    assert centroid_ok
-    assert variance_ok == (factor == 1.0)
-
-
 def test_a_mesh_and_the_rectilinear_grid_it_triangulates_give_the_same_plume():
     """The same release on a rectilinear grid and on a triangulation of its cells (every cell
     split in two, no jitter): centroids and variances agree within 5·√2 standard errors."""
@@ -193,29 +173,6 @@ def test_release_beside_an_oblique_coast_follows_the_image_solution(wall):
     assert (p > FIVE_SIGMA_P and kept.all()) == (wall == "coast")
 
 
-@pytest.mark.parametrize("drift", [True, False], ids=["drift", "twin-no-drift"])
-def test_well_mixed_tracer_over_a_sloping_bed_stays_mixed_on_a_mesh(drift):
-    """Particles spread ∝ h over a bed from 1 m to 4 m deep stay ∝ h with the per-face drift
-    (1/h) ∇·(hK); without it they gather in the shallows. KS test of the positions across the
-    slope against the density ∝ 1 + 3x/W at the 5-sigma level."""
-    x, y, faces = jittered_mesh(24, 16, 64, jitter=12, seed=5)
-    g = build_geometry(x, y, faces, where="test")
-    width, height = 1536.0, 1024.0
-    flow = steady_flow(g, 0.0, 0.0, 1.0 + 3.0 * g.node_x / width)
-    n = 40000
-    rng = np.random.default_rng(31)
-    px = width * (np.sqrt(1.0 + 15.0 * rng.uniform(size=n)) - 1.0) / 3.0
-    py = rng.uniform(0.0, height, n)
-    tr = Transport(dt=100.0, dispersion=Dispersion(k1=10.0, k2=10.0), drift_correction=drift)
-    st, _ = run(flow, tr, px, py, n, 20000.0)
-
-    def cdf(v):
-        return (v / width + 1.5 * (v / width) ** 2) / 2.5
-
-    p = stats.kstest(st.x, cdf).pvalue
-    assert (p > FIVE_SIGMA_P) == drift
-
-
 def test_the_demo_mesh_scenario_runs_and_books_its_open_boundary(tmp_path):
     """Curlew Basin as shipped: the budget closes, the open boundary read from the file is
     booked by name, and a grid's [edges] or estimated dispersion on a mesh are refused."""
@@ -255,3 +212,30 @@ def test_the_demo_mesh_scenario_runs_and_books_its_open_boundary(tmp_path):
     ]
     with pytest.raises(InputError, match="does not lie on the mesh boundary"):
         run_scenario(load_scenario(table, base_dir=here), output=tmp_path / "again3.nc")
+
+
+def test_a_run_resumed_on_a_mesh_gives_the_same_numbers():
+    """A checkpoint keeps positions, not faces: the resumed run finds the faces again by the
+    walk, and gives the same concentrations bit for bit (a tie on an edge, where the walk could
+    pick another face, does not occur here)."""
+    import dataclasses
+
+    from walkers.run.simulate import simulate
+    from walkers.scenario.config import OutputGrid, Release
+
+    x, y, faces = jittered_mesh(24, 16, 64, jitter=12, seed=5)
+    g = build_geometry(x, y, faces, where="test")
+    flow = mesh_field(steady_flow(g, 0.1, 0.02, 1.0 + 3.0 * g.node_x / 1536.0))
+    tr = Transport(dt=60.0, dispersion=Dispersion(k1=2.0, k2=2.0))
+    rel = [Release("point", np.array([[500.0, 500.0]]), 2000, mass=1.0)]
+    grid = OutputGrid(x0=16.0, dx=32.0, nx=48, y0=16.0, dy=32.0, ny=32)
+    kwargs = dict(start=0.0, end=3600.0, output_interval=600.0, output_grid=grid, seed=9)
+    saved = []
+    full = simulate(flow, tr, rel, on_output=lambda rs: saved.append(copy.deepcopy(rs)), **kwargs)
+    particles = saved[2].particles
+    particles.face = None  # as read back from a checkpoint file
+    again = simulate(
+        flow, tr, rel, resume=dataclasses.replace(saved[2], particles=particles), **kwargs
+    )
+    assert np.array_equal(full.concentration.values, again.concentration.values)
+    assert float(full.budget_in_water[-1]) > 0.0

@@ -30,6 +30,8 @@ CASES = [
     ("curvilinear-channel", 20000, {"dispersion_factor": 1.15}, "variance x"),
     ("curvilinear-wall", 10000, {"wall": "absent"}, "KS distance to images law"),
     ("curvilinear-well-mixed", 20000, {"drift": False}, "largest |C − 1|"),
+    ("mesh-point", 20000, {"dispersion_factor": 1.15}, "variance x"),
+    ("mesh-well-mixed", 40000, {"drift": False}, "KS p-value"),
 ]
 
 

@@ -39,6 +39,7 @@ from walkers.verify.checks import (
 )
 from walkers.verify.coast import COAST_CASES
 from walkers.verify.curvilinear import CURVILINEAR_CASES
+from walkers.verify.mesh import MESH_CASES
 
 
 def _final_state(flow, transport, releases, end, interval, grid, seed):
@@ -454,6 +455,7 @@ CASES: dict[str, tuple[Callable[..., CaseResult], int]] = {
     "rotation": (case_rotation, 1),
     **COAST_CASES,
     **CURVILINEAR_CASES,
+    **MESH_CASES,
 }
 
 
