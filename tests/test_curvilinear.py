@@ -247,7 +247,7 @@ def test_layered_curvilinear_demo_runs_and_closes_its_budget(tmp_path):
     scenario = load_scenario(here / "scenarios/saltmarsh_estuary_curvilinear.toml")
     out = run_scenario(scenario, output=tmp_path / "curv.nc")
     ds = out.results
-    assert "first_j edge (faces south)" in out.summary
+    assert "first_j edge (faces south)" in out.summary and ds.attrs["grid_kind"] == "curvilinear"
     assert list(ds["edge"].values) == list(INDEX_EDGE_NAMES)
     assert ds["edge_faces"].values[0] == "west" and ds["edge_faces"].values[2] == "south"
     released = float(ds.budget_released[-1])

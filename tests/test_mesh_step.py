@@ -190,7 +190,8 @@ def test_the_demo_mesh_scenario_runs_and_books_its_open_boundary(tmp_path):
     scenario = load_scenario(table, base_dir=here)
     out = run_scenario(scenario, output=tmp_path / "curlew.nc")
     ds = out.results
-    assert list(ds["edge"].values) == ["saltmarsh_entrance"]
+    assert list(ds["edge"].values) == ["saltmarsh_entrance"] and ds.attrs["grid_kind"] == "mesh"
+    assert "out through open boundary saltmarsh_entrance (faces west)" in out.summary
     parts = (
         float(ds.budget_in_water[-1])
         + float(ds.budget_outflow[:, -1].sum())

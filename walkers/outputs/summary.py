@@ -38,12 +38,11 @@ def budget_rows(ds: xr.Dataset) -> list[tuple[str, float]]:
         ("in water", float(ds.budget_in_water[-1])),
     ]
     facing = edge_facing(ds)
+    mesh = ds.attrs.get("grid_kind") == "mesh"
     for e in open_edges(ds):
+        where = f"open boundary {e}" if mesh else f"the {e} edge"
         rows.append(
-            (
-                f"out through the {e} edge{facing.get(e, '')}",
-                float(ds.budget_outflow.sel(edge=e)[-1]),
-            )
+            (f"out through {where}{facing.get(e, '')}", float(ds.budget_outflow.sel(edge=e)[-1]))
         )
     return rows + [
         ("decayed", float(ds.budget_decayed[-1])),

@@ -146,6 +146,7 @@ class _Accumulator:
             "scenario": text,
             "crs_wkt": flow.crs_wkt or "",
             "geographic": int(geo),
+            "grid_kind": _grid_kind(flow),
             "caution": walkers.CAUTION,
             "source": flow.source,
             "releases": "; ".join(r.name for r in releases),
@@ -225,6 +226,14 @@ class _Accumulator:
                 self.track_y,
                 {"units": yunits, "long_name": "sampled particle position y"},
             )
+
+
+def _grid_kind(flow: FlowField) -> str:
+    """ "rectilinear", "curvilinear" or "mesh": the kind of grid the run stepped on."""
+    kind = flow.kind()
+    if getattr(kind, "mesh", False):
+        return "mesh"
+    return "curvilinear" if kind.curvilinear else "rectilinear"
 
 
 def _result_coordinates(
