@@ -240,3 +240,29 @@ def test_a_run_resumed_on_a_mesh_gives_the_same_numbers():
     )
     assert np.array_equal(full.concentration.values, again.concentration.values)
     assert float(full.budget_in_water[-1]) > 0.0
+
+
+def test_an_ensemble_runs_on_the_demo_mesh():
+    """Members' release places are drawn in the world and checked against the wet faces."""
+    import tomllib
+    from pathlib import Path
+
+    from walkers.ensemble.execute import run_ensemble
+
+    here = Path(__file__).parents[1] / "scenarios"
+    table = tomllib.loads((here / "curlew_basin.toml").read_text())
+    table["run"]["end"] = "2026-05-04T08:00:00Z"
+    table["run"]["tracks"] = 0
+    table["releases"][0]["particles"] = 300
+    table["ensemble"] = {
+        "members": 3,
+        "release": "boatyard slip",
+        "start_earliest": "2026-05-04T02:00:00Z",
+        "start_latest": "2026-05-04T03:00:00Z",
+        "location_sd": "10 m",
+        "mass_median": "50 kg",
+        "mass_spread": 2.0,
+    }
+    ds = run_ensemble(table, members=3, base_dir=here)
+    probability = [v for v in ds.data_vars if "probab" in v]
+    assert probability and float(ds[probability[0]].max()) > 0.0

@@ -333,13 +333,6 @@ def draw_speed_map(flow: FlowField, png_path: str | os.PathLike, frame: int = 0)
 # ----------------------------------------------------------------------------------------------
 
 
-def face_sizes(flow: MeshFlow) -> np.ndarray:
-    """Size (m) of each face for the time-step advice: 4 A / P (area A, perimeter P), the side of
-    a square and the diameter of the inscribed circle of a triangle (common practice)."""
-    g = flow.geometry
-    return 4.0 * g.area / g.edge_lengths().sum(axis=1)
-
-
 def mesh_face_speed(flow: MeshFlow) -> np.ndarray:
     """Speed (m s-1) per frame and face, (nt, nface); node velocities averaged over each face's
     corners."""
@@ -352,7 +345,8 @@ def mesh_face_speed(flow: MeshFlow) -> np.ndarray:
 def describe_mesh(flow: MeshFlow, *, dispersion: float = 1.0, dt: float | None = None) -> str:
     """A plain-text report of a flow on a mesh: nodes, faces, smallest and largest face, open
     boundaries, times, variables, wet faces, speeds and the time-step advice (each face's speed
-    times dt and sqrt(2 K dt) under its size, :func:`face_sizes`)."""
+    times dt and sqrt(2 K dt) under its size: the engine's check,
+    :func:`walkers.engine.timestep.face_sizes`)."""
     g = flow.geometry
     tri = int(np.sum(g.nvert == 3))
     lines = [f"Mesh flow: {flow.source}"]
@@ -413,16 +407,16 @@ def describe_mesh(flow: MeshFlow, *, dispersion: float = 1.0, dt: float | None =
     lines.append(
         f"  speed in water: {speed[both].min() if np.any(both) else 0.0:.4g} to {top:.4g} m s-1"
     )
-    size = face_sizes(flow)
-    fastest = np.max(np.where(both, speed, 0.0), axis=0)
-    with np.errstate(divide="ignore"):
-        limit = min(float(np.min(size / fastest)), float(np.min(size**2 / (2.0 * dispersion))))
+    from walkers.fields.mesh_field import mesh_field
+
+    advice = Transport(dt=dt or 1.0, dispersion=Dispersion(k1=dispersion, k2=dispersion))
+    report = check_time_step(mesh_field(flow), advice, float(flow.times[0]), float(flow.times[-1]))
     lines.append(
-        f"  largest stable time step: {limit:.4g} s for K = {dispersion:.10g} m2 s-1 (|u| dt and "
-        "sqrt(2 K dt) under each face's size 4 A / P)"
+        f"  largest stable time step: {report.longest_step():.4g} s for K = {dispersion:.10g} "
+        "m2 s-1 (|u| dt and sqrt(2 K dt) under each face's size 4 A / P)"
     )
     if dt is not None:
-        lines.append(f"  time step {dt:.10g} s " + ("fits" if dt <= limit else "is too long"))
+        lines.append(f"  time step {dt:.10g} s " + ("fits" if report.ok else "is too long"))
     lines.append(f"  Caution: {CAUTION}")
     return "\n".join(lines)
 
