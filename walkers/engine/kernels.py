@@ -508,6 +508,18 @@ def mesh_velocity_at(node_x, node_y, face_nodes, neighbours, U, V, it, wt, f, px
 
 
 @nb.njit(**JIT)
+def stage_velocity(mesh, on_nodes, shared, grid, topo, U, V, it, wt, f, x, y, w):
+    """(u, v) at an RK4 stage point (x, y): on the lattice's velocity axes (``grid``), or on a
+    mesh by walking from face f (``topo``; :func:`mesh_velocity_at`)."""
+    ux, uy, vx, vy, invu, node_x, node_y = grid
+    if mesh:
+        return mesh_velocity_at(
+            node_x, node_y, topo[0], topo[1], U, V, it, wt, f, x, y, w, on_nodes
+        )
+    return velocity(ux, uy, U, vx, vy, V, invu, shared, it, wt, x, y)
+
+
+@nb.njit(**JIT)
 def block_faces(lo, hi, x, y, node_x, node_y, face_nodes, neighbours, hint, key):
     """Faces (walked to from each particle's last face, ``hint``) and random streams of
     particles lo..hi-1 on a mesh; the second index array is unused (0)."""
@@ -706,66 +718,24 @@ def compiled_mover(
                             wtm = tab_w[s, 1]
                             ite = tab_i[s, 2]
                             wte = tab_w[s, 2]
+                        # the stage points: on the lattice's axes, or on the mesh from face pi
+                        grid = (ux, uy, vx, vy, invu, xe, ye)
+                        topo = (face_nodes, neighbours)
                         xm = px + 0.5 * h * u1 * sx
                         ym = py + 0.5 * h * v1 * sy
-                        if mesh:
-                            u2, v2 = mesh_velocity_at(
-                                xe,
-                                ye,
-                                face_nodes,
-                                neighbours,
-                                U,
-                                V,
-                                itm,
-                                wtm,
-                                pi,
-                                xm,
-                                ym,
-                                w4,
-                                on_nodes,
-                            )
-                        else:
-                            u2, v2 = velocity(ux, uy, U, vx, vy, V, invu, shared, itm, wtm, xm, ym)
+                        u2, v2 = stage_velocity(
+                            mesh, on_nodes, shared, grid, topo, U, V, itm, wtm, pi, xm, ym, w4
+                        )
                         xm = px + 0.5 * h * u2 * sx
                         ym = py + 0.5 * h * v2 * sy
-                        if mesh:
-                            u3, v3 = mesh_velocity_at(
-                                xe,
-                                ye,
-                                face_nodes,
-                                neighbours,
-                                U,
-                                V,
-                                itm,
-                                wtm,
-                                pi,
-                                xm,
-                                ym,
-                                w4,
-                                on_nodes,
-                            )
-                        else:
-                            u3, v3 = velocity(ux, uy, U, vx, vy, V, invu, shared, itm, wtm, xm, ym)
+                        u3, v3 = stage_velocity(
+                            mesh, on_nodes, shared, grid, topo, U, V, itm, wtm, pi, xm, ym, w4
+                        )
                         xm = px + h * u3 * sx
                         ym = py + h * v3 * sy
-                        if mesh:
-                            u4, v4 = mesh_velocity_at(
-                                xe,
-                                ye,
-                                face_nodes,
-                                neighbours,
-                                U,
-                                V,
-                                ite,
-                                wte,
-                                pi,
-                                xm,
-                                ym,
-                                w4,
-                                on_nodes,
-                            )
-                        else:
-                            u4, v4 = velocity(ux, uy, U, vx, vy, V, invu, shared, ite, wte, xm, ym)
+                        u4, v4 = stage_velocity(
+                            mesh, on_nodes, shared, grid, topo, U, V, ite, wte, pi, xm, ym, w4
+                        )
                         ax_ = h * sx * (u1 + 2.0 * u2 + 2.0 * u3 + u4) / 6.0
                         ay_ = h * sy * (v1 + 2.0 * v2 + 2.0 * v3 + v4) / 6.0
                     else:

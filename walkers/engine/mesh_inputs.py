@@ -16,7 +16,7 @@ from __future__ import annotations
 import numpy as np
 
 from walkers.engine import meshwalk
-from walkers.engine.mover import KernelInputs
+from walkers.engine.mover import KernelInputs, aligned_tensor
 from walkers.engine.state import ParticleState
 from walkers.errors import InputError
 from walkers.fields.base import FlowField, FlowWindow
@@ -59,13 +59,7 @@ def mesh_drift(
         h = h_nodes[min(f, h_nodes.shape[0] - 1)]
         if aligned:
             uu, vv = un[min(f, un.shape[0] - 1)], vn[min(f, vn.shape[0] - 1)]
-            speed2 = uu * uu + vv * vv
-            moving = speed2 > 0.0
-            safe = np.where(moving, speed2, 1.0)
-            kl = np.where(moving, d.k1, d.k2)
-            kxx = d.k2 + (kl - d.k2) * np.where(moving, uu * uu / safe, 1.0)
-            kyy = d.k2 + (kl - d.k2) * np.where(moving, vv * vv / safe, 0.0)
-            kxy = (kl - d.k2) * np.where(moving, uu * vv / safe, 0.0)
+            kxx, kyy, kxy = aligned_tensor(uu, vv, d.k1, d.k2)
         else:
             kxx = np.full(g.nnode, d.k1)
             kyy = np.full(g.nnode, d.k2)

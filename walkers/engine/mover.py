@@ -53,6 +53,20 @@ def _fill_land(a: np.ndarray, wet: np.ndarray) -> np.ndarray:
     return np.where(np.isnan(out), np.nanmean(out) if np.isfinite(out).any() else 0.0, out)
 
 
+def aligned_tensor(u, v, k_along, k_across):
+    """The flow-aligned dispersion tensor (Kxx, Kyy, Kxy), m2 s-1: K_L along the velocity
+    (u, v), K_T across it; K_T both ways where the water is still (Fischer et al. 1979, ch. 5,
+    from memory). Arrays broadcast together."""
+    speed2 = u * u + v * v
+    moving = speed2 > 0.0
+    safe = np.where(moving, speed2, 1.0)
+    kl = np.where(moving, k_along, k_across)
+    kxx = k_across + (kl - k_across) * np.where(moving, u * u / safe, 1.0)
+    kyy = k_across + (kl - k_across) * np.where(moving, v * v / safe, 0.0)
+    kxy = (kl - k_across) * np.where(moving, u * v / safe, 0.0)
+    return kxx, kyy, kxy
+
+
 def _gradient(a: np.ndarray, coord_m: np.ndarray, axis: int) -> np.ndarray:
     if a.shape[axis] < 2:
         return np.zeros_like(a)
@@ -133,13 +147,7 @@ def _dispersion_frames(
         h = np.maximum(h, MIN_DRIFT_DEPTH)
         if d.mode == "aligned":
             u, v = _velocity_at_centres(flow, window, f)
-            speed2 = u * u + v * v
-            moving = speed2 > 0.0
-            safe = np.where(moving, speed2, 1.0)
-            kl = np.where(moving, k1, k2)
-            kxx = k2 + (kl - k2) * np.where(moving, u * u / safe, 1.0)
-            kyy = k2 + (kl - k2) * np.where(moving, v * v / safe, 0.0)
-            kxy = (kl - k2) * np.where(moving, u * v / safe, 0.0)
+            kxx, kyy, kxy = aligned_tensor(u, v, k1, k2)
         else:
             kxx, kyy, kxy = k1, k2, np.zeros((ny, nx))
         hkxx = _fill_land(h * kxx, wet)
@@ -184,14 +192,7 @@ def _physical_tensor(flow, window, transport, f, k1, k2):
     jac = flow.grid.jacobian
     u = jac[..., 0, 0] * ua + jac[..., 0, 1] * va
     v = jac[..., 1, 0] * ua + jac[..., 1, 1] * va
-    speed2 = u * u + v * v
-    moving = speed2 > 0.0
-    safe = np.where(moving, speed2, 1.0)
-    kl = np.where(moving, k1, k2)
-    kxx = k2 + (kl - k2) * np.where(moving, u * u / safe, 1.0)
-    kyy = k2 + (kl - k2) * np.where(moving, v * v / safe, 0.0)
-    kxy = (kl - k2) * np.where(moving, u * v / safe, 0.0)
-    return kxx, kyy, kxy
+    return aligned_tensor(u, v, k1, k2)
 
 
 def _index_space_dispersion(
