@@ -17,7 +17,7 @@ from walkers.run.runner import (
     check_inputs_unchanged,
     flow_offset,
     input_provenance,
-    land_on_output_grid,
+    land_variable,
 )
 from walkers.scenario.sources import Candidate, Detection
 from walkers.scenario.trace import TraceScenario
@@ -71,16 +71,7 @@ def trace_scenario(
         time_step_check="substep" if scenario.substep else "fail",
         title=scenario.title,
     )
-    ds["land"] = (
-        ("y", "x"),
-        land_on_output_grid(flow, scenario, offset, offset + scenario.duration),
-        {
-            "units": "1",
-            "long_name": "water (0), land or never-wet cell (1), outside the flow grid (2)",
-            "flag_values": np.array([0, 1, 2], dtype=np.int8),
-            "flag_meanings": "water land outside_flow_grid",
-        },
-    )
+    ds["land"] = land_variable(flow, scenario, offset)
     check_inputs_unchanged(provenance, scenario)
     ds.attrs.update(
         input_files=json.dumps(provenance),

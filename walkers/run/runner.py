@@ -103,6 +103,21 @@ def land_on_output_grid(flow: FlowField, scenario: Scenario, t0: float, t1: floa
     return land
 
 
+def land_variable(flow: FlowField, scenario: Scenario, offset: float) -> tuple:
+    """The result's ``land`` variable (y, x): :func:`land_on_output_grid` over the run, with its
+    CF flags."""
+    return (
+        ("y", "x"),
+        land_on_output_grid(flow, scenario, offset, offset + scenario.duration),
+        {
+            "units": "1",
+            "long_name": "water (0), land or never-wet cell (1), outside the flow grid (2)",
+            "flag_values": np.array([0, 1, 2], dtype=np.int8),
+            "flag_meanings": "water land outside_flow_grid",
+        },
+    )
+
+
 def _ever_wet(flow: FlowField, t0: float, t1: float) -> np.ndarray:
     """Flow cells wet in at least one frame of [t0, t1] (s)."""
     ever_wet = np.zeros((flow.y.size, flow.x.size), dtype=bool)
@@ -280,16 +295,7 @@ def simulate_scenario(
         resume=resume,
         on_output=on_output,
     )
-    ds["land"] = (
-        ("y", "x"),
-        land_on_output_grid(flow, scenario, offset, offset + scenario.duration),
-        {
-            "units": "1",
-            "long_name": "water (0), land or never-wet cell (1), outside the flow grid (2)",
-            "flag_values": np.array([0, 1, 2], dtype=np.int8),
-            "flag_meanings": "water land outside_flow_grid",
-        },
-    )
+    ds["land"] = land_variable(flow, scenario, offset)
     check_inputs_unchanged(provenance, scenario)
     ds.attrs["input_files"] = json.dumps(provenance)
     if scenario.comment:
