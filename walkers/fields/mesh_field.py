@@ -2,10 +2,10 @@
 are ``(frames, 1, n)`` arrays over the nodes or faces, and whose grid kind is :class:`MeshKind`.
 
 The grid-kind contract (:mod:`walkers.fields.grids`) on a mesh: the engine works in the mesh's
-own coordinates (metres), so ``to_engine`` and ``to_physical`` are the identity; a point is in
-the domain when a face holds it (the face walk of :mod:`walkers.engine.meshwalk`, through
-``locate``); the edges are the mesh's named open boundaries (coast everywhere else); cell areas
-are face areas.
+metres, so ``to_engine`` and ``to_physical`` are the identity on a projected mesh, and the local
+transverse Mercator of the reader on a lon/lat mesh (whose scenario then gives lon/lat); a point
+is in the domain when a face holds it (``locate``; the engine's face walk does the same); the
+edges are the mesh's named open boundaries (coast everywhere else); cell areas are face areas.
 """
 
 from __future__ import annotations
@@ -34,19 +34,46 @@ class MeshKind:
     def geometry(self):
         return self.flow.geometry
 
-    def to_engine(self, x, y):
-        return np.asarray(x, dtype=np.float64), np.asarray(y, dtype=np.float64)
+    @property
+    def geographic(self) -> bool:
+        """Whether the file's coordinates are longitude/latitude (the reader then put the nodes
+        on a local transverse Mercator, ``geometry.crs_wkt``, for the engine)."""
+        return bool(self.geometry.projection)
 
-    def to_physical(self, a, b):
+    def _transformer(self, inverse: bool):
+        from pyproj import CRS, Transformer
+
+        key = "_to_world" if inverse else "_to_local"
+        if key not in self.__dict__:
+            local = CRS.from_wkt(self.geometry.crs_wkt)
+            world = CRS.from_epsg(4326)
+            pair = (local, world) if inverse else (world, local)
+            self.__dict__[key] = Transformer.from_crs(*pair, always_xy=True)
+        return self.__dict__[key]
+
+    def to_engine(self, x, y):
+        """The scenario's coordinates (m, or lon/lat degrees for a lon/lat mesh) to the mesh's
+        metres."""
+        x, y = np.asarray(x, dtype=np.float64), np.asarray(y, dtype=np.float64)
+        if not self.geographic:
+            return x, y
+        a, b = self._transformer(False).transform(x, y)
         return np.asarray(a, dtype=np.float64), np.asarray(b, dtype=np.float64)
 
+    def to_physical(self, a, b):
+        """The mesh's metres to the scenario's coordinates."""
+        a, b = np.asarray(a, dtype=np.float64), np.asarray(b, dtype=np.float64)
+        if not self.geographic:
+            return a, b
+        x, y = self._transformer(True).transform(a, b)
+        return np.asarray(x, dtype=np.float64), np.asarray(y, dtype=np.float64)
+
     def locate(self, x, y) -> np.ndarray:
-        """The face holding each point (-1 outside the mesh): the faces around the nearest face
-        centroids are tested (closed faces; the compiled face walk in the engine does the same
-        in the step)."""
+        """The face holding each point given in the scenario's coordinates (-1 outside the
+        mesh): the faces around the nearest face centroids are tested (closed faces; the
+        compiled face walk in the engine does the same in the step)."""
         g = self.geometry
-        x = np.atleast_1d(np.asarray(x, dtype=np.float64))
-        y = np.atleast_1d(np.asarray(y, dtype=np.float64))
+        x, y = self.to_engine(np.atleast_1d(x), np.atleast_1d(y))
         out = np.full(x.shape, -1, dtype=np.int64)
         finite = np.isfinite(x) & np.isfinite(y)
         if g._tree is None:
@@ -118,6 +145,12 @@ def mesh_field(flow: MeshFlow) -> FlowField:
     """The mesh flow as a :class:`FlowField` for the run stage (variables over nodes or faces as
     ``(frames, 1, n)``; ``grid`` its :class:`MeshKind`; ``attrs["mesh"]`` the mesh flow)."""
     wet = np.asarray(flow.wet, dtype=np.float64)[:, None, :]
+    kind = MeshKind(flow)
+    crs = flow.geometry.crs_wkt
+    if kind.geographic:
+        from pyproj import CRS
+
+        crs = CRS.from_epsg(4326).to_wkt()  # the scenario's and the results' coordinates
     faces = np.arange(flow.geometry.nface, dtype=np.float64)
     attrs = dict(flow.attrs)
     attrs["mesh"] = flow
@@ -130,12 +163,12 @@ def mesh_field(flow: MeshFlow) -> FlowField:
         times=np.asarray(flow.times, dtype=np.float64),
         time_units=flow.time_units,
         calendar=flow.calendar,
-        geographic=False,
-        crs_wkt=flow.geometry.crs_wkt,
+        geographic=kind.geographic,
+        crs_wkt=crs,
         ndim=2,
         source=flow.source,
         attrs=attrs,
-        grid=MeshKind(flow),
+        grid=kind,
     )
 
 

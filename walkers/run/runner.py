@@ -120,7 +120,7 @@ def land_variable(flow: FlowField, scenario: Scenario, offset: float) -> tuple:
 
 def _ever_wet(flow: FlowField, t0: float, t1: float) -> np.ndarray:
     """Flow cells wet in at least one frame of [t0, t1] (s)."""
-    ever_wet = np.zeros((flow.y.size, flow.x.size), dtype=bool)
+    ever_wet = np.zeros(flow.wet.data.shape[1:], dtype=bool)
     i0, i1 = flow.frame_range(t0, t1)
     for k in range(i0, i1 + 1):
         ever_wet |= flow.wet.frames(k, k)[0] > 0.5

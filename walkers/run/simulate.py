@@ -340,6 +340,11 @@ def _metres_per_unit(flow: FlowField, y: float | None) -> tuple[float, float]:
     or their mean over the grid when ``y`` is None."""
     if not flow.geographic:
         return 1.0, 1.0
+    if _on_mesh(flow):
+        g = flow.grid.geometry
+        rows = flow.grid.to_physical(g.node_x, g.node_y)[1] if y is None else np.array([float(y)])
+        mx, my = metres_per_degree(rows)
+        return float(mx.mean()), float(my.mean())
     if flow.curvilinear:
         rows = flow.grid.centres()[1].ravel() if y is None else np.array([float(y)])
         mx, my = metres_per_degree(rows)
@@ -359,6 +364,7 @@ def _to_engine_coordinates(
     InputError naming it."""
     if _on_mesh(flow):
         inside = flow.grid.locate(particles.x, particles.y) >= 0
+        particles.x[:], particles.y[:] = flow.grid.to_engine(particles.x, particles.y)
         if not inside.all():
             p = int(np.flatnonzero(~inside)[0])
             raise InputError(
@@ -384,8 +390,9 @@ def _to_engine_coordinates(
 
 def physical_view(particles: ParticleState, flow: FlowField) -> ParticleState:
     """The particles with positions in the scenario's coordinates (the particles themselves on
-    a rectilinear grid; a copy of the positions mapped out of index space on a curvilinear one)."""
-    if not flow.curvilinear:
+    a rectilinear grid or a projected mesh; a copy of the positions mapped out of index space on
+    a curvilinear grid, or out of a lon/lat mesh's local projection)."""
+    if not (flow.curvilinear or (_on_mesh(flow) and flow.geographic)):
         return particles
     x, y = flow.grid.to_physical(particles.x, particles.y)
     return dataclasses.replace(particles, x=x, y=y)
