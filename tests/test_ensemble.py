@@ -201,10 +201,15 @@ def test_percentiles_are_order_statistics_with_a_covering_interval():
 
 def test_batches_cover_the_members_once_and_split_at_the_half():
     for n in (2, 3, 17, 64, 1001):
-        ranges = batches(n)
-        covered = np.concatenate([np.arange(lo, hi) for lo, hi in ranges])
-        np.testing.assert_array_equal(covered, np.arange(n))
-        assert any(hi == n // 2 for _, hi in ranges)
+        for particles in (1, 1000, 10**6):
+            ranges = batches(n, particles)
+            covered = np.concatenate([np.arange(lo, hi) for lo, hi in ranges])
+            np.testing.assert_array_equal(covered, np.arange(n))
+            assert any(hi == n // 2 for _, hi in ranges)
+            assert len(ranges) <= 32
+            sizes = [hi - lo for lo, hi in ranges]
+            # one particle-size of batch: the batches of a half differ by one member at most
+            assert max(sizes[: len(sizes) // 2 or 1]) - min(sizes[: len(sizes) // 2 or 1]) <= 1
 
 
 # --------------------------------------------------------------------------------------------

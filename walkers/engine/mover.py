@@ -358,8 +358,12 @@ def advance(
     """Advance all particles in place by nsteps steps of dt seconds from t0 (s).
 
     ``stepper`` "fast" runs the compiled kernels, "reference" their numpy twin (same numbers).
+    Each particle's dispersion is further multiplied by ``state.dispersion_multiplier`` (1 if None).
     """
     mod = kernels if stepper == "fast" else twin
+    multiplier = state.dispersion_multiplier
+    if multiplier is None:
+        multiplier = np.ones(len(state))
     mod.advance(
         state.x,
         state.y,
@@ -370,7 +374,7 @@ def advance(
         state.status,
         inputs.flow,
         inputs.cells,
-        inputs.disp,
+        (*inputs.disp, np.ascontiguousarray(multiplier, dtype=np.float64)),
         inputs.times,
         inputs.opts,
         inputs.edges_mode,

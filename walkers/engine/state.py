@@ -35,6 +35,9 @@ class ParticleState:
     release_time : when the particle enters the water (s, flow time frame).
     exit_time : when it went out through an open edge (s), NaN otherwise.
     status : int8 code, see the module docstring.
+    dispersion_multiplier : factor on the dispersion coefficients and their drift for each
+        particle (1), for the members of an ensemble moved as one population; None (the
+        default, a single run) means 1 for every particle.
     """
 
     x: np.ndarray
@@ -44,6 +47,7 @@ class ParticleState:
     release_time: np.ndarray
     exit_time: np.ndarray
     status: np.ndarray
+    dispersion_multiplier: np.ndarray | None = None
 
     @classmethod
     def from_arrays(
@@ -68,7 +72,7 @@ class ParticleState:
         return ParticleState(**{k: v.copy() for k, v in self.arrays().items()})
 
     def arrays(self) -> dict[str, np.ndarray]:
-        return {
+        out = {
             "x": self.x,
             "y": self.y,
             "mass": self.mass,
@@ -77,6 +81,9 @@ class ParticleState:
             "exit_time": self.exit_time,
             "status": self.status,
         }
+        if self.dispersion_multiplier is not None:
+            out["dispersion_multiplier"] = self.dispersion_multiplier
+        return out
 
     @property
     def nbytes(self) -> int:

@@ -22,8 +22,11 @@ BOOTSTRAP_RESAMPLES = 2000
 CONFIDENCE = 0.95
 #: Fixed key mixed with the run seed for the bootstrap Generator.
 _BOOTSTRAP_KEY = 0x626F6F74
-#: Batches per half of the ensemble aimed at (the batch size follows from the member count only).
+#: Most batches per half of the ensemble (the work is spread over workers batch by batch).
 _BATCHES_PER_HALF = 16
+#: Particles a batch aims at: its members are moved together, so a batch of several members
+#: shares the per-interval set-up (flow window, kernel inputs, the kernel call itself) among them.
+BATCH_PARTICLES = 10_000
 
 
 # --------------------------------------------------------------------------------------------
@@ -31,20 +34,21 @@ _BATCHES_PER_HALF = 16
 # --------------------------------------------------------------------------------------------
 
 
-def batch_size(members: int) -> int:
-    """Members per batch: a function of the member count only, so every way of running the
+def batches(members: int, particles: int) -> list[tuple[int, int]]:
+    """The (lo, hi) member ranges of an ensemble of ``members`` members of ``particles``
+    particles each: the first half [0, N//2) and the rest, each cut into as many nearly equal
+    batches as hold about :data:`BATCH_PARTICLES` particles each (at most
+    :data:`_BATCHES_PER_HALF`). A function of the scenario only, so every way of running the
     ensemble cuts it the same way (and sums in the same order)."""
-    half = max(members // 2, 1)
-    return max(1, math.ceil(half / _BATCHES_PER_HALF))
-
-
-def batches(members: int) -> list[tuple[int, int]]:
-    """The (lo, hi) member ranges: the first half [0, N//2) and the rest, each cut in batches."""
-    size = batch_size(members)
     half = members // 2
     out = []
     for a, b in ((0, half), (half, members)):
-        out += [(lo, min(lo + size, b)) for lo in range(a, b, size)]
+        n = b - a
+        if n == 0:
+            continue
+        count = min(n, _BATCHES_PER_HALF, max(1, math.ceil(n * particles / BATCH_PARTICLES)))
+        edges = a + (n * np.arange(count + 1)) // count
+        out += [(int(lo), int(hi)) for lo, hi in zip(edges[:-1], edges[1:], strict=True)]
     return out
 
 
