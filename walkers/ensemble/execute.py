@@ -4,18 +4,19 @@ Each member m draws the varying release's start, position, mass, duration and a 
 dispersion coefficients from ``walkers.engine.randomness.source_generator(seed, m)`` as the
 scenario's ``[ensemble]`` table says (:class:`walkers.scenario.EnsembleSpec`).
 
-Members are grouped into fixed batches that depend only on the scenario (the number of members
-and of particles per member, never on the number of workers): the first half of the members
+Members are grouped into fixed batches that depend only on the scenario (the number of members and
+of particles per member, never on the number of workers): the first half of the members
 ``[0, N//2)`` and the second half ``[N//2, N)`` are each cut into nearly equal batches of about
-:data:`~walkers.ensemble.batches.BATCH_PARTICLES` particles (:func:`batches`). A batch's members
-are one particle population (:mod:`walkers.run.population`): a member label per particle (a
-contiguous range), each member's start, place and mass in its particles' values and its dispersion
-multiplier per particle, all moved by one kernel call per output interval. As each output time
-passes, each member is reduced at once into small sums — exceedance counts per threshold, output
-cell and time (int32), the sum of the concentration fields (for the ensemble mean), its running
-maximum (for the window) and its receptor series (for the per-member numbers) — so no member's
-fields are ever held. The driver adds the batch sums in batch order as they arrive (holding back a
-batch that finishes early until the ones before it are in), so the result is bitwise the same
+:data:`~walkers.ensemble.batches.BATCH_PARTICLES` particles, with bounds on a batch's particles and
+members x output cells so that its memory does not grow with the members (:func:`batches`). A
+batch's members are one particle population (:mod:`walkers.run.population`): a member label per
+particle (a contiguous range), each member's start, place and mass in its particles' values and its
+dispersion multiplier per particle, all moved by one kernel call per output interval. As each output
+time passes, each member is reduced at once into small sums — exceedance counts per threshold,
+output cell and time (int32), the sum of the concentration fields (for the ensemble mean), its
+running maximum (for the window) and its receptor series (for the per-member numbers) — so no
+member's fields are ever held. The driver adds the batch sums in batch order as they arrive (holding
+back a batch that finishes early until the ones before it are in), so the result is bitwise the same
 in-process (whatever the number of kernel threads), on any number of Dask workers, and after a
 worker is lost and its batches run again elsewhere.
 
@@ -207,7 +208,7 @@ def run_ensemble(
     if n > 10**6:
         raise InputError(f"members = {n}: at most 1000000")
     thr = ensemble_thresholds(sc, thresholds)
-    ranges = batches(n, sc.total_particles)
+    ranges = batches(n, sc.total_particles, sc.output.nx * sc.output.ny)
     reducer = _OrderedReducer(ranges, n)
     cluster = client = None
     try:
