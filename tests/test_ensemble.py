@@ -201,10 +201,26 @@ def test_percentiles_are_order_statistics_with_a_covering_interval():
 
 def test_batches_cover_the_members_once_and_split_at_the_half():
     for n in (2, 3, 17, 64, 1001):
-        ranges = batches(n)
-        covered = np.concatenate([np.arange(lo, hi) for lo, hi in ranges])
-        np.testing.assert_array_equal(covered, np.arange(n))
-        assert any(hi == n // 2 for _, hi in ranges)
+        for particles in (1, 1000, 10**6):
+            ranges = batches(n, particles)
+            covered = np.concatenate([np.arange(lo, hi) for lo, hi in ranges])
+            np.testing.assert_array_equal(covered, np.arange(n))
+            assert any(hi == n // 2 for _, hi in ranges)
+            # at most 16 batches a half, unless a batch would exceed a million particles
+            assert len(ranges) <= 32 or all(hi - lo == 1 for lo, hi in ranges)
+            first = [hi - lo for lo, hi in ranges if hi <= n // 2] or [n]
+            assert max(first) - min(first) <= 1  # nearly equal batches within a half
+
+
+def test_batch_memory_does_not_grow_with_the_members():
+    from walkers.ensemble.batches import MAX_BATCH_CELLS, MAX_BATCH_PARTICLES
+
+    for n in (64, 10**4, 10**6):
+        sizes = [hi - lo for lo, hi in batches(n, 1000, 250_000)]
+        assert max(sizes) * 1000 <= MAX_BATCH_PARTICLES
+        assert max(sizes) * 250_000 <= MAX_BATCH_CELLS
+    # twin: without the cells bound (one cell) a million members make batches of 1000 members
+    assert max(hi - lo for lo, hi in batches(10**6, 1000)) * 250_000 > MAX_BATCH_CELLS
 
 
 # --------------------------------------------------------------------------------------------

@@ -608,6 +608,7 @@ def compiled_mover(
         face_nodes, neighbours, edge_open, hint = topology[0], topology[1], topology[2], topology[3]
         xe, ye, wet, cx, cy, invc = cells[0], cells[1], cells[2], cells[3], cells[4], cells[5]
         DX, DY, K1, K2, kconst, K3 = disp[0], disp[1], disp[2], disp[3], disp[4], disp[5]
+        KM = disp[6]  # per-particle dispersion multipliers (ones for a single run)
         tab_i = np.zeros((nsteps, 3), np.int64)
         tab_w = np.zeros((nsteps, 3))
         tab_decay = np.ones(nsteps)
@@ -748,13 +749,13 @@ def compiled_mover(
                     else:
                         k1 = kconst[0]
                         k2 = kconst[1]
-                    k1 *= kconst[2]
-                    k2 *= kconst[2]
+                    k1 *= kconst[2] * KM[p]
+                    k2 *= kconst[2] * KM[p]
                     stream = streams[k]
                     z1, z2 = normal_pair(stream, step0 + s)
                     if tensor:
                         # B = chol(2 h K): B Bᵀ = 2 h K with K = [[k1, k12], [k12, k2]]
-                        k12 = bilinear(K3, it, wt, ic, jc, wxc, wyc) * kconst[2]
+                        k12 = bilinear(K3, it, wt, ic, jc, wxc, wyc) * (kconst[2] * KM[p])
                         l11 = math.sqrt(max(k1, 0.0))
                         l21 = k12 / l11 if l11 > 0.0 else 0.0
                         l22 = math.sqrt(max(k2 - l21 * l21, 0.0))
@@ -785,11 +786,11 @@ def compiled_mover(
                         kyy = k2
                     if drift and mesh:
                         # the drift is per face (piecewise constant)
-                        dxm += frame_value(DX, it, wt, pi) * h
-                        dym += frame_value(DY, it, wt, pi) * h
+                        dxm += frame_value(DX, it, wt, pi) * KM[p] * h
+                        dym += frame_value(DY, it, wt, pi) * KM[p] * h
                     elif drift:
-                        dxm += bilinear(DX, it, wt, ic, jc, wxc, wyc) * h
-                        dym += bilinear(DY, it, wt, ic, jc, wxc, wyc) * h
+                        dxm += bilinear(DX, it, wt, ic, jc, wxc, wyc) * KM[p] * h
+                        dym += bilinear(DY, it, wt, ic, jc, wxc, wyc) * KM[p] * h
                     qx = px + ax_ + dxm * sx
                     qy = py
                     if two_d:
@@ -890,9 +891,10 @@ def advance(
         inv holds the inverse spacings of ux, uy, vx, vy (0 for non-uniform axes).
     cells : (xe, ye, wet, cx, cy, inv) — cell edges, wet mask (nf or 1, ny, nx), cell centres;
         inv holds inverse spacings of xe, ye, cx, cy.
-    disp : (DX, DY, K1, K2, kconst, K3) — drift (m s-1) and dispersion coefficient (m2 s-1)
+    disp : (DX, DY, K1, K2, kconst, K3, KM) — drift (m s-1) and dispersion coefficient (m2 s-1)
         frames on cell centres; kconst = (k1, k2, multiplier), with k1 < 0 meaning "use the K1/K2
-        grids"; K3 the off-diagonal K of a full tensor (opts[7] = 1), else unused.
+        grids"; K3 the off-diagonal K of a full tensor (opts[7] = 1), else unused; KM a further
+        multiplier of K and the drift per particle (ensemble members; ones for a single run).
     times : frame times of the window (s).
     opts : int64 (ndim, scheme 0 Euler / 1 RK4, aligned, has_drift, bridge, max_reflections,
         geographic, tensor, mesh: 0 lattice, 1 mesh with node velocities, 2 with face velocities).

@@ -368,6 +368,7 @@ def advance(
     """Advance all particles in place by nsteps steps of dt seconds from t0 (s).
 
     ``stepper`` "fast" runs the compiled kernels, "reference" their numpy twin (same numbers).
+    Each particle's dispersion is further multiplied by ``state.dispersion_multiplier`` (1 if None).
     """
     mod = kernels if stepper == "fast" else twin
     topology = None
@@ -375,6 +376,9 @@ def advance(
         if state.face is None or state.face.shape[0] != len(state):
             state.face = np.full(len(state), -1, dtype=np.int64)
         topology = (*inputs.topology[:3], state.face)
+    multiplier = state.dispersion_multiplier
+    if multiplier is None:
+        multiplier = np.ones(len(state))
     mod.advance(
         state.x,
         state.y,
@@ -385,7 +389,7 @@ def advance(
         state.status,
         inputs.flow,
         inputs.cells,
-        inputs.disp,
+        (*inputs.disp, np.ascontiguousarray(multiplier, dtype=np.float64)),
         inputs.times,
         inputs.opts,
         inputs.edges_mode,

@@ -35,6 +35,9 @@ class ParticleState:
     release_time : when the particle enters the water (s, flow time frame).
     exit_time : when it went out through an open edge (s), NaN otherwise.
     status : int8 code, see the module docstring.
+    dispersion_multiplier : factor on the dispersion coefficients and their drift for each
+        particle (1), for the members of an ensemble moved as one population; None (the
+        default, a single run) means 1 for every particle.
     """
 
     x: np.ndarray
@@ -47,6 +50,7 @@ class ParticleState:
     #: on a mesh, each particle's last face (-1 unknown): where the face walk starts; not part of
     #: the state proper (a resumed run finds the faces again)
     face: np.ndarray | None = None
+    dispersion_multiplier: np.ndarray | None = None
 
     @classmethod
     def from_arrays(
@@ -73,7 +77,7 @@ class ParticleState:
         return out
 
     def arrays(self) -> dict[str, np.ndarray]:
-        return {
+        out = {
             "x": self.x,
             "y": self.y,
             "mass": self.mass,
@@ -82,6 +86,9 @@ class ParticleState:
             "exit_time": self.exit_time,
             "status": self.status,
         }
+        if self.dispersion_multiplier is not None:
+            out["dispersion_multiplier"] = self.dispersion_multiplier
+        return out
 
     @property
     def nbytes(self) -> int:

@@ -365,7 +365,7 @@ def advance(
     )
     mesh = int(opts[8]) if opts.shape[0] > 8 else 0
     xe, ye, wet, cx, cy, invc = cells
-    DX, DY, K1, K2, kconst, K3 = disp
+    DX, DY, K1, K2, kconst, K3, KM = disp
     if mesh:
         face_nodes, neighbours, edge_open, hint = topology
         mesh_t = (xe, ye, face_nodes)
@@ -424,12 +424,12 @@ def advance(
         else:
             k1 = _sample(K1, cx, cy, invc[2], invc[3], it, wt, px, py)
             k2 = _sample(K2, cx, cy, invc[2], invc[3], it, wt, px, py)
-        k1 = k1 * kconst[2]
-        k2 = k2 * kconst[2]
+        k1 = k1 * (kconst[2] * KM[act])
+        k2 = k2 * (kconst[2] * KM[act])
         z1, z2 = normal_pairs(streams, step0 + s)
         sx, sy = _metres_to_grid(geographic, py)
         if tensor:
-            k12 = _sample(K3, cx, cy, invc[2], invc[3], it, wt, px, py) * kconst[2]
+            k12 = _sample(K3, cx, cy, invc[2], invc[3], it, wt, px, py) * (kconst[2] * KM[act])
             l11 = np.sqrt(np.maximum(k1, 0.0))
             l21 = np.where(l11 > 0.0, k12 / np.where(l11 > 0.0, l11, 1.0), 0.0)
             l22 = np.sqrt(np.maximum(k2 - l21 * l21, 0.0))
@@ -457,11 +457,11 @@ def advance(
             kxx, kyy = k1, k2
         dxm, dym = nxm, nym
         if has_drift and mesh:
-            dxm = dxm + _frame_value(DX, it, wt, face) * h
-            dym = dym + _frame_value(DY, it, wt, face) * h
+            dxm = dxm + _frame_value(DX, it, wt, face) * KM[act] * h
+            dym = dym + _frame_value(DY, it, wt, face) * KM[act] * h
         elif has_drift:
-            dxm = dxm + _sample(DX, cx, cy, invc[2], invc[3], it, wt, px, py) * h
-            dym = dym + _sample(DY, cx, cy, invc[2], invc[3], it, wt, px, py) * h
+            dxm = dxm + _sample(DX, cx, cy, invc[2], invc[3], it, wt, px, py) * KM[act] * h
+            dym = dym + _sample(DY, cx, cy, invc[2], invc[3], it, wt, px, py) * KM[act] * h
         qx = px + ax_ + dxm * sx
         qy = py + ay_ + dym * sy if ndim == 2 else py.copy()
         iw_cells = iw if wet.shape[0] > 1 else np.zeros_like(iw)

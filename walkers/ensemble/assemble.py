@@ -20,7 +20,6 @@ from walkers.ensemble.batches import (
     CONFIDENCE,
     PERCENTILES,
     _OrderedReducer,
-    batch_size,
     percentiles_with_ci,
 )
 from walkers.ensemble.members import _Prepared
@@ -60,7 +59,7 @@ def _assemble(red: _OrderedReducer, prepared: _Prepared, thr: tuple[float, ...])
         "source": frame.attrs.get("source", ""),
         "members": int(n),
         "members_first_half": int(k),
-        "member_batch_size": int(batch_size(n)),
+        "member_batches": len(red.ranges),
         "varying_release": spec.release,
         "particle_steps": int(red.particle_steps),
         "bootstrap": f"percentile bootstrap, {BOOTSTRAP_RESAMPLES} resamples, "

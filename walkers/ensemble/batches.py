@@ -22,8 +22,17 @@ BOOTSTRAP_RESAMPLES = 2000
 CONFIDENCE = 0.95
 #: Fixed key mixed with the run seed for the bootstrap Generator.
 _BOOTSTRAP_KEY = 0x626F6F74
-#: Batches per half of the ensemble aimed at (the batch size follows from the member count only).
+#: Batches per half of the ensemble aimed at, at most (the work is spread over workers batch by
+#: batch); more only when batches would otherwise exceed the bounds below.
 _BATCHES_PER_HALF = 16
+#: Particles a batch aims at: its members are moved together, so a batch of several members
+#: shares the per-interval set-up (flow window, kernel inputs, the kernel call itself) among them.
+BATCH_PARTICLES = 10_000
+#: Most particles in a batch (about 60 MB of particle state).
+MAX_BATCH_PARTICLES = 1_000_000
+#: Most members x output cells in a batch: each member's running maximum over time (8 bytes a
+#: cell) is held while the batch runs (128 MB).
+MAX_BATCH_CELLS = 16_000_000
 
 
 # --------------------------------------------------------------------------------------------
@@ -31,20 +40,27 @@ _BATCHES_PER_HALF = 16
 # --------------------------------------------------------------------------------------------
 
 
-def batch_size(members: int) -> int:
-    """Members per batch: a function of the member count only, so every way of running the
-    ensemble cuts it the same way (and sums in the same order)."""
-    half = max(members // 2, 1)
-    return max(1, math.ceil(half / _BATCHES_PER_HALF))
-
-
-def batches(members: int) -> list[tuple[int, int]]:
-    """The (lo, hi) member ranges: the first half [0, N//2) and the rest, each cut in batches."""
-    size = batch_size(members)
+def batches(members: int, particles: int, cells: int = 1) -> list[tuple[int, int]]:
+    """The (lo, hi) member ranges of an ensemble of ``members`` members of ``particles``
+    particles each, on an output grid of ``cells`` cells: the first half [0, N//2) and the rest,
+    each cut into nearly equal batches of about :data:`BATCH_PARTICLES` particles, at most
+    :data:`_BATCHES_PER_HALF` per half unless a batch would then exceed
+    :data:`MAX_BATCH_PARTICLES` particles or :data:`MAX_BATCH_CELLS` members x cells (so the
+    memory of a batch does not grow with the members). A function of the scenario only, so every
+    way of running the ensemble cuts it the same way (and sums in the same order)."""
     half = members // 2
     out = []
     for a, b in ((0, half), (half, members)):
-        out += [(lo, min(lo + size, b)) for lo in range(a, b, size)]
+        n = b - a
+        if n == 0:
+            continue
+        aimed = min(_BATCHES_PER_HALF, math.ceil(n * particles / BATCH_PARTICLES))
+        bounded = max(
+            math.ceil(n * particles / MAX_BATCH_PARTICLES), math.ceil(n * cells / MAX_BATCH_CELLS)
+        )
+        count = min(n, max(1, aimed, bounded))
+        edges = a + (n * np.arange(count + 1)) // count
+        out += [(int(lo), int(hi)) for lo, hi in zip(edges[:-1], edges[1:], strict=True)]
     return out
 
 

@@ -2,18 +2,29 @@
 
 Each member m draws the varying release's start, position, mass, duration and a multiplier on the
 dispersion coefficients from ``walkers.engine.randomness.source_generator(seed, m)`` as the
-scenario's ``[ensemble]`` table says (:class:`walkers.scenario.EnsembleSpec`), then runs
-``simulate(..., seed=seed, member=m)``; its random walk uses the member's own spawned streams.
+scenario's ``[ensemble]`` table says (:class:`walkers.scenario.EnsembleSpec`).
 
-Members are grouped into fixed batches that depend only on the number of members (never on the
-number of workers): the first half of the members ``[0, N//2)`` and the second half ``[N//2, N)``
-are each cut into batches of :func:`batch_size` members. A batch runs its members in order and
-reduces them at once to small sums — exceedance counts per threshold, output cell and time
-(int32), the sum of the concentration fields (for the ensemble mean) — and per-member numbers (the
-draws and the receptor results). The driver adds the batch sums in batch order as they arrive
-(holding back a batch that finishes early until the ones before it are in), so the result is
-bitwise the same in-process, on any number of Dask workers, and after a worker is lost and its
-batches run again elsewhere. No member's fields are ever held beyond its batch.
+Members are grouped into fixed batches that depend only on the scenario (the number of members and
+of particles per member, never on the number of workers): the first half of the members
+``[0, N//2)`` and the second half ``[N//2, N)`` are each cut into nearly equal batches of about
+:data:`~walkers.ensemble.batches.BATCH_PARTICLES` particles, with bounds on a batch's particles and
+members x output cells so that its memory does not grow with the members (:func:`batches`). A
+batch's members are one particle population (:mod:`walkers.run.population`): a member label per
+particle (a contiguous range), each member's start, place and mass in its particles' values and its
+dispersion multiplier per particle, all moved by one kernel call per output interval. As each output
+time passes, each member is reduced at once into small sums — exceedance counts per threshold,
+output cell and time (int32), the sum of the concentration fields (for the ensemble mean), its
+running maximum (for the window) and its receptor series (for the per-member numbers) — so no
+member's fields are ever held. The driver adds the batch sums in batch order as they arrive (holding
+back a batch that finishes early until the ones before it are in), so the result is bitwise the same
+in-process (whatever the number of kernel threads), on any number of Dask workers, and after a
+worker is lost and its batches run again elsewhere.
+
+Random numbers: each member's source draws and particle placing come from its own streams
+(``source_generator(seed, m)``, ``run_streams(seed, m)``), as in its own run; the random walk of a
+batch draws from the walk key of its first member, numbered by particle across the batch (see
+:mod:`walkers.run.population`). A member's walk therefore depends on the batch it falls in, which
+the scenario fixes.
 
 Estimates (N members, k of them in the first half):
 
@@ -42,7 +53,7 @@ exceedance probabilities, arrival times or times above a threshold: whether C ex
 depends on the product of mass and field member by member, so these need each member's own field.
 Members here therefore always run with their drawn mass. Members share the flow: each process
 builds the :class:`~walkers.fields.base.FlowField` (and resolves the dispersion) once per scenario
-and reuses it for every member it runs.
+and reuses it for every batch it runs.
 
 Execution: in-process by default; ``workers=N`` starts a local ``dask.distributed`` cluster of N
 single-threaded worker processes on the loopback interface; ``scheduler="tcp://host:port"`` uses a
@@ -63,7 +74,14 @@ import xarray as xr
 
 from walkers.ensemble.assemble import _assemble
 from walkers.ensemble.batches import _OrderedReducer, batches, ensemble_thresholds
-from walkers.ensemble.members import _BatchResult, _prepare, _Recipe, _recipe_of, _run_batch
+from walkers.ensemble.members import (
+    _BatchResult,
+    _prepare,
+    _Recipe,
+    _recipe_of,
+    _reduce_batch,
+    _run_batch,
+)
 from walkers.errors import InputError
 from walkers.scenario.specs import Scenario
 
@@ -78,8 +96,9 @@ ProgressCallback = Callable[[int, int], None]
 def _iterate_in_process(
     recipe: _Recipe, ranges: list[tuple[int, int]], thresholds: tuple[float, ...]
 ) -> Iterator[tuple[int, _BatchResult]]:
+    prepared = _prepare(recipe)
     for index, (lo, hi) in enumerate(ranges):
-        yield index, _run_batch(recipe, lo, hi, thresholds)
+        yield index, _reduce_batch(prepared, lo, hi, thresholds)
 
 
 def _iterate_dask(
@@ -189,7 +208,7 @@ def run_ensemble(
     if n > 10**6:
         raise InputError(f"members = {n}: at most 1000000")
     thr = ensemble_thresholds(sc, thresholds)
-    ranges = batches(n)
+    ranges = batches(n, sc.total_particles, sc.output.nx * sc.output.ny)
     reducer = _OrderedReducer(ranges, n)
     cluster = client = None
     try:

@@ -1,5 +1,6 @@
-"""Running members: the scenario, flow and transport prepared once per process, one member's run,
-and a batch of members reduced to small sums.
+"""Running members: the scenario, flow and transport prepared once per process, each member's
+drawn source and releases, and a batch of members moved as one particle population and reduced
+to small sums.
 """
 
 from __future__ import annotations
@@ -13,17 +14,18 @@ from collections.abc import Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import Any, Literal
 
 import numpy as np
 import xarray as xr
 
 from walkers.engine.dispersion import transport_for
+from walkers.engine.randomness import run_streams
 from walkers.ensemble.draws import SourceDraw, draw_source, member_release
 from walkers.errors import InputError
 from walkers.fields.base import FlowField, GriddedVariable
 from walkers.fields.scenario_flow import build_flow
-from walkers.scenario.config import Transport
+from walkers.scenario.config import Release, Transport
 from walkers.scenario.load import load_scenario
 from walkers.scenario.specs import Scenario
 
@@ -164,61 +166,42 @@ class _BatchResult:
     frame: xr.Dataset  # coordinates and attributes of a member's result, no data
 
 
-def run_member(
-    prepared: _Prepared, member: int, *, stepper: str = "fast"
-) -> tuple[SourceDraw, xr.Dataset]:
-    """Draw member ``member``'s source and run it; return the draw and the result Dataset."""
+def member_releases(prepared: _Prepared, draw: SourceDraw) -> list[Release]:
+    """The scenario's releases as member ``draw.member`` has them, in the flow's seconds."""
     from walkers.run.runner import shift_release
-    from walkers.run.simulate import simulate
 
     sc = prepared.scenario
     spec = sc.ensemble
     assert spec is not None
-    varying = sc.releases[spec.release_index]
-    draw = draw_source(
+    return [
+        shift_release(member_release(r, draw) if i == spec.release_index else r, prepared.offset)
+        for i, r in enumerate(sc.releases)
+    ]
+
+
+def member_draw(prepared: _Prepared, member: int) -> SourceDraw:
+    """Member ``member``'s drawn source."""
+    sc = prepared.scenario
+    spec = sc.ensemble
+    assert spec is not None
+    return draw_source(
         spec,
-        varying,
+        sc.releases[spec.release_index],
         seed=sc.seed,
         member=member,
         flow=prepared.flow,
         run_length=sc.duration,
         flow_offset=prepared.offset,
     )
-    releases = [
-        member_release(r, draw) if i == spec.release_index else r for i, r in enumerate(sc.releases)
-    ]
-    dispersion = prepared.transport.dispersion
-    transport = dataclasses.replace(
-        prepared.transport,
-        dispersion=dataclasses.replace(
-            dispersion, multiplier=dispersion.multiplier * draw.dispersion_multiplier
-        ),
-    )
-    ds = simulate(
-        prepared.flow,
-        transport,
-        [shift_release(r, prepared.offset) for r in releases],
-        start=prepared.offset,
-        end=prepared.offset + sc.duration,
-        output_interval=sc.output_interval,
-        output_grid=sc.output,
-        receptors=sc.receptors,
-        seed=sc.seed,
-        member=member,
-        time_step_check="substep" if sc.substep else "fail",
-        stepper=stepper,  # type: ignore[arg-type]
-        title=sc.title,
-    )
-    return draw, ds
 
 
 @contextmanager
 def _one_kernel_thread() -> Iterator[None]:
     """Run the compiled kernels on one thread, then restore the caller's thread count.
 
-    A member is small: its kernels gain little from threads and, with more threads than free
-    cores (several Dask workers on one machine), lose much. The parallelism of an ensemble is
-    across members. Results do not depend on the number of kernel threads.
+    With several Dask workers on one machine, more kernel threads than free cores lose much: the
+    parallelism across workers is across batches of members. In-process, a batch's kernel calls
+    use the caller's threads. Results do not depend on the number of kernel threads.
     """
     import numba
 
@@ -231,48 +214,79 @@ def _one_kernel_thread() -> Iterator[None]:
 
 
 def _run_batch(recipe: _Recipe, lo: int, hi: int, thresholds: tuple[float, ...]) -> _BatchResult:
-    """Run members lo..hi-1 in order and reduce them (a Dask task, or a step in-process)."""
+    """Run members lo..hi-1 as one population and reduce them (a Dask task: one kernel thread,
+    the worker building the scenario, flow and transport itself from the recipe)."""
     with _one_kernel_thread():
         return _reduce_batch(_prepare(recipe), lo, hi, thresholds)
 
 
 def _reduce_batch(
-    prepared: _Prepared, lo: int, hi: int, thresholds: tuple[float, ...]
+    prepared: _Prepared,
+    lo: int,
+    hi: int,
+    thresholds: tuple[float, ...],
+    stepper: Literal["fast", "reference"] = "fast",
 ) -> _BatchResult:
+    """Members lo..hi-1 moved as one population (:mod:`walkers.run.population`) and reduced
+    member by member at each output time: exceedance counts, the concentration sum, each
+    member's running maximum (members of the batch x cells) and receptor series (members of the
+    batch x receptors x times)."""
+    from walkers.run.population import make_population, result_frame, simulate_population
+
     sc = prepared.scenario
     nthr, nrec = len(thresholds), len(sc.receptors)
     thr = np.asarray(thresholds, dtype=np.float64)
     nb = hi - lo
-    peak = np.zeros((nb, nrec))
-    arrival = np.full((nb, nrec, nthr), math.inf)
-    above = np.zeros((nb, nrec, nthr))
-    draws: list[SourceDraw] = []
+    draws = [member_draw(prepared, m) for m in range(lo, hi)]
+    population = make_population(
+        [member_releases(prepared, d) for d in draws],
+        [d.dispersion_multiplier for d in draws],
+        range(lo, hi),
+        sc.seed,
+        prepared.flow,
+    )
     grid = sc.output
     shape = (int(round(sc.duration / sc.output_interval)) + 1, grid.ny, grid.nx)
     conc_sum = np.zeros(shape)
     exceed = np.zeros((nthr, *shape), dtype=np.int32)
-    window = np.zeros((nthr, *shape[1:]), dtype=np.int32)
-    frame = None
-    steps = 0
-    for b, member in enumerate(range(lo, hi)):
-        draw, ds = run_member(prepared, member)
-        draws.append(draw)
-        conc = ds["concentration"].values
-        if frame is None:
-            frame = ds.drop_vars(list(ds.data_vars)).drop_vars("edge")
-        conc_sum += conc
-        cmax = conc.max(axis=0)
+    conc_max = np.full((nb, grid.ny, grid.nx), -np.inf)
+    series = np.zeros((nb, nrec, shape[0]))
+
+    def fold(k: int, b: int, conc: np.ndarray, values: np.ndarray, budget: dict) -> None:
+        conc_sum[k] += conc
+        np.maximum(conc_max[b], conc, out=conc_max[b])
         for i in range(nthr):
-            exceed[i] += conc > thr[i]
-            window[i] += cmax > thr[i]
-        t_rel = ds["time"].values - prepared.offset
-        series = ds["receptor_concentration"].values
+            exceed[i, k] += conc > thr[i]
+        series[b, :, k] = values
+
+    times = simulate_population(
+        prepared.flow,
+        prepared.transport,
+        population,
+        fold,
+        start=prepared.offset,
+        end=prepared.offset + sc.duration,
+        output_interval=sc.output_interval,
+        output_grid=grid,
+        receptors=sc.receptors,
+        walk_key=run_streams(sc.seed, lo)[0],
+        time_step_check="substep" if sc.substep else "fail",
+        stepper=stepper,
+    )
+    window = np.zeros((nthr, *shape[1:]), dtype=np.int32)
+    for i in range(nthr):
+        window[i] = np.count_nonzero(conc_max > thr[i], axis=0)
+    peak = np.zeros((nb, nrec))
+    arrival = np.full((nb, nrec, nthr), math.inf)
+    above = np.zeros((nb, nrec, nthr))
+    t_rel = times - prepared.offset
+    for b in range(nb):
         for r in range(nrec):
-            peak[b, r] = series[r].max()
+            peak[b, r] = series[b, r].max()
             for i in range(nthr):
-                arrival[b, r, i], above[b, r, i] = threshold_crossing(t_rel, series[r], thr[i])
-        steps += _particle_steps(sc)
-    assert frame is not None
+                arrival[b, r, i], above[b, r, i] = threshold_crossing(t_rel, series[b, r], thr[i])
+    frame = result_frame(times, prepared.flow, grid, sc.receptors)
+    steps = nb * _particle_steps(sc)
     return _BatchResult(lo, hi, exceed, window, conc_sum, draws, peak, arrival, above, steps, frame)
 
 

@@ -279,9 +279,7 @@ def simulate(
     shape = (len(times), output_grid.ny, output_grid.nx)
     variables = _field_variables(output_grid)
     if resume is None:
-        centre = np.mean([np.atleast_2d(r.coords)[0] for r in releases], axis=0)
-        particles, owner = make_particles(releases, release_rng, _metres_per_unit(flow, centre[1]))
-        _to_engine_coordinates(particles, owner, releases, flow)
+        particles, owner = released_particles(releases, flow, release_rng)
         first = 0
         store = field_store(shape, variables, fields, field_folder)
         edges = len(flow.kind().edge_names)
@@ -332,6 +330,17 @@ def simulate(
         # a failed or interrupted run leaves no temporary files (a checkpoint keeps its own)
         acc.fields.discard()
         raise
+
+
+def released_particles(
+    releases: Sequence[Release], flow: FlowField, release_rng: np.random.Generator
+) -> tuple[ParticleState, np.ndarray]:
+    """The particles of ``releases`` placed with ``release_rng`` (in the engine's coordinates),
+    and the index of each particle's release."""
+    centre = np.mean([np.atleast_2d(r.coords)[0] for r in releases], axis=0)
+    particles, owner = make_particles(releases, release_rng, _metres_per_unit(flow, centre[1]))
+    _to_engine_coordinates(particles, owner, releases, flow)
+    return particles, owner
 
 
 def _metres_per_unit(flow: FlowField, y: float | None) -> tuple[float, float]:
