@@ -9,19 +9,23 @@ from __future__ import annotations
 
 import numpy as np
 
-from walkers.engine import meshwalk_twin
+from walkers.engine import meshwalk_twin, vertical_twin
 from walkers.engine.kernels import (
     COMP_BRIDGE_X,
     COMP_BRIDGE_Y,
+    COMP_DEPOSIT,
     COMP_NORMAL,
+    COMP_VERTICAL_NORMAL,
     COMPONENTS,
     DECAYED_FRACTION,
     DEG,
     STATUS_DECAYED,
     STATUS_EXITED,
     STATUS_HELD_DRY,
+    STATUS_ON_BED,
     STATUS_WAITING,
     STATUS_WATER,
+    VERTICAL_SALT,
     WGS84_A,
     WGS84_E2,
     ZIG_F,
@@ -358,6 +362,7 @@ def advance(
     key,
     decay_rate,
     topology=None,
+    column=None,
 ):
     """Numpy twin of :func:`walkers.engine.kernels.advance` (same arguments, in place)."""
     ndim, scheme, aligned, has_drift, bridge, max_refl, geographic, tensor = (
@@ -530,5 +535,43 @@ def advance(
         moved = gone | placed
         x[act[moved]] = qx[moved]
         y[act[moved]] = qy[moved]
+        if column is not None:
+            stay = ~gone
+            cells_at = (face[stay], np.zeros(int(stay.sum()), np.int64)) if mesh else None
+            if cells_at is None:
+                cells_at = (pi[stay], pj[stay])
+            _column(
+                column,
+                act[stay],
+                streams[stay],
+                step0 + s,
+                it[stay],
+                wt[stay],
+                h[stay],
+                cells_at,
+                status,
+            )
     if mesh:
         hint[:] = faces_all
+
+
+def _column(column, act, streams, step, it, wt, h, cells_at, status):
+    """Twin of the kernel's vertical step for the particles ``act`` still in the water after the
+    horizontal step, in the cells ``cells_at`` (i, j) where their steps began."""
+    sigma, settling, depth, ustar, params = column
+    i, j = cells_at
+    vstreams = mix64(streams ^ VERTICAL_SALT)
+    r = normals(_hashes(vstreams, step, COMP_VERTICAL_NORMAL))
+    sg, chance = vertical_twin.column_steps(
+        sigma[act],
+        vertical_twin.cell_frame_values(depth, it, wt, j, i),
+        vertical_twin.cell_frame_values(ustar, it, wt, j, i),
+        settling[act],
+        params,
+        h,
+        r,
+    )
+    sigma[act] = sg
+    settle = (chance > 0.0) & (uniforms(vstreams, step, COMP_DEPOSIT) < chance)
+    sigma[act[settle]] = 0.0
+    status[act[settle]] = STATUS_ON_BED
