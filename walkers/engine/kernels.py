@@ -52,10 +52,11 @@ COMP_BRIDGE_X = 2
 COMP_BRIDGE_Y = 3
 COMPONENTS = 4
 # The vertical step draws from a stream of its own, mix64(particle stream ^ VERTICAL_SALT), so the
-# deviates of the horizontal step (and every 2-D run's numbers) stay as they were.
+# deviates of the horizontal step (and every 2-D run's numbers) stay as they were; substep j of a
+# step uses components 2j (its normal deviate) and 2j + 1 (its deposition uniform).
 VERTICAL_SALT = np.uint64(0xD1B54A32D192ED03)
-COMP_VERTICAL_NORMAL = 0
-COMP_DEPOSIT = 1
+MAX_SUBSTEPS = 1024
+VERTICAL_COMPONENTS = 2 * MAX_SUBSTEPS
 
 # WGS84 ellipsoid (NIMA TR8350.2, 2000).
 WGS84_A = 6378137.0
@@ -173,6 +174,37 @@ def normal_pair(stream, step):
         normal_from(hash_at(stream, step, COMP_NORMAL)),
         normal_from(hash_at(stream, step, COMP_NORMAL + 1)),
     )
+
+
+@nb.njit(**JIT)
+def column_hash(vstream, step, comp):
+    """The 64-bit hash of component comp of a particle's vertical stream at a step."""
+    counter = np.uint64(step) * np.uint64(VERTICAL_COMPONENTS) + np.uint64(comp)
+    return mix64(vstream + counter * GOLDEN)
+
+
+@nb.njit(**JIT)
+def column_substeps(h, longest):
+    """Number of vertical substeps of a step of h seconds, each at most ``longest`` s (Visser's
+    criterion; inf: one), at most MAX_SUBSTEPS."""
+    if not (longest < h):
+        return 1
+    return min(int(math.ceil(h / longest)), MAX_SUBSTEPS)
+
+
+@nb.njit(**JIT)
+def column_walk(stream, step, sigma, depth, ustar, ws, params, h):
+    """A particle's vertical motion over a step of h seconds: ``vertical.column_step`` in
+    substeps of at most params[4] seconds. Returns (sigma', deposited)."""
+    vstream = mix64(stream ^ VERTICAL_SALT)
+    n = column_substeps(h, params[4])
+    sub = h / n
+    for j in range(n):
+        r = normal_from(column_hash(vstream, step, 2 * j))
+        sigma, chance = vertical.column_step(sigma, depth, ustar, ws, params, sub, r)
+        if chance > 0.0 and open_unit(column_hash(vstream, step, 2 * j + 1)) < chance:
+            return 0.0, True
+    return sigma, False
 
 
 @nb.njit(**JIT)
@@ -582,9 +614,10 @@ def compiled_mover(
         a particle's cell is its face, the walls and open boundaries are those of
         ``meshwalk.trace_mesh_path``, the drift is per face, and there is no bridge test.
     vertical_mode : 0 depth-averaged; 1 a vertical step with constant K_z, 2 with parabolic K_z
-        (``vertical.column_step``, after the horizontal step, with the depth and u* of the cell
-        the step starts in); a particle whose step ends below a depositing bed may go "on the
-        bed" (``STATUS_ON_BED``). The ``column`` argument is (sigma, w_s, depth, u*, params), see
+        (``column_walk``: ``vertical.column_step`` in substeps that keep Visser's criterion,
+        after the horizontal step, with the depth and u* of the cell the step starts in); a
+        particle whose substep ends below a depositing bed may go "on the bed"
+        (``STATUS_ON_BED``). The ``column`` argument is (sigma, w_s, depth, u*, params), see
         ``advance``.
     """
     rk4 = scheme == 1
@@ -909,19 +942,18 @@ def compiled_mover(
                         cell_i[k] = ci
                         cell_j[k] = cj
                     if vertical_mode:
-                        vstream = mix64(stream ^ VERTICAL_SALT)
-                        sg, chance = vertical.column_step(
+                        sg, deposited = column_walk(
+                            stream,
+                            step0 + s,
                             sigma[p],
                             vertical.cell_frame_value(c_depth, it, wt, pj, pi),
                             vertical.cell_frame_value(c_ustar, it, wt, pj, pi),
                             settling[p],
                             c_params,
                             h,
-                            normal_from(hash_at(vstream, step0 + s, COMP_VERTICAL_NORMAL)),
                         )
                         sigma[p] = sg
-                        if chance > 0.0 and uniform(vstream, step0 + s, COMP_DEPOSIT) < chance:
-                            sigma[p] = 0.0
+                        if deposited:
                             st = STATUS_ON_BED
                     bst[k] = st
             for k in range(nb_):

@@ -13,18 +13,18 @@ from walkers.engine import meshwalk_twin, vertical_twin
 from walkers.engine.kernels import (
     COMP_BRIDGE_X,
     COMP_BRIDGE_Y,
-    COMP_DEPOSIT,
     COMP_NORMAL,
-    COMP_VERTICAL_NORMAL,
     COMPONENTS,
     DECAYED_FRACTION,
     DEG,
+    MAX_SUBSTEPS,
     STATUS_DECAYED,
     STATUS_EXITED,
     STATUS_HELD_DRY,
     STATUS_ON_BED,
     STATUS_WAITING,
     STATUS_WATER,
+    VERTICAL_COMPONENTS,
     VERTICAL_SALT,
     WGS84_A,
     WGS84_E2,
@@ -555,23 +555,33 @@ def advance(
         hint[:] = faces_all
 
 
+def _column_hashes(vstreams, step, comp):
+    counter = np.uint64(step) * np.uint64(VERTICAL_COMPONENTS) + np.uint64(comp)
+    return mix64(vstreams + np.full_like(vstreams, counter) * _GOLDEN)
+
+
 def _column(column, act, streams, step, it, wt, h, cells_at, status):
-    """Twin of the kernel's vertical step for the particles ``act`` still in the water after the
-    horizontal step, in the cells ``cells_at`` (i, j) where their steps began."""
+    """Twin of the kernel's ``column_walk`` for the particles ``act`` still in the water after
+    the horizontal step, in the cells ``cells_at`` (i, j) where their steps began."""
     sigma, settling, depth, ustar, params = column
     i, j = cells_at
     vstreams = mix64(streams ^ VERTICAL_SALT)
-    r = normals(_hashes(vstreams, step, COMP_VERTICAL_NORMAL))
-    sg, chance = vertical_twin.column_steps(
-        sigma[act],
-        vertical_twin.cell_frame_values(depth, it, wt, j, i),
-        vertical_twin.cell_frame_values(ustar, it, wt, j, i),
-        settling[act],
-        params,
-        h,
-        r,
-    )
+    longest = params[4]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        n = np.where(longest < h, np.minimum(np.ceil(h / longest), MAX_SUBSTEPS), 1).astype(int)
+    sub = h / n
+    hw = vertical_twin.cell_frame_values(depth, it, wt, j, i)
+    us = vertical_twin.cell_frame_values(ustar, it, wt, j, i)
+    sg = sigma[act]
+    ws = settling[act]
+    down = np.zeros(act.size, bool)
+    for k in range(int(n.max()) if n.size else 0):
+        on = np.flatnonzero((k < n) & ~down)
+        r = normals(_column_hashes(vstreams[on], step, 2 * k))
+        new, chance = vertical_twin.column_steps(sg[on], hw[on], us[on], ws[on], params, sub[on], r)
+        sg[on] = new
+        u = _open_unit(_column_hashes(vstreams[on], step, 2 * k + 1))
+        down[on] = (chance > 0.0) & (u < chance)
+    sg[down] = 0.0
     sigma[act] = sg
-    settle = (chance > 0.0) & (uniforms(vstreams, step, COMP_DEPOSIT) < chance)
-    sigma[act[settle]] = 0.0
-    status[act[settle]] = STATUS_ON_BED
+    status[act[down]] = STATUS_ON_BED
