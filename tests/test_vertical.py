@@ -23,21 +23,24 @@ from walkers.scenario.config import Dispersion, Transport
 FIVE_SIGMA = 2.0 * stats.norm.sf(5.0)
 
 
-def still_column(depth):
+def still_column(depth, decay_rate=0.0):
     """Inputs of a grid of 3 x 3 cells of 100 m at rest, depth in metres, every edge reflecting."""
     xc = np.array([0.0, 100.0, 200.0])
     flow = grid_flow(xc, xc, [0.0, 1e9], lambda X, Y, t: (0.0 * X, 0.0 * Y), depth=depth)
     tr = Transport(
         dt=10.0,
+        decay_rate=decay_rate,
         dispersion=Dispersion(k1=0.0, k2=0.0),
         edges=dict.fromkeys(("west", "east", "south", "north"), "reflecting"),
     )
     return flow, mover.kernel_inputs(flow, flow.window(0.0, 1e9), tr)
 
 
-def run_column(n, sigma, settling, depth, ustar, mode, kz, wd, dt, nsteps, drift=1.0, seed=3):
+def run_column(
+    n, sigma, settling, depth, ustar, mode, kz, wd, dt, nsteps, drift=1.0, seed=3, decay_rate=0.0
+):
     """Particles at heights sigma (fractions of the depth) in the middle cell, stepped."""
-    flow, inputs = still_column(depth)
+    flow, inputs = still_column(depth, decay_rate)
     inputs = mover.with_column(inputs, flow.depth.data, ustar, mode, kz, wd)
     inputs.column[2][3] = drift
     state = ParticleState.from_arrays(
@@ -70,9 +73,12 @@ def test_well_mixed_stays_well_mixed_only_with_the_drift(drift):
     level; steps of 20 s in 9 vertical substeps of 2.2 s, a hundredth of 1/max|K''| = h / (2κu*).
     """
     dt = 20.0
-    longest = vertical.longest_substep(np.full((1, 1, 1), H), USTAR, vertical.KZ_PARABOLIC)
+    params = vertical.column_params(vertical.KZ_PARABOLIC)
+    longest = vertical.column_longest(H, USTAR, params)
     assert longest == pytest.approx(0.01 * H / (2 * vertical.KAPPA * USTAR), rel=1e-12)
-    assert vertical.check_substeps(dt, longest) == 9
+    assert (
+        vertical.check_substeps(dt, np.full((1, 1, 1), H), np.full((1, 1, 1), USTAR), params) == 9
+    )
     n = 20_000
     st = run_column(n, uniform_heights(n), 0.0, H, USTAR, 2, 0.0, 0.0, dt, 250, drift=drift)
     p = chi_square_uniform(st.sigma)
@@ -165,3 +171,193 @@ def test_settling_with_parabolic_kz_reaches_the_rouse_profile(drift):
         assert pvalue > FIVE_SIGMA, pvalue
     else:
         assert pvalue < FIVE_SIGMA, pvalue
+
+
+# ---------------------------------------------------------------------------------------------
+# Deposition on the bed of a well-mixed column: the mass in the water decays as exp(-w_d t / h)
+# when mixing is fast (w_d h / K ≪ 1; the first-order law of a column with a bed flux w_d C_b,
+# common practice), exactly as the series of a slab with a radiating face (Carslaw & Jaeger 1959,
+# Conduction of Heat in Solids, §3.11, from memory).
+
+
+def slab_fraction_left(k, h, wd, t, terms=60):
+    """Σ 2 Bi² / (β² (β² + Bi² + Bi)) exp(-β² K t / h²), β tan β = Bi = w_d h / K (one face
+    insulated, uniform start)."""
+    from scipy.optimize import brentq
+
+    bi = wd * h / k
+    total = 0.0
+    for m in range(terms):
+        lo, hi = m * math.pi + 1e-12, m * math.pi + math.pi / 2 - 1e-12
+        beta = brentq(lambda b: b * math.tan(b) - bi, lo, hi)
+        total += (
+            2
+            * bi
+            * bi
+            / (beta * beta * (beta * beta + bi * bi + bi))
+            * math.exp(-beta * beta * k * t / (h * h))
+        )
+    return total
+
+
+@pytest.mark.parametrize("factor", [1.0, 1.0 / math.sqrt(math.pi)])
+def test_deposit_from_a_well_mixed_column_follows_the_first_order_law(factor):
+    """h = 2 m, K = 0.01 m2 s-1, w_d = 10⁻⁴ m s-1 (w_d h / K = 0.02): after h ln 2 / w_d half the
+    mass is on the bed. 20 000 particles: tolerance 5 binomial standard errors plus the gap
+    between the first-order law and the exact slab series (computed, 0.2 %). The twin that fails:
+    the deposition probability without its √π (w_d sqrt(Δt / K))."""
+    h, kz, wd, dt = 2.0, 0.01, 1e-4, 10.0
+    t_end = 1390 * dt
+    n = 20_000
+    st = run_column(n, uniform_heights(n), 0.0, h, 0.0, 1, kz, wd * factor, dt, 1390)
+    on_bed = np.mean(st.status == ON_BED)
+    assert set(np.unique(st.status)) == {IN_WATER, ON_BED}
+    assert np.all(st.sigma[st.status == ON_BED] == 0.0)
+    law = 1.0 - math.exp(-wd * t_end / h)
+    exact = 1.0 - slab_fraction_left(kz, h, wd, t_end)
+    se = math.sqrt(law * (1.0 - law) / n)
+    tol = 5.0 * se + abs(exact - law)
+    if factor == 1.0:
+        assert abs(on_bed - law) < tol, (on_bed, law, exact, se)
+    else:
+        assert abs(on_bed - law) > tol, (on_bed, law)
+
+
+def test_slab_series_starts_full_and_tends_to_the_first_order_law():
+    """The series is 1 at t = 0 (its weights sum to one) and near exp(-w_d t / h) for small Bi."""
+    assert slab_fraction_left(0.01, 2.0, 1e-4, 0.0, terms=2000) == pytest.approx(1.0, abs=1e-3)
+    assert slab_fraction_left(0.01, 2.0, 1e-4, 1e4) == pytest.approx(math.exp(-0.5), rel=5e-3)
+
+
+def test_budget_with_the_bed_is_exact():
+    """released = in water + on the bed + decayed to round-off, with decay and deposition."""
+    n = 4_000
+    st = run_column(
+        n, uniform_heights(n), 0.001, 2.0, 0.0, 1, 0.01, 5e-4, 10.0, 300, decay_rate=1e-5
+    )
+    b = mass_budget(st)
+    assert b["budget_on_bed"] > 0.1 * b["budget_released"]
+    parts = b["budget_in_water"] + b["budget_on_bed"] + b["budget_decayed"]
+    parts += b["budget_held_dry"] + float(np.sum(b["budget_outflow"]))
+    assert parts == pytest.approx(b["budget_released"], rel=1e-12)
+    assert "budget_on_bed" not in mass_budget(ParticleState.from_arrays(*np.ones((4, 3))))
+
+
+# ---------------------------------------------------------------------------------------------
+# The compiled step equals its numpy twin (DESIGN.md §4.7)
+
+
+def tidal_basin():
+    """An invented basin with land, a drying bank, depth varying in space and time."""
+    xc = np.linspace(0.0, 2000.0, 41)
+    yc = np.linspace(0.0, 1000.0, 21)
+    times = np.arange(0.0, 3600.0 + 1, 900.0)
+    X, Y = np.meshgrid(xc, yc)
+    land = (Y > 700.0) & (X > 800.0) & (X < 1200.0)
+
+    def velocity(X, Y, t):
+        phase = np.cos(2 * np.pi * t / 3600.0)
+        return 0.3 * phase + 0.1 * np.sin(Y / 300.0), 0.05 * np.cos(X / 400.0) * phase
+
+    base = 5.0 + 3.0 * np.sin(X / 500.0) * np.cos(Y / 400.0)
+    depth = np.stack([base - 1.5 * (1 + np.cos(2 * np.pi * t / 3600.0)) * (Y < 200) for t in times])
+    return grid_flow(xc, yc, times, velocity, depth=depth, wet=~land)
+
+
+@pytest.mark.parametrize("mode", [vertical.KZ_CONSTANT, vertical.KZ_PARABOLIC])
+def test_compiled_vertical_step_equals_numpy_twin(mode):
+    """Settling, rising and neutral particles over a depositing bed, u* from the flow's speed and
+    a drag coefficient (walkers.engine.coefficients), releases inside steps, land, an open edge:
+    the compiled kernel and its numpy twin agree to 1e-12 (status bitwise)."""
+    from walkers.engine.coefficients import shear_velocity
+
+    flow = tidal_basin()
+    tr = Transport(
+        dt=30.0,
+        scheme="rk4",
+        decay_rate=1e-4,
+        dispersion=Dispersion(k1=2.0, k2=0.5),
+        edges={
+            "west": "reflecting",
+            "east": "absorbing",
+            "south": "reflecting",
+            "north": "reflecting",
+        },
+    )
+    window = flow.window(0.0, 3600.0)
+    inputs = mover.kernel_inputs(flow, window, tr)
+    ustar = shear_velocity(window.depth, np.hypot(window.u, window.v), drag_coefficient=0.0025)
+    inputs = mover.with_column(inputs, window.depth, ustar, mode, 0.005, 2e-3, dt=30.0)
+    rng = np.random.default_rng(4)
+    n = 1500
+    a = ParticleState.from_arrays(
+        rng.uniform(50.0, 1950.0, n),
+        rng.uniform(20.0, 680.0, n),
+        np.full(n, 0.2),
+        rng.uniform(0.0, 900.0, n),
+    ).in_column(rng.uniform(0.0, 1.0, n), rng.choice([0.003, 0.0, -0.002], n))
+    a.x[::9] = 1990.0
+    b = a.copy()
+    mover.advance(a, inputs, 0.0, 30.0, 100, 7, 21, stepper="fast")
+    mover.advance(b, inputs, 0.0, 30.0, 100, 7, 21, stepper="reference")
+    np.testing.assert_array_equal(a.status, b.status)
+    assert {IN_WATER, ON_BED} <= set(np.unique(a.status))
+    np.testing.assert_allclose(a.sigma, b.sigma, rtol=0, atol=1e-12)
+    np.testing.assert_allclose(a.x, b.x, rtol=0, atol=1e-12 * 2000)
+    np.testing.assert_allclose(a.y, b.y, rtol=0, atol=1e-12 * 2000)
+    np.testing.assert_allclose(a.mass, b.mass, rtol=1e-12)
+    assert np.all((a.sigma >= 0.0) & (a.sigma <= 1.0))
+
+
+def test_vertical_twin_check_can_fail():
+    """The equality check sees a changed vertical stream (another key): sigma differs."""
+    flow, inputs = still_column(10.0)
+    inputs = mover.with_column(inputs, flow.depth.data, USTAR, vertical.KZ_PARABOLIC)
+    n = 300
+    a = ParticleState.from_arrays(
+        np.full(n, 100.0), np.full(n, 100.0), np.ones(n), np.zeros(n)
+    ).in_column(uniform_heights(n))
+    b = a.copy()
+    mover.advance(a, inputs, 0.0, 20.0, 10, 0, 1, stepper="fast")
+    mover.advance(b, inputs, 0.0, 20.0, 10, 0, 2, stepper="reference")
+    assert np.max(np.abs(a.sigma - b.sigma)) > 1e-3
+
+
+def test_horizontal_motion_is_unchanged_by_the_vertical_step():
+    """The vertical step draws from its own stream: x and y are those of the depth-averaged run
+    bitwise (the depth-averaged velocity moves particles at every height)."""
+    flow = tidal_basin()
+    tr = Transport(dt=30.0, dispersion=Dispersion(k1=2.0, k2=0.5))
+    window = flow.window(0.0, 3600.0)
+    flat = mover.kernel_inputs(flow, window, tr)
+    deep = mover.with_column(flat, window.depth, 0.03, vertical.KZ_PARABOLIC)
+    rng = np.random.default_rng(8)
+    n = 1000
+    a = ParticleState.from_arrays(
+        rng.uniform(50.0, 1950.0, n), rng.uniform(20.0, 680.0, n), np.ones(n), np.zeros(n)
+    )
+    b = a.copy().in_column(0.5)
+    mover.advance(a, flat, 0.0, 30.0, 60, 0, 5)
+    mover.advance(b, deep, 0.0, 30.0, 60, 0, 5)
+    np.testing.assert_array_equal(a.x, b.x)
+    np.testing.assert_array_equal(a.y, b.y)
+    assert np.std(b.sigma) > 0.05
+
+
+# ---------------------------------------------------------------------------------------------
+# Bad input
+
+
+def test_bad_vertical_settings_are_refused_with_the_key_named():
+    flow, inputs = still_column(10.0)
+    h = flow.depth.data
+    with pytest.raises(InputError, match="vertical diffusivity mode 3"):
+        mover.with_column(inputs, h, USTAR, 3)
+    with pytest.raises(InputError, match="deposition velocity = -0.1: must be a number >= 0"):
+        mover.with_column(inputs, h, USTAR, 1, 0.01, -0.1)
+    with pytest.raises(InputError, match="transport.dt = 30000 s would need 12300 vertical substeps"):
+        mover.with_column(inputs, h, USTAR, vertical.KZ_PARABOLIC, dt=3e4)
+    state = ParticleState.from_arrays(*np.ones((4, 3)))
+    column_inputs = mover.with_column(inputs, h, USTAR, vertical.KZ_CONSTANT, 0.01)
+    with pytest.raises(InputError, match="no sigma; place the particles"):
+        mover.advance(state, column_inputs, 0.0, 10.0, 1, 0, 1)

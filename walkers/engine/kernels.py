@@ -195,9 +195,10 @@ def column_substeps(h, longest):
 @nb.njit(**JIT)
 def column_walk(stream, step, sigma, depth, ustar, ws, params, h):
     """A particle's vertical motion over a step of h seconds: ``vertical.column_step`` in
-    substeps of at most params[4] seconds. Returns (sigma', deposited)."""
+    substeps that keep Visser's criterion in its column (``vertical.column_longest``). Returns
+    (sigma', deposited)."""
     vstream = mix64(stream ^ VERTICAL_SALT)
-    n = column_substeps(h, params[4])
+    n = column_substeps(h, vertical.column_longest(depth, ustar, params))
     sub = h / n
     for j in range(n):
         r = normal_from(column_hash(vstream, step, 2 * j))

@@ -424,7 +424,7 @@ def with_column(
     (m s-1), a number or frames of the depth's shape; mode : ``vertical.KZ_CONSTANT`` (K_z = kz,
     m2 s-1) or ``vertical.KZ_PARABOLIC``; deposition_velocity : w_d (m s-1), 0 a reflecting bed;
     dt : the run's step (s), checked against the number of vertical substeps Visser's criterion
-    asks (``vertical.longest_substep``) when given.
+    asks (``vertical.check_substeps``) when given.
     """
     if mode not in (vertical.KZ_CONSTANT, vertical.KZ_PARABOLIC):
         raise InputError(f"vertical diffusivity mode {mode!r}: give 1 (constant) or 2 (parabolic)")
@@ -435,10 +435,9 @@ def with_column(
     if h.ndim != 3:
         raise InputError(f"column depth of shape {h.shape}: give frames (nf, ny, nx) in metres")
     u = np.ascontiguousarray(np.broadcast_to(np.asarray(ustar, dtype=np.float64), h.shape))
-    longest = vertical.longest_substep(h, u, mode)
+    params = vertical.column_params(mode, kz, deposition_velocity)
     if dt is not None:
-        vertical.check_substeps(dt, longest)
-    params = vertical.column_params(mode, kz, deposition_velocity, longest)
+        vertical.check_substeps(dt, h, u, params)
     return replace(inputs, column=(h, u, params))
 
 

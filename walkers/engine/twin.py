@@ -566,12 +566,12 @@ def _column(column, act, streams, step, it, wt, h, cells_at, status):
     sigma, settling, depth, ustar, params = column
     i, j = cells_at
     vstreams = mix64(streams ^ VERTICAL_SALT)
-    longest = params[4]
+    hw = vertical_twin.cell_frame_values(depth, it, wt, j, i)
+    us = vertical_twin.cell_frame_values(ustar, it, wt, j, i)
+    longest = vertical_twin.column_longest(hw, us, params)
     with np.errstate(divide="ignore", invalid="ignore"):
         n = np.where(longest < h, np.minimum(np.ceil(h / longest), MAX_SUBSTEPS), 1).astype(int)
     sub = h / n
-    hw = vertical_twin.cell_frame_values(depth, it, wt, j, i)
-    us = vertical_twin.cell_frame_values(ustar, it, wt, j, i)
     sg = sigma[act]
     ws = settling[act]
     down = np.zeros(act.size, bool)

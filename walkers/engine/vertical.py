@@ -24,8 +24,9 @@ particles in a turbulent water column", Mar. Ecol. Prog. Ser. 158, 275-281):
 
 with R a standard normal deviate and w_s the settling velocity (m s-1, > 0 down, < 0 rising).
 Without the drift dK/dz the particles gather where K is low (the test's twin that fails). Visser
-asks Δt ≪ 1/max|d²K/dz²|; for the parabolic profile |d²K/dz²| = 2 κ u*/h
-(:func:`curvature_limit`; the run checks it with :data:`VISSER_FRACTION`).
+asks Δt ≪ 1/max|d²K/dz²|; for the parabolic profile |d²K/dz²| = 2 κ u*/h, and each particle's
+step is split into substeps of at most VISSER_FRACTION h / (2 κ u*) in its own column
+(:func:`column_longest`; ``kernels.column_walk``).
 
 Boundaries: the surface reflects; the bed reflects, or, with a deposition velocity w_d > 0, a
 particle whose step ends below the bed deposits with probability
@@ -66,14 +67,20 @@ KZ_CONSTANT = 1
 KZ_PARABOLIC = 2
 #: Depth (m) below which a column is too shallow to step in; sigma is kept.
 MIN_COLUMN_DEPTH = 1e-3
+#: Columns shallower than this (m; drying banks) may need more substeps than the kernel allows:
+#: they are held to MAX_SUBSTEPS, and the step check looks only at deeper ones.
+SHALLOW_COLUMN = 0.1
 
 
 @nb.njit(**JIT)
 def cell_frame_value(arr, it, wt, j, i):
     """Value (j, i) of (nf, ny, nx) frames, linear in time between frames it and it+1 (a single
-    frame as is); the arithmetic of ``kernels.bilinear`` in time."""
+    frame as is; at wt = 1 frame it+1 itself, so that the twin, which locates a time on a frame
+    as (it+1, 0), finds the same bits: u* near 0 enters the step through a square root)."""
     if arr.shape[0] == 1:
         return arr[0, j, i]
+    if wt >= 1.0:
+        return arr[it + 1, j, i]
     f = arr[it, j, i]
     if wt > 0.0:
         f = f + wt * (arr[it + 1, j, i] - f)
@@ -87,7 +94,7 @@ def column_step(sigma, depth, ustar, ws, params, dt, r):
     sigma : height above the bed / depth; depth h (m); ustar u* (m s-1, parabolic mode);
     ws : settling velocity (m s-1, > 0 down);
     params : (mode 1 constant or 2 parabolic K_z, K0 (m2 s-1), w_d (m s-1), drift factor (1; 0
-    removes the drift, for tests), the longest substep (s; used by ``kernels.column_walk``));
+    removes the drift, for tests), the fraction of 1/|d²K_z/dz²| a substep may last);
     dt : step (s); r : standard normal deviate.
 
     Returns (sigma', P): the new fraction of the depth and the probability that the particle
@@ -127,44 +134,43 @@ def column_step(sigma, depth, ustar, ws, params, dt, r):
     return zn / depth, chance
 
 
-def curvature_limit(depth: np.ndarray | float, ustar: np.ndarray | float) -> float:
-    """1 / max|d²K_z/dz²| (s) of the parabolic profile, 2 κ u* / h, over wet columns (inf when
-    u* is 0 everywhere); Visser (1997) asks Δt ≪ this."""
-    h = np.asarray(depth, dtype=np.float64)
-    u = np.broadcast_to(np.asarray(ustar, dtype=np.float64), h.shape)
-    wet = h > MIN_COLUMN_DEPTH
-    if not wet.any():
+def column_params(mode: int, kz: float = 0.0, deposition_velocity: float = 0.0) -> np.ndarray:
+    """The ``params`` array of :func:`column_step`: (mode, K0, w_d, drift factor 1, Visser's
+    fraction of 1/|d²K_z/dz²| that a substep may last)."""
+    return np.array(
+        [float(mode), float(kz), float(deposition_velocity), 1.0, VISSER_FRACTION], np.float64
+    )
+
+
+@nb.njit(**JIT)
+def column_longest(depth, ustar, params):
+    """The longest vertical substep (s) in a column of depth h (m) with bed shear velocity u*
+    (m s-1): params[4] / |d²K_z/dz²| = params[4] h / (2 κ u*) for the parabolic K_z (Visser
+    1997), inf for a constant K_z, u* = 0 (no curvature) or a column too shallow to step in."""
+    if params[0] == KZ_CONSTANT or not (ustar > 0.0 and depth >= MIN_COLUMN_DEPTH):
         return math.inf
-    worst = float(np.max(2.0 * KAPPA * u[wet] / h[wet]))
-    return math.inf if worst <= 0.0 else 1.0 / worst
+    return params[4] * depth / (2.0 * KAPPA * ustar)
 
 
-def column_params(
-    mode: int, kz: float = 0.0, deposition_velocity: float = 0.0, longest: float = math.inf
-) -> np.ndarray:
-    """The ``params`` array of :func:`column_step`: (mode, K0, w_d, drift factor 1, the longest
-    vertical substep in seconds)."""
-    return np.array([float(mode), float(kz), float(deposition_velocity), 1.0, float(longest)])
-
-
-def longest_substep(depth: np.ndarray, ustar: np.ndarray | float, mode: int) -> float:
-    """The longest vertical substep (s) by Visser's (1997) criterion Δt ≪ 1/max|d²K_z/dz²|,
-    taken as VISSER_FRACTION / max|d²K_z/dz²| over the wet columns; inf for a constant K_z
-    (no curvature). The kernel splits each step into substeps no longer than this."""
-    if mode != KZ_PARABOLIC:
-        return math.inf
-    return VISSER_FRACTION * curvature_limit(depth, ustar)
-
-
-def check_substeps(dt: float, longest: float) -> int:
-    """Substeps of a step of dt seconds; InputError when more than the kernel allows."""
+def check_substeps(dt: float, depth: np.ndarray, ustar: np.ndarray, params: np.ndarray) -> int:
+    """The most vertical substeps a step of dt seconds takes in a column deeper than
+    SHALLOW_COLUMN; InputError when that is more than the kernel allows (shallower columns, on
+    drying banks, are held to MAX_SUBSTEPS and relax the criterion there)."""
     from walkers.engine.kernels import MAX_SUBSTEPS
 
+    deep = depth > SHALLOW_COLUMN
+    if params[0] == KZ_CONSTANT or not deep.any():
+        return 1
+    worst = float(np.max(2.0 * KAPPA * ustar[deep] / depth[deep]))
+    if worst <= 0.0:
+        return 1
+    longest = params[4] / worst
     n = 1 if not longest < dt else math.ceil(dt / longest)
     if n > MAX_SUBSTEPS:
         raise InputError(
             f"transport.dt = {dt:g} s would need {n} vertical substeps of {longest:.3g} s "
-            f"(Visser's criterion with the parabolic K_z of the shallowest, fastest column); at "
-            f"most {MAX_SUBSTEPS} are allowed: shorten dt to at most {MAX_SUBSTEPS * longest:.4g} s"
+            f"(Visser's criterion with the parabolic K_z of the shallowest, fastest column deeper "
+            f"than {SHALLOW_COLUMN:g} m); at most {MAX_SUBSTEPS} are allowed: shorten dt to at "
+            f"most {MAX_SUBSTEPS * longest:.4g} s"
         )
     return n

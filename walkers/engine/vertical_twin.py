@@ -13,7 +13,16 @@ def cell_frame_values(arr, it, wt, j, i):
         return arr[0, j, i]
     f = arr[it, j, i]
     later = arr[np.minimum(it + 1, arr.shape[0] - 1), j, i]
-    return np.where(wt > 0.0, f + wt * (later - f), f)
+    return np.where(wt >= 1.0, later, np.where(wt > 0.0, f + wt * (later - f), f))
+
+
+def column_longest(depth, ustar, params):
+    """Twin of ``vertical.column_longest`` for arrays."""
+    if params[0] == KZ_CONSTANT:
+        return np.full(depth.shape, np.inf)
+    curved = (ustar > 0.0) & (depth >= MIN_COLUMN_DEPTH)
+    safe = np.where(curved, ustar, 1.0)
+    return np.where(curved, params[4] * depth / (2.0 * KAPPA * safe), np.inf)
 
 
 def column_steps(sigma, depth, ustar, ws, params, dt, r):
