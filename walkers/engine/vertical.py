@@ -72,7 +72,7 @@ MIN_COLUMN_DEPTH = 1e-3
 SHALLOW_COLUMN = 0.1
 
 
-@nb.njit(**JIT)
+@nb.njit(**JIT)  # type: ignore[call-overload]  # JIT is a plain dict of options
 def cell_frame_value(arr, it, wt, j, i):
     """Value (j, i) of (nf, ny, nx) frames, linear in time between frames it and it+1 (a single
     frame as is; at wt = 1 frame it+1 itself, so that the twin, which locates a time on a frame
@@ -87,7 +87,7 @@ def cell_frame_value(arr, it, wt, j, i):
     return f
 
 
-@nb.njit(**JIT)
+@nb.njit(**JIT)  # type: ignore[call-overload]  # JIT is a plain dict of options
 def column_step(sigma, depth, ustar, ws, params, dt, r):
     """One vertical step of a particle (Visser 1997; see the module docstring).
 
@@ -142,7 +142,7 @@ def column_params(mode: int, kz: float = 0.0, deposition_velocity: float = 0.0) 
     )
 
 
-@nb.njit(**JIT)
+@nb.njit(**JIT)  # type: ignore[call-overload]  # JIT is a plain dict of options
 def column_longest(depth, ustar, params):
     """The longest vertical substep (s) in a column of depth h (m) with bed shear velocity u*
     (m s-1): params[4] / |d²K_z/dz²| = params[4] h / (2 κ u*) for the parabolic K_z (Visser
