@@ -355,7 +355,7 @@ def test_bad_vertical_settings_are_refused_with_the_key_named():
         mover.with_column(inputs, h, USTAR, 3)
     with pytest.raises(InputError, match="deposition velocity = -0.1: must be a number >= 0"):
         mover.with_column(inputs, h, USTAR, 1, 0.01, -0.1)
-    with pytest.raises(InputError, match="transport.dt = 30000 s would need 12300 vertical substeps"):
+    with pytest.raises(InputError, match="dt = 30000 s would need 12300 vertical substeps"):
         mover.with_column(inputs, h, USTAR, vertical.KZ_PARABOLIC, dt=3e4)
     state = ParticleState.from_arrays(*np.ones((4, 3)))
     column_inputs = mover.with_column(inputs, h, USTAR, vertical.KZ_CONSTANT, 0.01)
