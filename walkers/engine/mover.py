@@ -434,7 +434,10 @@ def with_column(
     h = np.ascontiguousarray(depth, dtype=np.float64)
     if h.ndim != 3:
         raise InputError(f"column depth of shape {h.shape}: give frames (nf, ny, nx) in metres")
-    u = np.ascontiguousarray(np.broadcast_to(np.asarray(ustar, dtype=np.float64), h.shape))
+    u = np.asarray(ustar, dtype=np.float64)
+    shape = np.broadcast_shapes(h.shape, u.shape)
+    h = np.ascontiguousarray(np.broadcast_to(h, shape))
+    u = np.ascontiguousarray(np.broadcast_to(u, shape))
     params = vertical.column_params(mode, kz, deposition_velocity)
     if dt is not None:
         vertical.check_substeps(dt, h, u, params)
