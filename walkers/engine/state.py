@@ -81,7 +81,9 @@ class ParticleState:
         out.settling = None if self.settling is None else self.settling.copy()
         return out
 
-    def in_column(self, sigma: np.ndarray, settling: np.ndarray | float = 0.0) -> ParticleState:
+    def in_column(
+        self, sigma: np.ndarray | float, settling: np.ndarray | float = 0.0
+    ) -> ParticleState:
         """The same particles placed in their water columns (three dimensions): ``sigma`` their
         heights above the bed as fractions of the depth, ``settling`` their settling velocities
         (m s-1, > 0 down); returns self."""
