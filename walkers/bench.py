@@ -13,9 +13,8 @@ flow, bilinear in space and linear in time, with land, reflecting and absorbing 
   index space), the mesh workload and the three-dimensional one (:mod:`walkers.workloads`);
 - bytes of particle state per particle, and the peak memory of a 10-million-particle run (measured
   in a child process with ``resource.getrusage``, or projected from a smaller one in quick mode);
-  concentration-gridding throughput (particles per second through ``reduce.concentration``);
-- the time from a fresh interpreter to the return of the first kernel call, with the compiled
-  kernels already cached on disk.
+- concentration-gridding throughput (particles per second through ``reduce.concentration``);
+- the time from a fresh interpreter to the first kernel call's return (kernels cached on disk).
 
 Rates are medians over repeats; the load average is reported and one-thread rates are also given
 per CPU-second of this process. ``scaling_study``: cost against particles, steps, grid, members.
