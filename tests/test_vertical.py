@@ -361,6 +361,10 @@ def test_bad_vertical_settings_are_refused_with_the_key_named():
     column_inputs = mover.with_column(inputs, h, USTAR, vertical.KZ_CONSTANT, 0.01)
     with pytest.raises(InputError, match="no sigma; place the particles"):
         mover.advance(state, column_inputs, 0.0, 10.0, 1, 0, 1)
+    with pytest.raises(InputError, match="fractions of the depth from 0"):
+        state.in_column(1.5)
+    with pytest.raises(InputError, match="settling velocities: give finite numbers"):
+        state.in_column(0.5, np.nan)
 
 
 def test_compiled_vertical_step_equals_numpy_twin_on_a_mesh():

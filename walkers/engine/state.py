@@ -18,6 +18,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from walkers.errors import InputError
+
 WAITING = 0
 IN_WATER = 1
 HELD_DRY = 2
@@ -88,6 +90,13 @@ class ParticleState:
         heights above the bed as fractions of the depth, ``settling`` their settling velocities
         (m s-1, > 0 down); returns self."""
         n = len(self)
+        if not np.all((np.asarray(sigma) >= 0.0) & (np.asarray(sigma) <= 1.0)):
+            raise InputError(
+                "particle heights in the column: give fractions of the depth from 0 (bed) to 1 "
+                "(surface)"
+            )
+        if not np.all(np.isfinite(settling)):
+            raise InputError("settling velocities: give finite numbers in m s-1 (> 0 down)")
         self.sigma = np.ascontiguousarray(np.broadcast_to(sigma, (n,)), dtype=np.float64).copy()
         self.settling = np.ascontiguousarray(
             np.broadcast_to(settling, (n,)), dtype=np.float64

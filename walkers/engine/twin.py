@@ -537,8 +537,9 @@ def advance(
         y[act[moved]] = qy[moved]
         if column is not None:
             stay = ~gone
-            cells_at = (face[stay], np.zeros(int(stay.sum()), np.int64)) if mesh else None
-            if cells_at is None:
+            if mesh:
+                cells_at = (face[stay], np.zeros(int(stay.sum()), np.int64))
+            else:
                 cells_at = (pi[stay], pj[stay])
             _column(
                 column,
