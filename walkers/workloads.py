@@ -10,6 +10,8 @@ import math
 
 import numpy as np
 
+from walkers.engine import mover, vertical
+from walkers.engine.coefficients import shear_velocity
 from walkers.engine.dispersion import resolve_dispersion
 from walkers.engine.state import ParticleState
 from walkers.fields.analytic import curvilinear_flow, grid_flow
@@ -179,3 +181,14 @@ def mesh_workload(nx: int = 200, ny: int = 100, frames: int = 7):
     )
     transport = Transport(dt=DT, dispersion=ref_transport.dispersion)
     return mesh_field(mesh), transport
+
+
+def threed_workload(flow: FlowField, transport: Transport, start: ParticleState):
+    """The reference basin in three dimensions: a parabolic K_z from u* = sqrt(C_d) |U| with
+    C_d = 0.0025 (``walkers.engine.coefficients``), the particles of ``start`` at mid-depth
+    settling at 0.1 mm s-1, a reflecting bed. Returns (kernel inputs, state)."""
+    window = flow.window(0.0, float(flow.times[-1]))
+    ustar = shear_velocity(window.depth, np.hypot(window.u, window.v), drag_coefficient=0.0025)
+    inputs = mover.kernel_inputs(flow, window, transport)
+    inputs = mover.with_column(inputs, window.depth, ustar, vertical.KZ_PARABOLIC, dt=DT)
+    return inputs, start.copy().in_column(0.5, 1e-4)

@@ -37,8 +37,9 @@ import numpy as np
 
 JIT = {"cache": True, "error_model": "numpy", "nogil": True}
 
-# The mesh primitives import JIT from this module, so they are imported after it.
-from walkers.engine import meshwalk  # noqa: E402
+# The mesh primitives and the vertical step import JIT from this module, so they are imported
+# after it.
+from walkers.engine import meshwalk, vertical  # noqa: E402
 
 GOLDEN = np.uint64(0x9E3779B97F4A7C15)
 MIX1 = np.uint64(0xBF58476D1CE4E5B9)
@@ -50,6 +51,12 @@ COMP_NORMAL = 0  # and 1: the hashes of the two normal deviates
 COMP_BRIDGE_X = 2
 COMP_BRIDGE_Y = 3
 COMPONENTS = 4
+# The vertical step draws from a stream of its own, mix64(particle stream ^ VERTICAL_SALT), so the
+# deviates of the horizontal step (and every 2-D run's numbers) stay as they were; substep j of a
+# step uses components 2j (its normal deviate) and 2j + 1 (its deposition uniform).
+VERTICAL_SALT = np.uint64(0xD1B54A32D192ED03)
+MAX_SUBSTEPS = 1024
+VERTICAL_COMPONENTS = 2 * MAX_SUBSTEPS
 
 # WGS84 ellipsoid (NIMA TR8350.2, 2000).
 WGS84_A = 6378137.0
@@ -61,6 +68,7 @@ STATUS_WATER = 1
 STATUS_HELD_DRY = 2
 STATUS_DECAYED = 3
 STATUS_EXITED = 4
+STATUS_ON_BED = -1
 DECAYED_FRACTION = 1e-15
 
 # Particles per block of the step kernel (state of a block stays in the L1 cache).
@@ -166,6 +174,38 @@ def normal_pair(stream, step):
         normal_from(hash_at(stream, step, COMP_NORMAL)),
         normal_from(hash_at(stream, step, COMP_NORMAL + 1)),
     )
+
+
+@nb.njit(**JIT)
+def column_hash(vstream, step, comp):
+    """The 64-bit hash of component comp of a particle's vertical stream at a step."""
+    counter = np.uint64(step) * np.uint64(VERTICAL_COMPONENTS) + np.uint64(comp)
+    return mix64(vstream + counter * GOLDEN)
+
+
+@nb.njit(**JIT)
+def column_substeps(h, longest):
+    """Number of vertical substeps of a step of h seconds, each at most ``longest`` s (Visser's
+    criterion; inf: one), at most MAX_SUBSTEPS."""
+    if not (longest < h):
+        return 1
+    return min(int(math.ceil(h / longest)), MAX_SUBSTEPS)
+
+
+@nb.njit(**JIT)
+def column_walk(stream, step, sigma, depth, ustar, ws, params, h):
+    """A particle's vertical motion over a step of h seconds: ``vertical.column_step`` in
+    substeps that keep Visser's criterion in its column (``vertical.column_longest``). Returns
+    (sigma', deposited)."""
+    vstream = mix64(stream ^ VERTICAL_SALT)
+    n = column_substeps(h, vertical.column_longest(depth, ustar, params))
+    sub = h / n
+    for j in range(n):
+        r = normal_from(column_hash(vstream, step, 2 * j))
+        sigma, chance = vertical.column_step(sigma, depth, ustar, ws, params, sub, r)
+        if chance > 0.0 and open_unit(column_hash(vstream, step, 2 * j + 1)) < chance:
+            return 0.0, True
+    return sigma, False
 
 
 @nb.njit(**JIT)
@@ -552,7 +592,18 @@ def block_scratch(lo, hi, x, y, xe, ye, invc, key):
 
 @functools.cache
 def compiled_mover(
-    ndim, scheme, aligned, drift, geographic, kgrid, tensor, shared, centred, parallel, mesh=0
+    ndim,
+    scheme,
+    aligned,
+    drift,
+    geographic,
+    kgrid,
+    tensor,
+    shared,
+    centred,
+    parallel,
+    mesh=0,
+    vertical_mode=0,
 ):
     """The step loop, compiled for one set of options (the branches of the others removed).
 
@@ -575,6 +626,12 @@ def compiled_mover(
         On a mesh the argument tuples keep their shapes with other contents (see ``advance``),
         a particle's cell is its face, the walls and open boundaries are those of
         ``meshwalk.trace_mesh_path``, the drift is per face, and there is no bridge test.
+    vertical_mode : 0 depth-averaged; 1 a vertical step with constant K_z, 2 with parabolic K_z
+        (``column_walk``: ``vertical.column_step`` in substeps that keep Visser's criterion,
+        after the horizontal step, with the depth and u* of the cell the step starts in); a
+        particle whose substep ends below a depositing bed may go "on the bed"
+        (``STATUS_ON_BED``). The ``column`` argument is (sigma, w_s, depth, u*, params), see
+        ``advance``.
     """
     rk4 = scheme == 1
     on_nodes = mesh == 1
@@ -603,12 +660,20 @@ def compiled_mover(
         max_refl,
         bridge,
         topology,
+        column,
     ):
         ux, uy, U, vx, vy, V, invu = flow[0], flow[1], flow[2], flow[3], flow[4], flow[5], flow[6]
         face_nodes, neighbours, edge_open, hint = topology[0], topology[1], topology[2], topology[3]
         xe, ye, wet, cx, cy, invc = cells[0], cells[1], cells[2], cells[3], cells[4], cells[5]
         DX, DY, K1, K2, kconst, K3 = disp[0], disp[1], disp[2], disp[3], disp[4], disp[5]
         KM = disp[6]  # per-particle dispersion multipliers (ones for a single run)
+        sigma, settling, c_depth, c_ustar, c_params = (
+            column[0],
+            column[1],
+            column[2],
+            column[3],
+            column[4],
+        )
         tab_i = np.zeros((nsteps, 3), np.int64)
         tab_w = np.zeros((nsteps, 3))
         tab_decay = np.ones(nsteps)
@@ -848,6 +913,20 @@ def compiled_mover(
                         by[k] = qy
                         cell_i[k] = ci
                         cell_j[k] = cj
+                    if vertical_mode:
+                        sg, deposited = column_walk(
+                            stream,
+                            step0 + s,
+                            sigma[p],
+                            vertical.cell_frame_value(c_depth, it, wt, pj, pi),
+                            vertical.cell_frame_value(c_ustar, it, wt, pj, pi),
+                            settling[p],
+                            c_params,
+                            h,
+                        )
+                        sigma[p] = sg
+                        if deposited:
+                            st = STATUS_ON_BED
                     bst[k] = st
             for k in range(nb_):
                 x[lo + k] = bx[k]
@@ -881,6 +960,7 @@ def advance(
     key,
     decay_rate,
     topology=None,
+    column=None,
 ):
     """Advance every particle by ``nsteps`` steps of ``dt`` seconds from time ``t0``.
 
@@ -908,6 +988,11 @@ def advance(
         face (-1: unknown), updated in place. On a mesh ``flow`` is (_, _, U, _, _, V, _) with
         U, V (nf, 1, nnode or nface), ``cells`` is (node_x, node_y, wet (nf, 1, nface), _, _, _),
         and the drift (nf, 1, nface) is per face.
+    column : in three dimensions (sigma, w_s, depth, u*, params): each particle's height above
+        the bed as a fraction of the depth (updated in place) and settling velocity (m s-1, > 0
+        down); the depth (m) and bed shear velocity (m s-1) frames on the cells (nf or 1, ny, nx;
+        (nf or 1, 1, nface) on a mesh); params = ``vertical.column_params`` (its first entry,
+        the K_z mode, picks the compiled option). None: depth-averaged.
 
     Particles are independent, so any split over threads gives the same numbers bitwise. One block
     runs on the calling thread (waking the others would cost more than the work).
@@ -919,6 +1004,12 @@ def advance(
     if topology is None:
         none = np.zeros((1, 4), np.int64)
         topology = (none, none, none, np.zeros(1, np.int64))
+    vertical_mode = 0
+    if column is None:
+        flat = np.zeros((1, 1, 1))
+        column = (np.zeros(1), np.zeros(1), flat, flat, np.zeros(4))
+    else:
+        vertical_mode = int(column[4][0])
     move = compiled_mover(
         int(opts[0]),
         int(opts[1]),
@@ -931,6 +1022,7 @@ def advance(
         centred,
         x.shape[0] > BLOCK,
         int(opts[8]) if opts.shape[0] > 8 else 0,
+        vertical_mode,
     )
     move(
         x,
@@ -954,6 +1046,7 @@ def advance(
         int(opts[5]),
         bool(opts[4]),
         topology,
+        column,
     )
 
 

@@ -9,12 +9,12 @@ on their own axes, the wet mask on the cell grid, and the dispersion coefficient
 from __future__ import annotations
 
 from collections import OrderedDict
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Literal
 
 import numpy as np
 
-from walkers.engine import kernels, twin
+from walkers.engine import kernels, twin, vertical
 from walkers.engine.state import ParticleState
 from walkers.errors import InputError
 from walkers.fields.base import FlowField, FlowWindow, centre_to_edges
@@ -298,6 +298,8 @@ class KernelInputs:
     edges_mode: np.ndarray
     decay_rate: float
     topology: tuple | None = None  # on a mesh: face_nodes, neighbours, edge_open (and faces)
+    #: in three dimensions (depth, u*, params): see ``kernels.advance`` and ``with_column``
+    column: tuple | None = None
 
 
 def kernel_inputs(flow: FlowField, window: FlowWindow, transport: Transport) -> KernelInputs:
@@ -379,6 +381,14 @@ def advance(
     multiplier = state.dispersion_multiplier
     if multiplier is None:
         multiplier = np.ones(len(state))
+    column = None
+    if inputs.column is not None:
+        if state.sigma is None or state.settling is None:
+            raise InputError(
+                "a three-dimensional step needs each particle's place in its column: the "
+                "particle state has no sigma; place the particles with ParticleState.in_column"
+            )
+        column = (state.sigma, state.settling, *inputs.column)
     mod.advance(
         state.x,
         state.y,
@@ -400,7 +410,43 @@ def advance(
         np.uint64(key),
         float(inputs.decay_rate),
         topology,
+        column,
     )
+
+
+def with_column(
+    inputs: KernelInputs,
+    depth: np.ndarray,
+    ustar: np.ndarray | float,
+    mode: int,
+    kz: float = 0.0,
+    deposition_velocity: float = 0.0,
+    dt: float | None = None,
+) -> KernelInputs:
+    """The kernel inputs of a window with the vertical step (``walkers.engine.vertical``).
+
+    depth : water depth frames on the cells (nf or 1, ny, nx), m; ustar : bed shear velocity
+    (m s-1), a number or frames of the depth's shape; mode : ``vertical.KZ_CONSTANT`` (K_z = kz,
+    m2 s-1) or ``vertical.KZ_PARABOLIC``; deposition_velocity : w_d (m s-1), 0 a reflecting bed;
+    dt : the run's step (s), checked against the number of vertical substeps Visser's criterion
+    asks (``vertical.check_substeps``) when given.
+    """
+    if mode not in (vertical.KZ_CONSTANT, vertical.KZ_PARABOLIC):
+        raise InputError(f"vertical diffusivity mode {mode!r}: give 1 (constant) or 2 (parabolic)")
+    for name, value in (("vertical diffusivity", kz), ("deposition velocity", deposition_velocity)):
+        if not (np.isfinite(value) and value >= 0.0):
+            raise InputError(f"{name} = {value!r}: must be a number >= 0 (SI units)")
+    h = np.ascontiguousarray(depth, dtype=np.float64)
+    if h.ndim != 3:
+        raise InputError(f"column depth of shape {h.shape}: give frames (nf, ny, nx) in metres")
+    u = np.asarray(ustar, dtype=np.float64)
+    shape = np.broadcast_shapes(h.shape, u.shape)
+    h = np.ascontiguousarray(np.broadcast_to(h, shape))
+    u = np.ascontiguousarray(np.broadcast_to(u, shape))
+    params = vertical.column_params(mode, kz, deposition_velocity)
+    if dt is not None:
+        vertical.check_substeps(dt, h, u, params)
+    return replace(inputs, column=(h, u, params))
 
 
 def advect_points(

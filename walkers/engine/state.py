@@ -8,6 +8,7 @@ Status codes (int8):
  2    held dry: held in a cell that has dried; moves again when it wets
  3    decayed: mass below 1e-15 of its initial mass; no longer moved
  4+e  went out of the domain through open edge e (0 west, 1 east, 2 south, 3 north)
+-1    on the bed: deposited (three-dimensional runs with a depositing bed); no longer moved
 ====  =========================================================
 """
 
@@ -17,11 +18,14 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from walkers.errors import InputError
+
 WAITING = 0
 IN_WATER = 1
 HELD_DRY = 2
 DECAYED = 3
 EXITED = 4  # EXITED + edge index
+ON_BED = -1
 
 BYTES_PER_PARTICLE = 6 * 8 + 1
 
@@ -51,6 +55,11 @@ class ParticleState:
     #: the state proper (a resumed run finds the faces again)
     face: np.ndarray | None = None
     dispersion_multiplier: np.ndarray | None = None
+    #: in three dimensions, each particle's height above the bed as a fraction of the local
+    #: water depth (0 bed, 1 surface; see ``walkers.engine.vertical``), None in depth-averaged runs
+    sigma: np.ndarray | None = None
+    #: in three dimensions, each particle's settling velocity (m s-1; > 0 down, < 0 rising)
+    settling: np.ndarray | None = None
 
     @classmethod
     def from_arrays(
@@ -74,7 +83,29 @@ class ParticleState:
     def copy(self) -> ParticleState:
         out = ParticleState(**{k: v.copy() for k, v in self.arrays().items()})
         out.face = None if self.face is None else self.face.copy()
+        out.sigma = None if self.sigma is None else self.sigma.copy()
+        out.settling = None if self.settling is None else self.settling.copy()
         return out
+
+    def in_column(
+        self, sigma: np.ndarray | float, settling: np.ndarray | float = 0.0
+    ) -> ParticleState:
+        """The same particles placed in their water columns (three dimensions): ``sigma`` their
+        heights above the bed as fractions of the depth, ``settling`` their settling velocities
+        (m s-1, > 0 down); returns self."""
+        n = len(self)
+        if not np.all((np.asarray(sigma) >= 0.0) & (np.asarray(sigma) <= 1.0)):
+            raise InputError(
+                "particle heights in the column: give fractions of the depth from 0 (bed) to 1 "
+                "(surface)"
+            )
+        if not np.all(np.isfinite(settling)):
+            raise InputError("settling velocities: give finite numbers in m s-1 (> 0 down)")
+        self.sigma = np.ascontiguousarray(np.broadcast_to(sigma, (n,)), dtype=np.float64).copy()
+        self.settling = np.ascontiguousarray(
+            np.broadcast_to(settling, (n,)), dtype=np.float64
+        ).copy()
+        return self
 
     def arrays(self) -> dict[str, np.ndarray]:
         out = {

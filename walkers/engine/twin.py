@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from walkers.engine import meshwalk_twin
+from walkers.engine import meshwalk_twin, vertical_twin
 from walkers.engine.kernels import (
     COMP_BRIDGE_X,
     COMP_BRIDGE_Y,
@@ -17,11 +17,15 @@ from walkers.engine.kernels import (
     COMPONENTS,
     DECAYED_FRACTION,
     DEG,
+    MAX_SUBSTEPS,
     STATUS_DECAYED,
     STATUS_EXITED,
     STATUS_HELD_DRY,
+    STATUS_ON_BED,
     STATUS_WAITING,
     STATUS_WATER,
+    VERTICAL_COMPONENTS,
+    VERTICAL_SALT,
     WGS84_A,
     WGS84_E2,
     ZIG_F,
@@ -358,6 +362,7 @@ def advance(
     key,
     decay_rate,
     topology=None,
+    column=None,
 ):
     """Numpy twin of :func:`walkers.engine.kernels.advance` (same arguments, in place)."""
     ndim, scheme, aligned, has_drift, bridge, max_refl, geographic, tensor = (
@@ -530,5 +535,54 @@ def advance(
         moved = gone | placed
         x[act[moved]] = qx[moved]
         y[act[moved]] = qy[moved]
+        if column is not None:
+            stay = ~gone
+            if mesh:
+                cells_at = (face[stay], np.zeros(int(stay.sum()), np.int64))
+            else:
+                cells_at = (pi[stay], pj[stay])
+            _column(
+                column,
+                act[stay],
+                streams[stay],
+                step0 + s,
+                it[stay],
+                wt[stay],
+                h[stay],
+                cells_at,
+                status,
+            )
     if mesh:
         hint[:] = faces_all
+
+
+def _column_hashes(vstreams, step, comp):
+    counter = np.uint64(step) * np.uint64(VERTICAL_COMPONENTS) + np.uint64(comp)
+    return mix64(vstreams + np.full_like(vstreams, counter) * _GOLDEN)
+
+
+def _column(column, act, streams, step, it, wt, h, cells_at, status):
+    """Twin of the kernel's ``column_walk`` for the particles ``act`` still in the water after
+    the horizontal step, in the cells ``cells_at`` (i, j) where their steps began."""
+    sigma, settling, depth, ustar, params = column
+    i, j = cells_at
+    vstreams = mix64(streams ^ VERTICAL_SALT)
+    hw = vertical_twin.cell_frame_values(depth, it, wt, j, i)
+    us = vertical_twin.cell_frame_values(ustar, it, wt, j, i)
+    longest = vertical_twin.column_longest(hw, us, params)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        n = np.where(longest < h, np.minimum(np.ceil(h / longest), MAX_SUBSTEPS), 1).astype(int)
+    sub = h / n
+    sg = sigma[act]
+    ws = settling[act]
+    down = np.zeros(act.size, bool)
+    for k in range(int(n.max()) if n.size else 0):
+        on = np.flatnonzero((k < n) & ~down)
+        r = normals(_column_hashes(vstreams[on], step, 2 * k))
+        new, chance = vertical_twin.column_steps(sg[on], hw[on], us[on], ws[on], params, sub[on], r)
+        sg[on] = new
+        u = _open_unit(_column_hashes(vstreams[on], step, 2 * k + 1))
+        down[on] = (chance > 0.0) & (u < chance)
+    sg[down] = 0.0
+    sigma[act] = sg
+    status[act[down]] = STATUS_ON_BED

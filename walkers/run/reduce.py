@@ -15,7 +15,15 @@ import numpy as np
 from scipy.ndimage import gaussian_filter
 
 from walkers.engine import kernels
-from walkers.engine.state import DECAYED, EXITED, HELD_DRY, IN_WATER, WAITING, ParticleState
+from walkers.engine.state import (
+    DECAYED,
+    EXITED,
+    HELD_DRY,
+    IN_WATER,
+    ON_BED,
+    WAITING,
+    ParticleState,
+)
 from walkers.fields.geo import metres_per_degree
 from walkers.scenario.config import EDGE_NAMES, OutputGrid, Receptor
 
@@ -101,15 +109,16 @@ def mass_budget(
     state: ParticleState, edges: int = len(EDGE_NAMES)
 ) -> dict[str, np.ndarray | float]:
     """Mass (kg) released, in water, out through each of ``edges`` edges (or a mesh's open
-    boundaries), decayed and held dry.
+    boundaries), decayed and held dry; in three dimensions (``state.sigma`` set) also on the bed.
 
-    released = in water + Σ outflow + decayed + held dry holds to round-off: decayed is what each
-    released particle lost since release, plus the remainder of particles retired as decayed.
+    released = in water + Σ outflow + decayed + held dry (+ on the bed) holds to round-off:
+    decayed is what each released particle lost since release, plus the remainder of particles
+    retired as decayed.
     """
     st = state.status
     released = st != WAITING
     outflow = np.array([state.mass[st == EXITED + e].sum() for e in range(edges)])
-    return {
+    budget: dict[str, np.ndarray | float] = {
         "budget_released": float(state.initial_mass[released].sum()),
         "budget_in_water": float(state.mass[st == IN_WATER].sum()),
         "budget_held_dry": float(state.mass[st == HELD_DRY].sum()),
@@ -120,6 +129,9 @@ def mass_budget(
         "budget_outflow": outflow,
         "particles_in_water": int(np.count_nonzero(st == IN_WATER)),
     }
+    if state.sigma is not None:
+        budget["budget_on_bed"] = float(state.mass[st == ON_BED].sum())
+    return budget
 
 
 def cloud_moments(state: ParticleState, geographic: bool) -> dict[str, float]:
