@@ -118,6 +118,13 @@ class FlowField:
         # caches of derived arrays (e.g. the engine's dispersion frames) stay in their process
         return {k: v for k, v in self.__dict__.items() if not k.startswith("_")}
 
+    def close(self) -> None:
+        """Close the files its lazy variables read from (they reopen if read again)."""
+        for var in (self.u, self.v, self.depth, self.wet):
+            source = getattr(var.data, "source", None)
+            if source is not None and hasattr(source, "close"):
+                source.close()
+
     @property
     def x(self) -> np.ndarray:
         """Cell-centre x coordinates (m or degrees east)."""

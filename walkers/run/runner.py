@@ -268,9 +268,25 @@ def simulate_scenario(
     on_output: Callable[[RunState], None] | None = None,
     flow: FlowField | None = None,
 ) -> xr.Dataset:
-    """Run a scenario and return its result Dataset (nothing is written)."""
+    """Run a scenario and return its result Dataset (nothing is written).
+
+    A flow opened here has its files closed when the run ends, interrupted or not, so that a
+    later run in the same process reads the files as they are then (HDF5 would otherwise serve
+    the old contents of a file still open)."""
+    if flow is None:
+        opened = build_flow(scenario.flow)
+        try:
+            return simulate_scenario(
+                scenario,
+                stepper=stepper,
+                progress=progress,
+                resume=resume,
+                on_output=on_output,
+                flow=opened,
+            )
+        finally:
+            opened.close()
     provenance = input_provenance(scenario)
-    flow = build_flow(scenario.flow) if flow is None else flow
     offset = flow_offset(scenario, flow)
     check_places(scenario, flow, offset)
     check_memory(scenario, flow)
