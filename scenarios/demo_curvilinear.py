@@ -6,7 +6,7 @@ northing as in the rectilinear demo; its 24 cells span the funnel from bank to b
 centre(y) ± max(1.1 W(y), 400 m) with the funnel's centreline and half-width W of
 :func:`make_demo_flows.estuary_geometry`, so the grid lines along the estuary follow the banks and
 the cells narrow upstream (from about 220 m across at the mouth to 41 m). The coordinates are 2-D
-(``x_rho``, ``y_rho`` with cell bounds, CF-1.8 §5.2 and §7.1) on WGS 84 / UTM zone 30N.
+(``x_centre``, ``y_centre`` with cell bounds, CF-1.8 §5.2 and §7.1) on WGS 84 / UTM zone 30N.
 
 Flow: the rectilinear demo's bed is evaluated at the new cell centres from the same formulas; the
 depth-averaged velocity of saltmarsh_estuary_flow.nc is interpolated bilinearly to the new cell
@@ -95,9 +95,9 @@ def _bed(xc: np.ndarray, yc: np.ndarray, mod) -> np.ndarray:
 
 
 def _dataset(cx, cy, xc, yc, bed, water, layered, vel, mod) -> xr.Dataset:
-    rho = ("eta_rho", "xi_rho")
+    cells = ("j", "i")
     crs = CRS.from_epsg(mod.EPSG).to_cf()
-    common = {"grid_mapping": "crs", "coordinates": "x_rho y_rho"}
+    common = {"grid_mapping": "crs", "coordinates": "x_centre y_centre"}
     ring = np.stack([cx[:-1, :-1], cx[:-1, 1:], cx[1:, 1:], cx[1:, :-1]], axis=-1)
     ring_y = np.stack([cy[:-1, :-1], cy[:-1, 1:], cy[1:, 1:], cy[1:, :-1]], axis=-1)
     variables = {
@@ -105,30 +105,30 @@ def _dataset(cx, cy, xc, yc, bed, water, layered, vel, mod) -> xr.Dataset:
         "crs": xr.Variable((), np.int32(0), crs),
         "layer": layered["layer"].variable,
         "layer_bounds": layered["layer_bounds"].variable,
-        "x_rho": xr.Variable(
-            rho,
+        "x_centre": xr.Variable(
+            cells,
             xc,
             {
                 "standard_name": "projection_x_coordinate",
                 "long_name": "easting of cell centre",
                 "units": "m",
-                "bounds": "x_rho_bounds",
+                "bounds": "x_corners",
             },
         ),
-        "y_rho": xr.Variable(
-            rho,
+        "y_centre": xr.Variable(
+            cells,
             yc,
             {
                 "standard_name": "projection_y_coordinate",
                 "long_name": "northing of cell centre",
                 "units": "m",
-                "bounds": "y_rho_bounds",
+                "bounds": "y_corners",
             },
         ),
-        "x_rho_bounds": xr.Variable((*rho, "four"), ring, {"units": "m"}),
-        "y_rho_bounds": xr.Variable((*rho, "four"), ring_y, {"units": "m"}),
+        "x_corners": xr.Variable((*cells, "corner"), ring, {"units": "m"}),
+        "y_corners": xr.Variable((*cells, "corner"), ring_y, {"units": "m"}),
         "zeta": xr.Variable(
-            ("time", *rho),
+            ("time", *cells),
             np.broadcast_to(
                 layered["zeta"].values[:, :1, :1], (layered["time"].size, *xc.shape)
             ).astype(np.float32),
@@ -140,7 +140,7 @@ def _dataset(cx, cy, xc, yc, bed, water, layered, vel, mod) -> xr.Dataset:
             },
         ),
         "bed_depth": xr.Variable(
-            rho,
+            cells,
             (-bed).astype(np.float32),
             {
                 "standard_name": "sea_floor_depth_below_mean_sea_level",
@@ -149,8 +149,8 @@ def _dataset(cx, cy, xc, yc, bed, water, layered, vel, mod) -> xr.Dataset:
                 **common,
             },
         ),
-        "mask_rho": xr.Variable(
-            rho,
+        "water_mask": xr.Variable(
+            cells,
             water.astype(np.int8),
             {
                 "long_name": "water (1) or land (0) on cell centres",
@@ -162,7 +162,7 @@ def _dataset(cx, cy, xc, yc, bed, water, layered, vel, mod) -> xr.Dataset:
     }
     for name, std in (("u", "eastward_sea_water_velocity"), ("v", "northward_sea_water_velocity")):
         variables[name] = xr.Variable(
-            ("time", "layer", *rho),
+            ("time", "layer", *cells),
             vel[name].astype(np.float32),
             {
                 "standard_name": std,

@@ -64,17 +64,17 @@ def write_curvilinear(
     with netCDF4.Dataset(path, "w") as ds:
         ds.Conventions = "CF-1.8"
         ds.createDimension("time", None)
-        ds.createDimension("eta_rho", ny)
-        ds.createDimension("xi_rho", nx)
-        ds.createDimension("four", 4)
-        t = ds.createVariable("ocean_time", "f8", ("time",))
+        ds.createDimension("j", ny)
+        ds.createDimension("i", nx)
+        ds.createDimension("corner", 4)
+        t = ds.createVariable("frame_time", "f8", ("time",))
         t.units, t.standard_name = "seconds since 2026-04-01 00:00:00", "time"
         t[:] = times
         if geographic:
-            names = ("lon_rho", "lat_rho")
+            names = ("lon_centre", "lat_centre")
             attrs = (("longitude", "degrees_east"), ("latitude", "degrees_north"))
         else:
-            names = ("x_rho", "y_rho")
+            names = ("x_centre", "y_centre")
             attrs = (("projection_x_coordinate", "m"), ("projection_y_coordinate", "m"))
             crs = ds.createVariable("crs", "i4")
             crs.grid_mapping_name = "transverse_mercator"
@@ -84,26 +84,28 @@ def write_curvilinear(
         for name, values, (std, unit), corner in zip(
             names, (cx, cy), attrs, (corner_x, corner_y), strict=True
         ):
-            var = ds.createVariable(name, "f8", ("eta_rho", "xi_rho"))
+            var = ds.createVariable(name, "f8", ("j", "i"))
             var.standard_name, var.units = std, unit
             var[:] = values
             if bounds:
-                var.bounds = name + "_bounds"
-                b = ds.createVariable(name + "_bounds", "f8", ("eta_rho", "xi_rho", "four"))
+                var.bounds = name.replace("_centre", "_corners")
+                b = ds.createVariable(
+                    name.replace("_centre", "_corners"), "f8", ("j", "i", "corner")
+                )
                 b[:] = np.stack(
                     [corner[:-1, :-1], corner[:-1, 1:], corner[1:, 1:], corner[1:, :-1]], axis=-1
                 )
         coords = " ".join(names)
         extra = {} if geographic else {"grid_mapping": "crs"}
-        h = ds.createVariable("h", "f8", ("eta_rho", "xi_rho"))
+        h = ds.createVariable("depth", "f8", ("j", "i"))
         h.standard_name, h.units, h.coordinates = "sea_floor_depth_below_geoid", "m", coords
         h.long_name = "water depth"
         h[:] = np.broadcast_to(depth, (ny, nx))
         # the reader takes a depth variable: name it as the depth role
         h.standard_name = "sea_floor_depth_below_sea_surface"
         if land is not None:
-            mask = ds.createVariable("mask_rho", "f8", ("eta_rho", "xi_rho"))
-            mask.long_name, mask.coordinates = "mask on rho points", coords
+            mask = ds.createVariable("water_mask", "f8", ("j", "i"))
+            mask.long_name, mask.coordinates = "water (1) or land (0) at the cell centres", coords
             mask.flag_values = np.array([0.0, 1.0])
             mask.flag_meanings = "land water"
             mask[:] = np.where(land, 0.0, 1.0)
@@ -123,14 +125,14 @@ def write_curvilinear(
                     corner_y[:-1, 1:] - corner_y[:-1, :-1] + corner_y[1:, 1:] - corner_y[1:, :-1]
                 )
                 theta = np.arctan2(dyi, dxi)
-                ang = ds.createVariable("angle", "f8", ("eta_rho", "xi_rho"))
+                ang = ds.createVariable("angle", "f8", ("j", "i"))
                 ang.standard_name, ang.units = "angle_of_rotation_from_east_to_x", "radians"
                 ang[:] = theta
                 c, s = np.cos(theta), np.sin(theta)
                 ue, vn = ue * c + vn * s, -ue * s + vn * c
                 std = ("sea_water_x_velocity", "sea_water_y_velocity")
-            for name, data, sn in zip(("ubar", "vbar"), (ue, vn), std, strict=True):
-                var = ds.createVariable(name, "f8", ("time", "eta_rho", "xi_rho"))
+            for name, data, sn in zip(("u", "v"), (ue, vn), std, strict=True):
+                var = ds.createVariable(name, "f8", ("time", "j", "i"))
                 var.standard_name, var.units, var.coordinates = sn, "m s-1", coords
                 for k2, v2 in extra.items():
                     var.setncattr(k2, v2)
@@ -143,8 +145,8 @@ def _staggered_velocity(ds, corner_x, corner_y, velocity, times, geographic, ext
     each the component along its grid axis (the unit vector between the two cell centres)."""
     ny, nx = corner_x.shape[0] - 1, corner_x.shape[1] - 1
     cx, cy = centres_of(corner_x, corner_y)
-    ds.createDimension("xi_u", nx - 1)
-    ds.createDimension("eta_v", ny - 1)
+    ds.createDimension("i_face", nx - 1)
+    ds.createDimension("j_face", ny - 1)
     # face midpoints between neighbouring centres
     ux, uy = 0.5 * (cx[:, 1:] + cx[:, :-1]), 0.5 * (cy[:, 1:] + cy[:, :-1])
     vx, vy = 0.5 * (cx[1:] + cx[:-1]), 0.5 * (cy[1:] + cy[:-1])
@@ -155,8 +157,8 @@ def _staggered_velocity(ds, corner_x, corner_y, velocity, times, geographic, ext
     u_along = (ue * ex + un * ey) / np.hypot(ex, ey)
     v_along = (ve * fx + vn * fy) / np.hypot(fx, fy)
     for name, (px, py), dims, data in (
-        ("u", (ux, uy), ("eta_rho", "xi_u"), u_along),
-        ("v", (vx, vy), ("eta_v", "xi_rho"), v_along),
+        ("u", (ux, uy), ("j", "i_face"), u_along),
+        ("v", (vx, vy), ("j_face", "i"), v_along),
     ):
         cnames = (f"x_{name}", f"y_{name}") if not geographic else (f"lon_{name}", f"lat_{name}")
         units = ("m", "m") if not geographic else ("degrees_east", "degrees_north")

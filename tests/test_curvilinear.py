@@ -189,7 +189,7 @@ def test_nan_and_folded_coordinates_are_refused(tmp_path):
         bounds=False,
         centre_override=(bad, Y),
     )
-    with pytest.raises(InputError, match=r"nan\.nc.*x_rho.*missing.*\(j=2, i=3\)"):
+    with pytest.raises(InputError, match=r"nan\.nc.*x_centre.*missing.*\(j=2, i=3\)"):
         open_flow(path)
     folded = X.copy()
     folded[:, 3] = X[:, 0]  # column 3 written where column 0 is: the grid turns back on itself
@@ -353,22 +353,20 @@ def test_z_levels_on_a_lon_lat_curvilinear_grid_are_averaged_by_thickness(tmp_pa
     speeds = np.array([0.9, 0.6, 0.3])  # m/s, eastward, in each level
     want = float(np.sum(speeds * np.diff(faces)) / 10.0)  # thickness-weighted: 0.48 m/s
     with netCDF4.Dataset(path, "a") as ds:
-        ds.createDimension("depth", 3)
+        ds.createDimension("z", 3)
         ds.createDimension("nb", 2)
-        z = ds.createVariable("depth", "f8", ("depth",))
+        z = ds.createVariable("z", "f8", ("z",))
         z.standard_name, z.units, z.positive, z.axis = "depth", "m", "down", "Z"
-        z.bounds = "depth_bnds"
+        z.bounds = "z_bnds"
         z[:] = 0.5 * (faces[1:] + faces[:-1])
-        zb = ds.createVariable("depth_bnds", "f8", ("depth", "nb"))
+        zb = ds.createVariable("z_bnds", "f8", ("z", "nb"))
         zb[:] = np.stack([faces[:-1], faces[1:]], axis=1)
-        ds["h"][:] = 10.0
-        for name, value in (("ubar", speeds), ("vbar", 0 * speeds)):
+        ds["depth"][:] = 10.0
+        for name, value in (("u", speeds), ("v", 0 * speeds)):
             ds.renameVariable(name, name + "_2d")
-            var = ds.createVariable(
-                name[0], "f8", ("time", "depth", "eta_rho", "xi_rho"), fill_value=-9999.0
-            )
+            var = ds.createVariable(name, "f8", ("time", "z", "j", "i"), fill_value=-9999.0)
             var.standard_name = ds[name + "_2d"].standard_name
-            var.units, var.coordinates = "m s-1", "lon_rho lat_rho"
+            var.units, var.coordinates = "m s-1", "lon_centre lat_centre"
             var[:] = np.broadcast_to(value[None, :, None, None], (1, 3, 30, 40))
             del ds[name + "_2d"].standard_name
             ds[name + "_2d"].long_name = "unused"

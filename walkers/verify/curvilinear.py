@@ -208,34 +208,47 @@ def case_channel(particles: int, seed: int, dispersion_factor: float = 1.0) -> C
 
 
 def case_wall(particles: int, seed: int, wall: str = "land") -> CaseResult:
-    """A straight coast (rows of land) along a rotated curvilinear grid: the distance from the
-    wall follows the law of a normal mirrored in the wall (``wall="absent"``: no land)."""
+    """A straight coast along a rotated curvilinear grid: the distance from the wall follows the
+    law of a normal mirrored in the wall. Twice: land filling every row below the wall with
+    steps of 0.56 cell (σ of a step against the 8 m cell side), and a coast one cell thick with
+    steps of 1.5 cells, through which nothing may pass (``wall="absent"``: no land)."""
     angle, k, d0, t_end = math.radians(30.0), 1.0, 50.0, 1800.0
     sigma = math.sqrt(2 * k * t_end)
     ny, nx, dx, dy = 120, 120, 12.0, 8.0
     cx, cy = rotated_corners(nx, ny, dx, dy, angle)
-    wet = np.ones((ny, nx), dtype=bool)
     wall_row = 40
-    if wall == "land":
-        wet[:wall_row] = False
-    flow = curvilinear_flow(cx, cy, [0.0], _rest, depth=10.0, wet=wet)
     # the wall is the line j = wall_row - 1/2: along the i axis, at dy * wall_row from its foot
     normal = np.array([-math.sin(angle), math.cos(angle)])
     along = np.array([math.cos(angle), math.sin(angle)])
     start = along * (dx * nx / 2) + normal * (dy * wall_row + d0)
-    tr = Transport(
-        dt=10.0,
-        dispersion=Dispersion(k1=k, k2=k),
-        edges=dict.fromkeys(INDEX_EDGE_NAMES, "reflecting"),
-    )
-    x, y = _plume(flow, tr, float(start[0]), float(start[1]), particles, seed, t_end)
-    dist = x * normal[0] + y * normal[1] - dy * wall_row
     cdf = lambda v: analytic.reflected_normal_cdf(v, x0=d0, sigma=sigma)  # noqa: E731
     result = CaseResult("curvilinear-wall", "Coast along a rotated curvilinear grid", particles)
-    result.checks += [
-        Check("particles kept (fraction)", len(x) / particles, 1.0, 0.0, IMAGES),
-        ks_check("KS distance to images law", dist, cdf, IMAGES),
-    ]
+    for label, dt, rows in (
+        ("0.56-cell steps", 10.0, slice(0, wall_row)),
+        ("1.5-cell steps, coast one cell thick", 72.0, slice(wall_row - 1, wall_row)),
+    ):
+        wet = np.ones((ny, nx), dtype=bool)
+        if wall == "land":
+            wet[rows] = False
+        flow = curvilinear_flow(cx, cy, [0.0], _rest, depth=10.0, wet=wet)
+        tr = Transport(
+            dt=dt,
+            dispersion=Dispersion(k1=k, k2=k),
+            edges=dict.fromkeys(INDEX_EDGE_NAMES, "reflecting"),
+        )
+        x, y = _plume(flow, tr, float(start[0]), float(start[1]), particles, seed, t_end)
+        dist = x * normal[0] + y * normal[1] - dy * wall_row
+        result.checks += [
+            Check(f"{label}: particles kept (fraction)", len(x) / particles, 1.0, 0.0, IMAGES),
+            Check(
+                f"{label}: particles behind the wall",
+                float(np.sum(dist < 0.0)),
+                0.0,
+                0.0,
+                "a reflecting wall lets nothing through (common practice)",
+            ),
+            ks_check(f"{label}: KS distance to images law", dist, cdf, IMAGES),
+        ]
     return result
 
 
