@@ -183,7 +183,9 @@ def test_regenerated_file_equals_committed(regenerated: Path, name: str) -> None
                 # numpy's trigonometric functions may differ by an ulp between CPUs (SIMD paths)
                 # and versions: regenerated values agree to a few ulps of the stored type
                 # (common practice), which still catches any change of the generator.
-                np.testing.assert_allclose(b, a, rtol=4 * np.finfo(a.dtype).eps, atol=0, err_msg=var)
+                np.testing.assert_allclose(
+                    b, a, rtol=4 * np.finfo(a.dtype).eps, atol=0, err_msg=var
+                )
             else:
                 np.testing.assert_array_equal(a, b, err_msg=var)
             assert old[var].attrs.keys() == new[var].attrs.keys(), var
