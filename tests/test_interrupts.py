@@ -196,8 +196,11 @@ def test_a_signalled_run_leaves_nothing_partial_and_resumes_to_the_same_bits(
     else:
         handled = reader.first("walkers: interrupted")
         assert proc.returncode == 130, reader.text
-        assert handled is not None and handled - sent < 1.0, reader.text
-        assert stopped < 5.0  # the rest is the interpreter's own shutdown
+        # Promptly: the handler answers at the next particle block, well inside a second on an
+        # idle machine; the bounds are loose because CI may share its cores (at load 9 the stop
+        # took 5.5 s). A handler that waited for the run to end would leave its output file.
+        assert handled is not None and handled - sent < 10.0, reader.text
+        assert stopped < 30.0  # the rest is the interpreter's own shutdown
         assert f"is saved in {ckpt}; continue with: walkers run" in reader.text
         assert f"-o {out} --resume --checkpoint-every" in reader.text
         assert "Traceback" not in reader.text
