@@ -319,4 +319,9 @@ def simulate_scenario(
     ds.attrs["release_places"] = release_places(scenario)
     ds.attrs["run_start"] = scenario.start_iso
     ds.attrs["run_end"] = scenario.end_iso
+    if transport.vertical is not None:
+        from walkers.run.column import describe_releases, describe_vertical
+
+        ds.attrs["vertical"] = describe_vertical(transport.vertical)
+        ds.attrs["release_behaviour"] = describe_releases(scenario.releases)
     return ds

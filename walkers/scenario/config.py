@@ -12,6 +12,7 @@ from typing import Literal
 
 import numpy as np
 
+from walkers.engine.coefficients import SEA_WATER_DENSITY
 from walkers.errors import InputError
 
 EDGE_NAMES = ("west", "east", "south", "north")
@@ -57,6 +58,78 @@ class Dispersion:
 
 
 @dataclass(frozen=True)
+class Vertical:
+    """The vertical step of a three-dimensional run (``walkers.engine.vertical``), SI units.
+
+    diffusivity : vertical diffusivity K_z: ``"parabolic"`` (K_z = κ u* z (1 − z/h), u* from the
+        bed roughness ``manning_n`` (s m^-1/3) or ``drag_coefficient``, as
+        :func:`walkers.engine.coefficients.shear_velocity`), ``"constant"`` (``coefficient``,
+        m2 s-1).
+    deposition_velocity : w_d (m s-1) of a depositing bed; 0 is a reflecting bed.
+    critical_shear_stress : tau_c (Pa) above which particles on the bed go back into the water;
+        None: no resuspension. erosion_rate : the rate of resuspension (s-1) per unit excess
+        stress tau / tau_c − 1. water_density : rho (kg m-3) of tau = rho u*^2.
+    """
+
+    diffusivity: Literal["parabolic", "constant"] = "parabolic"
+    coefficient: float = 0.0
+    manning_n: float | None = None
+    drag_coefficient: float | None = None
+    deposition_velocity: float = 0.0
+    critical_shear_stress: float | None = None
+    erosion_rate: float = 0.0
+    water_density: float = SEA_WATER_DENSITY
+
+    def __post_init__(self) -> None:
+        if self.diffusivity not in ("parabolic", "constant"):
+            raise InputError(
+                f"vertical.diffusivity = {self.diffusivity!r}: expected 'parabolic' or 'constant'"
+            )
+        for name in ("coefficient", "deposition_velocity", "erosion_rate"):
+            value = getattr(self, name)
+            if not (np.isfinite(value) and value >= 0):
+                raise InputError(f"vertical.{name} = {value!r}: must be a finite number >= 0")
+        if self.diffusivity == "parabolic" and (self.manning_n is None) == (
+            self.drag_coefficient is None
+        ):
+            raise InputError(
+                "vertical.diffusivity = 'parabolic' needs the bed roughness for u*: give "
+                "vertical.manning_n or vertical.drag_coefficient (or estimate the horizontal "
+                "dispersion with one, [dispersion] method = 'estimated')"
+            )
+        tau = self.critical_shear_stress
+        if tau is not None and not (np.isfinite(tau) and tau > 0):
+            raise InputError(f"vertical.critical_shear_stress = {tau!r}: must be > 0 Pa")
+
+    @property
+    def kz_mode(self) -> int:
+        """The K_z mode of ``walkers.engine.vertical`` (KZ_CONSTANT 1 or KZ_PARABOLIC 2)."""
+        return 1 if self.diffusivity == "constant" else 2
+
+    def describe(self) -> str:
+        """K_z and the bed in words, for the run summary and ``walkers inspect``."""
+        if self.diffusivity == "constant":
+            kz = f"constant K_z = {self.coefficient:.4g} m2/s"
+        else:
+            rough = (
+                f"Manning n = {self.manning_n:g} s m^-1/3"
+                if self.manning_n is not None
+                else f"drag coefficient {self.drag_coefficient:g}"
+            )
+            kz = f"parabolic K_z = 0.41 u* z (1 - z/h), u* from {rough}"
+        if self.deposition_velocity > 0:
+            bed = f"depositing bed, w_d = {self.deposition_velocity * 1e3:.4g} mm/s"
+            if self.critical_shear_stress is not None:
+                bed += (
+                    f", resuspension above {self.critical_shear_stress:g} Pa at "
+                    f"{self.erosion_rate:g} 1/s per unit excess stress"
+                )
+        else:
+            bed = "reflecting bed"
+        return f"{kz}; {bed}"
+
+
+@dataclass(frozen=True)
 class Transport:
     """How particles move: time step, scheme, dispersion, decay and edge behaviour.
 
@@ -71,6 +144,7 @@ class Transport:
         step is refused and the particle kept in place (never reached at sensible steps).
     drift_correction : include the drift (1/h)∇·(hK). Always on in practice; switching it off
         exists only to show what goes wrong without it (the well-mixed verification's twin).
+    vertical : the vertical step of a three-dimensional run; None: depth-averaged.
     """
 
     dt: float
@@ -82,6 +156,7 @@ class Transport:
     bridge: bool = True
     max_reflections: int = 100
     drift_correction: bool = True
+    vertical: Vertical | None = None
 
     def __post_init__(self) -> None:
         if not (np.isfinite(self.dt) and self.dt > 0):
@@ -118,6 +193,12 @@ class Release:
         integrating it (trapezoidal) over [start, start + duration].
     particles : number of particles this release uses.
     name : label for outputs.
+    behaviour : in three dimensions, ``"neutral"``, ``"settling"`` or ``"rising"``.
+    settling, settling_fractions : the settling velocities (m s-1, > 0 down, < 0 rising) of the
+        release's particles and the share of the particles that has each (sum 1).
+    start_height : where in the column the particles start: ``"surface"``, ``"bed"``,
+        ``"column"`` (uniform over the depth) or ``"above_bed"`` (``height_above_bed`` m above the
+        bed, at most the depth).
     """
 
     shape: Literal["point", "line", "circle", "polygon"]
@@ -130,6 +211,11 @@ class Release:
     rate_times: np.ndarray | None = None
     rates: np.ndarray | None = None
     name: str = "release"
+    behaviour: Literal["neutral", "settling", "rising"] = "neutral"
+    settling: tuple[float, ...] = (0.0,)
+    settling_fractions: tuple[float, ...] = (1.0,)
+    start_height: Literal["surface", "bed", "column", "above_bed"] = "column"
+    height_above_bed: float = 0.0
 
     def __post_init__(self) -> None:
         if self.shape not in ("point", "line", "circle", "polygon"):
@@ -145,6 +231,28 @@ class Release:
             raise InputError(f"release {self.name!r}: mass must be > 0 kg")
         if self.shape == "circle" and not self.radius > 0:
             raise InputError(f"release {self.name!r}: a circle needs a radius > 0 m")
+        self._check_column()
+
+    def _check_column(self) -> None:
+        """The vertical behaviour's values (InputError naming the release)."""
+        w = np.asarray(self.settling, dtype=np.float64)
+        f = np.asarray(self.settling_fractions, dtype=np.float64)
+        if w.size < 1 or w.shape != f.shape or not np.all(np.isfinite(w)):
+            raise InputError(
+                f"release {self.name!r}: give one finite settling velocity per fraction"
+            )
+        if not (np.all(f > 0) and abs(f.sum() - 1.0) <= 1e-9):
+            raise InputError(
+                f"release {self.name!r}: the fractions of the settling velocities must be > 0 "
+                f"and add up to 1 (they add up to {f.sum():.6g})"
+            )
+        if self.start_height not in ("surface", "bed", "column", "above_bed"):
+            raise InputError(
+                f"release {self.name!r}: start_height {self.start_height!r}; expected surface, "
+                "bed, column or above_bed"
+            )
+        if not (np.isfinite(self.height_above_bed) and self.height_above_bed >= 0):
+            raise InputError(f"release {self.name!r}: height_above_bed must be >= 0 m")
 
 
 @dataclass(frozen=True)
