@@ -92,9 +92,7 @@ class _Accumulator:
         acc.conc_max, acc.receptor = arrays["conc_max"], arrays["receptor"]
         acc.outflow, acc.in_water = arrays["outflow"], arrays["in_water"]
         acc.track_x, acc.track_y = arrays.get("track_x"), arrays.get("track_y")
-        acc.budget = {
-            k[len("budget.") :]: v for k, v in arrays.items() if k.startswith("budget.")
-        }
+        acc.budget = {k[len("budget.") :]: v for k, v in arrays.items() if k.startswith("budget.")}
         acc.moments = {
             k: arrays[f"moment.{k}"]
             for k in ("centroid_x", "centroid_y", "variance_x", "variance_y", "covariance_xy")

@@ -77,7 +77,9 @@ def place_in_columns(
             sigma[mine] = rng.uniform(0.0, 1.0, mine.size)
         elif r.start_height == "above_bed":
             h = depth[mine]
-            sigma[mine] = np.where(h > r.height_above_bed, r.height_above_bed / np.maximum(h, 1e-9), 1.0)
+            sigma[mine] = np.where(
+                h > r.height_above_bed, r.height_above_bed / np.maximum(h, 1e-9), 1.0
+            )
         w = np.asarray(r.settling, dtype=np.float64)
         if w.size == 1:
             settling[mine] = w[0]
@@ -97,7 +99,10 @@ def _depth_at_release(particles: ParticleState, flow: FlowField) -> np.ndarray:
     for f in np.unique(frame):
         pick = frame == f
         part = ParticleState.from_arrays(
-            particles.x[pick], particles.y[pick], np.ones(int(pick.sum())), np.zeros(int(pick.sum()))
+            particles.x[pick],
+            particles.y[pick],
+            np.ones(int(pick.sum())),
+            np.zeros(int(pick.sum())),
         )
         out[pick] = reduce.particle_depths(part, flow.depth.frames(int(f), int(f))[0], xe, ye)
     return out

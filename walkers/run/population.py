@@ -92,9 +92,7 @@ def make_population(
     owners: list[np.ndarray] = []
     releases: list[Release] = []
     for rels, member in zip(member_releases, members, strict=True):
-        particles, owner = released_particles(
-            rels, flow, run_streams(seed, member)[1], transport
-        )
+        particles, owner = released_particles(rels, flow, run_streams(seed, member)[1], transport)
         parts.append(particles)
         owners.append(owner + len(releases))
         releases += list(rels)

@@ -12,10 +12,10 @@ from typing import Any, Literal
 
 import numpy as np
 
-from walkers.engine.coefficients import stokes_settling_velocity
 from walkers.errors import InputError
 from walkers.scenario.config import Dispersion, OutputGrid, Receptor, Release, Vertical
 from walkers.scenario.keys import MAX_OUTPUT_CELLS
+from walkers.scenario.settling import stokes_settling_velocity
 from walkers.scenario.specs import DispersionSpec, EnsembleSpec, FlowSpec, LayerSelection
 from walkers.scenario.walk import _check_lonlat, _coordinate, _resolve_path, _seconds
 

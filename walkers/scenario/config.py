@@ -12,7 +12,6 @@ from typing import Literal
 
 import numpy as np
 
-from walkers.engine.coefficients import SEA_WATER_DENSITY
 from walkers.errors import InputError
 
 EDGE_NAMES = ("west", "east", "south", "north")
@@ -20,6 +19,9 @@ EDGE_NAMES = ("west", "east", "south", "north")
 #: j = 0, the last row), in the same order as EDGE_NAMES; `walkers inspect` says which way each
 #: faces.
 INDEX_EDGE_NAMES = ("first_i", "last_i", "first_j", "last_j")
+#: Density of sea water (kg m-3) at about 15 °C and salinity 35 (common practice): the rho of the
+#: bed shear stress tau = rho u*^2 and of Stokes' settling law.
+SEA_WATER_DENSITY = 1026.0
 
 
 @dataclass(frozen=True)
