@@ -6,6 +6,7 @@ of the particle sample (stated beside each). The runs are small (a few thousand 
 analytic flow of a few cells) and use the option sets test_vertical.py compiles already.
 """
 
+import json
 import math
 
 import numba
@@ -19,8 +20,8 @@ from walkers.run import checkpoint, column
 from walkers.run.population import make_population
 from walkers.run.runner import simulate_scenario
 from walkers.run.simulate import released_particles
-from walkers.scenario.load import load_scenario
 from walkers.scenario.config import Vertical
+from walkers.scenario.load import load_scenario
 from walkers.scenario.settling import stokes_settling_velocity
 
 H = 4.0  # m, the depth of the analytic flows
@@ -166,9 +167,7 @@ def deposition_run():
         "bed": "depositing",
         "deposition_velocity": f"{WD * 1e3} mm/s",
     }
-    sc = load_scenario(
-        scenario(vertical=vertical, coefficient="0 m2/s", particles=4000, dt="10 s")
-    )
+    sc = load_scenario(scenario(vertical=vertical, coefficient="0 m2/s", particles=4000, dt="10 s"))
     return simulate_scenario(sc)
 
 
@@ -441,3 +440,45 @@ def test_3d_needs_a_depth_from_the_flow_file(tmp_path):
     column.check_column_flow(flow, Vertical(diffusivity="constant", coefficient=0.01))
     flow.close()
 
+
+def toml_text(table, prefix=""):
+    """TOML of a scenario table of the shapes :func:`scenario` makes (values, tables, arrays of
+    tables), for the command line."""
+    plain = {k: v for k, v in table.items() if not isinstance(v, dict | list) or _values(v)}
+    lines = [f"{k} = {json.dumps(v)}" for k, v in plain.items()]
+    for k, v in table.items():
+        name = f"{prefix}{k}"
+        if isinstance(v, dict):
+            lines += [f"[{name}]", toml_text(v, f"{name}.")]
+        elif isinstance(v, list) and not _values(v):
+            for item in v:
+                lines += [f"[[{name}]]", toml_text(item, f"{name}.")]
+    return "\n".join(lines)
+
+
+def _values(v):
+    return isinstance(v, list) and not any(isinstance(i, dict) for i in v)
+
+
+def test_inspect_of_a_scenario_says_whether_its_run_is_3d(tmp_path):
+    """`walkers inspect case.toml`: K_z, the bed, the behaviours and Visser's substeps of a 3-D
+    run (u* = sqrt(0.0025) 0.3 m/s = 0.015 m/s in 4 m: substeps of at most 0.01 h / (2 κ u*) =
+    3.25 s, so 19 for a step of 60 s); a depth-averaged one says so (the twin)."""
+    from click.testing import CliRunner
+
+    from walkers.cli import main
+
+    out = {}
+    for name, vertical in (("deep", PARABOLIC), ("flat", None)):
+        table = scenario(vertical=vertical, release=SETTLING if vertical else None, u=0.3)
+        path = tmp_path / f"{name}.toml"
+        path.write_text(toml_text(table), encoding="utf-8")
+        res = CliRunner().invoke(main, ["inspect", str(path)])
+        assert res.exit_code == 0, res.output
+        out[name] = res.output
+    assert "Run: three-dimensional: parabolic K_z = 0.41 u* z (1 - z/h)" in out["deep"]
+    assert "depositing bed, w_d = 0.5 mm/s" in out["deep"]
+    assert "no vertical velocity in the flow file: none used" in out["deep"]
+    assert "r: settling (50 % at 0.1 mm/s, 50 % at 1 mm/s), from 1 m above the bed" in out["deep"]
+    assert f"up to {math.ceil(60.0 / (0.01 * H / (2 * 0.41 * 0.015)))} (Visser" in out["deep"]
+    assert "Run: depth-averaged" in out["flat"] and "three-dimensional" not in out["flat"]

@@ -158,6 +158,40 @@ def column_inputs(
     )
 
 
+def describe_scenario_column(scenario, flow: FlowField) -> list[str]:
+    """Lines for ``walkers inspect`` of a scenario: whether its run is three-dimensional, K_z and
+    the bed, each release's behaviour, and the vertical substeps Visser's criterion asks of its
+    time step over the run (InputError when the flow cannot carry a 3-D run)."""
+    from walkers.engine import vertical as column_step
+    from walkers.engine.dispersion import transport_for
+    from walkers.run.runner import flow_offset
+
+    transport = transport_for(scenario, flow)
+    v = transport.vertical
+    if v is None:
+        return ["Run: depth-averaged (no [vertical] section)"]
+    check_column_flow(flow, v)
+    offset = flow_offset(scenario, flow)
+    window = flow.window(offset, offset + scenario.duration)
+    ustar = cell_shear_velocity(flow, window, v)
+    h = np.ascontiguousarray(window.depth)
+    shape = np.broadcast_shapes(h.shape, ustar.shape)
+    params = column_step.column_params(v.kz_mode, v.coefficient, v.deposition_velocity)
+    substeps = column_step.check_substeps(
+        scenario.dt,
+        np.ascontiguousarray(np.broadcast_to(h, shape)),
+        np.ascontiguousarray(np.broadcast_to(ustar, shape)),
+        params,
+    )
+    return [
+        f"Run: three-dimensional: {describe_vertical(v)}",
+        f"  releases in the water column: {describe_releases(scenario.releases)}",
+        f"  vertical substeps per time step of {scenario.dt:g} s: up to {substeps} (Visser 1997: "
+        f"each at most {column_step.VISSER_FRACTION:g} / max|d2K_z/dz2| in columns deeper than "
+        f"{column_step.SHALLOW_COLUMN:g} m)",
+    ]
+
+
 def describe_vertical(vertical: Vertical) -> str:
     """The run's vertical step in words: K_z, the bed, and the vertical velocity used."""
     return (
