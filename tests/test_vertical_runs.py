@@ -373,6 +373,18 @@ def test_stokes_settling_balances_the_buoyant_weight_against_the_drag():
         (None, {"start_height": "bed"}, r"releases\[0\]\.start_height: applies to three-dim"),
         ({"diffusivity": "constant"}, None, r"vertical\.coefficient"),
         ({"diffusivity": "parabolic"}, None, r"vertical\.diffusivity = 'parabolic'.*roughness"),
+        (
+            {
+                "diffusivity": "constant",
+                "coefficient": "0.01 m2/s",
+                "bed": "depositing",
+                "deposition_velocity": "0.1 mm/s",
+                "critical_shear_stress": "0.2 Pa",
+                "erosion_rate": "1e-4 1/s",
+            },
+            None,
+            r"vertical\.diffusivity = 'constant'.*resuspension .* needs the bed roughness",
+        ),
         ({"diffusivity": "sideways"}, None, r"vertical\.diffusivity = 'sideways'"),
         (
             {"diffusivity": "constant", "coefficient": "0.01 m2/s", "bed": "depositing"},

@@ -49,6 +49,11 @@ def check_column_flow(flow: FlowField, vertical: Vertical) -> None:
             "one in); a three-dimensional run needs the depth of every column from the file: "
             "add a depth or water level to it, or remove [vertical]"
         )
+    if vertical.diffusivity == "file":
+        raise InputError(
+            "vertical.diffusivity = 'file': K_z from the flow file is not in this build's "
+            "vertical step yet; give 'parabolic' or 'constant'"
+        )
     if vertical.critical_shear_stress is not None:
         raise InputError(
             "vertical.critical_shear_stress: resuspension is not in this build's vertical step "
@@ -111,10 +116,11 @@ def _depth_at_release(particles: ParticleState, flow: FlowField) -> np.ndarray:
 def cell_shear_velocity(flow: FlowField, window: FlowWindow, vertical: Vertical) -> np.ndarray:
     """Bed shear velocity u* (m s-1) on the cells for each frame of the window (nf, ny, nx): the
     depth-averaged speed interpolated to the cell centres (physical speed on a curvilinear grid),
-    with the roughness of ``vertical``; 0 in dry cells and for a constant K_z (unused there)."""
+    with the roughness of ``vertical``; 0 in dry cells, and everywhere when nothing uses u* (a
+    constant K_z or one from the file without resuspension)."""
     nf = max(window.u.shape[0], window.v.shape[0], window.depth.shape[0])
     ny, nx = flow.depth.data.shape[1:]
-    if vertical.diffusivity == "constant":
+    if not vertical.uses_shear_velocity:
         return np.zeros((1, ny, nx))
     out = np.zeros((nf, ny, nx))
     for f in range(nf):

@@ -66,14 +66,15 @@ class Vertical:
     diffusivity : vertical diffusivity K_z: ``"parabolic"`` (K_z = κ u* z (1 − z/h), u* from the
         bed roughness ``manning_n`` (s m^-1/3) or ``drag_coefficient``, as
         :func:`walkers.engine.coefficients.shear_velocity`), ``"constant"`` (``coefficient``,
-        m2 s-1).
+        m2 s-1) or ``"file"`` (K_z read from the flow file).
     deposition_velocity : w_d (m s-1) of a depositing bed; 0 is a reflecting bed.
     critical_shear_stress : tau_c (Pa) above which particles on the bed go back into the water;
         None: no resuspension. erosion_rate : the rate of resuspension (s-1) per unit excess
-        stress tau / tau_c − 1. water_density : rho (kg m-3) of tau = rho u*^2.
+        stress tau / tau_c − 1. water_density : rho (kg m-3) of tau = rho u*^2. u* (of a
+        parabolic K_z and of tau) comes from ``manning_n`` or ``drag_coefficient``.
     """
 
-    diffusivity: Literal["parabolic", "constant"] = "parabolic"
+    diffusivity: Literal["parabolic", "constant", "file"] = "parabolic"
     coefficient: float = 0.0
     manning_n: float | None = None
     drag_coefficient: float | None = None
@@ -83,35 +84,43 @@ class Vertical:
     water_density: float = SEA_WATER_DENSITY
 
     def __post_init__(self) -> None:
-        if self.diffusivity not in ("parabolic", "constant"):
+        if self.diffusivity not in ("parabolic", "constant", "file"):
             raise InputError(
-                f"vertical.diffusivity = {self.diffusivity!r}: expected 'parabolic' or 'constant'"
+                f"vertical.diffusivity = {self.diffusivity!r}: expected 'parabolic', 'constant' "
+                "or 'file'"
             )
         for name in ("coefficient", "deposition_velocity", "erosion_rate"):
             value = getattr(self, name)
             if not (np.isfinite(value) and value >= 0):
                 raise InputError(f"vertical.{name} = {value!r}: must be a finite number >= 0")
-        if self.diffusivity == "parabolic" and (self.manning_n is None) == (
-            self.drag_coefficient is None
-        ):
+        if self.uses_shear_velocity and (self.manning_n is None) == (self.drag_coefficient is None):
             raise InputError(
-                "vertical.diffusivity = 'parabolic' needs the bed roughness for u*: give "
-                "vertical.manning_n or vertical.drag_coefficient (or estimate the horizontal "
-                "dispersion with one, [dispersion] method = 'estimated')"
+                "vertical: a parabolic K_z or resuspension needs the bed roughness for u*: give "
+                "one of vertical.manning_n or vertical.drag_coefficient (or estimate the "
+                "horizontal dispersion with one, [dispersion] method = 'estimated')"
             )
         tau = self.critical_shear_stress
         if tau is not None and not (np.isfinite(tau) and tau > 0):
             raise InputError(f"vertical.critical_shear_stress = {tau!r}: must be > 0 Pa")
 
     @property
+    def uses_shear_velocity(self) -> bool:
+        """Whether the bed shear velocity u* is needed: by a parabolic K_z, or by resuspension
+        (tau = rho u*^2)."""
+        return self.diffusivity == "parabolic" or self.critical_shear_stress is not None
+
+    @property
     def kz_mode(self) -> int:
-        """The K_z mode of ``walkers.engine.vertical`` (KZ_CONSTANT 1 or KZ_PARABOLIC 2)."""
-        return 1 if self.diffusivity == "constant" else 2
+        """The K_z mode of ``walkers.engine.vertical``: KZ_CONSTANT 1, KZ_PARABOLIC 2 or
+        KZ_FILE 3."""
+        return {"constant": 1, "parabolic": 2, "file": 3}[self.diffusivity]
 
     def describe(self) -> str:
         """K_z and the bed in words, for the run summary and ``walkers inspect``."""
         if self.diffusivity == "constant":
             kz = f"constant K_z = {self.coefficient:.4g} m2/s"
+        elif self.diffusivity == "file":
+            kz = "K_z from the flow file"
         else:
             rough = (
                 f"Manning n = {self.manning_n:g} s m^-1/3"

@@ -123,6 +123,8 @@ def _build(
             "flow.analytic: analytic flows are laid out in metres; give positions as x/y"
         )
     flow = _build_flow(s["flow"], base, start, end, run_length)
+    if s["vertical"] is not None:
+        flow = dataclasses.replace(flow, column=True)
     dispersion = _build_dispersion(s["dispersion"])
     base_transport, transport = _transports(s, run["scheme"], dt, dispersion)
     out = s["output"]

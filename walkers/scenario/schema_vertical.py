@@ -14,10 +14,10 @@ VERTICAL = Section(
     {
         "diffusivity": Key(
             "choice",
-            "K_z: 'parabolic' (K_z = 0.41 u* z (1 - z/h), u* from the bed roughness) or "
-            "'constant' (give coefficient).",
+            "K_z: 'parabolic' (K_z = 0.41 u* z (1 - z/h), u* from the bed roughness), "
+            "'constant' (give coefficient) or 'file' (the flow file's vertical diffusivity).",
             default="parabolic",
-            allowed=("parabolic", "constant"),
+            allowed=("parabolic", "constant", "file"),
         ),
         "coefficient": Key(
             "quantity",
@@ -29,16 +29,14 @@ VERTICAL = Section(
         "manning_n": Key(
             "number",
             "Manning roughness n (s m^-1/3) of u* = n |U| sqrt(g) / h^(1/6); default: that of "
-            "[dispersion] when it is estimated.",
+            "[dispersion] when it is estimated. For a parabolic K_z and for resuspension.",
             bound="positive",
-            only_when="diffusivity=parabolic",
         ),
         "drag_coefficient": Key(
             "number",
             "Bed drag coefficient C_d of u* = sqrt(C_d) |U|; default: that of [dispersion] when "
-            "it is estimated.",
+            "it is estimated. For a parabolic K_z and for resuspension.",
             bound="positive",
-            only_when="diffusivity=parabolic",
         ),
         "bed": Key(
             "choice",
