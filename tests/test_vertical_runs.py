@@ -494,3 +494,43 @@ def test_inspect_of_a_scenario_says_whether_its_run_is_3d(tmp_path):
     assert "r: settling (50 % at 0.1 mm/s, 50 % at 1 mm/s), from 1 m above the bed" in out["deep"]
     assert f"up to {math.ceil(60.0 / (0.01 * H / (2 * 0.41 * 0.015)))} (Visser" in out["deep"]
     assert "Run: depth-averaged" in out["flat"] and "three-dimensional" not in out["flat"]
+
+
+@pytest.mark.parametrize("walk_member", [3, 4])
+def test_a_3d_population_of_one_member_is_bitwise_its_own_run(walk_member):
+    """Member 3 moved as a population (heights and settling velocities per particle) gives the
+    bits of its own run with the same walk key; the twin (member 4's walk key) does not."""
+    from walkers.engine.dispersion import transport_for
+    from walkers.engine.randomness import run_streams
+    from walkers.fields.scenario_flow import build_flow
+    from walkers.run.population import simulate_population
+    from walkers.run.simulate import simulate
+
+    sc = settling_scenario()
+    flow = build_flow(sc.flow)
+    tr = transport_for(sc, flow)
+    run = {"start": 0.0, "end": sc.duration, "output_interval": sc.output_interval}
+    own = simulate(flow, tr, sc.releases, output_grid=sc.output, seed=sc.seed, member=3, **run)
+    pop = make_population([sc.releases], [1.0], [3], sc.seed, flow, tr)
+    nt = own.sizes["time"]
+    conc = np.zeros((nt, sc.output.ny, sc.output.nx))
+    on_bed = np.zeros(nt)
+
+    def keep(k, b, c, values, budget):
+        conc[k], on_bed[k] = c, budget["budget_on_bed"]
+
+    simulate_population(
+        flow,
+        tr,
+        pop,
+        keep,
+        output_grid=sc.output,
+        receptors=(),
+        walk_key=run_streams(sc.seed, walk_member)[0],
+        **run,
+    )
+    same = np.array_equal(conc, own.concentration.values) and np.array_equal(
+        on_bed, own.budget_on_bed.values
+    )
+    assert same == (walk_member == 3)
+    assert on_bed[-1] > 0.0

@@ -299,9 +299,7 @@ def _say_how_to_resume(
         )
 
 
-@main.command(
-    "inspect", short_help="Describe a flow file (or a scenario's) and the largest stable time step."
-)
+@main.command("inspect", short_help="Describe a flow file or a scenario's flow and run.")
 @click.argument("files", nargs=-1, required=True)
 @click.option(
     "--dispersion",
