@@ -534,3 +534,21 @@ def test_a_3d_population_of_one_member_is_bitwise_its_own_run(walk_member):
     )
     assert same == (walk_member == 3)
     assert on_bed[-1] > 0.0
+
+
+def test_shear_velocity_on_a_curvilinear_grid_is_that_of_the_physical_speed():
+    """A rotated, stretched grid carrying a uniform 0.5 m/s current: u* on every cell is
+    sqrt(C_d) |U| = 0.025 m/s (coefficients.shear_velocity, common practice), whatever the
+    index-space components; the twin (the index-space speed taken as the speed) is not."""
+    from walkers.fields.analytic import curvilinear_flow
+
+    a, b = np.meshgrid(np.arange(6.0) * 150.0, np.arange(5.0) * 80.0)
+    ang = math.radians(30.0)
+    cx, cy = a * math.cos(ang) - b * math.sin(ang), a * math.sin(ang) + b * math.cos(ang)
+    flow = curvilinear_flow(cx, cy, [0.0], lambda X, Y, t: (0.3 + 0 * X, 0.4 + 0 * Y), depth=5.0)
+    vertical = Vertical(drag_coefficient=0.0025)
+    window = flow.window(0.0, 0.0)
+    ustar = column.cell_shear_velocity(flow, window, vertical)
+    assert np.allclose(ustar, 0.05 * 0.5, rtol=1e-12)
+    index_speed = np.hypot(window.u[0], window.v[0])
+    assert not np.allclose(0.05 * index_speed, 0.05 * 0.5, rtol=1e-3)
