@@ -360,6 +360,8 @@ def test_stokes_settling_balances_the_buoyant_weight_against_the_drag():
     )
     with pytest.raises(InputError, match=r"releases\[0\].grain_sizes\[1\] = 200 um: Stokes"):
         stokes_settling_velocity(200e-6, rho_s, "releases[0].grain_sizes[1]")
+    with pytest.raises(InputError, match=r"grain: grains of density 1000 kg/m3 do not sink"):
+        stokes_settling_velocity(d, 1000.0, "grain")
 
 
 # ---------------------------------------------------------------------------------------------
@@ -421,6 +423,36 @@ def test_stokes_settling_balances_the_buoyant_weight_against_the_drag():
             r"releases\[0\]\.grain_sizes\[0\] = 300 um: Stokes' law holds",
         ),
         (PARABOLIC, {"behaviour": "rising"}, r"releases\[0\]: missing; give one of rise_velocity"),
+        (
+            PARABOLIC,
+            {"behaviour": "settling", "grain_sizes": ["10 um", "20 um"], "fractions": [1.0]},
+            r"releases\[0\]\.fractions: 1 fractions for 2 grain sizes",
+        ),
+        (
+            PARABOLIC,
+            {"behaviour": "settling", "settling_velocity": "1 mm/s", "fractions": [1.0]},
+            r"releases\[0\]\.fractions: shares go with settling_velocities or grain_sizes",
+        ),
+        (
+            PARABOLIC,
+            {
+                "behaviour": "settling",
+                "grain_sizes": ["10 um"],
+                "fractions": [1.0],
+                "grain_density": "1 g/cm3",
+            },
+            r"releases\[0\]\.grain_density = 1000 kg/m3: grains must be denser",
+        ),
+        (
+            PARABOLIC,
+            {"start_height": "middle"},
+            r"releases\[0\]\.start_height = 'middle'.*'surface', 'bed', 'column', 'above_bed'",
+        ),
+        (
+            PARABOLIC,
+            {"start_height": "above_bed", "height_above_bed": "-1 m"},
+            r"releases\[0\]\.height_above_bed = '-1 m': must be 0 or greater",
+        ),
         (
             PARABOLIC,
             {"behaviour": "rising", "settling_velocity": "1 mm/s", "rise_velocity": "1 mm/s"},

@@ -18,6 +18,7 @@ A run is three-dimensional when its transport has a :class:`~walkers.scenario.co
 from __future__ import annotations
 
 from collections.abc import Sequence
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -28,6 +29,9 @@ from walkers.errors import InputError
 from walkers.fields.base import FlowField, FlowWindow, centre_to_edges
 from walkers.run import reduce
 from walkers.scenario.config import Release, Vertical
+
+if TYPE_CHECKING:
+    from walkers.scenario.specs import Scenario
 
 
 def check_column_flow(flow: FlowField, vertical: Vertical) -> None:
@@ -164,7 +168,7 @@ def column_inputs(
     )
 
 
-def describe_scenario_column(scenario, flow: FlowField) -> list[str]:
+def describe_scenario_column(scenario: Scenario, flow: FlowField) -> list[str]:
     """Lines for ``walkers inspect`` of a scenario: whether its run is three-dimensional, K_z and
     the bed, each release's behaviour, and the vertical substeps Visser's criterion asks of its
     time step over the run (InputError when the flow cannot carry a 3-D run)."""

@@ -13,7 +13,14 @@ from typing import Any, Literal
 import numpy as np
 
 from walkers.errors import InputError
-from walkers.scenario.config import Dispersion, OutputGrid, Receptor, Release, Vertical
+from walkers.scenario.config import (
+    SEA_WATER_DENSITY,
+    Dispersion,
+    OutputGrid,
+    Receptor,
+    Release,
+    Vertical,
+)
 from walkers.scenario.keys import MAX_OUTPUT_CELLS
 from walkers.scenario.settling import stokes_settling_velocity
 from walkers.scenario.specs import DispersionSpec, EnsembleSpec, FlowSpec, LayerSelection
@@ -76,6 +83,11 @@ def _release_column(r: dict[str, Any], where: str) -> dict[str, Any]:
     if r["behaviour"] == "rising":
         out["settling"] = (-r["rise_velocity"],)
     elif r["settling_velocity"] is not None:
+        if r["fractions"] is not None:
+            raise InputError(
+                f"{where}.fractions: shares go with settling_velocities or grain_sizes, not with "
+                "one settling_velocity; remove fractions or give a list of velocities"
+            )
         out["settling"] = (r["settling_velocity"],)
     elif r["behaviour"] == "settling":
         key = "settling_velocities" if r["settling_velocities"] is not None else "grain_sizes"
@@ -96,6 +108,12 @@ def _release_column(r: dict[str, Any], where: str) -> dict[str, Any]:
                 f"up to {total:.6g})"
             )
         if key == "grain_sizes":
+            if not r["grain_density"] > SEA_WATER_DENSITY:
+                raise InputError(
+                    f"{where}.grain_density = {r['grain_density']:g} kg/m3: grains must be "
+                    f"denser than sea water ({SEA_WATER_DENSITY:g} kg/m3) to settle; for a "
+                    "buoyant release give behaviour = 'rising' and rise_velocity"
+                )
             velocities = tuple(
                 stokes_settling_velocity(d, r["grain_density"], f"{where}.grain_sizes[{i}]")
                 for i, d in enumerate(r[key])
