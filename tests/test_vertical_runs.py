@@ -6,23 +6,19 @@ of the particle sample (stated beside each). The runs are small (a few thousand 
 analytic flow of a few cells) and use the option sets test_vertical.py compiles already.
 """
 
-import json
 import math
 
 import numba
 import numpy as np
 import pytest
 
-from walkers.engine.state import ON_BED
-from walkers.errors import InputError
-from walkers.fields.netcdf.open import open_flow
+from walkers.engine.state import ON_BED, ParticleState
 from walkers.run import checkpoint, column
 from walkers.run.population import make_population
 from walkers.run.runner import simulate_scenario
 from walkers.run.simulate import released_particles
 from walkers.scenario.config import Vertical
 from walkers.scenario.load import load_scenario
-from walkers.scenario.settling import stokes_settling_velocity
 
 H = 4.0  # m, the depth of the analytic flows
 
@@ -343,191 +339,6 @@ def test_a_rising_release_gathers_at_the_surface():
     assert abs(upper["neutral"] - 0.5) < 5 * se, upper
 
 
-# ---------------------------------------------------------------------------------------------
-# Stokes' law (Stokes 1851, Trans. Camb. Phil. Soc. 9): the buoyant weight of a sphere balances
-# the drag 3 π μ d w; a 10 µm quartz grain in sea water settles at about 0.07 mm/s
-
-
-def test_stokes_settling_balances_the_buoyant_weight_against_the_drag():
-    d, rho_s, rho, mu, g = 10e-6, 2650.0, 1026.0, 1.2e-3, 9.80665
-    w = stokes_settling_velocity(d, rho_s)
-    weight = (rho_s - rho) * g * math.pi * d**3 / 6.0
-    assert 3.0 * math.pi * mu * d * w == pytest.approx(weight, rel=1e-12)
-    assert 0.06e-3 < w < 0.08e-3
-    # the twin: the drag of a twice larger grain does not balance this grain's weight
-    assert 3.0 * math.pi * mu * 2 * d * stokes_settling_velocity(2 * d, rho_s) != pytest.approx(
-        weight, rel=1e-3
-    )
-    with pytest.raises(InputError, match=r"releases\[0\].grain_sizes\[1\] = 200 um: Stokes"):
-        stokes_settling_velocity(200e-6, rho_s, "releases[0].grain_sizes[1]")
-    with pytest.raises(InputError, match=r"grain: grains of density 1000 kg/m3 do not sink"):
-        stokes_settling_velocity(d, 1000.0, "grain")
-
-
-# ---------------------------------------------------------------------------------------------
-# Bad inputs name the key
-
-
-@pytest.mark.parametrize(
-    ("vertical", "release", "message"),
-    [
-        (None, {"behaviour": "settling", "settling_velocity": "1 mm/s"}, r"releases\[0\]\.behav"),
-        (None, {"start_height": "bed"}, r"releases\[0\]\.start_height: applies to three-dim"),
-        ({"diffusivity": "constant"}, None, r"vertical\.coefficient"),
-        ({"diffusivity": "parabolic"}, None, r"vertical\.diffusivity = 'parabolic'.*roughness"),
-        (
-            {
-                "diffusivity": "constant",
-                "coefficient": "0.01 m2/s",
-                "bed": "depositing",
-                "deposition_velocity": "0.1 mm/s",
-                "critical_shear_stress": "0.2 Pa",
-                "erosion_rate": "1e-4 1/s",
-            },
-            None,
-            r"vertical\.diffusivity = 'constant'.*resuspension .* needs the bed roughness",
-        ),
-        ({"diffusivity": "sideways"}, None, r"vertical\.diffusivity = 'sideways'"),
-        (
-            {"diffusivity": "constant", "coefficient": "0.01 m2/s", "bed": "depositing"},
-            None,
-            r"vertical: missing; give one of deposition_velocity",
-        ),
-        (
-            {"diffusivity": "constant", "coefficient": "0.01 m2/s", "deposition_velocity": 1e-4},
-            None,
-            r"vertical\.deposition_velocity: applies only when bed = 'depositing'",
-        ),
-        (
-            {"diffusivity": "constant", "coefficient": "0.01 kg"},
-            None,
-            r"vertical\.coefficient = '0.01 kg'",
-        ),
-        (
-            PARABOLIC,
-            {"behaviour": "settling", "settling_velocities": ["1 mm/s", "2 mm/s"]},
-            r"releases\[0\]\.settling_velocities: give the share",
-        ),
-        (
-            PARABOLIC,
-            {
-                "behaviour": "settling",
-                "settling_velocities": ["1 mm/s", "2 mm/s"],
-                "fractions": [0.5, 0.6],
-            },
-            r"releases\[0\]\.fractions = \[0.5, 0.6\]: the shares must add up to 1",
-        ),
-        (
-            PARABOLIC,
-            {"behaviour": "settling", "grain_sizes": ["300 um"], "fractions": [1.0]},
-            r"releases\[0\]\.grain_sizes\[0\] = 300 um: Stokes' law holds",
-        ),
-        (PARABOLIC, {"behaviour": "rising"}, r"releases\[0\]: missing; give one of rise_velocity"),
-        (
-            PARABOLIC,
-            {"behaviour": "settling", "grain_sizes": ["10 um", "20 um"], "fractions": [1.0]},
-            r"releases\[0\]\.fractions: 1 fractions for 2 grain sizes",
-        ),
-        (
-            PARABOLIC,
-            {"behaviour": "settling", "settling_velocity": "1 mm/s", "fractions": [1.0]},
-            r"releases\[0\]\.fractions: shares go with settling_velocities or grain_sizes",
-        ),
-        (
-            PARABOLIC,
-            {
-                "behaviour": "settling",
-                "grain_sizes": ["10 um"],
-                "fractions": [1.0],
-                "grain_density": "1 g/cm3",
-            },
-            r"releases\[0\]\.grain_density = 1000 kg/m3: grains must be denser",
-        ),
-        (
-            PARABOLIC,
-            {"start_height": "middle"},
-            r"releases\[0\]\.start_height = 'middle'.*'surface', 'bed', 'column', 'above_bed'",
-        ),
-        (
-            PARABOLIC,
-            {"start_height": "above_bed", "height_above_bed": "-1 m"},
-            r"releases\[0\]\.height_above_bed = '-1 m': must be 0 or greater",
-        ),
-        (
-            PARABOLIC,
-            {"behaviour": "rising", "settling_velocity": "1 mm/s", "rise_velocity": "1 mm/s"},
-            r"releases\[0\]\.settling_velocity: applies only when behaviour = 'settling'",
-        ),
-        (
-            PARABOLIC,
-            {"start_height": "above_bed"},
-            r"releases\[0\]: missing; give one of height_above_bed",
-        ),
-    ],
-)
-def test_bad_vertical_keys_are_refused_naming_the_key(vertical, release, message):
-    with pytest.raises(InputError, match=message):
-        load_scenario(scenario(vertical=vertical, release=release))
-
-
-def test_3d_needs_a_depth_from_the_flow_file(tmp_path):
-    from flowfiles import write_flow
-
-    path = write_flow(tmp_path / "flow.nc", depth=None)
-    flow = open_flow(path, constant_depth=8.0)
-    with pytest.raises(InputError, match=r"vertical: the flow file .* has no water depth"):
-        column.check_column_flow(flow, Vertical(diffusivity="constant", coefficient=0.01))
-    flow.close()
-    # the twin: the same file with its depth is accepted
-    path = write_flow(tmp_path / "deep.nc")
-    flow = open_flow(path)
-    column.check_column_flow(flow, Vertical(diffusivity="constant", coefficient=0.01))
-    flow.close()
-
-
-def toml_text(table, prefix=""):
-    """TOML of a scenario table of the shapes :func:`scenario` makes (values, tables, arrays of
-    tables), for the command line."""
-    plain = {k: v for k, v in table.items() if not isinstance(v, dict | list) or _values(v)}
-    lines = [f"{k} = {json.dumps(v)}" for k, v in plain.items()]
-    for k, v in table.items():
-        name = f"{prefix}{k}"
-        if isinstance(v, dict):
-            lines += [f"[{name}]", toml_text(v, f"{name}.")]
-        elif isinstance(v, list) and not _values(v):
-            for item in v:
-                lines += [f"[[{name}]]", toml_text(item, f"{name}.")]
-    return "\n".join(lines)
-
-
-def _values(v):
-    return isinstance(v, list) and not any(isinstance(i, dict) for i in v)
-
-
-def test_inspect_of_a_scenario_says_whether_its_run_is_3d(tmp_path):
-    """`walkers inspect case.toml`: K_z, the bed, the behaviours and Visser's substeps of a 3-D
-    run (u* = sqrt(0.0025) 0.3 m/s = 0.015 m/s in 4 m: substeps of at most 0.01 h / (2 κ u*) =
-    3.25 s, so 19 for a step of 60 s); a depth-averaged one says so (the twin)."""
-    from click.testing import CliRunner
-
-    from walkers.cli import main
-
-    out = {}
-    for name, vertical in (("deep", PARABOLIC), ("flat", None)):
-        table = scenario(vertical=vertical, release=SETTLING if vertical else None, u=0.3)
-        path = tmp_path / f"{name}.toml"
-        path.write_text(toml_text(table), encoding="utf-8")
-        res = CliRunner().invoke(main, ["inspect", str(path)])
-        assert res.exit_code == 0, res.output
-        out[name] = res.output
-    assert "Run: three-dimensional: parabolic K_z = 0.41 u* z (1 - z/h)" in out["deep"]
-    assert "depositing bed, w_d = 0.5 mm/s" in out["deep"]
-    assert "no vertical velocity in the flow file: none used" in out["deep"]
-    assert "r: settling (50 % at 0.1 mm/s, 50 % at 1 mm/s), from 1 m above the bed" in out["deep"]
-    assert f"up to {math.ceil(60.0 / (0.01 * H / (2 * 0.41 * 0.015)))} (Visser" in out["deep"]
-    assert "Run: depth-averaged" in out["flat"] and "three-dimensional" not in out["flat"]
-
-
 @pytest.mark.parametrize("walk_member", [3, 4])
 def test_a_3d_population_of_one_member_is_bitwise_its_own_run(walk_member):
     """Member 3 moved as a population (heights and settling velocities per particle) gives the
@@ -584,3 +395,27 @@ def test_shear_velocity_on_a_curvilinear_grid_is_that_of_the_physical_speed():
     assert np.allclose(ustar, 0.05 * 0.5, rtol=1e-12)
     index_speed = np.hypot(window.u[0], window.v[0])
     assert not np.allclose(0.05 * index_speed, 0.05 * 0.5, rtol=1e-3)
+
+
+def test_a_start_height_above_the_bed_is_a_fraction_of_the_depth_at_release():
+    """Depth 2, 4 and 8 m in frames at 0, 1 h and 2 h: particles released 1 m above the bed at
+    1000 s, 2000 s and 6000 s take the nearest frame's depth (sigma 1/2, 1/4, 1/8); one 3 m above
+    the bed in 2 m of water starts at the surface."""
+    from walkers.fields.analytic import grid_flow
+    from walkers.scenario.config import Release
+
+    xc = np.array([0.0, 100.0, 200.0])
+    depth = np.array([2.0, 4.0, 8.0])[:, None, None] * np.ones((3, 3, 3))
+    flow = grid_flow(xc, xc, [0.0, 3600.0, 7200.0], lambda X, Y, t: (0 * X, 0 * Y), depth=depth)
+    rel = [
+        Release(
+            "point", np.array([[100.0, 100.0]]), 4, start_height="above_bed", height_above_bed=h
+        )
+        for h in (1.0, 3.0)
+    ]
+    p = ParticleState.from_arrays(
+        np.full(4, 100.0), np.full(4, 100.0), np.ones(4), np.array([1000.0, 2000.0, 6000.0, 0.0])
+    )
+    column.place_in_columns(p, np.array([0, 0, 0, 1]), rel, flow, np.random.default_rng(0))
+    assert np.array_equal(p.sigma, [0.5, 0.25, 0.125, 1.0])
+    assert np.array_equal(p.settling, np.zeros(4))

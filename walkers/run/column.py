@@ -77,7 +77,8 @@ def place_in_columns(
     n = len(particles)
     sigma = np.zeros(n)
     settling = np.zeros(n)
-    depth = _depth_at_release(particles, flow)
+    needs_depth = any(r.start_height == "above_bed" for r in releases)
+    depth = _depth_at_release(particles, flow) if needs_depth else np.zeros(0)
     for i, r in enumerate(releases):
         mine = np.flatnonzero(owner == i)
         if r.start_height == "surface":
@@ -103,7 +104,9 @@ def _depth_at_release(particles: ParticleState, flow: FlowField) -> np.ndarray:
     xe, ye = centre_to_edges(flow.x), centre_to_edges(flow.y)
     frame = np.zeros(len(particles), dtype=np.int64)
     if not flow.steady and flow.depth.data.shape[0] > 1:
-        frame = np.abs(particles.release_time[:, None] - flow.times[None, :]).argmin(axis=1)
+        t, rt = flow.times, particles.release_time
+        after = np.clip(np.searchsorted(t, rt), 1, t.size - 1)
+        frame = np.where(rt - t[after - 1] <= t[after] - rt, after - 1, after)
     out = np.zeros(len(particles))
     for f in np.unique(frame):
         pick = frame == f
