@@ -198,3 +198,22 @@ def test_inspect_of_a_scenario_says_whether_its_run_is_3d(tmp_path):
     assert "r: settling (50 % at 0.1 mm/s, 50 % at 1 mm/s), from 1 m above the bed" in out["deep"]
     assert f"up to {math.ceil(60.0 / (0.01 * H / (2 * 0.41 * 0.015)))} (Visser" in out["deep"]
     assert "Run: depth-averaged" in out["flat"] and "three-dimensional" not in out["flat"]
+
+
+def test_template_vertical_block_loads_when_uncommented(tmp_path):
+    """The template of `walkers new` carries a commented [vertical] block and release keys that
+    load as they stand once uncommented; the template itself stays depth-averaged (the twin)."""
+    import re
+
+    from walkers.scenario.docs import template_text
+
+    keys = "diffusivity|drag_coefficient|bed =|deposition_velocity|behaviour|settling_velocity"
+    text = re.sub(rf"^# (\[vertical\]|{keys}|start_height)", r"\1", template_text(), flags=re.M)
+    path = tmp_path / "deep.toml"
+    path.write_text(text, encoding="utf-8")
+    sc = load_scenario(path)
+    assert sc.transport_base.vertical == Vertical(drag_coefficient=0.0025, deposition_velocity=1e-4)
+    r = sc.releases[0]
+    assert (r.behaviour, r.settling, r.start_height) == ("settling", (5e-4,), "bed")
+    (tmp_path / "flat.toml").write_text(template_text(), encoding="utf-8")
+    assert load_scenario(tmp_path / "flat.toml").transport_base.vertical is None
