@@ -419,3 +419,21 @@ def test_a_start_height_above_the_bed_is_a_fraction_of_the_depth_at_release():
     column.place_in_columns(p, np.array([0, 0, 0, 1]), rel, flow, np.random.default_rng(0))
     assert np.array_equal(p.sigma, [0.5, 0.25, 0.125, 1.0])
     assert np.array_equal(p.settling, np.zeros(4))
+
+
+def test_a_3d_ensemble_runs_and_its_summary_says_so():
+    """Four members of the settling release moved as one population in 3-D: the ensemble's
+    summary names K_z, the bed and the behaviour; a depth-averaged ensemble's does not."""
+    from walkers.ensemble.assemble import summary_text
+    from walkers.ensemble.execute import run_ensemble
+
+    text = {}
+    for name, vertical in (("deep", PARABOLIC), ("flat", None)):
+        t = scenario(vertical=vertical, release=SETTLING if vertical else None, u=0.3)
+        t["releases"][0]["particles"] = 300
+        t["run"]["end"] = "2026-01-01T02:00:00Z"
+        t["ensemble"] = {"members": 4, "location_sd": "100 m"}
+        text[name] = summary_text(run_ensemble(t))
+    assert "Three-dimensional: parabolic K_z" in text["deep"]
+    assert "r: settling (50 % at 0.1 mm/s, 50 % at 1 mm/s), from 1 m above the bed" in text["deep"]
+    assert "Three-dimensional" not in text["flat"]
