@@ -437,3 +437,17 @@ def test_a_3d_ensemble_runs_and_its_summary_says_so():
     assert "Three-dimensional: parabolic K_z" in text["deep"]
     assert "r: settling (50 % at 0.1 mm/s, 50 % at 1 mm/s), from 1 m above the bed" in text["deep"]
     assert "Three-dimensional" not in text["flat"]
+
+
+def test_a_3d_particle_is_counted_with_its_height_and_settling_velocity_in_memory():
+    """The memory check counts the two float64 a particle gains in 3-D (sigma, settling):
+    ParticleState.nbytes grows by exactly that."""
+    from walkers.fields.scenario_flow import build_flow
+    from walkers.run.runner import COLUMN_BYTES, memory_estimate
+
+    deep, flat = settling_scenario(), load_scenario(scenario())
+    flow = build_flow(flat.flow)
+    assert memory_estimate(deep, flow)[0] - memory_estimate(flat, flow)[0] == COLUMN_BYTES
+    p = ParticleState.from_arrays(np.zeros(5), np.zeros(5), np.ones(5), np.zeros(5))
+    before = p.nbytes
+    assert p.in_column(0.5, 1e-4).nbytes - before == 5 * COLUMN_BYTES

@@ -1,4 +1,4 @@
-"""Particle state: a handful of flat arrays, 49 bytes a particle.
+"""Particle state: a handful of flat arrays, 49 bytes a particle (65 in three dimensions).
 
 Status codes (int8):
 
