@@ -56,6 +56,10 @@ HAND_VALUES = [
     ("2 ha", "area", 2e4),
     ("1.5 km2", "area", 1.5e6),
     ("120 m2", "area", 120.0),
+    ("20 um", "length", 20e-6),
+    ("0.2 Pa", "stress", 0.2),
+    ("150 mPa", "stress", 0.15),
+    ("2.65 g/cm3", "density", 2650.0),
 ]
 
 

@@ -299,7 +299,7 @@ def _say_how_to_resume(
         )
 
 
-@main.command("inspect", short_help="Describe a flow file and the largest stable time step.")
+@main.command("inspect", short_help="Describe a flow file or a scenario's flow and run.")
 @click.argument("files", nargs=-1, required=True)
 @click.option(
     "--dispersion",
@@ -320,7 +320,10 @@ def _say_how_to_resume(
 def inspect_command(
     files, dispersion: float, dt: float | None, map_png: Path | None, frame: int
 ) -> None:
-    """Describe flow FILES: grid, CRS, times, variables found, land, speeds, time step."""
+    """Describe flow FILES: grid, CRS, times, variables found, land, speeds, time step.
+
+    Given a scenario file (.toml), describe its flow and its run: three-dimensional or not,
+    K_z, the bed, each release's behaviour in the water column, vertical substeps."""
     from walkers.fields.netcdf.ugrid import is_ugrid, open_mesh_flow
     from walkers.inspect import (
         describe_flow,
@@ -330,6 +333,9 @@ def inspect_command(
         open_for_inspection,
     )
 
+    if len(files) == 1 and str(files[0]).endswith(".toml"):
+        _inspect_scenario(files[0], dispersion, dt, map_png, frame)
+        return
     if len(files) == 1 and is_ugrid(files[0]):
         mesh = open_mesh_flow(files[0])
         click.echo(describe_mesh(mesh, dispersion=dispersion, dt=dt))
@@ -342,6 +348,30 @@ def inspect_command(
     if map_png is not None:
         draw_speed_map(flow, map_png, frame=frame)
         click.echo(f"wrote {map_png}")
+
+
+def _inspect_scenario(
+    path: str, dispersion: float, dt: float | None, map_png: Path | None, frame: int
+) -> None:
+    """``walkers inspect case.toml``: its flow described as for a flow file, then its run."""
+    from walkers.fields.scenario_flow import build_flow
+    from walkers.inspect import describe_flow, draw_speed_map
+    from walkers.run.column import describe_scenario_column
+    from walkers.scenario.load import load_scenario
+
+    scenario = load_scenario(path)
+    flow = build_flow(scenario.flow)
+    try:
+        if getattr(flow.kind(), "mesh", False):
+            click.echo(f"Flow field: {flow.source} (a mesh: 'walkers inspect' it for details)")
+        else:
+            click.echo(describe_flow(flow, dispersion=dispersion, dt=dt or scenario.dt))
+            if map_png is not None:
+                draw_speed_map(flow, map_png, frame=frame)
+                click.echo(f"wrote {map_png}")
+        click.echo("\n".join(describe_scenario_column(scenario, flow)))
+    finally:
+        flow.close()
 
 
 class _CaseOption(click.Option):

@@ -1,4 +1,4 @@
-"""Particle state: a handful of flat arrays, 49 bytes a particle.
+"""Particle state: a handful of flat arrays, 49 bytes a particle (65 in three dimensions).
 
 Status codes (int8):
 
@@ -83,8 +83,6 @@ class ParticleState:
     def copy(self) -> ParticleState:
         out = ParticleState(**{k: v.copy() for k, v in self.arrays().items()})
         out.face = None if self.face is None else self.face.copy()
-        out.sigma = None if self.sigma is None else self.sigma.copy()
-        out.settling = None if self.settling is None else self.settling.copy()
         return out
 
     def in_column(
@@ -119,6 +117,8 @@ class ParticleState:
         }
         if self.dispersion_multiplier is not None:
             out["dispersion_multiplier"] = self.dispersion_multiplier
+        if self.sigma is not None and self.settling is not None:
+            out["sigma"], out["settling"] = self.sigma, self.settling
         return out
 
     @property

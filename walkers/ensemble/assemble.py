@@ -24,6 +24,7 @@ from walkers.ensemble.batches import (
 )
 from walkers.ensemble.members import _Prepared
 from walkers.outputs.display import ConcentrationUnit, concentration_unit, plain
+from walkers.run.column import describe_releases, describe_vertical
 from walkers.run.runner import release_places
 
 
@@ -65,6 +66,10 @@ def _assemble(red: _OrderedReducer, prepared: _Prepared, thr: tuple[float, ...])
         "bootstrap": f"percentile bootstrap, {BOOTSTRAP_RESAMPLES} resamples, "
         f"{CONFIDENCE:.0%} interval",
     }
+    vertical = prepared.transport.vertical
+    if vertical is not None:
+        attrs["vertical"] = describe_vertical(vertical)
+        attrs["release_behaviour"] = describe_releases(sc.releases)
     return xr.Dataset(data, coords=coords, attrs=attrs)
 
 
@@ -364,6 +369,12 @@ def summary_text(ds: xr.Dataset, units: str | None = None) -> str:
     unit = concentration_unit(ds, units)
     n = int(ds.sizes["member"])
     lines = [str(ds.attrs.get("title", "walkers ensemble")), ""]
+    if ds.attrs.get("vertical"):
+        lines += [
+            f"Three-dimensional: {ds.attrs['vertical']}.",
+            f"Releases in the water column: {ds.attrs.get('release_behaviour', '')}.",
+            "",
+        ]
     pct = "/".join(f"{p:g}" for p in PERCENTILES)
 
     def hours(values: np.ndarray) -> str:

@@ -244,6 +244,7 @@ def _reduce_batch(
         range(lo, hi),
         sc.seed,
         prepared.flow,
+        prepared.transport,
     )
     grid = sc.output
     shape = (int(round(sc.duration / sc.output_interval)) + 1, grid.ny, grid.nx)

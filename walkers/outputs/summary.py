@@ -44,10 +44,13 @@ def budget_rows(ds: xr.Dataset) -> list[tuple[str, float]]:
         rows.append(
             (f"out through {where}{facing.get(e, '')}", float(ds.budget_outflow.sel(edge=e)[-1]))
         )
-    return rows + [
+    rows += [
         ("decayed", float(ds.budget_decayed[-1])),
         ("held on dry cells", float(ds.budget_held_dry[-1])),
     ]
+    if "budget_on_bed" in ds:  # three dimensions
+        rows.append(("on the bed", float(ds.budget_on_bed[-1])))
+    return rows
 
 
 def _budget_lines(ds: xr.Dataset) -> list[str]:
@@ -59,6 +62,7 @@ def _budget_lines(ds: xr.Dataset) -> list[str]:
         + ds.budget_outflow[:, -1].sum()
         + ds.budget_decayed[-1]
         + ds.budget_held_dry[-1]
+        + (ds.budget_on_bed[-1] if "budget_on_bed" in ds else 0.0)
     )
     width = max(len(r[0]) for r in rows) + 2
     lines += [f"  {name:{width}s}{value:12.6g}" for name, value in rows]
@@ -118,6 +122,9 @@ def summary_text(ds: xr.Dataset, units: str | None = None) -> str:
     times = output_times(ds)
     lines = [f"{ds.attrs.get('title') or 'walkers run'}", ""]
     lines.append(f"Run from {utc(run_start(ds))} to {utc(times[-1])}; all times in UTC.")
+    if ds.attrs.get("vertical"):
+        lines.append(f"Three-dimensional: {ds.attrs['vertical']}.")
+        lines.append(f"Releases in the water column: {ds.attrs.get('release_behaviour', '')}.")
     lines.append("")
     lines += _budget_lines(ds)
     if ds.sizes.get("receptor", 0):

@@ -92,10 +92,7 @@ class _Accumulator:
         acc.conc_max, acc.receptor = arrays["conc_max"], arrays["receptor"]
         acc.outflow, acc.in_water = arrays["outflow"], arrays["in_water"]
         acc.track_x, acc.track_y = arrays.get("track_x"), arrays.get("track_y")
-        acc.budget = {
-            k: arrays[f"budget.{k}"]
-            for k in ("budget_released", "budget_in_water", "budget_decayed", "budget_held_dry")
-        }
+        acc.budget = {k[len("budget.") :]: v for k, v in arrays.items() if k.startswith("budget.")}
         acc.moments = {
             k: arrays[f"moment.{k}"]
             for k in ("centroid_x", "centroid_y", "variance_x", "variance_y", "covariance_xy")
@@ -121,6 +118,8 @@ class _Accumulator:
                 particles, depths, receptors, conc, grid, flow.geographic, flow.ndim
             )
         b = reduce.mass_budget(particles, self.outflow.shape[0])
+        if "budget_on_bed" in b:  # three dimensions
+            self.budget.setdefault("budget_on_bed", np.zeros(self.in_water.shape[0]))
         for name in self.budget:
             self.budget[name][k] = b[name]
         self.outflow[:, k] = b["budget_outflow"]
@@ -205,6 +204,7 @@ class _Accumulator:
             "budget_in_water": "mass in the water",
             "budget_decayed": "mass lost to decay",
             "budget_held_dry": "mass held in dry cells",
+            "budget_on_bed": "mass deposited on the bed",
         }
         for name, values in self.budget.items():
             data[name] = ("time", values, {"units": "kg", "long_name": long_names[name]})

@@ -81,15 +81,18 @@ def make_population(
     members: Sequence[int],
     seed: int,
     flow: FlowField,
+    transport: Transport | None = None,
 ) -> Population:
     """The population of ``members`` (their numbers in the ensemble), member m releasing
     ``member_releases[i]`` (times in the flow's seconds) with dispersion ``multipliers[i]``; each
-    member's particles are placed by its own release generator, as in its own run."""
+    member's particles are placed by its own release generator, as in its own run (in their
+    water columns too when ``transport.vertical`` is set: heights and settling velocities are
+    carried per particle like the multiplier)."""
     parts: list[ParticleState] = []
     owners: list[np.ndarray] = []
     releases: list[Release] = []
     for rels, member in zip(member_releases, members, strict=True):
-        particles, owner = released_particles(rels, flow, run_streams(seed, member)[1])
+        particles, owner = released_particles(rels, flow, run_streams(seed, member)[1], transport)
         parts.append(particles)
         owners.append(owner + len(releases))
         releases += list(rels)

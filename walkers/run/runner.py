@@ -33,6 +33,9 @@ from walkers.scenario.specs import Scenario
 #: (int32) and the temporaries of the reductions at output times (depth, weight and two selections
 #: of masses, float64 each).
 PARTICLE_WORKING_BYTES = BYTES_PER_PARTICLE + 4 + 4 * 8
+#: Further bytes a particle takes in a three-dimensional run: its height in the column and its
+#: settling velocity (float64 each; ``ParticleState.sigma``, ``settling``).
+COLUMN_BYTES = 2 * 8
 
 
 def flow_offset(scenario: Scenario, flow: FlowField) -> float:
@@ -149,7 +152,8 @@ def _land_on_output_grid_curvilinear(
 
 
 def memory_estimate(scenario: Scenario, flow: FlowField) -> tuple[int, int]:
-    """(bytes per particle, bytes of everything else) a run of ``scenario`` on ``flow`` needs.
+    """(bytes per particle, bytes of everything else) a run of ``scenario`` on ``flow`` needs
+    (a particle of a three-dimensional run: :data:`COLUMN_BYTES` more).
 
     Everything else:
 
@@ -175,7 +179,8 @@ def memory_estimate(scenario: Scenario, flow: FlowField) -> tuple[int, int]:
         spacing = float(np.median(np.diff(flow.times)))
         frames = min(len(flow.times), int(np.ceil(scenario.output_interval / spacing)) + 2)
     window = 10 * 8 * frames * flow.x.size * flow.y.size
-    return PARTICLE_WORKING_BYTES, outputs + window
+    column = COLUMN_BYTES if scenario.transport_base.vertical is not None else 0
+    return PARTICLE_WORKING_BYTES + column, outputs + window
 
 
 def check_memory(scenario: Scenario, flow: FlowField) -> None:
@@ -319,4 +324,9 @@ def simulate_scenario(
     ds.attrs["release_places"] = release_places(scenario)
     ds.attrs["run_start"] = scenario.start_iso
     ds.attrs["run_end"] = scenario.end_iso
+    if transport.vertical is not None:
+        from walkers.run.column import describe_releases, describe_vertical
+
+        ds.attrs["vertical"] = describe_vertical(transport.vertical)
+        ds.attrs["release_behaviour"] = describe_releases(scenario.releases)
     return ds

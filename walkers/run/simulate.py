@@ -45,7 +45,7 @@ from walkers.engine.timestep import check_time_step
 from walkers.errors import InputError, RunFailure
 from walkers.fields.base import FlowField, FlowWindow, centre_to_edges
 from walkers.fields.geo import metres_per_degree
-from walkers.run import reduce
+from walkers.run import column, reduce
 from walkers.run.accumulate import _Accumulator, _field_variables
 from walkers.run.store import FieldMode, field_store
 from walkers.scenario.config import OutputGrid, Receptor, Release, Transport
@@ -279,7 +279,7 @@ def simulate(
     shape = (len(times), output_grid.ny, output_grid.nx)
     variables = _field_variables(output_grid)
     if resume is None:
-        particles, owner = released_particles(releases, flow, release_rng)
+        particles, owner = released_particles(releases, flow, release_rng, transport)
         first = 0
         store = field_store(shape, variables, fields, field_folder)
         edges = len(flow.kind().edge_names)
@@ -333,13 +333,20 @@ def simulate(
 
 
 def released_particles(
-    releases: Sequence[Release], flow: FlowField, release_rng: np.random.Generator
+    releases: Sequence[Release],
+    flow: FlowField,
+    release_rng: np.random.Generator,
+    transport: Transport | None = None,
 ) -> tuple[ParticleState, np.ndarray]:
     """The particles of ``releases`` placed with ``release_rng`` (in the engine's coordinates),
-    and the index of each particle's release."""
+    and the index of each particle's release; in a three-dimensional run (``transport.vertical``)
+    also placed in their water columns (:func:`walkers.run.column.place_in_columns`)."""
     centre = np.mean([np.atleast_2d(r.coords)[0] for r in releases], axis=0)
     particles, owner = make_particles(releases, release_rng, _metres_per_unit(flow, centre[1]))
     _to_engine_coordinates(particles, owner, releases, flow)
+    if transport is not None and transport.vertical is not None:
+        column.check_column_flow(flow, transport.vertical)
+        column.place_in_columns(particles, owner, releases, flow, release_rng)
     return particles, owner
 
 
@@ -473,6 +480,8 @@ def _advance_interval(
     else:
         check_window_velocity(flow, window)
         inputs = mover.kernel_inputs(flow, window, transport)
+        if transport.vertical is not None:
+            inputs = column.column_inputs(inputs, flow, window, transport.vertical, dt)
     per_call = max(1, PARTICLE_STEPS_PER_CALL // max(len(particles), 1))
     for s in range(0, steps, per_call):
         n = min(per_call, steps - s)

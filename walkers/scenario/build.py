@@ -13,8 +13,16 @@ from typing import Any, Literal
 import numpy as np
 
 from walkers.errors import InputError
-from walkers.scenario.config import Dispersion, OutputGrid, Receptor, Release
+from walkers.scenario.config import (
+    SEA_WATER_DENSITY,
+    Dispersion,
+    OutputGrid,
+    Receptor,
+    Release,
+    Vertical,
+)
 from walkers.scenario.keys import MAX_OUTPUT_CELLS
+from walkers.scenario.settling import stokes_settling_velocity
 from walkers.scenario.specs import DispersionSpec, EnsembleSpec, FlowSpec, LayerSelection
 from walkers.scenario.walk import _check_lonlat, _coordinate, _resolve_path, _seconds
 
@@ -58,9 +66,64 @@ def _build_releases(
                 rate_times=rate_times,
                 rates=rates,
                 name=name,
+                **_release_column(r, where),
             )
         )
     return releases
+
+
+def _release_column(r: dict[str, Any], where: str) -> dict[str, Any]:
+    """A release's behaviour in the water column (see :class:`Release`): its settling
+    velocities (m s-1, > 0 down, < 0 rising) with their shares, and its start height."""
+    out: dict[str, Any] = {
+        "behaviour": r["behaviour"],
+        "start_height": r["start_height"],
+        "height_above_bed": r["height_above_bed"] or 0.0,
+    }
+    if r["behaviour"] == "rising":
+        out["settling"] = (-r["rise_velocity"],)
+    elif r["settling_velocity"] is not None:
+        if r["fractions"] is not None:
+            raise InputError(
+                f"{where}.fractions: shares go with settling_velocities or grain_sizes, not with "
+                "one settling_velocity; remove fractions or give a list of velocities"
+            )
+        out["settling"] = (r["settling_velocity"],)
+    elif r["behaviour"] == "settling":
+        key = "settling_velocities" if r["settling_velocities"] is not None else "grain_sizes"
+        if r["fractions"] is None:
+            raise InputError(
+                f"{where}.{key}: give the share of the particles of each in fractions, e.g. "
+                "fractions = [0.7, 0.3]"
+            )
+        if len(r["fractions"]) != len(r[key]):
+            raise InputError(
+                f"{where}.fractions: {len(r['fractions'])} fractions for {len(r[key])} "
+                f"{key.replace('_', ' ')}; give one fraction for each"
+            )
+        total = sum(r["fractions"])
+        if abs(total - 1.0) > 1e-6:
+            raise InputError(
+                f"{where}.fractions = {r['fractions']!r}: the shares must add up to 1 (they add "
+                f"up to {total:.6g})"
+            )
+        if key == "grain_sizes":
+            if not r["grain_density"] > SEA_WATER_DENSITY:
+                raise InputError(
+                    f"{where}.grain_density = {r['grain_density']:g} kg/m3: grains must be "
+                    f"denser than sea water ({SEA_WATER_DENSITY:g} kg/m3) to settle; for a "
+                    "buoyant release give behaviour = 'rising' and rise_velocity"
+                )
+            velocities = tuple(
+                stokes_settling_velocity(d, r["grain_density"], f"{where}.grain_sizes[{i}]")
+                for i, d in enumerate(r[key])
+            )
+        else:
+            velocities = tuple(r[key])
+        out["settling"] = velocities
+        # the shares as given, rescaled to add up to 1 exactly
+        out["settling_fractions"] = tuple(f / total for f in r["fractions"])
+    return out
 
 
 def _release_positions(
@@ -253,6 +316,44 @@ def _build_dispersion(d: dict[str, Any]) -> DispersionSpec:
         method="constant",
         constant=Dispersion(k1=k1, k2=k2, mode=mode, multiplier=d["multiplier"]),
         multiplier=d["multiplier"],
+    )
+
+
+def _build_vertical(v: dict[str, Any] | None, dispersion: DispersionSpec) -> Vertical | None:
+    """The [vertical] table as a :class:`Vertical` (None: a depth-averaged run). A parabolic K_z
+    takes its u* roughness from [vertical], or else from an estimated [dispersion]: one source."""
+    if v is None:
+        return None
+    manning_n, drag = v["manning_n"], v["drag_coefficient"]
+    needs_roughness = v["diffusivity"] == "parabolic" or v["critical_shear_stress"] is not None
+    if needs_roughness and manning_n is None and drag is None:
+        if dispersion.method != "estimated":
+            raise InputError(
+                f"vertical.diffusivity = {v['diffusivity']!r}: a parabolic K_z = 0.41 u* z "
+                "(1 - z/h) or resuspension (tau = rho u*^2) needs the bed roughness for u*; give "
+                "vertical.manning_n or vertical.drag_coefficient (or estimate [dispersion] with "
+                "one, which [vertical] then uses)"
+            )
+        manning_n, drag = dispersion.manning_n, dispersion.drag_coefficient
+    elif (manning_n is not None or drag is not None) and dispersion.method == "estimated":
+        raise InputError(
+            "vertical.manning_n / drag_coefficient: [dispersion] is estimated from a bed "
+            "roughness already, which [vertical] uses for u*; give the roughness once, in "
+            "[dispersion]"
+        )
+    if v["diffusivity"] == "constant" and v["coefficient"] is None:
+        raise InputError(
+            "vertical.coefficient: diffusivity = 'constant' needs K_z, e.g. coefficient = "
+            '"0.01 m2/s"'
+        )
+    return Vertical(
+        diffusivity=v["diffusivity"],
+        coefficient=v["coefficient"] or 0.0,
+        manning_n=manning_n,
+        drag_coefficient=drag,
+        deposition_velocity=v["deposition_velocity"] or 0.0,
+        critical_shear_stress=v["critical_shear_stress"],
+        erosion_rate=v["erosion_rate"] or 0.0,
     )
 
 

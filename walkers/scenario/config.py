@@ -19,6 +19,9 @@ EDGE_NAMES = ("west", "east", "south", "north")
 #: j = 0, the last row), in the same order as EDGE_NAMES; `walkers inspect` says which way each
 #: faces.
 INDEX_EDGE_NAMES = ("first_i", "last_i", "first_j", "last_j")
+#: Density of sea water (kg m-3) at about 15 °C and salinity 35 (common practice): the rho of the
+#: bed shear stress tau = rho u*^2 and of Stokes' settling law.
+SEA_WATER_DENSITY = 1026.0
 
 
 @dataclass(frozen=True)
@@ -57,6 +60,87 @@ class Dispersion:
 
 
 @dataclass(frozen=True)
+class Vertical:
+    """The vertical step of a three-dimensional run (``walkers.engine.vertical``), SI units.
+
+    diffusivity : vertical diffusivity K_z: ``"parabolic"`` (K_z = κ u* z (1 − z/h), u* from the
+        bed roughness ``manning_n`` (s m^-1/3) or ``drag_coefficient``, as
+        :func:`walkers.engine.coefficients.shear_velocity`), ``"constant"`` (``coefficient``,
+        m2 s-1) or ``"file"`` (K_z read from the flow file).
+    deposition_velocity : w_d (m s-1) of a depositing bed; 0 is a reflecting bed.
+    critical_shear_stress : tau_c (Pa) above which particles on the bed go back into the water;
+        None: no resuspension. erosion_rate : the rate of resuspension (s-1) per unit excess
+        stress tau / tau_c − 1. water_density : rho (kg m-3) of tau = rho u*^2. u* (of a
+        parabolic K_z and of tau) comes from ``manning_n`` or ``drag_coefficient``.
+    """
+
+    diffusivity: Literal["parabolic", "constant", "file"] = "parabolic"
+    coefficient: float = 0.0
+    manning_n: float | None = None
+    drag_coefficient: float | None = None
+    deposition_velocity: float = 0.0
+    critical_shear_stress: float | None = None
+    erosion_rate: float = 0.0
+    water_density: float = SEA_WATER_DENSITY
+
+    def __post_init__(self) -> None:
+        if self.diffusivity not in ("parabolic", "constant", "file"):
+            raise InputError(
+                f"vertical.diffusivity = {self.diffusivity!r}: expected 'parabolic', 'constant' "
+                "or 'file'"
+            )
+        for name in ("coefficient", "deposition_velocity", "erosion_rate"):
+            value = getattr(self, name)
+            if not (np.isfinite(value) and value >= 0):
+                raise InputError(f"vertical.{name} = {value!r}: must be a finite number >= 0")
+        if self.uses_shear_velocity and (self.manning_n is None) == (self.drag_coefficient is None):
+            raise InputError(
+                "vertical: a parabolic K_z or resuspension needs the bed roughness for u*: give "
+                "one of vertical.manning_n or vertical.drag_coefficient (or estimate the "
+                "horizontal dispersion with one, [dispersion] method = 'estimated')"
+            )
+        tau = self.critical_shear_stress
+        if tau is not None and not (np.isfinite(tau) and tau > 0):
+            raise InputError(f"vertical.critical_shear_stress = {tau!r}: must be > 0 Pa")
+
+    @property
+    def uses_shear_velocity(self) -> bool:
+        """Whether the bed shear velocity u* is needed: by a parabolic K_z, or by resuspension
+        (tau = rho u*^2)."""
+        return self.diffusivity == "parabolic" or self.critical_shear_stress is not None
+
+    @property
+    def kz_mode(self) -> int:
+        """The K_z mode of ``walkers.engine.vertical``: KZ_CONSTANT 1, KZ_PARABOLIC 2 or
+        KZ_FILE 3."""
+        return {"constant": 1, "parabolic": 2, "file": 3}[self.diffusivity]
+
+    def describe(self) -> str:
+        """K_z and the bed in words, for the run summary and ``walkers inspect``."""
+        if self.diffusivity == "constant":
+            kz = f"constant K_z = {self.coefficient:.4g} m2/s"
+        elif self.diffusivity == "file":
+            kz = "K_z from the flow file"
+        else:
+            rough = (
+                f"Manning n = {self.manning_n:g} s m^-1/3"
+                if self.manning_n is not None
+                else f"drag coefficient {self.drag_coefficient:g}"
+            )
+            kz = f"parabolic K_z = 0.41 u* z (1 - z/h), u* from {rough}"
+        if self.deposition_velocity > 0:
+            bed = f"depositing bed, w_d = {self.deposition_velocity * 1e3:.4g} mm/s"
+            if self.critical_shear_stress is not None:
+                bed += (
+                    f", resuspension above {self.critical_shear_stress:g} Pa at "
+                    f"{self.erosion_rate:g} 1/s per unit excess stress"
+                )
+        else:
+            bed = "reflecting bed"
+        return f"{kz}; {bed}"
+
+
+@dataclass(frozen=True)
 class Transport:
     """How particles move: time step, scheme, dispersion, decay and edge behaviour.
 
@@ -71,6 +155,7 @@ class Transport:
         step is refused and the particle kept in place (never reached at sensible steps).
     drift_correction : include the drift (1/h)∇·(hK). Always on in practice; switching it off
         exists only to show what goes wrong without it (the well-mixed verification's twin).
+    vertical : the vertical step of a three-dimensional run; None: depth-averaged.
     """
 
     dt: float
@@ -82,6 +167,7 @@ class Transport:
     bridge: bool = True
     max_reflections: int = 100
     drift_correction: bool = True
+    vertical: Vertical | None = None
 
     def __post_init__(self) -> None:
         if not (np.isfinite(self.dt) and self.dt > 0):
@@ -118,6 +204,12 @@ class Release:
         integrating it (trapezoidal) over [start, start + duration].
     particles : number of particles this release uses.
     name : label for outputs.
+    behaviour : in three dimensions, ``"neutral"``, ``"settling"`` or ``"rising"``.
+    settling, settling_fractions : the settling velocities (m s-1, > 0 down, < 0 rising) of the
+        release's particles and the share of the particles that has each (sum 1).
+    start_height : where in the column the particles start: ``"surface"``, ``"bed"``,
+        ``"column"`` (uniform over the depth) or ``"above_bed"`` (``height_above_bed`` m above the
+        bed, at most the depth).
     """
 
     shape: Literal["point", "line", "circle", "polygon"]
@@ -130,6 +222,11 @@ class Release:
     rate_times: np.ndarray | None = None
     rates: np.ndarray | None = None
     name: str = "release"
+    behaviour: Literal["neutral", "settling", "rising"] = "neutral"
+    settling: tuple[float, ...] = (0.0,)
+    settling_fractions: tuple[float, ...] = (1.0,)
+    start_height: Literal["surface", "bed", "column", "above_bed"] = "column"
+    height_above_bed: float = 0.0
 
     def __post_init__(self) -> None:
         if self.shape not in ("point", "line", "circle", "polygon"):
@@ -145,6 +242,28 @@ class Release:
             raise InputError(f"release {self.name!r}: mass must be > 0 kg")
         if self.shape == "circle" and not self.radius > 0:
             raise InputError(f"release {self.name!r}: a circle needs a radius > 0 m")
+        self._check_column()
+
+    def _check_column(self) -> None:
+        """The vertical behaviour's values (InputError naming the release)."""
+        w = np.asarray(self.settling, dtype=np.float64)
+        f = np.asarray(self.settling_fractions, dtype=np.float64)
+        if w.size < 1 or w.shape != f.shape or not np.all(np.isfinite(w)):
+            raise InputError(
+                f"release {self.name!r}: give one finite settling velocity per fraction"
+            )
+        if not (np.all(f > 0) and abs(f.sum() - 1.0) <= 1e-9):
+            raise InputError(
+                f"release {self.name!r}: the fractions of the settling velocities must be > 0 "
+                f"and add up to 1 (they add up to {f.sum():.6g})"
+            )
+        if self.start_height not in ("surface", "bed", "column", "above_bed"):
+            raise InputError(
+                f"release {self.name!r}: start_height {self.start_height!r}; expected surface, "
+                "bed, column or above_bed"
+            )
+        if not (np.isfinite(self.height_above_bed) and self.height_above_bed >= 0):
+            raise InputError(f"release {self.name!r}: height_above_bed must be >= 0 m")
 
 
 @dataclass(frozen=True)

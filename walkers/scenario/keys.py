@@ -33,6 +33,7 @@ KINDS = {
     "quantity": "number with units",
     "quantities": "list of numbers with units",
     "integers": "list of whole numbers",
+    "numbers": "list of numbers (no units)",
     "time": "ISO 8601 date-time with a zone",
     "times_or_offsets": "list of ISO 8601 date-times or time offsets",
     "coordinate": "grid coordinate (m, or degrees on geographic grids)",

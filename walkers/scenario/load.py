@@ -30,6 +30,7 @@ from walkers.scenario.build import (
     _build_output_grid,
     _build_receptors,
     _build_releases,
+    _build_vertical,
 )
 from walkers.scenario.config import Dispersion, Transport
 from walkers.scenario.keys import MAX_PARTICLES
@@ -111,6 +112,7 @@ def _build(
     run = s["run"]
     start, end, run_length, dt, interval = _run_times(run)
     releases = _build_releases(s["releases"], start, end, geographic)
+    _check_column_keys(raw, s)
     total = sum(r.particles for r in releases)
     if total > MAX_PARTICLES:
         raise InputError(f"releases: {total} particles in all; at most {MAX_PARTICLES:.0e} per run")
@@ -121,6 +123,8 @@ def _build(
             "flow.analytic: analytic flows are laid out in metres; give positions as x/y"
         )
     flow = _build_flow(s["flow"], base, start, end, run_length)
+    if s["vertical"] is not None:
+        flow = dataclasses.replace(flow, column=True)
     dispersion = _build_dispersion(s["dispersion"])
     base_transport, transport = _transports(s, run["scheme"], dt, dispersion)
     out = s["output"]
@@ -162,6 +166,27 @@ def _build(
         transport_base=base_transport,
         comment=run["comment"] or "",
     )
+
+
+def _check_column_keys(raw: dict[str, Any], s: dict[str, Any]) -> None:
+    """A release's place and motion in the water column apply to three-dimensional runs only;
+    a three-dimensional run needs a flow with a water depth."""
+    from walkers.scenario.schema_vertical import RELEASE_COLUMN_KEYS
+
+    if s["vertical"] is not None:
+        if s["flow"]["analytic"] is not None and s["flow"]["analytic"]["dimensions"] == 1:
+            raise InputError(
+                "vertical: a three-dimensional run needs a 2-D flow with a water depth; this "
+                "1-D channel has a cross-section area instead (remove [vertical])"
+            )
+        return
+    for i, item in enumerate(raw.get("releases") or []):
+        given = [k for k in RELEASE_COLUMN_KEYS if isinstance(item, dict) and k in item]
+        if given:
+            raise InputError(
+                f"releases[{i}].{given[0]}: applies to three-dimensional runs only; add a "
+                "[vertical] section (vertical diffusivity and bed) or remove the key"
+            )
 
 
 def _run_times(run: dict[str, Any]) -> tuple[datetime, datetime, float, float, float]:
@@ -210,6 +235,7 @@ def _transports(
         scheme=scheme,
         decay_rate=decay_rate,
         edges=dict(edges),
+        vertical=_build_vertical(s["vertical"], dispersion),
     )
     transport = (
         dataclasses.replace(base_transport, dispersion=dispersion.constant)

@@ -9,6 +9,7 @@ from __future__ import annotations
 from walkers.scenario.config import EDGE_NAMES, INDEX_EDGE_NAMES
 from walkers.scenario.keys import Choice, Key, Section
 from walkers.scenario.schema_flow import FLOW
+from walkers.scenario.schema_vertical import RELEASE_COLUMN_CHOICES, RELEASE_COLUMN_KEYS, VERTICAL
 
 _EDGE = Key(
     "choice",
@@ -172,6 +173,7 @@ SCHEMA = Section(
                 Choice((("manning_n",), ("drag_coefficient",)), only_when="method=estimated"),
             ),
         ),
+        "vertical": VERTICAL,
         "decay": Section(
             "First-order decay of the released substance: m <- m exp(-k dt).",
             {
@@ -254,12 +256,14 @@ SCHEMA = Section(
                     required=True,
                     bound="positive",
                 ),
+                **RELEASE_COLUMN_KEYS,
             },
             many=True,
             required=True,
             choices=(
                 Choice((("x", "y"), ("lon", "lat"), ("points",), ("points_lonlat",))),
                 Choice((("mass",), ("rate",), ("rate_times", "rates"))),
+                *RELEASE_COLUMN_CHOICES,
             ),
         ),
         "output": Section(

@@ -61,6 +61,8 @@ class FlowSpec:
         "east_north" or "grid").
     open_boundaries : on a mesh, name -> {"nodes": [...]} or {"polyline": [[x, y], ...],
         "tolerance": m}.
+    column : the run is three-dimensional ([vertical]): a reader keeps what the water column
+        needs (layered velocities, vertical velocity, K_z) besides the depth-averaged flow.
     """
 
     kind: Literal["files", "analytic"]
@@ -76,6 +78,7 @@ class FlowSpec:
     layers: LayerSelection = LayerSelection()
     velocity_axes: str = "auto"
     open_boundaries: dict[str, dict[str, Any]] = dataclasses.field(default_factory=dict)
+    column: bool = False
 
 
 @dataclass(frozen=True)

@@ -8,7 +8,7 @@ can be checked by eye against its definition.
 Conversion factors (exact by definition unless stated):
   1 ft = 0.3048 m (international foot, 1959); 1 nmi = 1852 m (international nautical mile);
   1 kn = 1852/3600 m/s; 1 t = 1000 kg; 1 L = 1e-3 m3; 1 ha = 1e4 m2;
-  1 yr = 365.25 d (Julian year, as used for half-lives) — all common practice.
+  1 yr = 365.25 d (Julian year, as used for half-lives); 1 Pa = 1 N m-2 (SI) — all common practice.
 """
 
 from __future__ import annotations
@@ -37,6 +37,9 @@ UNIT_TABLE: dict[str, tuple[str, str, dict[str, float]]] = {
             "km": 1e3,
             "cm": 1e-2,
             "mm": 1e-3,
+            "um": 1e-6,
+            "µm": 1e-6,
+            "μm": 1e-6,
             "ft": 0.3048,
             "nmi": 1852.0,
             "meter": 1.0,
@@ -150,6 +153,16 @@ UNIT_TABLE: dict[str, tuple[str, str, dict[str, float]]] = {
         "an area",
         {"m2": 1.0, "km2": 1e6, "ha": 1e4, "cm2": 1e-4, "m^2": 1.0, "m**2": 1.0},
     ),
+    "stress": (
+        "Pa",
+        "a stress",
+        {"Pa": 1.0, "N/m2": 1.0, "N m-2": 1.0, "mPa": 1e-3, "kPa": 1e3},
+    ),
+    "density": (
+        "kg/m3",
+        "a density",
+        {"kg/m3": 1.0, "kg m-3": 1.0, "g/cm3": 1e3, "t/m3": 1e3},
+    ),
 }
 
 DIMENSIONS = tuple(UNIT_TABLE)
@@ -202,7 +215,8 @@ def parse_quantity(value: object, dimension: str, where: str) -> float:
     ----------
     value : a number (taken as SI) or a string ``"<number> <unit>"``, e.g. ``"25 cm/s"``.
     dimension : one of :data:`DIMENSIONS` (length m, time s, mass kg, velocity m s-1,
-        diffusivity m2 s-1, rate s-1, mass_rate kg s-1, concentration kg m-3, area m2).
+        diffusivity m2 s-1, rate s-1, mass_rate kg s-1, concentration kg m-3, area m2, stress Pa,
+    density kg m-3).
     where : the key path for messages, e.g. ``"releases[0].mass"``.
 
     Raises

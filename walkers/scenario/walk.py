@@ -272,8 +272,8 @@ def _convert_list(spec: Key, raw: object, where: str) -> Any:
         for i, v in enumerate(values):
             _check_bound(v, spec, f"{where}[{i}]", raw[i])
         return values
-    if kind == "integers":
-        sub = dataclasses.replace(spec, kind="integer")
+    if kind in ("integers", "numbers"):
+        sub = dataclasses.replace(spec, kind=kind[:-1])
         return [_convert(sub, v, f"{where}[{i}]") for i, v in enumerate(raw)]
     if kind == "times_or_offsets":
         return [_time_or_offset(v, f"{where}[{i}]") for i, v in enumerate(raw)]
