@@ -170,7 +170,9 @@ def _profile_case(seed, levels=8, n=12_000, h=5.0, scale=1.2):
     receptors = [Receptor("buoy", 20.0, 15.0, radius), Receptor("cell", 25.0, 15.0, 0.0)]
     measure = reduce.cell_measure(GRID, False, 2)
     places, area = column.receptor_places(receptors, GRID, measure, False)
-    prof = column.receptor_profiles(p.x, p.y, p.sigma, depths, p.mass, p.status, places, area, levels)
+    prof = column.receptor_profiles(
+        p.x, p.y, p.sigma, depths, p.mass, p.status, places, area, levels
+    )
     return p, depths, receptors, measure, prof, law, n, h, radius
 
 
@@ -294,7 +296,9 @@ def test_twin_check_catches_a_changed_band():
     a = np.zeros((len(BANDS), GRID.ny, GRID.nx))
     b = np.zeros_like(a)
     column.band_mass(*args, ref, start, end, grid, a, np.zeros_like(a, dtype=np.int64))
-    column_twin.band_mass(*args, ref, start + 1.0, end + 1.0, grid, b, np.zeros_like(a, dtype=np.int64))
+    column_twin.band_mass(
+        *args, ref, start + 1.0, end + 1.0, grid, b, np.zeros_like(a, dtype=np.int64)
+    )
     assert not np.array_equal(a, b)
 
 

@@ -129,10 +129,14 @@ class ColumnSeries:
         """The band, height and section coordinates of the result."""
         bands = self.output.bands
         coords: dict[str, Any] = {
-            "band": ("band", np.array([b.name for b in bands], dtype=object), {"long_name": "depth band name"}),
+            "band": (
+                "band",
+                np.array([b.name for b in bands], dtype=object),
+                {"long_name": "depth band name"},
+            ),
             "band_reference": (
                 "band",
-                np.array([b.reference for b in bands], dtype=object),
+                np.array([b.reference for b in bands]),
                 {"long_name": "what the band's limits are measured from: surface, bed or column"},
             ),
             "band_start": (
@@ -168,8 +172,16 @@ class ColumnSeries:
                         g["distance"],
                         {"units": "m", "long_name": "distance along the section line (bin centre)"},
                     ),
-                    "section_x": ("section_distance", g["x"], {"units": xunits, "long_name": "section bin centre x"}),
-                    "section_y": ("section_distance", g["y"], {"units": yunits, "long_name": "section bin centre y"}),
+                    "section_x": (
+                        "section_distance",
+                        g["x"],
+                        {"units": xunits, "long_name": "section bin centre x"},
+                    ),
+                    "section_y": (
+                        "section_distance",
+                        g["y"],
+                        {"units": yunits, "long_name": "section bin centre y"},
+                    ),
                     "section_length": (
                         "section_distance",
                         g["length"],

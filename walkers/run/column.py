@@ -27,8 +27,8 @@ from collections.abc import Sequence
 import numba as nb
 import numpy as np
 
-from walkers.errors import InputError
 from walkers.engine.kernels import JIT, STATUS_ON_BED, STATUS_WATER
+from walkers.errors import InputError
 from walkers.fields.geo import metres_per_degree
 from walkers.scenario.column_output import BAND_REFERENCES, DepthBand, SectionLine
 from walkers.scenario.config import OutputGrid, Receptor
@@ -44,7 +44,7 @@ _COLUMN = BAND_REFERENCES.index("column")
 # --------------------------------------------------------------------------------------------
 
 
-@nb.njit(**JIT)
+@nb.njit(**JIT)  # type: ignore[call-overload]  # JIT is a plain dict of options
 def _output_cell(x, y, x0, inv_dx, nx, y0, inv_dy, ny):
     """(j, i) of the output cell holding (x, y), or (-1, -1) outside the grid; cell (j, i) spans
     x0 + (i ± ½) dx, as in ``kernels.grid_mass``."""
@@ -55,7 +55,7 @@ def _output_cell(x, y, x0, inv_dx, nx, y0, inv_dy, ny):
     return int(fj), int(fi)
 
 
-@nb.njit(**JIT)
+@nb.njit(**JIT)  # type: ignore[call-overload]  # JIT is a plain dict of options
 def _band_thickness(reference, start, end, sigma, h):
     """Thickness (m) of a band in a column of depth h if a particle at height ``sigma`` lies in
     it, else 0."""
@@ -70,13 +70,20 @@ def _band_thickness(reference, start, end, sigma, h):
     return 0.0
 
 
-@nb.njit(**JIT)
+@nb.njit(**JIT)  # type: ignore[call-overload]  # JIT is a plain dict of options
 def band_mass(x, y, sigma, depth, mass, status, reference, start, end, grid, out, count):
     """Add m / b of each particle in water to every band (index b of ``reference``, ``start``,
     ``end``) that holds it, in its output cell: out[b, j, i] += m / b_p, count[b, j, i] += 1.
 
     grid : (x0, dx, nx, y0, dy, ny) of the output grid, as floats."""
-    x0, inv_dx, nx, y0, inv_dy, ny = grid[0], 1.0 / grid[1], grid[2], grid[3], 1.0 / grid[4], grid[5]
+    x0, inv_dx, nx, y0, inv_dy, ny = (
+        grid[0],
+        1.0 / grid[1],
+        grid[2],
+        grid[3],
+        1.0 / grid[4],
+        grid[5],
+    )
     nb_ = reference.shape[0]
     for p in range(x.shape[0]):
         if status[p] != STATUS_WATER:
@@ -91,10 +98,17 @@ def band_mass(x, y, sigma, depth, mass, status, reference, start, end, grid, out
                 count[b, j, i] += 1
 
 
-@nb.njit(**JIT)
+@nb.njit(**JIT)  # type: ignore[call-overload]  # JIT is a plain dict of options
 def bed_mass(x, y, mass, status, grid, out, count):
     """Add the mass (kg) of each particle on the bed to its output cell."""
-    x0, inv_dx, nx, y0, inv_dy, ny = grid[0], 1.0 / grid[1], grid[2], grid[3], 1.0 / grid[4], grid[5]
+    x0, inv_dx, nx, y0, inv_dy, ny = (
+        grid[0],
+        1.0 / grid[1],
+        grid[2],
+        grid[3],
+        1.0 / grid[4],
+        grid[5],
+    )
     for p in range(x.shape[0]):
         if status[p] != STATUS_ON_BED:
             continue
@@ -104,7 +118,7 @@ def bed_mass(x, y, mass, status, grid, out, count):
             count[j, i] += 1
 
 
-@nb.njit(**JIT)
+@nb.njit(**JIT)  # type: ignore[call-overload]  # JIT is a plain dict of options
 def _layer(sigma, levels):
     """Index of the layer (of ``levels`` equal layers) holding height ``sigma``; the surface
     (sigma = 1) belongs to the top layer."""
@@ -112,7 +126,7 @@ def _layer(sigma, levels):
     return min(max(k, 0), levels - 1)
 
 
-@nb.njit(**JIT)
+@nb.njit(**JIT)  # type: ignore[call-overload]  # JIT is a plain dict of options
 def profile_mass(x, y, sigma, depth, mass, status, places, levels, out):
     """Add m / h of each particle in water to the layer holding it at every receptor that holds
     it: out[r, k] += m / h.
@@ -141,7 +155,7 @@ def profile_mass(x, y, sigma, depth, mass, status, places, levels, out):
                 out[r, k] += w
 
 
-@nb.njit(**JIT)
+@nb.njit(**JIT)  # type: ignore[call-overload]  # JIT is a plain dict of options
 def _along_line(px, py, cum, x, y, sx, sy):
     """(distance along the polyline (m), distance from it (m)) of the point (x, y): the nearest
     point on the line, or (-1, inf) when the nearest point lies beyond either end. Vertices
@@ -169,7 +183,7 @@ def _along_line(px, py, cum, x, y, sx, sy):
     return along, math.sqrt(best)
 
 
-@nb.njit(**JIT)
+@nb.njit(**JIT)  # type: ignore[call-overload]  # JIT is a plain dict of options
 def section_mass(x, y, sigma, depth, mass, status, line, half_width, spacing, levels, out, hsum, n):
     """Add m / h of each particle in water within ``half_width`` (m) of the polyline to its
     (distance bin, layer): out[d, k] += m / h; hsum[d] += h and n[d] += 1 (for the mean depth).
