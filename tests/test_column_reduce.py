@@ -1,4 +1,4 @@
-"""The water-column reductions (walkers.run.column): depth bands, the deposit, profiles at
+"""The water-column reductions (walkers.run.column_reduce): depth bands, the deposit, profiles at
 receptors, the vertical section, against exact expectations and scipy.stats, with their twins.
 
 External references:
@@ -20,7 +20,9 @@ from scipy import stats
 
 from walkers.engine.state import IN_WATER, ON_BED, ParticleState
 from walkers.errors import InputError
-from walkers.run import column, column_twin, reduce
+from walkers.run import column_reduce as column
+from walkers.run import column_reduce_twin as column_twin
+from walkers.run import reduce
 from walkers.scenario.column_output import ColumnOutput, DepthBand, SectionLine
 from walkers.scenario.config import OutputGrid, Receptor
 

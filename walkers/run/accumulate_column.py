@@ -1,5 +1,5 @@
 """The water-column reductions of a three-dimensional run held at each output time, and their
-CF-1.8 variables in the result (see :mod:`walkers.run.column` for the reductions and
+CF-1.8 variables in the result (see :mod:`walkers.run.column_reduce` for the reductions and
 ``docs/outputs.md`` for the variables).
 
 The gridded ones (the concentration in each depth band, the deposit) go to the run's field store
@@ -16,7 +16,8 @@ from typing import Any
 import dask.array
 import numpy as np
 
-from walkers.run import column, reduce
+from walkers.run import column_reduce as column
+from walkers.run import reduce
 from walkers.run.store import DiskFields, MemoryFields
 from walkers.scenario.column_output import ColumnOutput
 from walkers.scenario.config import OutputGrid, Receptor
@@ -80,7 +81,7 @@ class ColumnSeries:
         return series
 
     def geometry(self, geographic: bool) -> dict[str, np.ndarray]:
-        """The section's bins (see :func:`walkers.run.column.section_geometry`)."""
+        """The section's bins (see :func:`walkers.run.column_reduce.section_geometry`)."""
         assert self.output.section is not None
         if self._geometry is None:
             self._geometry = column.section_geometry(self.output.section, geographic)

@@ -16,7 +16,7 @@ column into L equal layers of h/L each (heights as fractions of the depth). The 
 mass on the bed over the cell's plan area (kg m-2).
 
 The sums run in particle order, serially, so they are bitwise reproducible; each compiled
-reduction has a numpy twin in :mod:`walkers.run.column_twin` that the tests hold equal.
+reduction has a numpy twin in :mod:`walkers.run.column_reduce_twin` that the tests hold equal.
 """
 
 from __future__ import annotations

@@ -1,4 +1,4 @@
-"""Numpy twins of the compiled water-column reductions of :mod:`walkers.run.column`.
+"""Numpy twins of the compiled water-column reductions of :mod:`walkers.run.column_reduce`.
 
 Each follows the same arithmetic on the same particles, vectorised (``np.add.at`` adds in particle
 order), so the tests hold the twins and the compiled reductions equal; the twins are oracles, the
@@ -10,7 +10,7 @@ from __future__ import annotations
 import numpy as np
 
 from walkers.engine.state import IN_WATER, ON_BED
-from walkers.run.column import SMALLEST_DEPTH
+from walkers.run.column_reduce import SMALLEST_DEPTH
 
 
 def _cells(x, y, grid):
@@ -23,7 +23,7 @@ def _cells(x, y, grid):
 
 
 def band_mass(x, y, sigma, depth, mass, status, reference, start, end, grid, out, count):
-    """Twin of :func:`walkers.run.column.band_mass`."""
+    """Twin of :func:`walkers.run.column_reduce.band_mass`."""
     j, i, on = _cells(x, y, grid)
     keep = on & (status == IN_WATER)
     h = depth
@@ -41,7 +41,7 @@ def band_mass(x, y, sigma, depth, mass, status, reference, start, end, grid, out
 
 
 def bed_mass(x, y, mass, status, grid, out, count):
-    """Twin of :func:`walkers.run.column.bed_mass`."""
+    """Twin of :func:`walkers.run.column_reduce.bed_mass`."""
     j, i, on = _cells(x, y, grid)
     keep = on & (status == ON_BED)
     np.add.at(out, (j[keep], i[keep]), mass[keep])
@@ -53,7 +53,7 @@ def _layers(sigma, levels):
 
 
 def profile_mass(x, y, sigma, depth, mass, status, places, levels, out):
-    """Twin of :func:`walkers.run.column.profile_mass`."""
+    """Twin of :func:`walkers.run.column_reduce.profile_mass`."""
     water = status == IN_WATER
     w = mass / np.maximum(depth, SMALLEST_DEPTH)
     k = _layers(sigma, levels)
@@ -70,7 +70,7 @@ def profile_mass(x, y, sigma, depth, mass, status, places, levels, out):
 
 
 def section_mass(x, y, sigma, depth, mass, status, line, half_width, spacing, levels, out, hsum, n):
-    """Twin of :func:`walkers.run.column.section_mass`."""
+    """Twin of :func:`walkers.run.column_reduce.section_mass`."""
     px, py, cum, sx, sy = line[:, 0], line[:, 1], line[:, 2], line[0, 3], line[0, 4]
     best = np.full(len(x), np.inf)
     along = np.full(len(x), -1.0)
