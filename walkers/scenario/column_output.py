@@ -11,11 +11,13 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
-from typing import Literal
+from typing import Any, Literal
 
 import numpy as np
 
 from walkers.errors import InputError
+from walkers.scenario.keys import Choice, Key, Section
+from walkers.scenario.walk import _check_lonlat, _coordinate
 
 #: Where a depth band is measured from: below the surface, above the bed, or the whole column.
 BAND_REFERENCES = ("surface", "bed", "column")
@@ -123,3 +125,122 @@ class ColumnOutput:
     def heights(self) -> np.ndarray:
         """Centres of the profile layers as fractions of the depth above the bed (0..1)."""
         return (np.arange(self.levels, dtype=np.float64) + 0.5) / self.levels
+
+
+# --------------------------------------------------------------------------------------------
+# the [output] keys, and the settings built from them
+# --------------------------------------------------------------------------------------------
+
+#: The [output] subsections of the water-column outputs (added to the schema's [output] table).
+COLUMN_OUTPUT: dict[str, Key | Section] = {
+    "bands": Section(
+        "Three-dimensional runs: one table [[output.bands]] per depth band whose concentration is "
+        "written on the output grid (concentration_in_band). A band lies between 'start' and "
+        "'end' below the surface or above the bed, clipped to the local depth; 'column' is the "
+        "whole column. Default: surface (0-1 m below the surface), bottom (0-1 m above the bed) "
+        "and whole_column.",
+        {
+            "name": Key("text", "Label in outputs.", required=True),
+            "reference": Key(
+                "choice",
+                "What 'start' and 'end' are measured from: 'surface' (down), 'bed' (up), or "
+                "'column' (the whole water column; no start or end).",
+                required=True,
+                allowed=BAND_REFERENCES,
+            ),
+            "start": Key(
+                "quantity",
+                "Distance from the reference where the band begins.",
+                dimension="length",
+                bound="nonnegative",
+            ),
+            "end": Key(
+                "quantity",
+                "Distance from the reference where the band ends (more than start).",
+                dimension="length",
+                bound="positive",
+            ),
+        },
+        many=True,
+    ),
+    "profiles": Section(
+        "Three-dimensional runs: vertical profiles at every receptor (receptor_profile), in "
+        "layers of equal thickness, heights as fractions of the local depth.",
+        {
+            "levels": Key(
+                "integer",
+                "Number of layers of equal thickness from the bed to the surface.",
+                default=DEFAULT_LEVELS,
+                bound="positive",
+            ),
+        },
+    ),
+    "section": Section(
+        "Three-dimensional runs: a vertical section along a line (section_concentration): the "
+        "concentration over distance along the line and height (in the layers of "
+        "[output.profiles]) from the particles within width/2 of the line.",
+        {
+            "name": Key("text", "Label in outputs (default: section)."),
+            "points": Key("points", "The line's vertices, [[x, y], ...] in metres."),
+            "points_lonlat": Key("points", "The line's vertices, [[lon, lat], ...] in degrees."),
+            "width": Key(
+                "quantity",
+                "Width of the band about the line whose particles count.",
+                dimension="length",
+                required=True,
+                bound="positive",
+            ),
+            "spacing": Key(
+                "quantity",
+                "Length of a bin along the line.",
+                dimension="length",
+                required=True,
+                bound="positive",
+            ),
+        },
+        choices=(Choice((("points",), ("points_lonlat",))),),
+    ),
+}
+
+
+def build_column_output(out: dict[str, Any], geographic: bool) -> ColumnOutput:
+    """The water-column outputs from the checked [output] table (see :data:`COLUMN_OUTPUT`)."""
+    bands = []
+    for i, b in enumerate(out.get("bands") or []):
+        where = f"output.bands[{i}]"
+        if b["reference"] == "column":
+            if b["start"] is not None or b["end"] is not None:
+                raise InputError(
+                    f"{where}: a 'column' band is the whole column; leave out start and end"
+                )
+            bands.append(DepthBand(b["name"], "column"))
+            continue
+        if b["end"] is None:
+            raise InputError(
+                f"{where}: give end, the distance from the {b['reference']} where the band "
+                'ends (e.g. "1 m")'
+            )
+        bands.append(DepthBand(b["name"], b["reference"], b["start"] or 0.0, b["end"]))
+    levels = (out.get("profiles") or {}).get("levels") or DEFAULT_LEVELS
+    section = None
+    sec = out.get("section")
+    if sec is not None:
+        key = "points" if sec["points"] is not None else "points_lonlat"
+        if key == "points_lonlat" and not geographic:
+            raise InputError(
+                "output.section.points_lonlat: the scenario's positions are x/y in metres; give "
+                "points"
+            )
+        pts = [
+            [_coordinate(c, f"output.section.{key}[{j}]", geographic) for c in pair]
+            for j, pair in enumerate(sec[key])
+        ]
+        if geographic:
+            for j, (lon, lat) in enumerate(pts):
+                _check_lonlat(lon, lat, f"output.section position {j}")
+        section = SectionLine(
+            sec["name"] or "section", np.asarray(pts), sec["width"], sec["spacing"]
+        )
+    return ColumnOutput(
+        bands=tuple(bands) if bands else default_bands(), levels=int(levels), section=section
+    )
