@@ -65,6 +65,8 @@ _COMPRESSION = {"zlib": True, "complevel": 4, "shuffle": True}
 _STRING_LABELS = {"receptor": "receptor_name", "edge": "edge_name", "band": "band_name"}
 #: Variables of the tracks file, not of the main file.
 _TRACK_VARIABLES = ("track_x", "track_y", "track_height_above_bed")
+#: The dimensions along which a field by depth band has one chunk per index.
+_FIELD_STEPS = ("time", "band")
 
 
 # --------------------------------------------------------------------------------------------
@@ -253,7 +255,9 @@ def _encoding(out: xr.Dataset, time_encoding: dict) -> dict:
         elif var.ndim >= 1:
             enc.update(_COMPRESSION)
             enc["chunksizes"] = tuple(
-                1 if dim in ("time", "band") and _is_field(var) else size
+                1
+                if dim == "time" and var.ndim == 3 or dim in _FIELD_STEPS and _is_band_field(var)
+                else size
                 for dim, size in zip(var.dims, var.shape, strict=True)
             )
         # NaN marks missing data (e.g. moments before any release, padded thresholds);
@@ -266,9 +270,9 @@ def _encoding(out: xr.Dataset, time_encoding: dict) -> dict:
     return encoding
 
 
-def _is_field(var: xr.Variable) -> bool:
-    """A gridded field over time: (time, y, x), or (time, band, y, x) for depth bands."""
-    return var.ndim >= 3 and var.dims[0] == "time" and var.dims[-2:] == ("y", "x")
+def _is_band_field(var: xr.Variable) -> bool:
+    """A gridded field over time by depth band, (time, band, y, x): one chunk a band and time."""
+    return var.dims == ("time", "band", "y", "x")
 
 
 def _tracks_to_cf(ds: xr.Dataset, history: str) -> tuple[xr.Dataset, dict]:
@@ -368,7 +372,7 @@ def estimated_bytes(data: xr.Dataset) -> int:
     of metadata. Fields streamed from the run's store are counted one output time at a time."""
     total = 16_000
     for var in data.variables.values():
-        if _is_field(var):
+        if var.ndim >= 3:
             with dask.config.set(scheduler="synchronous"):
                 nonzero = int(dask.array.count_nonzero(dask.array.asarray(var.data)).compute())
             total += nonzero * var.dtype.itemsize
