@@ -8,6 +8,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+import xarray as xr
 from PIL import Image
 
 import walkers
@@ -83,3 +84,16 @@ def test_the_report_shows_the_column_figures_with_captions(drawn):
     for name in COLUMN_FIGURES:
         assert name in [p.name for p in paths]
         assert _CAPTIONS[name].endswith(".")
+
+
+def test_the_section_bed_takes_the_depth_at_each_time_and_fills_the_gaps():
+    # bins 0 and 2 have particles at some times; bin 1 never: the time-mean of its neighbours,
+    # linearly along the line
+    depth = np.array([[4.0, np.nan], [np.nan, np.nan], [8.0, 6.0]])
+    ds = xr.Dataset(
+        {"section_depth": (("section_distance", "time"), depth)},
+        coords={"section_distance": [0.0, 10.0, 20.0]},
+    )
+    np.testing.assert_allclose(
+        figures_column._section_depths(ds), [[4.0, 4.0], [5.5, 5.5], [8.0, 6.0]]
+    )

@@ -392,7 +392,11 @@ def _budget_figure(run: _Run, path: Path) -> Path:
             outflow = ds["budget_outflow"].sel(edge=name).values
             if np.any(outflow > 0):
                 parts.append((f"out through the {name} edge", outflow))
-    for var, label in (("budget_decayed", "decayed"), ("budget_held_dry", "held on dry cells")):
+    for var, label in (
+        ("budget_decayed", "decayed"),
+        ("budget_held_dry", "held on dry cells"),
+        ("budget_on_bed", "on the bed"),
+    ):
         if var in ds and np.any(ds[var].values > 0):
             parts.append((label, ds[var].values))
     fig = _figure(7.5, 4.4)

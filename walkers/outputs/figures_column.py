@@ -160,23 +160,24 @@ def _profile_figure(run: _Run, path: Path) -> Path:
     return path
 
 
-def _bed_depth(ds) -> np.ndarray:
-    """Water depth (m) at each section bin: the mean over time of the depths at the particles
-    counted there, interpolated along the line where no particle came (NaN if none ever did)."""
+def _section_depths(ds) -> np.ndarray:
+    """Water depth (m) at each section bin and output time, (bins, times): the mean depth at the
+    particles counted there; where none were, the mean over the times some were, interpolated
+    along the line where no particle ever came (all NaN if none ever did)."""
     depth = np.asarray(ds["section_depth"].transpose("section_distance", "time").values)
+    counted = np.isfinite(depth)
     with np.errstate(invalid="ignore"):
-        counted = np.isfinite(depth)
         mean = np.where(counted.any(axis=1), np.nansum(depth, axis=1) / counted.sum(axis=1), np.nan)
     s = ds["section_distance"].values
     known = np.isfinite(mean)
-    if not known.any():
-        return mean
-    return np.interp(s, s[known], mean[known])
+    if known.any():
+        mean = np.interp(s, s[known], mean[known])
+    return np.where(counted, depth, mean[:, None])
 
 
 def _section_figure(run: _Run, path: Path) -> Path:
     """The section at up to three output times: distance along the line against depth below the
-    surface (m), the layers stretched over the local depth, the bed drawn below."""
+    surface (m), the layers stretched over the local depth at that time, the bed drawn below."""
     ds = run.ds
     conc = run.conc(
         ds["section_concentration"].transpose("section_distance", "height", "time").values
@@ -185,17 +186,17 @@ def _section_figure(run: _Run, path: Path) -> Path:
     fig = _figure(7.5, 1.2 + 2.0 * len(chosen))
     axes = fig.subplots(len(chosen), 1, sharex=True, squeeze=False)[:, 0]
     s_edges = np.concatenate([[0.0], np.cumsum(ds["section_length"].values)])
-    depth = _bed_depth(ds)
+    depths = _section_depths(ds)
     norm = _log_norm(conc[:, :, chosen])
     name = str(ds["section_concentration"].attrs.get("section_name", "section"))
     for ax, k in zip(axes, chosen, strict=True):
         ax.set_title(
             f"{run.stamps[k]} ({run.hours[k]:g} h after the run start)", fontsize=8, loc="left"
         )
-        if norm is None or not np.isfinite(depth).any():
+        if norm is None or not np.isfinite(depths).any():
             _no_data(ax, "no particles near the line at this time")
             continue
-        h_edges = np.interp(s_edges, ds["section_distance"].values, depth)
+        h_edges = np.interp(s_edges, ds["section_distance"].values, depths[:, k])
         levels = ds.sizes["height"]
         fraction = np.linspace(0.0, 1.0, levels + 1)
         # corners: z = -(1 - fraction) h below the surface, each column stretched over its depth
