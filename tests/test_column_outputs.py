@@ -155,3 +155,20 @@ def test_a_depth_averaged_result_gains_nothing():
         "height",
     ):
         assert name not in ds.variables
+
+
+def test_deposit_geotiff_reads_back_in_gdal_with_the_same_values_and_place(tmp_path, result):
+    # GDAL north-up convention (common practice): row 0 is the northernmost row of cells
+    rasterio = pytest.importorskip("rasterio")
+    from walkers.outputs.gis import write_geotiff
+
+    ds, _, _ = result
+    path = write_geotiff(ds, tmp_path / "deposit.tif", variable="deposit")
+    with rasterio.open(path) as src:
+        assert src.crs.to_epsg() == 32631
+        assert src.tags()["units"] == "kg m-2"
+        np.testing.assert_array_equal(src.read(1)[::-1], ds["deposit"].values[-1])
+        cx, cy = src.xy(0, 3)
+        assert (cx, cy) == pytest.approx((float(ds.x[3]), float(ds.y[-1])))
+        # twin: the map of the first output time differs from what was written
+        assert not np.array_equal(src.read(1)[::-1], ds["deposit"].values[0])
