@@ -131,7 +131,7 @@ class _Accumulator:
         fields = {"concentration": conc, "particle_count": count}
         if "concentration_smoothed" in self.fields.variables:
             fields["concentration_smoothed"] = reduce.smoothed(conc, grid, mpu)
-        if self.column is not None and particles.sigma is not None:
+        if self.column is not None:
             fields.update(
                 self.column.record(
                     k, particles, depths, receptors, grid, flow.geographic, track_index

@@ -99,6 +99,8 @@ class ColumnSeries:
     ) -> dict[str, np.ndarray]:
         """Reduce the particles at output ``k``; return the (y, x) fields for the field store."""
         p = particles
+        if p.sigma is None:
+            raise ValueError("water-column outputs need particles with heights (sigma): a 3-D run")
         measure = reduce.cell_measure(grid, geographic, 2)
         args = (p.x, p.y, p.sigma, depths, p.mass, p.status)
         bands, _ = column.band_concentration(*args, self.output.bands, grid, measure)
