@@ -172,3 +172,17 @@ def test_deposit_geotiff_reads_back_in_gdal_with_the_same_values_and_place(tmp_p
         assert (cx, cy) == pytest.approx((float(ds.x[3]), float(ds.y[-1])))
         # twin: the map of the first output time differs from what was written
         assert not np.array_equal(src.read(1)[::-1], ds["deposit"].values[0])
+
+
+def test_export_writes_the_deposit_geotiff_of_a_three_dimensional_result(tmp_path, result):
+    pytest.importorskip("rasterio")
+    from click.testing import CliRunner
+
+    from walkers.cli import main
+
+    ds, _, _ = result
+    path = write_results(ds, tmp_path / "column.nc")
+    out = CliRunner().invoke(main, ["export", str(path)])
+    assert out.exit_code == 0, out.output
+    assert (tmp_path / "column_deposit.tif").is_file()
+    assert (tmp_path / "column_concentration_max.tif").is_file()
