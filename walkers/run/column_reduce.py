@@ -45,6 +45,12 @@ _COLUMN = BAND_REFERENCES.index("column")
 
 
 @nb.njit(**JIT)  # type: ignore[call-overload]  # JIT is a plain dict of options
+def _grid_inverse(grid):
+    """(x0, 1/dx, nx, y0, 1/dy, ny) of the output grid given as (x0, dx, nx, y0, dy, ny)."""
+    return grid[0], 1.0 / grid[1], grid[2], grid[3], 1.0 / grid[4], grid[5]
+
+
+@nb.njit(**JIT)  # type: ignore[call-overload]  # JIT is a plain dict of options
 def _output_cell(x, y, x0, inv_dx, nx, y0, inv_dy, ny):
     """(j, i) of the output cell holding (x, y), or (-1, -1) outside the grid; cell (j, i) spans
     x0 + (i ± ½) dx, as in ``kernels.grid_mass``."""
@@ -76,14 +82,7 @@ def band_mass(x, y, sigma, depth, mass, status, reference, start, end, grid, out
     ``end``) that holds it, in its output cell: out[b, j, i] += m / b_p, count[b, j, i] += 1.
 
     grid : (x0, dx, nx, y0, dy, ny) of the output grid, as floats."""
-    x0, inv_dx, nx, y0, inv_dy, ny = (
-        grid[0],
-        1.0 / grid[1],
-        grid[2],
-        grid[3],
-        1.0 / grid[4],
-        grid[5],
-    )
+    x0, inv_dx, nx, y0, inv_dy, ny = _grid_inverse(grid)
     nb_ = reference.shape[0]
     for p in range(x.shape[0]):
         if status[p] != STATUS_WATER:
@@ -101,14 +100,7 @@ def band_mass(x, y, sigma, depth, mass, status, reference, start, end, grid, out
 @nb.njit(**JIT)  # type: ignore[call-overload]  # JIT is a plain dict of options
 def bed_mass(x, y, mass, status, grid, out, count):
     """Add the mass (kg) of each particle on the bed to its output cell."""
-    x0, inv_dx, nx, y0, inv_dy, ny = (
-        grid[0],
-        1.0 / grid[1],
-        grid[2],
-        grid[3],
-        1.0 / grid[4],
-        grid[5],
-    )
+    x0, inv_dx, nx, y0, inv_dy, ny = _grid_inverse(grid)
     for p in range(x.shape[0]):
         if status[p] != STATUS_ON_BED:
             continue
