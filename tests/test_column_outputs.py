@@ -138,10 +138,17 @@ def test_fields_streamed_to_disk_give_the_same_result_and_file(tmp_path, result)
 
 def test_checkpoint_arrays_give_back_the_same_column_series(result):
     ds, acc, flow = result
-    again = _Accumulator.from_arrays(acc.arrays(), column=COLUMN)
-    assert again.column is not None
-    for name, values in acc.column.arrays().items():
-        np.testing.assert_array_equal(again.column.arrays()[name], values)
+    for again in (
+        _Accumulator.from_arrays(acc.arrays(), column=COLUMN),
+        _Accumulator.from_arrays(acc.arrays()),  # a checkpoint read without the settings ...
+    ):
+        again.resume_column(COLUMN)  # ... given them by the resumed run
+        assert again.column is not None
+        for name, values in acc.column.arrays().items():
+            np.testing.assert_array_equal(again.column.arrays()[name], values)
+    depth_averaged = _Accumulator.from_arrays(acc.arrays())
+    depth_averaged.resume_column(None)
+    assert depth_averaged.column is None
 
 
 def test_a_depth_averaged_result_gains_nothing():

@@ -52,6 +52,7 @@ class _Accumulator:
     ):
         self.fields = fields
         self.column = None if column is None else ColumnSeries(column, nt, nrec, tracks)
+        self._column_arrays: dict[str, np.ndarray] = {}
         self.conc_max = np.full((grid.ny, grid.nx), -np.inf)
         self.receptor = np.zeros((nrec, nt))
         self.budget = {
@@ -105,7 +106,9 @@ class _Accumulator:
         for fields on disk, ``fields``; ``column`` as it was made with (KeyError if an array is
         missing)."""
         acc = cls.__new__(cls)
-        acc.column = None if column is None else ColumnSeries.from_arrays(column, arrays)
+        acc._column_arrays = {k: v for k, v in arrays.items() if k.startswith("column.")}
+        acc.column = None
+        acc.resume_column(column)
         acc.conc_max, acc.receptor = arrays["conc_max"], arrays["receptor"]
         acc.outflow, acc.in_water = arrays["outflow"], arrays["in_water"]
         acc.track_x, acc.track_y = arrays.get("track_x"), arrays.get("track_y")
@@ -126,6 +129,13 @@ class _Accumulator:
             )
         )
         return acc
+
+    def resume_column(self, column: ColumnOutput | None) -> None:
+        """Give an accumulator read back by :meth:`from_arrays` the water-column settings of its
+        run (a checkpoint holds the series, the scenario the settings); None: a depth-averaged
+        run, nothing to do. KeyError if the arrays held no water-column series."""
+        if column is not None and self.column is None:
+            self.column = ColumnSeries.from_arrays(column, self._column_arrays)
 
     def record(self, k, particles, depths, conc, count, receptors, grid, flow, mpu, track_index):
         fields = {"concentration": conc, "particle_count": count}
