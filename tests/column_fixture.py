@@ -67,8 +67,10 @@ def column_results(
         y = spread * rng.standard_normal(PARTICLES)
         z = np.minimum(rng.exponential(1.5, PARTICLES), DEPTH)
         p = ParticleState.from_arrays(x, y, np.full(PARTICLES, MASS), np.zeros(PARTICLES))
-        p.in_column(z / DEPTH)
-        p.status[:] = np.where(rng.uniform(size=PARTICLES) < 0.1 * (k + 1), ON_BED, IN_WATER)
+        on_bed = rng.uniform(size=PARTICLES) < 0.1 * (k + 1)
+        if column is not None:  # a depth-averaged run's particles have no heights
+            p.in_column(z / DEPTH)
+        p.status[:] = np.where(on_bed & (column is not None), ON_BED, IN_WATER)
         depths = reduce.particle_depths(p, flow.depth.data[0], xe, ye)
         conc, count = reduce.concentration(p, depths, GRID, measure)
         acc.record(k, p, depths, conc, count, RECEPTORS, GRID, flow, (1.0, 1.0), track_index)
