@@ -77,7 +77,8 @@ def report_command(result: Path, output: Path | None, units: str | None, overwri
     "--geotiff",
     type=click.Path(dir_okay=False, path_type=Path),
     help="GeoTIFF of the maximum concentration (kg m-3), runs only "
-    "[default: <result>_concentration_max.tif].",
+    "[default: <result>_concentration_max.tif]; a 3-D run also gets <result>_deposit.tif "
+    "(the deposit at the end, kg m-2).",
 )
 @click.option("--no-gis", is_flag=True, help="Write only the CSV, no GeoJSON or GeoTIFF.")
 @UNITS_OPTION
@@ -107,6 +108,11 @@ def export_command(
         if "concentration_max" in ds:
             tif = geotiff or Path(f"{stem}_concentration_max.tif")
             written.append(write_geotiff(ds, tif, overwrite=overwrite, inputs=[result]))
+        if "deposit" in ds:
+            tif = Path(f"{stem}_deposit.tif")
+            written.append(
+                write_geotiff(ds, tif, overwrite=overwrite, inputs=[result], variable="deposit")
+            )
     for path in written:
         click.echo(f"wrote {path}")
 

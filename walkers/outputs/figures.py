@@ -272,9 +272,14 @@ def _map_size(run: _Run, width: float) -> tuple[float, float]:
 
 def _colour_bar(run: _Run, fig: Figure, ax: Axes, mesh) -> None:
     """A colour bar as tall as the map itself (an inset follows the aspect-fixed axes)."""
+    _colour_bar_label(fig, ax, mesh, f"concentration ({run.unit.name}, log scale)")
+
+
+def _colour_bar_label(fig: Figure, ax: Axes, mesh, label: str) -> None:
+    """A colour bar as tall as the axes ``ax``, labelled ``label``, with plain numbers."""
     cax = ax.inset_axes((1.03, 0.0, 0.035, 1.0))
     bar = fig.colorbar(mesh, cax=cax)
-    bar.set_label(f"concentration ({run.unit.name}, log scale)")
+    bar.set_label(label)
     bar.ax.yaxis.set_major_formatter(PLAIN_TICKS)
     bar.ax.yaxis.set_minor_formatter(FuncFormatter(lambda v, _pos: ""))
 
@@ -387,7 +392,11 @@ def _budget_figure(run: _Run, path: Path) -> Path:
             outflow = ds["budget_outflow"].sel(edge=name).values
             if np.any(outflow > 0):
                 parts.append((f"out through the {name} edge", outflow))
-    for var, label in (("budget_decayed", "decayed"), ("budget_held_dry", "held on dry cells")):
+    for var, label in (
+        ("budget_decayed", "decayed"),
+        ("budget_held_dry", "held on dry cells"),
+        ("budget_on_bed", "on the bed"),
+    ):
         if var in ds and np.any(ds[var].values > 0):
             parts.append((label, ds[var].values))
     fig = _figure(7.5, 4.4)
@@ -485,7 +494,10 @@ def plot_results(
     units : concentration unit to show (default: the scenario thresholds' unit, else mg/L).
 
     Files: ``concentration_max.png``, ``concentration_tNNNN.png`` (NNNN = output-time index),
-    ``receptors.png`` (when there are receptors), ``mass_budget.png`` and ``plume.gif``.
+    ``receptors.png`` (when there are receptors), ``mass_budget.png`` and ``plume.gif``; for a
+    three-dimensional run also ``deposit.png``, ``receptor_profiles.png`` (when there are
+    receptors) and ``section.png`` (when the scenario names a section), see
+    :mod:`walkers.outputs.figures_column`.
     """
     folder = Path(outdir)
     if not folder.is_dir():
@@ -534,6 +546,10 @@ def _summary_figures(run: _Run, folder: Path) -> list[Path]:
         written.append(_receptor_figure(run, folder / "receptors.png"))
     if "budget_in_water" in run.ds:
         written.append(_budget_figure(run, folder / "mass_budget.png"))
+    # a three-dimensional run: the deposit map, profiles at receptors, the vertical section
+    from walkers.outputs.figures_column import column_figures
+
+    written.extend(column_figures(run, folder))
     return written
 
 
@@ -541,5 +557,6 @@ def report_figures(
     ds_or_path: xr.Dataset | str | os.PathLike, outdir: str | os.PathLike, units: str | None = None
 ) -> list[Path]:
     """The figures a report shows: the maximum map, the receptor series (when there are
-    receptors) and the mass budget, drawn into the existing folder ``outdir``."""
+    receptors), the mass budget and, for a three-dimensional run, the water-column figures,
+    drawn into the existing folder ``outdir``."""
     return _summary_figures(_load(ds_or_path, None, units), Path(outdir))

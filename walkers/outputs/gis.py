@@ -13,7 +13,8 @@ and holes clockwise (§3.1.6). Features:
 Contours are traced on the output grid's cell centres with matplotlib's contour generator
 (contourpy), so an edge lies between the centre of a cell above the level and one below it.
 The GeoTIFF holds ``concentration_max`` in kg m-3 (SI, like the NetCDF) on the result's CRS,
-north up. Both are written to a temporary name and renamed when complete.
+north up; for a three-dimensional run a second one holds the deposit on the bed at the end of the
+run (kg m-2). Both are written to a temporary name and renamed when complete.
 """
 
 from __future__ import annotations
@@ -197,15 +198,25 @@ def write_geojson(
     return write_text(path, json.dumps(result_features(ds, units)), overwrite=overwrite)
 
 
+#: The variables a GeoTIFF may hold: name -> what its band is (a (time, y, x) variable is written
+#: at its last output time).
+GEOTIFF_LAYERS = {
+    "concentration_max": "maximum concentration over the run",
+    "deposit": "mass on the bed per bed area at the end of the run",
+}
+
+
 def write_geotiff(
     ds: xr.Dataset,
     path: str | os.PathLike,
     *,
     overwrite: bool = False,
     inputs: Iterable[str | os.PathLike] = (),
+    variable: str = "concentration_max",
 ) -> Path:
-    """Write ``concentration_max`` (kg m-3) as a north-up GeoTIFF on the result's CRS, never onto
-    one of ``inputs`` (the result read)."""
+    """Write ``variable`` as a north-up GeoTIFF on the result's CRS, in its SI units, never onto
+    one of ``inputs`` (the result read): ``concentration_max`` (kg m-3), or ``deposit`` (kg m-2,
+    a three-dimensional run's, at the last output time)."""
     try:
         import rasterio
         from rasterio.crs import CRS
@@ -216,13 +227,17 @@ def write_geotiff(
         ) from exc
 
     path = Path(path)
-    if "concentration_max" not in ds:
-        raise InputError("result has no 'concentration_max': a GeoTIFF is written for runs only")
+    if variable not in GEOTIFF_LAYERS:
+        raise InputError(f"GeoTIFF of {variable!r}: expected one of {', '.join(GEOTIFF_LAYERS)}")
+    if variable not in ds:
+        kind = "runs only" if variable == "concentration_max" else "three-dimensional runs only"
+        raise InputError(f"result has no {variable!r}: a GeoTIFF of it is written for {kind}")
     check_target(path, overwrite, inputs)
     x, y = ds["x"].values, ds["y"].values
     xe, ye = cell_edges(x), cell_edges(y)
     dx, dy = float(xe[1] - xe[0]), float(ye[1] - ye[0])
-    data = np.asarray(ds["concentration_max"].values, dtype=np.float64)[::-1]  # north row first
+    field = ds[variable].isel(time=-1) if "time" in ds[variable].dims else ds[variable]
+    data = np.asarray(field.values, dtype=np.float64)[::-1]  # north row first
     wkt = crs_wkt(ds)
     if not wkt and not is_geographic(ds):
         raise InputError("result has no CRS (crs_wkt): a GeoTIFF could not be placed on a map")
@@ -238,7 +253,9 @@ def write_geotiff(
     with _temporary_names([path]) as (temp,):
         with rasterio.open(temp, "w", **profile) as dst:
             dst.write(data, 1)
-            dst.update_tags(units="kg m-3", long_name="maximum concentration over the run")
+            dst.update_tags(
+                units=str(ds[variable].attrs["units"]), long_name=GEOTIFF_LAYERS[variable]
+            )
             dst.update_tags(caution=walkers.CAUTION)
         _place(temp, path, overwrite)
     _fsync_dir(path.parent)

@@ -26,7 +26,7 @@ def _open(path: str | os.PathLike, *, decode_times: bool, stream: bool) -> xr.Da
             path, decode_times=decode_times, chunks={} if stream else None
         )  # chunks={}: dask chunks as stored, one output time of a field each (writer._encoding)
         for var in ds.variables.values():
-            if not (stream and var.ndim == 3):
+            if not (stream and var.ndim >= 3):
                 var.load()
     except (OSError, ValueError, RuntimeError) as exc:
         raise InputError(

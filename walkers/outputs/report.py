@@ -61,6 +61,9 @@ _CAPTIONS = {
     "concentration_max.png": "Maximum concentration over the run.",
     "receptors.png": "Concentration at the receptors, with their thresholds.",
     "mass_budget.png": "Mass budget over the run.",
+    "deposit.png": "Deposit on the bed at the end of the run.",
+    "receptor_profiles.png": "Vertical profiles of concentration at the receptors.",
+    "section.png": "Vertical section of concentration along the scenario's line.",
 }
 
 

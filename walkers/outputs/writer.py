@@ -62,7 +62,11 @@ from walkers.files import (
 CONVENTIONS = "CF-1.8"
 GRID_MAPPING = "crs"
 _COMPRESSION = {"zlib": True, "complevel": 4, "shuffle": True}
-_STRING_LABELS = {"receptor": "receptor_name", "edge": "edge_name"}
+_STRING_LABELS = {"receptor": "receptor_name", "edge": "edge_name", "band": "band_name"}
+#: Variables of the tracks file, not of the main file.
+_TRACK_VARIABLES = ("track_x", "track_y", "track_height_above_bed")
+#: The dimensions along which a field by depth band has one chunk per index.
+_FIELD_STEPS = ("time", "band")
 
 
 # --------------------------------------------------------------------------------------------
@@ -104,7 +108,7 @@ def _with_units(attrs: dict, units: str, long_name: str) -> dict:
 def _to_cf(ds: xr.Dataset, history: str) -> tuple[xr.Dataset, dict]:
     """The on-disk form of a result Dataset (without tracks) and its NetCDF encoding."""
     time_encoding = ds["time"].encoding
-    out = ds.drop_vars([v for v in ("track_x", "track_y") if v in ds.variables])
+    out = ds.drop_vars([v for v in _TRACK_VARIABLES if v in ds.variables])
     if "trajectory" in out.dims:
         out = out.drop_dims("trajectory")
     out = _with_string_labels(out)
@@ -134,6 +138,8 @@ def _with_string_labels(out: xr.Dataset) -> xr.Dataset:
         )
     if "edge_name" in out.coords:
         out["edge_name"].attrs["long_name"] = "domain edge name"
+    if "band_name" in out.coords:
+        out["band_name"].attrs["long_name"] = "depth band name"
     return out
 
 
@@ -193,7 +199,7 @@ def _set_variable_attrs(out: xr.Dataset, crs: CRS | None, has_receptors: bool) -
                 "can be written"
             )
         spatial = {"x", "y"} <= set(data.dims) or (
-            has_receptors and name == "receptor_concentration"
+            has_receptors and name in ("receptor_concentration", "receptor_profile")
         )
         if crs is not None and spatial:
             data.attrs["grid_mapping"] = GRID_MAPPING
@@ -201,6 +207,8 @@ def _set_variable_attrs(out: xr.Dataset, crs: CRS | None, has_receptors: bool) -
         coords = ["time", "receptor_name", "receptor_x", "receptor_y"]
         coords += [c for c in ("receptor_lon", "receptor_lat", "receptor_radius") if c in out]
         out["receptor_concentration"].attrs["coordinates"] = " ".join(coords)
+        if "receptor_profile" in out:
+            out["receptor_profile"].attrs["coordinates"] = " ".join([*coords, "height"])
         if "receptor_threshold" in out:
             out["receptor_threshold"].attrs["coordinates"] = "receptor_name"
         for name in ("receptor_radius",):
@@ -247,7 +255,9 @@ def _encoding(out: xr.Dataset, time_encoding: dict) -> dict:
         elif var.ndim >= 1:
             enc.update(_COMPRESSION)
             enc["chunksizes"] = tuple(
-                1 if dim == "time" and var.ndim == 3 else size
+                1
+                if dim == "time" and var.ndim == 3 or dim in _FIELD_STEPS and _is_band_field(var)
+                else size
                 for dim, size in zip(var.dims, var.shape, strict=True)
             )
         # NaN marks missing data (e.g. moments before any release, padded thresholds);
@@ -258,6 +268,11 @@ def _encoding(out: xr.Dataset, time_encoding: dict) -> dict:
             enc["_FillValue"] = None
         encoding[name] = enc
     return encoding
+
+
+def _is_band_field(var: xr.Variable) -> bool:
+    """A gridded field over time by depth band, (time, band, y, x): one chunk a band and time."""
+    return var.dims == ("time", "band", "y", "x")
 
 
 def _tracks_to_cf(ds: xr.Dataset, history: str) -> tuple[xr.Dataset, dict]:
@@ -282,6 +297,18 @@ def _tracks_to_cf(ds: xr.Dataset, history: str) -> tuple[xr.Dataset, dict]:
         attrs["long_name"] = f"particle position, {axis} coordinate"
         attrs.setdefault("units", ds[axis].attrs.get("units", "m"))
         out = out.assign_coords({name: (("trajectory", "time"), ds[name].values, attrs)})
+    coordinates = "time trajectory_id track_x track_y"
+    if "track_height_above_bed" in ds:
+        attrs = dict(ds["track_height_above_bed"].attrs)
+        attrs.update({"positive": "up", "axis": "Z"})
+        out = out.assign_coords(
+            track_height_above_bed=(
+                ("trajectory", "time"),
+                ds["track_height_above_bed"].values,
+                attrs,
+            )
+        )
+        coordinates += " track_height_above_bed"
     if crs is not None:
         out[GRID_MAPPING] = xr.DataArray(np.int32(0), attrs=_grid_mapping_attrs(crs))
     in_water = np.isfinite(ds["track_x"].values) & np.isfinite(ds["track_y"].values)
@@ -293,7 +320,7 @@ def _tracks_to_cf(ds: xr.Dataset, history: str) -> tuple[xr.Dataset, dict]:
             "units": "1",
             "flag_values": np.array([0, 1], dtype=np.int8),
             "flag_meanings": "gone in_water",
-            "coordinates": "time trajectory_id track_x track_y",
+            "coordinates": coordinates,
         },
     )
     if crs is not None:
@@ -312,8 +339,9 @@ def _tracks_to_cf(ds: xr.Dataset, history: str) -> tuple[xr.Dataset, dict]:
     for var in out.variables.values():
         var.encoding = {}
     encoding = _encoding(out, ds["time"].encoding)
-    for name in ("track_x", "track_y"):
-        encoding[name]["_FillValue"] = np.nan  # a track that has left is NaN from then on
+    for name in _TRACK_VARIABLES:
+        if name in encoding:
+            encoding[name]["_FillValue"] = np.nan  # a track that has left is NaN from then on
     return out, encoding
 
 
@@ -344,7 +372,7 @@ def estimated_bytes(data: xr.Dataset) -> int:
     of metadata. Fields streamed from the run's store are counted one output time at a time."""
     total = 16_000
     for var in data.variables.values():
-        if var.ndim == 3:
+        if var.ndim >= 3:
             with dask.config.set(scheduler="synchronous"):
                 nonzero = int(dask.array.count_nonzero(dask.array.asarray(var.data)).compute())
             total += nonzero * var.dtype.itemsize

@@ -13,15 +13,20 @@ import walkers
 from walkers.fields.base import FlowField
 from walkers.fields.grids import compass
 from walkers.run import reduce
+from walkers.run.accumulate_column import ColumnSeries, column_field_variables
 from walkers.run.store import DiskFields, MemoryFields
+from walkers.scenario.column_output import ColumnOutput
 from walkers.scenario.config import EDGE_NAMES, OutputGrid, Receptor
 
 
-def _field_variables(grid: OutputGrid) -> dict[str, type]:
-    """The 3-D fields a run stores at every output time, with their dtypes."""
+def _field_variables(grid: OutputGrid, column: ColumnOutput | None = None) -> dict[str, type]:
+    """The 3-D fields a run stores at every output time, with their dtypes; with ``column`` (a
+    three-dimensional run's water-column outputs) also the depth bands and the deposit."""
     variables: dict[str, type] = {"concentration": np.float64, "particle_count": np.int32}
     if grid.bandwidth > 0:
         variables["concentration_smoothed"] = np.float64
+    if column is not None:
+        variables.update(column_field_variables(column))
     return variables
 
 
@@ -30,6 +35,9 @@ class _Accumulator:
 
     The 3-D fields go to ``fields`` (in memory or streamed to disk, see :mod:`walkers.run.store`);
     the maximum concentration over time is a running maximum; the rest are series over time.
+    ``column``: the water-column outputs of a three-dimensional run (its particles have heights,
+    ``sigma``), held by :class:`walkers.run.accumulate_column.ColumnSeries`; None for a
+    depth-averaged run.
     """
 
     def __init__(
@@ -40,8 +48,11 @@ class _Accumulator:
         tracks: int,
         fields: MemoryFields | DiskFields,
         edges: int = len(EDGE_NAMES),
+        column: ColumnOutput | None = None,
     ):
         self.fields = fields
+        self.column = None if column is None else ColumnSeries(column, nt, nrec, tracks)
+        self._column_arrays: dict[str, np.ndarray] = {}
         self.conc_max = np.full((grid.ny, grid.nx), -np.inf)
         self.receptor = np.zeros((nrec, nt))
         self.budget = {
@@ -72,6 +83,8 @@ class _Accumulator:
             out["track_x"], out["track_y"] = self.track_x, self.track_y
         out.update({f"budget.{k}": v for k, v in self.budget.items()})
         out.update({f"moment.{k}": v for k, v in self.moments.items()})
+        if self.column is not None:
+            out.update(self.column.arrays())
         return out
 
     def field_record(self, folder: Path) -> dict[str, Any] | None:
@@ -84,11 +97,18 @@ class _Accumulator:
 
     @classmethod
     def from_arrays(
-        cls, arrays: dict[str, np.ndarray], fields: DiskFields | None = None
+        cls,
+        arrays: dict[str, np.ndarray],
+        fields: DiskFields | None = None,
+        column: ColumnOutput | None = None,
     ) -> _Accumulator:
         """The accumulator whose :meth:`arrays` were ``arrays``; its fields are those arrays or,
-        for fields on disk, ``fields`` (KeyError if an array is missing)."""
+        for fields on disk, ``fields``; ``column`` as it was made with (KeyError if an array is
+        missing)."""
         acc = cls.__new__(cls)
+        acc._column_arrays = {k: v for k, v in arrays.items() if k.startswith("column.")}
+        acc.column = None
+        acc.resume_column(column)
         acc.conc_max, acc.receptor = arrays["conc_max"], arrays["receptor"]
         acc.outflow, acc.in_water = arrays["outflow"], arrays["in_water"]
         acc.track_x, acc.track_y = arrays.get("track_x"), arrays.get("track_y")
@@ -107,10 +127,23 @@ class _Accumulator:
         )
         return acc
 
+    def resume_column(self, column: ColumnOutput | None) -> None:
+        """Give an accumulator read back by :meth:`from_arrays` the water-column settings of its
+        run (a checkpoint holds the series, the scenario the settings); None: a depth-averaged
+        run, nothing to do. KeyError if the arrays held no water-column series."""
+        if column is not None and self.column is None:
+            self.column = ColumnSeries.from_arrays(column, self._column_arrays)
+
     def record(self, k, particles, depths, conc, count, receptors, grid, flow, mpu, track_index):
         fields = {"concentration": conc, "particle_count": count}
         if "concentration_smoothed" in self.fields.variables:
             fields["concentration_smoothed"] = reduce.smoothed(conc, grid, mpu)
+        if self.column is not None:
+            fields.update(
+                self.column.record(
+                    k, particles, depths, receptors, grid, flow.geographic, track_index
+                )
+            )
         self.fields.put(k, fields)
         np.maximum(self.conc_max, conc, out=self.conc_max)
         if receptors:
@@ -138,6 +171,9 @@ class _Accumulator:
         data = self._variables(grid, xunits, yunits)
         _add_thresholds(data, receptors)
         self._add_tracks(data, xunits, yunits)
+        if self.column is not None:
+            coords.update(self.column.coordinates(geo, xunits, yunits))
+            data.update(self.column.variables(self.fields, self.track_x is not None))
         attrs = {
             "title": title,
             "seed": int(seed),

@@ -32,6 +32,7 @@ from walkers.scenario.build import (
     _build_releases,
     _build_vertical,
 )
+from walkers.scenario.column_output import build_column_output
 from walkers.scenario.config import Dispersion, Transport
 from walkers.scenario.keys import MAX_PARTICLES
 from walkers.scenario.schema import SCHEMA
@@ -165,6 +166,7 @@ def _build(
         source_path=source_path,
         transport_base=base_transport,
         comment=run["comment"] or "",
+        column_output=build_column_output(out, geographic),
     )
 
 

@@ -6,6 +6,7 @@ The validator (:mod:`walkers.scenario.walk`) and the reference page ``docs/scena
 
 from __future__ import annotations
 
+from walkers.scenario.column_output import COLUMN_OUTPUT
 from walkers.scenario.config import EDGE_NAMES, INDEX_EDGE_NAMES
 from walkers.scenario.keys import Choice, Key, Section
 from walkers.scenario.schema_flow import FLOW
@@ -309,6 +310,7 @@ SCHEMA = Section(
                         Choice((("cell_size",), ("cell_size_x", "cell_size_y"))),
                     ),
                 ),
+                **COLUMN_OUTPUT,
             },
             required=True,
         ),

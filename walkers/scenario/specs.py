@@ -10,6 +10,7 @@ from datetime import datetime
 from pathlib import Path
 from typing import Any, Literal
 
+from walkers.scenario.column_output import ColumnOutput
 from walkers.scenario.config import Dispersion, OutputGrid, Receptor, Release, Transport
 
 # --------------------------------------------------------------------------------------------
@@ -155,6 +156,8 @@ class Scenario:
     geographic : positions are lon/lat degrees (grid coordinates of a geographic flow grid).
     text : the scenario file's text (TOML; for a dict input, None).
     comment : a note for the outputs' ``comment`` attribute (may be empty).
+    column_output : the water-column outputs of a three-dimensional run ([output] bands,
+        profiles, section; see :mod:`walkers.scenario.column_output`).
     """
 
     title: str
@@ -180,6 +183,8 @@ class Scenario:
     source_path: Path | None
     transport_base: Transport = dataclasses.field(repr=False)
     comment: str = ""
+    #: what a three-dimensional run writes about the water column (unused by depth-averaged runs)
+    column_output: ColumnOutput = dataclasses.field(default_factory=ColumnOutput)
 
     @property
     def duration(self) -> float:
