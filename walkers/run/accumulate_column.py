@@ -45,7 +45,7 @@ class ColumnSeries:
     def __init__(self, column_output: ColumnOutput, nt: int, nrec: int, tracks: int):
         self.output = column_output
         levels = column_output.levels
-        self.on_bed = np.zeros(nt)
+        self.nt = nt
         self.profile = np.full((nrec, levels, nt), np.nan)
         self.track_z = np.full((tracks, nt), np.nan) if tracks else None
         self.section: np.ndarray | None = None
@@ -59,7 +59,7 @@ class ColumnSeries:
 
     def arrays(self) -> dict[str, np.ndarray]:
         """Every series by a flat name (``column.<name>``), for checkpoints."""
-        out = {"column.on_bed": self.on_bed, "column.profile": self.profile}
+        out = {"column.profile": self.profile}
         if self.track_z is not None:
             out["column.track_z"] = self.track_z
         if self.section is not None and self.section_depth is not None:
@@ -72,8 +72,8 @@ class ColumnSeries:
         """The series whose :meth:`arrays` were ``arrays`` (KeyError if one is missing)."""
         series = cls.__new__(cls)
         series.output = column_output
-        series.on_bed = arrays["column.on_bed"]
         series.profile = arrays["column.profile"]
+        series.nt = series.profile.shape[2]
         series.track_z = arrays.get("column.track_z")
         series.section = arrays.get("column.section")
         series.section_depth = arrays.get("column.section_depth")
@@ -106,7 +106,6 @@ class ColumnSeries:
         bands, _ = column.band_concentration(*args, self.output.bands, grid, measure)
         fields = {band_field(b): bands[b] for b in range(len(self.output.bands))}
         fields["deposit"] = column.deposit(p.x, p.y, p.mass, p.status, grid, measure)[0]
-        self.on_bed[k] = reduce.mass_budget(p)["budget_on_bed"]
         if receptors:
             places, area = column.receptor_places(receptors, grid, measure, geographic)
             self.profile[:, :, k] = column.receptor_profiles(
@@ -119,7 +118,7 @@ class ColumnSeries:
             )
             assert self.section is not None and self.section_depth is not None
             if self.section.shape[0] != conc.shape[0]:
-                nt = self.on_bed.shape[0]
+                nt = self.nt
                 self.section = np.full((conc.shape[0], self.output.levels, nt), np.nan)
                 self.section_depth = np.full((conc.shape[0], nt), np.nan)
             self.section[:, :, k] = conc
@@ -213,11 +212,6 @@ class ColumnSeries:
                 ("time", "y", "x"),
                 fields.data("deposit"),
                 {"units": "kg m-2", "long_name": "mass on the bed per bed area"},
-            ),
-            "budget_on_bed": (
-                "time",
-                self.on_bed,
-                {"units": "kg", "long_name": "mass on the bed"},
             ),
             "receptor_profile": (
                 ("receptor", "height", "time"),

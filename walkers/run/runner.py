@@ -169,7 +169,8 @@ def memory_estimate(scenario: Scenario, flow: FlowField) -> tuple[int, int]:
     """
     g = scenario.output
     nt = int(round(scenario.duration / scenario.output_interval)) + 1
-    variables = _field_variables(g)
+    column = scenario.column_output if scenario.transport_base.vertical is not None else None
+    variables = _field_variables(g, column)
     field_bytes = g.nx * g.ny * sum(np.dtype(d).itemsize for d in variables.values())
     held = 3 if streams_to_disk((nt, g.ny, g.nx), variables) else 2 * nt
     series = 2 * nt * (8 * len(scenario.receptors) + 2 * 8 * scenario.tracks)
@@ -315,6 +316,7 @@ def simulate_scenario(
         scenario_text=scenario.text or "",
         resume=resume,
         on_output=on_output,
+        column_output=scenario.column_output,
     )
     ds["land"] = land_variable(flow, scenario, offset)
     check_inputs_unchanged(provenance, scenario)

@@ -48,6 +48,7 @@ from walkers.fields.geo import metres_per_degree
 from walkers.run import column, reduce
 from walkers.run.accumulate import _Accumulator, _field_variables
 from walkers.run.store import FieldMode, field_store
+from walkers.scenario.column_output import ColumnOutput
 from walkers.scenario.config import OutputGrid, Receptor, Release, Transport
 
 ProgressCallback = Callable[[float, float, int], None]
@@ -235,6 +236,7 @@ def simulate(
     on_output: Callable[[RunState], None] | None = None,
     fields: FieldMode = "auto",
     field_folder: str | os.PathLike | None = None,
+    column_output: ColumnOutput | None = None,
 ) -> xr.Dataset:
     """Run one simulation and return its result Dataset.
 
@@ -261,6 +263,10 @@ def simulate(
     field_folder : where an on-disk store makes its temporary folder (default: the system's
         temporary folder). It is removed if the run fails or is interrupted, and otherwise when
         the returned Dataset (and everything read lazily from it) is dropped, or at exit.
+    column_output : in a three-dimensional run (``transport.vertical``), the water-column outputs
+        (depth bands, profiles at receptors, a section; the defaults of
+        :class:`~walkers.scenario.column_output.ColumnOutput` when None); unused in depth-averaged
+        runs.
     """
     if not releases:
         raise InputError("no releases: a run needs at least one release")
@@ -277,17 +283,21 @@ def simulate(
     )
     walk_key, release_rng = run_streams(seed, member)
     shape = (len(times), output_grid.ny, output_grid.nx)
-    variables = _field_variables(output_grid)
+    settings = (column_output or ColumnOutput()) if transport.vertical is not None else None
+    variables = _field_variables(output_grid, settings)
     if resume is None:
         particles, owner = released_particles(releases, flow, release_rng, transport)
         first = 0
         store = field_store(shape, variables, fields, field_folder)
         edges = len(flow.kind().edge_names)
-        acc = _Accumulator(len(times), output_grid, len(receptors), tracks, store, edges)
+        acc = _Accumulator(
+            len(times), output_grid, len(receptors), tracks, store, edges, column=settings
+        )
     else:
         _check_resume(resume, shape, variables, len(times))
         particles, owner, first = resume.particles, resume.owner, resume.next_output
         acc = resume.results
+        acc.resume_column(settings)
     xe, ye = centre_to_edges(flow.x), centre_to_edges(flow.y)
     measure = reduce.cell_measure(output_grid, flow.geographic, flow.ndim)
     mpu = _metres_per_unit(flow, None)
