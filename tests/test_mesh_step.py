@@ -95,10 +95,11 @@ def test_compiled_step_equals_numpy_twin_on_a_mesh():
         for scheme, mode in (("euler", "axes"), ("rk4", "aligned")):
             tr = Transport(dt=40.0, scheme=scheme, dispersion=Dispersion(mode=mode, k1=3.0, k2=1.0))
             rng = np.random.default_rng(2)
-            start = (rng.uniform(10, 1500, 3000), rng.uniform(10, 1000, 3000))
-            release = rng.uniform(0, 600, 3000)
-            a, fa = run(flow, tr, *start, 3000, 1800.0, release=release)
-            b, fb = run(flow, tr, *start, 3000, 1800.0, release=release, stepper="reference")
+            # 1000 particles: four blocks of kernels.BLOCK, so the threaded kernel, as in runs
+            start = (rng.uniform(10, 1500, 1000), rng.uniform(10, 1000, 1000))
+            release = rng.uniform(0, 600, 1000)
+            a, fa = run(flow, tr, *start, 1000, 1800.0, release=release)
+            b, fb = run(flow, tr, *start, 1000, 1800.0, release=release, stepper="reference")
             assert np.array_equal(a.status, b.status) and np.array_equal(fa, fb)
             assert np.max(np.abs(a.x - b.x)) < 1e-12 and np.max(np.abs(a.y - b.y)) < 1e-12
             assert (a.status == EXITED).sum() > 100  # through the open boundary "east" (index 0)
