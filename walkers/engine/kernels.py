@@ -382,11 +382,11 @@ def inside_cell(edges, k, v):
 
 
 @nb.njit(**JIT)
-def trace_path(px, py, pi, pj, qx, qy, xe, ye, wet_now, edges_mode, max_refl):
+def trace_path(px, py, pi, pj, qx, qy, xe, ye, wet, iw, edges_mode, max_refl):
     """Follow the straight path of a step from (px, py) in wet cell (pi, pj) to (qx, qy), cell by
     cell, and reflect it at the first closed face it meets.
 
-    A face is closed when the cell beyond it is land or dry (``wet_now`` 0) or when it is a
+    A face is closed when the cell beyond it is land or dry (``wet[iw]`` 0) or when it is a
     reflecting domain edge. At a closed face the rest of the path is mirrored in the face (the
     image of the candidate end), and the trace goes on from the crossing point; the path therefore
     never enters land, whatever the length of the step or the width of the land (a dike one cell
@@ -407,6 +407,14 @@ def trace_path(px, py, pi, pj, qx, qy, xe, ye, wet_now, edges_mode, max_refl):
     if xe[pi] <= qx < xe[pi + 1] and ye[pj] <= qy < ye[pj + 1]:
         # Still in its own cell, as most steps are: the result of the trace below, found at once.
         return -1, 1.0, True, qx, qy, pi, pj
+    return cross_cells(px, py, pi, pj, qx, qy, xe, ye, wet, iw, edges_mode, max_refl)
+
+
+@nb.njit(**JIT)
+def cross_cells(px, py, pi, pj, qx, qy, xe, ye, wet, iw, edges_mode, max_refl):
+    """:func:`trace_path` for a step that leaves its start cell. A function of its own so that
+    the step loop inlines only the test of the start cell and calls this for the steps that
+    cross a face (the call passes some forty words of array descriptors)."""
     if not (math.isfinite(qx) and math.isfinite(qy)):
         # A velocity or coefficient that is not finite (a hole beside land): no step is taken.
         return -1, 1.0, False, px, py, pi, pj
@@ -445,7 +453,7 @@ def trace_path(px, py, pi, pj, qx, qy, xe, ye, wet_now, edges_mode, max_refl):
             outside = nj < 0 or nj >= ncy
         if outside and edges_mode[edge] == 1:
             return edge, frac, False, cx_, cy_, i, j
-        if outside or wet_now[nj, ni] == 0:
+        if outside or wet[iw, nj, ni] == 0:
             if reflections >= max_refl:
                 break
             reflections += 1
@@ -478,6 +486,22 @@ def bridge_exit(stream, step, px, py, qx, qy, sx, sy, kxx, kyy, h, ndim, edges_m
     ij = (pi, pj, ci, cj) are the cells of the start and of the end. An edge is tested only when
     one of them lies in the row or column of water beside it, so an open edge behind land is
     reached only through water."""
+    ncx = xe.shape[0] - 1
+    ncy = ye.shape[0] - 1
+    # Most steps start and end away from the rim of the grid: that is found here, in the step
+    # loop (this part is inlined), and the test itself is called only beside the rim.
+    rim_x = ij[0] == 0 or ij[2] == 0 or ij[0] == ncx - 1 or ij[2] == ncx - 1
+    rim_y = ndim == 2 and (ij[1] == 0 or ij[3] == 0 or ij[1] == ncy - 1 or ij[3] == ncy - 1)
+    if not (rim_x or rim_y):
+        return -1
+    return bridge_test(
+        stream, step, px, py, qx, qy, sx, sy, kxx, kyy, h, ndim, edges_mode, xe, ye, ij
+    )
+
+
+@nb.njit(**JIT)
+def bridge_test(stream, step, px, py, qx, qy, sx, sy, kxx, kyy, h, ndim, edges_mode, xe, ye, ij):
+    """:func:`bridge_exit` for a step that starts or ends beside the rim of the grid."""
     ncx = xe.shape[0] - 1
     ncy = ye.shape[0] - 1
     # The cells are tested first: most steps start and end away from every open edge, and the
@@ -674,6 +698,10 @@ def compiled_mover(
             column[3],
             column[4],
         )
+        # the RK4 stage points: on the lattice's axes, or on the mesh from face pi (the tuples
+        # made here, once: made in the loop, they took a reference to each array every step)
+        grid = (ux, uy, vx, vy, invu, xe, ye)
+        topo = (face_nodes, neighbours)
         tab_i = np.zeros((nsteps, 3), np.int64)
         tab_w = np.zeros((nsteps, 3))
         tab_decay = np.ones(nsteps)
@@ -730,10 +758,11 @@ def compiled_mover(
                     iw = it if wt < 0.5 else it + 1
                     if wet.shape[0] == 1:
                         iw = 0
-                    wet_now = wet[iw]
+                    # wet[iw] is indexed in place: a view of it would take and drop a reference
+                    # (two atomic operations on the array's shared count) at every particle-step.
                     pi = cell_i[k]
                     pj = cell_j[k]
-                    if pi < 0 or wet_now[pj, pi] == 0:
+                    if pi < 0 or wet[iw, pj, pi] == 0:
                         st = STATUS_HELD_DRY
                     elif st == STATUS_HELD_DRY:
                         st = STATUS_WATER
@@ -784,9 +813,6 @@ def compiled_mover(
                             wtm = tab_w[s, 1]
                             ite = tab_i[s, 2]
                             wte = tab_w[s, 2]
-                        # the stage points: on the lattice's axes, or on the mesh from face pi
-                        grid = (ux, uy, vx, vy, invu, xe, ye)
-                        topo = (face_nodes, neighbours)
                         xm = px + 0.5 * h * u1 * sx
                         ym = py + 0.5 * h * v1 * sy
                         u2, v2 = stage_velocity(
@@ -867,7 +893,7 @@ def compiled_mover(
                             face_nodes,
                             neighbours,
                             edge_open,
-                            wet_now[0],
+                            wet[iw, 0],
                             pi,
                             px,
                             py,
@@ -878,7 +904,7 @@ def compiled_mover(
                         cj = 0
                     else:
                         edge, frac, placed, qx, qy, ci, cj = trace_path(
-                            px, py, pi, pj, qx, qy, xe, ye, wet_now, edges_mode, max_refl
+                            px, py, pi, pj, qx, qy, xe, ye, wet, iw, edges_mode, max_refl
                         )
                     tcross = tstart + h * frac
                     if edge < 0 and bridge and placed and not mesh:
