@@ -36,6 +36,11 @@ import numba as nb
 import numpy as np
 
 JIT = {"cache": True, "error_model": "numpy", "nogil": True}
+# The small functions of the step loop are inlined by numba itself (in its IR), not left to
+# LLVM: the loop body of a parallel kernel is compiled as a function of its own that LLVM does
+# not inline into, and a called function takes and drops a reference to every array it is
+# passed (atomic operations on counts that all threads share).
+INLINE = {**JIT, "inline": "always"}
 
 # The mesh primitives and the vertical step import JIT from this module, so they are imported
 # after it.
@@ -97,7 +102,7 @@ def _ziggurat_tables() -> tuple[np.ndarray, np.ndarray]:
 ZIG_X, ZIG_F = _ziggurat_tables()
 
 
-@nb.njit(**JIT)
+@nb.njit(**INLINE)
 def mix64(z):
     """SplitMix64 output function: a bijective 64-bit hash (uint64 -> uint64)."""
     z = (z ^ (z >> np.uint64(30))) * MIX1
@@ -111,7 +116,7 @@ def particle_stream(key, particle):
     return mix64(np.uint64(key) ^ (np.uint64(particle) * GOLDEN))
 
 
-@nb.njit(**JIT)
+@nb.njit(**INLINE)
 def hash_at(stream, step, comp):
     """The 64-bit hash for (particle stream, step, component)."""
     counter = np.uint64(step) * np.uint64(COMPONENTS) + np.uint64(comp)
@@ -155,7 +160,7 @@ def ziggurat_rest(z):
         z = mix64(z + GOLDEN)
 
 
-@nb.njit(**JIT)
+@nb.njit(**INLINE)
 def normal_from(z):
     """A standard normal deviate from hash z (ziggurat fast path inline, the rest out of line):
     bits 0-7 pick the layer, bit 8 the sign, bits 11-63 the uniform."""
@@ -167,7 +172,7 @@ def normal_from(z):
     return ziggurat_rest(z)
 
 
-@nb.njit(**JIT)
+@nb.njit(**INLINE)
 def normal_pair(stream, step):
     """Two independent standard normal deviates of a particle at a step."""
     return (
@@ -221,7 +226,7 @@ def axis_inverse_spacing(c):
     return 1.0 / d
 
 
-@nb.njit(**JIT)
+@nb.njit(**INLINE)
 def locate(c, inv, v):
     """Interval index i and weight w with v ≈ c[i] + w (c[i+1] - c[i]), clamped to the axis.
 
@@ -276,7 +281,7 @@ def cell_index(edges, inv, v):
     return lo
 
 
-@nb.njit(**JIT)
+@nb.njit(**INLINE)
 def time_weight(times, t):
     """Frame index and weight for linear interpolation in time (clamped to the window)."""
     n = times.shape[0]
@@ -290,7 +295,7 @@ def time_weight(times, t):
     return i, (t - times[i]) / (times[i + 1] - times[i])
 
 
-@nb.njit(**JIT)
+@nb.njit(**INLINE)
 def bilinear(arr, it, wt, i, j, wx, wy):
     """Bilinear in space at interval (i, j) with weights (wx, wy), linear in time between frames
     it and it+1 (a single frame is used as is)."""
@@ -320,7 +325,7 @@ def sample(arr, ax, ay, invx, invy, it, wt, x, y):
     return bilinear(arr, it, wt, i, j, wx, wy)
 
 
-@nb.njit(**JIT)
+@nb.njit(**INLINE)
 def metres_to_grid(geographic, y):
     """Grid units per metre along x and y (1 on projected grids; degrees per metre otherwise)."""
     if not geographic:
@@ -332,7 +337,7 @@ def metres_to_grid(geographic, y):
     return 1.0 / (n_rad * math.cos(y * DEG) * DEG), 1.0 / (m_rad * DEG)
 
 
-@nb.njit(**JIT)
+@nb.njit(**INLINE)
 def velocity(ux, uy, U, vx, vy, V, inv, shared, it, wt, x, y):
     """Interpolated (u, v) in m s-1; when u and v share their axes they are located once."""
     i, wx = locate(ux, inv[0], x)
@@ -381,7 +386,7 @@ def inside_cell(edges, k, v):
     return v
 
 
-@nb.njit(**JIT)
+@nb.njit(**INLINE)
 def trace_path(px, py, pi, pj, qx, qy, xe, ye, wet, iw, edges_mode, max_refl):
     """Follow the straight path of a step from (px, py) in wet cell (pi, pj) to (qx, qy), cell by
     cell, and reflect it at the first closed face it meets.
@@ -477,7 +482,7 @@ def edge_product(edge, p, q, s):
     return ((p - edge) / s) * ((q - edge) / s)
 
 
-@nb.njit(**JIT)
+@nb.njit(**INLINE)
 def bridge_exit(stream, step, px, py, qx, qy, sx, sy, kxx, kyy, h, ndim, edges_mode, xe, ye, ij):
     """Brownian-bridge test of a crossing of an absorbing edge inside the step: the path from
     d0 to d1 metres from the edge crossed it with probability exp(-d0 d1 / (K h)) (Lépingle 1995,
@@ -532,7 +537,7 @@ def bridge_test(stream, step, px, py, qx, qy, sx, sy, kxx, kyy, h, ndim, edges_m
     return -1
 
 
-@nb.njit(**JIT)
+@nb.njit(**INLINE)
 def frame_value(arr, it, wt, n):
     """Value n of a (nf, 1, n) mesh variable, linear in time between frames it and it+1 (a
     single frame as is); the arithmetic of :func:`bilinear` in time."""
@@ -571,7 +576,7 @@ def mesh_velocity_at(node_x, node_y, face_nodes, neighbours, U, V, it, wt, f, px
     )
 
 
-@nb.njit(**JIT)
+@nb.njit(**INLINE)
 def stage_velocity(mesh, on_nodes, shared, grid, topo, U, V, it, wt, f, x, y, w):
     """(u, v) at an RK4 stage point (x, y): on the lattice's velocity axes (``grid``), or on a
     mesh by walking from face f (``topo``; :func:`mesh_velocity_at`)."""
