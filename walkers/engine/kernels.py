@@ -691,6 +691,10 @@ def compiled_mover(
         topology,
         column,
     ):
+        # numba's disk cache keys a closure by the values it uses, not by the options of its
+        # decorator: naming ``parallel`` here keeps the serial and the parallel kernel in entries
+        # of their own (they shared one, and whichever was compiled first served both).
+        _ = parallel
         ux, uy, U, vx, vy, V, invu = flow[0], flow[1], flow[2], flow[3], flow[4], flow[5], flow[6]
         face_nodes, neighbours, edge_open, hint = topology[0], topology[1], topology[2], topology[3]
         xe, ye, wet, cx, cy, invc = cells[0], cells[1], cells[2], cells[3], cells[4], cells[5]
