@@ -31,9 +31,17 @@ from __future__ import annotations
 
 import functools
 import math
+import os
 
 import numba as nb
 import numpy as np
+
+# The OpenMP threads of the parallel kernels sleep between calls instead of spinning (the GNU
+# runtime's default spins): between kernel calls the run does its reductions in Python, and a
+# spinning thread took the core they needed whenever the machine had other work (the demo
+# ensemble on two threads: 28 s against 13 s at load 7). Read when the threads start; a value
+# the user set is kept.
+os.environ.setdefault("OMP_WAIT_POLICY", "PASSIVE")
 
 JIT = {"cache": True, "error_model": "numpy", "nogil": True}
 # The small functions of the step loop are inlined by numba itself (in its IR), not left to
