@@ -169,7 +169,7 @@ def test_paths_through_a_cell_corner_do_not_leak():
     wet[2, 1] = 0  # land north of cell (1, 1): the two touch at the corner (2, 2)
     modes = np.zeros(4, np.int64)
     edge, _, placed, qx, qy, ci, cj = kernels.trace_path(
-        1.5, 1.5, 1, 1, 2.5, 2.5, xe, ye, wet, modes, 100
+        1.5, 1.5, 1, 1, 2.5, 2.5, xe, ye, wet[None], 0, modes, 100
     )
     assert edge == -1 and placed
     assert wet[cj, ci] == 1 and (ci, cj) != (2, 2)

@@ -145,6 +145,19 @@ def test_one_thread_equals_two_threads_bitwise():
         assert np.array_equal(arr, b.arrays()[name], equal_nan=True), name
 
 
+def test_serial_and_parallel_kernels_are_cached_apart():
+    """numba's disk cache keys a compiled closure by the values of the variables it closes over
+    (numba.core.caching, the index key; read from numba's source), not by its decorator's
+    options: the serial and the parallel kernel of one option set must differ there, or the one
+    compiled first is loaded for both."""
+    options = (2, 0, True, True, False, True, False, True, True)
+    serial = kernels.compiled_mover(*options, False).py_func
+    parallel = kernels.compiled_mover(*options, True).py_func
+    assert serial.__code__.co_code == parallel.__code__.co_code
+    values = [[c.cell_contents for c in f.__closure__] for f in (serial, parallel)]
+    assert values[0] != values[1]
+
+
 def test_no_particle_on_land_outside_or_nan():
     flow = harbour_flow()
     tr = Transport(

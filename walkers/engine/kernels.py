@@ -31,11 +31,24 @@ from __future__ import annotations
 
 import functools
 import math
+import os
 
 import numba as nb
 import numpy as np
 
+# The OpenMP threads of the parallel kernels sleep between calls instead of spinning (the GNU
+# runtime's default spins): between kernel calls the run does its reductions in Python, and a
+# spinning thread took the core they needed whenever the machine had other work (the demo
+# ensemble on two threads: 28 s against 13 s at load 7). Read when the threads start; a value
+# the user set is kept.
+os.environ.setdefault("OMP_WAIT_POLICY", "PASSIVE")
+
 JIT = {"cache": True, "error_model": "numpy", "nogil": True}
+# The small functions of the step loop are inlined by numba itself (in its IR), not left to
+# LLVM: the loop body of a parallel kernel is compiled as a function of its own that LLVM does
+# not inline into, and a called function takes and drops a reference to every array it is
+# passed (atomic operations on counts that all threads share).
+INLINE = {**JIT, "inline": "always"}
 
 # The mesh primitives and the vertical step import JIT from this module, so they are imported
 # after it.
@@ -97,7 +110,7 @@ def _ziggurat_tables() -> tuple[np.ndarray, np.ndarray]:
 ZIG_X, ZIG_F = _ziggurat_tables()
 
 
-@nb.njit(**JIT)
+@nb.njit(**INLINE)
 def mix64(z):
     """SplitMix64 output function: a bijective 64-bit hash (uint64 -> uint64)."""
     z = (z ^ (z >> np.uint64(30))) * MIX1
@@ -111,7 +124,7 @@ def particle_stream(key, particle):
     return mix64(np.uint64(key) ^ (np.uint64(particle) * GOLDEN))
 
 
-@nb.njit(**JIT)
+@nb.njit(**INLINE)
 def hash_at(stream, step, comp):
     """The 64-bit hash for (particle stream, step, component)."""
     counter = np.uint64(step) * np.uint64(COMPONENTS) + np.uint64(comp)
@@ -155,7 +168,7 @@ def ziggurat_rest(z):
         z = mix64(z + GOLDEN)
 
 
-@nb.njit(**JIT)
+@nb.njit(**INLINE)
 def normal_from(z):
     """A standard normal deviate from hash z (ziggurat fast path inline, the rest out of line):
     bits 0-7 pick the layer, bit 8 the sign, bits 11-63 the uniform."""
@@ -167,7 +180,7 @@ def normal_from(z):
     return ziggurat_rest(z)
 
 
-@nb.njit(**JIT)
+@nb.njit(**INLINE)
 def normal_pair(stream, step):
     """Two independent standard normal deviates of a particle at a step."""
     return (
@@ -221,7 +234,7 @@ def axis_inverse_spacing(c):
     return 1.0 / d
 
 
-@nb.njit(**JIT)
+@nb.njit(**INLINE)
 def locate(c, inv, v):
     """Interval index i and weight w with v ≈ c[i] + w (c[i+1] - c[i]), clamped to the axis.
 
@@ -276,7 +289,7 @@ def cell_index(edges, inv, v):
     return lo
 
 
-@nb.njit(**JIT)
+@nb.njit(**INLINE)
 def time_weight(times, t):
     """Frame index and weight for linear interpolation in time (clamped to the window)."""
     n = times.shape[0]
@@ -290,7 +303,7 @@ def time_weight(times, t):
     return i, (t - times[i]) / (times[i + 1] - times[i])
 
 
-@nb.njit(**JIT)
+@nb.njit(**INLINE)
 def bilinear(arr, it, wt, i, j, wx, wy):
     """Bilinear in space at interval (i, j) with weights (wx, wy), linear in time between frames
     it and it+1 (a single frame is used as is)."""
@@ -320,7 +333,7 @@ def sample(arr, ax, ay, invx, invy, it, wt, x, y):
     return bilinear(arr, it, wt, i, j, wx, wy)
 
 
-@nb.njit(**JIT)
+@nb.njit(**INLINE)
 def metres_to_grid(geographic, y):
     """Grid units per metre along x and y (1 on projected grids; degrees per metre otherwise)."""
     if not geographic:
@@ -332,7 +345,7 @@ def metres_to_grid(geographic, y):
     return 1.0 / (n_rad * math.cos(y * DEG) * DEG), 1.0 / (m_rad * DEG)
 
 
-@nb.njit(**JIT)
+@nb.njit(**INLINE)
 def velocity(ux, uy, U, vx, vy, V, inv, shared, it, wt, x, y):
     """Interpolated (u, v) in m s-1; when u and v share their axes they are located once."""
     i, wx = locate(ux, inv[0], x)
@@ -381,12 +394,12 @@ def inside_cell(edges, k, v):
     return v
 
 
-@nb.njit(**JIT)
-def trace_path(px, py, pi, pj, qx, qy, xe, ye, wet_now, edges_mode, max_refl):
+@nb.njit(**INLINE)
+def trace_path(px, py, pi, pj, qx, qy, xe, ye, wet, iw, edges_mode, max_refl):
     """Follow the straight path of a step from (px, py) in wet cell (pi, pj) to (qx, qy), cell by
     cell, and reflect it at the first closed face it meets.
 
-    A face is closed when the cell beyond it is land or dry (``wet_now`` 0) or when it is a
+    A face is closed when the cell beyond it is land or dry (``wet[iw]`` 0) or when it is a
     reflecting domain edge. At a closed face the rest of the path is mirrored in the face (the
     image of the candidate end), and the trace goes on from the crossing point; the path therefore
     never enters land, whatever the length of the step or the width of the land (a dike one cell
@@ -407,6 +420,14 @@ def trace_path(px, py, pi, pj, qx, qy, xe, ye, wet_now, edges_mode, max_refl):
     if xe[pi] <= qx < xe[pi + 1] and ye[pj] <= qy < ye[pj + 1]:
         # Still in its own cell, as most steps are: the result of the trace below, found at once.
         return -1, 1.0, True, qx, qy, pi, pj
+    return cross_cells(px, py, pi, pj, qx, qy, xe, ye, wet, iw, edges_mode, max_refl)
+
+
+@nb.njit(**JIT)
+def cross_cells(px, py, pi, pj, qx, qy, xe, ye, wet, iw, edges_mode, max_refl):
+    """:func:`trace_path` for a step that leaves its start cell. A function of its own so that
+    the step loop inlines only the test of the start cell and calls this for the steps that
+    cross a face (the call passes some forty words of array descriptors)."""
     if not (math.isfinite(qx) and math.isfinite(qy)):
         # A velocity or coefficient that is not finite (a hole beside land): no step is taken.
         return -1, 1.0, False, px, py, pi, pj
@@ -445,7 +466,7 @@ def trace_path(px, py, pi, pj, qx, qy, xe, ye, wet_now, edges_mode, max_refl):
             outside = nj < 0 or nj >= ncy
         if outside and edges_mode[edge] == 1:
             return edge, frac, False, cx_, cy_, i, j
-        if outside or wet_now[nj, ni] == 0:
+        if outside or wet[iw, nj, ni] == 0:
             if reflections >= max_refl:
                 break
             reflections += 1
@@ -469,7 +490,7 @@ def edge_product(edge, p, q, s):
     return ((p - edge) / s) * ((q - edge) / s)
 
 
-@nb.njit(**JIT)
+@nb.njit(**INLINE)
 def bridge_exit(stream, step, px, py, qx, qy, sx, sy, kxx, kyy, h, ndim, edges_mode, xe, ye, ij):
     """Brownian-bridge test of a crossing of an absorbing edge inside the step: the path from
     d0 to d1 metres from the edge crossed it with probability exp(-d0 d1 / (K h)) (Lépingle 1995,
@@ -478,6 +499,22 @@ def bridge_exit(stream, step, px, py, qx, qy, sx, sy, kxx, kyy, h, ndim, edges_m
     ij = (pi, pj, ci, cj) are the cells of the start and of the end. An edge is tested only when
     one of them lies in the row or column of water beside it, so an open edge behind land is
     reached only through water."""
+    ncx = xe.shape[0] - 1
+    ncy = ye.shape[0] - 1
+    # Most steps start and end away from the rim of the grid: that is found here, in the step
+    # loop (this part is inlined), and the test itself is called only beside the rim.
+    rim_x = ij[0] == 0 or ij[2] == 0 or ij[0] == ncx - 1 or ij[2] == ncx - 1
+    rim_y = ndim == 2 and (ij[1] == 0 or ij[3] == 0 or ij[1] == ncy - 1 or ij[3] == ncy - 1)
+    if not (rim_x or rim_y):
+        return -1
+    return bridge_test(
+        stream, step, px, py, qx, qy, sx, sy, kxx, kyy, h, ndim, edges_mode, xe, ye, ij
+    )
+
+
+@nb.njit(**JIT)
+def bridge_test(stream, step, px, py, qx, qy, sx, sy, kxx, kyy, h, ndim, edges_mode, xe, ye, ij):
+    """:func:`bridge_exit` for a step that starts or ends beside the rim of the grid."""
     ncx = xe.shape[0] - 1
     ncy = ye.shape[0] - 1
     # The cells are tested first: most steps start and end away from every open edge, and the
@@ -508,7 +545,7 @@ def bridge_exit(stream, step, px, py, qx, qy, sx, sy, kxx, kyy, h, ndim, edges_m
     return -1
 
 
-@nb.njit(**JIT)
+@nb.njit(**INLINE)
 def frame_value(arr, it, wt, n):
     """Value n of a (nf, 1, n) mesh variable, linear in time between frames it and it+1 (a
     single frame as is); the arithmetic of :func:`bilinear` in time."""
@@ -547,7 +584,7 @@ def mesh_velocity_at(node_x, node_y, face_nodes, neighbours, U, V, it, wt, f, px
     )
 
 
-@nb.njit(**JIT)
+@nb.njit(**INLINE)
 def stage_velocity(mesh, on_nodes, shared, grid, topo, U, V, it, wt, f, x, y, w):
     """(u, v) at an RK4 stage point (x, y): on the lattice's velocity axes (``grid``), or on a
     mesh by walking from face f (``topo``; :func:`mesh_velocity_at`)."""
@@ -662,6 +699,10 @@ def compiled_mover(
         topology,
         column,
     ):
+        # numba's disk cache keys a closure by the values it uses, not by the options of its
+        # decorator: naming ``parallel`` here keeps the serial and the parallel kernel in entries
+        # of their own (they shared one, and whichever was compiled first served both).
+        _ = parallel
         ux, uy, U, vx, vy, V, invu = flow[0], flow[1], flow[2], flow[3], flow[4], flow[5], flow[6]
         face_nodes, neighbours, edge_open, hint = topology[0], topology[1], topology[2], topology[3]
         xe, ye, wet, cx, cy, invc = cells[0], cells[1], cells[2], cells[3], cells[4], cells[5]
@@ -674,6 +715,10 @@ def compiled_mover(
             column[3],
             column[4],
         )
+        # the RK4 stage points: on the lattice's axes, or on the mesh from face pi (the tuples
+        # made here, once: made in the loop, they took a reference to each array every step)
+        grid = (ux, uy, vx, vy, invu, xe, ye)
+        topo = (face_nodes, neighbours)
         tab_i = np.zeros((nsteps, 3), np.int64)
         tab_w = np.zeros((nsteps, 3))
         tab_decay = np.ones(nsteps)
@@ -730,10 +775,11 @@ def compiled_mover(
                     iw = it if wt < 0.5 else it + 1
                     if wet.shape[0] == 1:
                         iw = 0
-                    wet_now = wet[iw]
+                    # wet[iw] is indexed in place: a view of it would take and drop a reference
+                    # (two atomic operations on the array's shared count) at every particle-step.
                     pi = cell_i[k]
                     pj = cell_j[k]
-                    if pi < 0 or wet_now[pj, pi] == 0:
+                    if pi < 0 or wet[iw, pj, pi] == 0:
                         st = STATUS_HELD_DRY
                     elif st == STATUS_HELD_DRY:
                         st = STATUS_WATER
@@ -784,9 +830,6 @@ def compiled_mover(
                             wtm = tab_w[s, 1]
                             ite = tab_i[s, 2]
                             wte = tab_w[s, 2]
-                        # the stage points: on the lattice's axes, or on the mesh from face pi
-                        grid = (ux, uy, vx, vy, invu, xe, ye)
-                        topo = (face_nodes, neighbours)
                         xm = px + 0.5 * h * u1 * sx
                         ym = py + 0.5 * h * v1 * sy
                         u2, v2 = stage_velocity(
@@ -867,7 +910,7 @@ def compiled_mover(
                             face_nodes,
                             neighbours,
                             edge_open,
-                            wet_now[0],
+                            wet[iw, 0],
                             pi,
                             px,
                             py,
@@ -878,7 +921,7 @@ def compiled_mover(
                         cj = 0
                     else:
                         edge, frac, placed, qx, qy, ci, cj = trace_path(
-                            px, py, pi, pj, qx, qy, xe, ye, wet_now, edges_mode, max_refl
+                            px, py, pi, pj, qx, qy, xe, ye, wet, iw, edges_mode, max_refl
                         )
                     tcross = tstart + h * frac
                     if edge < 0 and bridge and placed and not mesh:
