@@ -557,7 +557,7 @@ def frame_value(arr, it, wt, n):
     return f
 
 
-@nb.njit(**JIT)
+@nb.njit(**INLINE)
 def mesh_velocity(node_x, node_y, face_nodes, U, V, it, wt, f, px, py, w, on_nodes):
     """(u, v) in m s-1 at p in face f of a mesh: node values interpolated with the corner
     weights (barycentric or bilinear, ``meshwalk.face_weights``, written into w), or the face's

@@ -42,7 +42,7 @@ import math
 import numba as nb
 import numpy as np
 
-from walkers.engine.kernels import JIT
+from walkers.engine.kernels import INLINE, JIT
 
 #: Newton iterations of the inverse bilinear map stop when a step is below this (local units).
 NEWTON_TOL = 1e-14
@@ -52,13 +52,13 @@ NEWTON_MAX = 30
 NUDGE_MAX = 60
 
 
-@nb.njit(**JIT)
+@nb.njit(**INLINE)
 def corner_count(face_nodes, f):
     """3 for a triangle, 4 for a quadrilateral."""
     return 3 if face_nodes[f, 3] < 0 else 4
 
 
-@nb.njit(**JIT)
+@nb.njit(**INLINE)
 def edge_side(node_x, node_y, a, b, px, py):
     """(b - a) × (p - a), m2: positive when p lies left of the edge a→b (inside a
     counter-clockwise face), zero on its line."""
@@ -67,7 +67,7 @@ def edge_side(node_x, node_y, a, b, px, py):
     return (node_x[b] - ax) * (py - ay) - (node_y[b] - ay) * (px - ax)
 
 
-@nb.njit(**JIT)
+@nb.njit(**INLINE)
 def inside_face(node_x, node_y, face_nodes, f, px, py):
     """Whether p lies in the closed face f (on its edges and corners included)."""
     nv = corner_count(face_nodes, f)
@@ -172,7 +172,7 @@ def bilinear_local(node_x, node_y, face_nodes, f, px, py):
     return xi, eta
 
 
-@nb.njit(**JIT)
+@nb.njit(**INLINE)
 def face_weights(node_x, node_y, face_nodes, f, px, py, w):
     """Fill ``w`` (4,) with the weights of face f's corners at p: barycentric on a triangle
     (ratios of signed sub-triangle areas), bilinear (1-xi)(1-eta), xi(1-eta), xi eta,
@@ -250,7 +250,7 @@ def entry_edge(neighbours, g, f):
     return -1
 
 
-@nb.njit(**JIT)
+@nb.njit(**INLINE)
 def trace_mesh_path(
     node_x, node_y, face_nodes, neighbours, edge_open, wet_face, f0, px, py, qx, qy, max_refl
 ):
@@ -274,6 +274,17 @@ def trace_mesh_path(
         return -1, 1.0, False, px, py, f0
     if inside_face(node_x, node_y, face_nodes, f0, qx, qy):
         return -1, 1.0, True, qx, qy, f0
+    return cross_faces(
+        node_x, node_y, face_nodes, neighbours, edge_open, wet_face, f0, px, py, qx, qy, max_refl
+    )
+
+
+@nb.njit(**JIT)
+def cross_faces(
+    node_x, node_y, face_nodes, neighbours, edge_open, wet_face, f0, px, py, qx, qy, max_refl
+):
+    """:func:`trace_mesh_path` for a step that leaves its start face (out of line: the step
+    loop inlines only the first tests)."""
     f = f0
     sx = px
     sy = py
