@@ -193,19 +193,82 @@ def column_substeps(h, longest):
 
 
 @nb.njit(**JIT)
-def column_walk(stream, step, sigma, depth, ustar, ws, params, h):
+def column_walk(stream, step, sigma, depth, ustar, ws, params, h, klev, kcol, wlev, wcol):
     """A particle's vertical motion over a step of h seconds: ``vertical.column_step`` in
-    substeps that keep Visser's criterion in its column (``vertical.column_longest``). Returns
-    (sigma', deposited)."""
+    substeps that keep Visser's criterion in its column (``vertical.substep_longest``), with
+    the column's K_z (klev, kcol) and w (wlev, wcol) profiles sampled once for the step.
+    Returns (sigma', deposited)."""
     vstream = mix64(stream ^ VERTICAL_SALT)
-    n = column_substeps(h, vertical.column_longest(depth, ustar, params))
+    n = column_substeps(h, vertical.substep_longest(depth, ustar, params, klev, kcol))
     sub = h / n
     for j in range(n):
         r = normal_from(column_hash(vstream, step, 2 * j))
-        sigma, chance = vertical.column_step(sigma, depth, ustar, ws, params, sub, r)
+        sigma, chance = vertical.column_step(
+            sigma, depth, ustar, ws, params, sub, r, klev, kcol, wlev, wcol
+        )
         if chance > 0.0 and open_unit(column_hash(vstream, step, 2 * j + 1)) < chance:
             return 0.0, True
     return sigma, False
+
+
+@nb.njit(**JIT)
+def column_profile(arr, levels, it, wt, j, i, out):
+    """The values of (nf nl or nl, ny, nx) layered frames in cell (j, i) at time (it, wt), one
+    per level, into ``out`` (``vertical.layer_frame_value``)."""
+    nl = levels.shape[0]
+    for q in range(nl):
+        out[q] = vertical.layer_frame_value(arr, nl, q, it, wt, j, i)
+
+
+@nb.njit(**JIT)
+def layer_weight(levels, s):
+    """Layer index k and weight w of height s (fraction of the depth) between the layer centres
+    ``levels`` (ascending): the velocity is linear between centres, and below the lowest and
+    above the highest centre the value of that layer (a layer's value is its mean over the
+    layer in a finite-volume model; common practice), (0, 0) and (nl - 1, 0)."""
+    nl = levels.shape[0]
+    if nl == 1 or s <= levels[0]:
+        return 0, 0.0
+    if s >= levels[nl - 1]:
+        return nl - 1, 0.0
+    k = 0
+    while levels[k + 1] <= s:
+        k += 1
+    return k, (s - levels[k]) / (levels[k + 1] - levels[k])
+
+
+@nb.njit(**JIT)
+def layer_bilinear(arr, nl, it, wt, i, j, wx, wy, k, wz):
+    """:func:`bilinear` of layered frames (nf nl or nl, ny, nx; frame f layer k at f nl + k)
+    at layer k with weight wz towards layer k + 1 (nl = 1: ``bilinear`` itself)."""
+    if nl == 1:
+        return bilinear(arr, it, wt, i, j, wx, wy)
+    nx = arr.shape[2]
+    ny = arr.shape[1]
+    i1 = min(i + 1, nx - 1)
+    j1 = min(j + 1, ny - 1)
+    if arr.shape[0] == nl:
+        it = 0
+        wt = 0.0
+    out = 0.0
+    for q in range(2):
+        if q == 1 and not wz > 0.0:
+            break
+        f0 = it * nl + k + q
+        f = (1.0 - wy) * ((1.0 - wx) * arr[f0, j, i] + wx * arr[f0, j, i1]) + wy * (
+            (1.0 - wx) * arr[f0, j1, i] + wx * arr[f0, j1, i1]
+        )
+        if wt > 0.0:
+            f1 = f0 + nl
+            g = (1.0 - wy) * ((1.0 - wx) * arr[f1, j, i] + wx * arr[f1, j, i1]) + wy * (
+                (1.0 - wx) * arr[f1, j1, i] + wx * arr[f1, j1, i1]
+            )
+            f = f + wt * (g - f)
+        if q == 0:
+            out = f
+        else:
+            out = out + wz * (f - out)
+    return out
 
 
 @nb.njit(**JIT)
@@ -548,14 +611,31 @@ def mesh_velocity_at(node_x, node_y, face_nodes, neighbours, U, V, it, wt, f, px
 
 
 @nb.njit(**JIT)
-def stage_velocity(mesh, on_nodes, shared, grid, topo, U, V, it, wt, f, x, y, w):
-    """(u, v) at an RK4 stage point (x, y): on the lattice's velocity axes (``grid``), or on a
-    mesh by walking from face f (``topo``; :func:`mesh_velocity_at`)."""
+def layered_velocity(ux, uy, U, vx, vy, V, inv, shared, it, wt, x, y, lay):
+    """:func:`velocity` of layered frames at the layer and weight of lay = (nl, k, wz)
+    (:func:`layer_bilinear`)."""
+    nl, k, wz = lay
+    i, wx = locate(ux, inv[0], x)
+    j, wy = locate(uy, inv[1], y)
+    u = layer_bilinear(U, nl, it, wt, i, j, wx, wy, k, wz)
+    if not shared:
+        i, wx = locate(vx, inv[2], x)
+        j, wy = locate(vy, inv[3], y)
+    return u, layer_bilinear(V, nl, it, wt, i, j, wx, wy, k, wz)
+
+
+@nb.njit(**JIT)
+def stage_velocity(mesh, on_nodes, shared, grid, topo, U, V, it, wt, f, x, y, w, lay):
+    """(u, v) at an RK4 stage point (x, y): on the lattice's velocity axes (``grid``; in the
+    particle's layer lay = (nl, k, wz) when the velocity is layered, nl > 1), or on a mesh by
+    walking from face f (``topo``; :func:`mesh_velocity_at`)."""
     ux, uy, vx, vy, invu, node_x, node_y = grid
     if mesh:
         return mesh_velocity_at(
             node_x, node_y, topo[0], topo[1], U, V, it, wt, f, x, y, w, on_nodes
         )
+    if lay[0] > 1:
+        return layered_velocity(ux, uy, U, vx, vy, V, invu, shared, it, wt, x, y, lay)
     return velocity(ux, uy, U, vx, vy, V, invu, shared, it, wt, x, y)
 
 
@@ -674,6 +754,10 @@ def compiled_mover(
             column[3],
             column[4],
         )
+        # layer centres of U and V, heights and frames of w and of K_z (fractions of the depth)
+        c_levels, c_wlev, c_w, c_klev, c_kz = column[5], column[6], column[7], column[8], column[9]
+        n_levels = c_levels.shape[0]
+        resuspend = c_params.shape[0] > 5 and c_params[5] > 0.0
         tab_i = np.zeros((nsteps, 3), np.int64)
         tab_w = np.zeros((nsteps, 3))
         tab_decay = np.ones(nsteps)
@@ -691,6 +775,9 @@ def compiled_mover(
             else:
                 cell_i, cell_j, streams = block_scratch(lo, hi, x, y, xe, ye, invc, key)
             w4 = np.zeros(4)
+            # the K_z and w profiles of a particle's column in its step
+            kcol = np.zeros(max(c_klev.shape[0], 1))
+            wcol = np.zeros(max(c_wlev.shape[0], 1))
             # The block's state, gathered so that it stays in the L1 cache.
             bx = np.empty(nb_)
             by = np.empty(nb_)
@@ -714,6 +801,17 @@ def compiled_mover(
                         tstart = max(t, trel[p])
                     elif st == STATUS_WATER or st == STATUS_HELD_DRY:
                         tstart = t
+                    elif vertical_mode and st == STATUS_ON_BED and resuspend:
+                        # back to the water at the bed (``vertical.resuspension_chance``)
+                        us = vertical.cell_frame_value(
+                            c_ustar, tab_i[s, 0], tab_w[s, 0], cell_j[k], cell_i[k]
+                        )
+                        chance = vertical.resuspension_chance(us, c_params, t_end - t)
+                        vs = mix64(streams[k] ^ VERTICAL_SALT)
+                        if chance > 0.0 and open_unit(column_hash(vs, step0 + s, 0)) < chance:
+                            sigma[p] = 0.0
+                            bst[k] = STATUS_WATER
+                        continue
                     else:
                         continue
                     h = t_end - tstart
@@ -748,6 +846,10 @@ def compiled_mover(
                         continue
                     px = bx[k]
                     py = by[k]
+                    lay = (1, 0, 0.0)
+                    if vertical_mode and n_levels > 1:
+                        lk, lw = layer_weight(c_levels, sigma[p])
+                        lay = (n_levels, lk, lw)
                     # Where the particle sits on the cell-centre grid (K, drift) and on the
                     # velocity axes; located once and shared wherever the axes coincide.
                     ic, wxc = locate(cx, invc[2], px)
@@ -762,13 +864,22 @@ def compiled_mover(
                         else:
                             iu, wxu = locate(ux, invu[0], px)
                             ju, wyu = locate(uy, invu[1], py)
-                        u1 = bilinear(U, it, wt, iu, ju, wxu, wyu)
-                        if shared:
-                            v1 = bilinear(V, it, wt, iu, ju, wxu, wyu)
+                        if vertical_mode:
+                            # in the particle's layer (layered velocity) or the depth mean
+                            nl, lk, lw = lay
+                            u1 = layer_bilinear(U, nl, it, wt, iu, ju, wxu, wyu, lk, lw)
+                            if not shared:
+                                iu, wxu = locate(vx, invu[2], px)
+                                ju, wyu = locate(vy, invu[3], py)
+                            v1 = layer_bilinear(V, nl, it, wt, iu, ju, wxu, wyu, lk, lw)
                         else:
-                            iv, wxv = locate(vx, invu[2], px)
-                            jv, wyv = locate(vy, invu[3], py)
-                            v1 = bilinear(V, it, wt, iv, jv, wxv, wyv)
+                            u1 = bilinear(U, it, wt, iu, ju, wxu, wyu)
+                            if shared:
+                                v1 = bilinear(V, it, wt, iu, ju, wxu, wyu)
+                            else:
+                                iv, wxv = locate(vx, invu[2], px)
+                                jv, wyv = locate(vy, invu[3], py)
+                                v1 = bilinear(V, it, wt, iv, jv, wxv, wyv)
                     if geographic:
                         sx, sy = metres_to_grid(True, py)
                     else:
@@ -790,17 +901,17 @@ def compiled_mover(
                         xm = px + 0.5 * h * u1 * sx
                         ym = py + 0.5 * h * v1 * sy
                         u2, v2 = stage_velocity(
-                            mesh, on_nodes, shared, grid, topo, U, V, itm, wtm, pi, xm, ym, w4
+                            mesh, on_nodes, shared, grid, topo, U, V, itm, wtm, pi, xm, ym, w4, lay
                         )
                         xm = px + 0.5 * h * u2 * sx
                         ym = py + 0.5 * h * v2 * sy
                         u3, v3 = stage_velocity(
-                            mesh, on_nodes, shared, grid, topo, U, V, itm, wtm, pi, xm, ym, w4
+                            mesh, on_nodes, shared, grid, topo, U, V, itm, wtm, pi, xm, ym, w4, lay
                         )
                         xm = px + h * u3 * sx
                         ym = py + h * v3 * sy
                         u4, v4 = stage_velocity(
-                            mesh, on_nodes, shared, grid, topo, U, V, ite, wte, pi, xm, ym, w4
+                            mesh, on_nodes, shared, grid, topo, U, V, ite, wte, pi, xm, ym, w4, lay
                         )
                         ax_ = h * sx * (u1 + 2.0 * u2 + 2.0 * u3 + u4) / 6.0
                         ay_ = h * sy * (v1 + 2.0 * v2 + 2.0 * v3 + v4) / 6.0
@@ -914,6 +1025,8 @@ def compiled_mover(
                         cell_i[k] = ci
                         cell_j[k] = cj
                     if vertical_mode:
+                        column_profile(c_kz, c_klev, it, wt, pj, pi, kcol)
+                        column_profile(c_w, c_wlev, it, wt, pj, pi, wcol)
                         sg, deposited = column_walk(
                             stream,
                             step0 + s,
@@ -923,6 +1036,10 @@ def compiled_mover(
                             settling[p],
                             c_params,
                             h,
+                            c_klev,
+                            kcol,
+                            c_wlev,
+                            wcol,
                         )
                         sigma[p] = sg
                         if deposited:
@@ -1007,7 +1124,9 @@ def advance(
     vertical_mode = 0
     if column is None:
         flat = np.zeros((1, 1, 1))
-        column = (np.zeros(1), np.zeros(1), flat, flat, np.zeros(4))
+        none = np.zeros(0)
+        column = (np.zeros(1), np.zeros(1), flat, flat, np.zeros(4), np.zeros(1))
+        column = (*column, none, flat, none, flat)
     else:
         vertical_mode = int(column[4][0])
     move = compiled_mover(
