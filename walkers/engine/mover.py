@@ -486,8 +486,7 @@ def with_column(
         )
     if dt is not None:
         vertical.check_substeps(dt, h, u, params, klev, kzf)
-    arrays = (levels, wlev, w, klev, kzf)
-    arrays = tuple(np.ascontiguousarray(a, dtype=np.float64) for a in arrays)
+    arrays = tuple(np.ascontiguousarray(a, dtype=np.float64) for a in (levels, wlev, w, klev, kzf))
     return replace(inputs, flow=flow, column=(h, u, params, *arrays))
 
 
@@ -519,8 +518,7 @@ def column_inputs(
     mode = KZ_MODES.get(settings.diffusivity)
     if mode is None:
         raise InputError(
-            f"vertical.diffusivity = {settings.diffusivity!r}: give one of "
-            f"{', '.join(KZ_MODES)}"
+            f"vertical.diffusivity = {settings.diffusivity!r}: give one of {', '.join(KZ_MODES)}"
         )
     if mode == vertical.KZ_FILE and window.column is None:
         raise InputError(

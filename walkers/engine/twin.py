@@ -246,12 +246,8 @@ def _advect(flow, times, scheme, geographic, x, y, t, h, lay=(1, None, None)):
     sx, sy = _metres_to_grid(geographic, y)
     if scheme == 0:
         return u1 * h * sx, v1 * h * sy
-    u2, v2 = _velocity(
-        flow, times, t + 0.5 * h, x + 0.5 * h * u1 * sx, y + 0.5 * h * v1 * sy, lay
-    )
-    u3, v3 = _velocity(
-        flow, times, t + 0.5 * h, x + 0.5 * h * u2 * sx, y + 0.5 * h * v2 * sy, lay
-    )
+    u2, v2 = _velocity(flow, times, t + 0.5 * h, x + 0.5 * h * u1 * sx, y + 0.5 * h * v1 * sy, lay)
+    u3, v3 = _velocity(flow, times, t + 0.5 * h, x + 0.5 * h * u2 * sx, y + 0.5 * h * v2 * sy, lay)
     u4, v4 = _velocity(flow, times, t + h, x + h * u3 * sx, y + h * v3 * sy, lay)
     return (
         h * sx * (u1 + 2.0 * u2 + 2.0 * u3 + u4) / 6.0,
