@@ -193,22 +193,39 @@ def column_substeps(h, longest):
 
 
 @nb.njit(**JIT)
-def column_walk(stream, step, sigma, depth, ustar, ws, params, h, klev, kcol, wlev, wcol):
-    """A particle's vertical motion over a step of h seconds: ``vertical.column_step`` in
-    substeps that keep Visser's criterion in its column (``vertical.substep_longest``), with
-    the column's K_z (klev, kcol) and w (wlev, wcol) profiles sampled once for the step.
-    Returns (sigma', deposited)."""
-    vstream = mix64(stream ^ VERTICAL_SALT)
-    n = column_substeps(h, vertical.substep_longest(depth, ustar, params, klev, kcol))
-    sub = h / n
-    for j in range(n):
-        r = normal_from(column_hash(vstream, step, 2 * j))
-        sigma, chance = vertical.column_step(
-            sigma, depth, ustar, ws, params, sub, r, klev, kcol, wlev, wcol
-        )
-        if chance > 0.0 and open_unit(column_hash(vstream, step, 2 * j + 1)) < chance:
-            return 0.0, True
-    return sigma, False
+def column_walk(most, step, lo, sigma, settling, params, walk, profiles, bst):
+    """The vertical motion over a step of the particles lo.. of a block that take it
+    (``walk[0]``): ``vertical.column_step`` in each particle's substeps (``walk[3]`` of
+    ``walk[4]`` s, in its column of depth ``walk[1]`` and u* ``walk[2]``, with the K_z and w
+    profiles of ``profiles``), which keep Visser's criterion (``vertical.substep_longest``).
+    The loop runs over substeps, then over particles, so consecutive iterations are
+    independent. A particle that deposits goes "on the bed" (``bst``, sigma 0) and stops."""
+    on, depth, ustar, n, sub, vstreams = walk
+    klev, kcols, wlev, wcols = profiles
+    for j in range(most):
+        for k in range(on.shape[0]):
+            if not on[k] or j >= n[k]:
+                continue
+            p = lo + k
+            r = normal_from(column_hash(vstreams[k], step, 2 * j))
+            sg, chance = vertical.column_step(
+                sigma[p],
+                depth[k],
+                ustar[k],
+                settling[p],
+                params,
+                sub[k],
+                r,
+                klev,
+                kcols[k],
+                wlev,
+                wcols[k],
+            )
+            sigma[p] = sg
+            if chance > 0.0 and open_unit(column_hash(vstreams[k], step, 2 * j + 1)) < chance:
+                sigma[p] = 0.0
+                on[k] = False
+                bst[k] = STATUS_ON_BED
 
 
 @nb.njit(**JIT)
@@ -706,12 +723,15 @@ def compiled_mover(
         On a mesh the argument tuples keep their shapes with other contents (see ``advance``),
         a particle's cell is its face, the walls and open boundaries are those of
         ``meshwalk.trace_mesh_path``, the drift is per face, and there is no bridge test.
-    vertical_mode : 0 depth-averaged; 1 a vertical step with constant K_z, 2 with parabolic K_z
-        (``column_walk``: ``vertical.column_step`` in substeps that keep Visser's criterion,
-        after the horizontal step, with the depth and u* of the cell the step starts in); a
-        particle whose substep ends below a depositing bed may go "on the bed"
-        (``STATUS_ON_BED``). The ``column`` argument is (sigma, w_s, depth, u*, params), see
-        ``advance``.
+    vertical_mode : 0 depth-averaged; 1 a vertical step with constant K_z, 2 with parabolic
+        K_z, 3 with the K_z profiles of the flow's column (``column_walk``:
+        ``vertical.column_step`` in substeps that keep Visser's criterion, after the horizontal
+        step of the block's particles, with the depth, u*, K_z and w of the cell each step
+        starts in); a particle whose substep ends below a depositing bed may go "on the bed"
+        (``STATUS_ON_BED``), and returns to the water above a critical bed shear stress
+        (``vertical.resuspension_chance``). With layered velocities (more than one layer
+        centre in ``column``) u and v are sampled at each particle's height
+        (``layer_bilinear``). The ``column`` argument is described in ``advance``.
     """
     rk4 = scheme == 1
     on_nodes = mesh == 1
@@ -775,9 +795,20 @@ def compiled_mover(
             else:
                 cell_i, cell_j, streams = block_scratch(lo, hi, x, y, xe, ye, invc, key)
             w4 = np.zeros(4)
-            # the K_z and w profiles of a particle's column in its step
-            kcol = np.zeros(max(c_klev.shape[0], 1))
-            wcol = np.zeros(max(c_wlev.shape[0], 1))
+            # The vertical walk of a step, for the particles of the block that take it: their
+            # column's depth, u*, K_z and w profiles, substeps and their length, sampled once
+            # per step (``column_walk``).
+            nv = nb_ if vertical_mode else 0
+            v_on = np.zeros(nv, np.bool_)
+            v_depth = np.empty(nv)
+            v_ustar = np.empty(nv)
+            v_n = np.zeros(nv, np.int64)
+            v_sub = np.empty(nv)
+            v_streams = np.empty(nv, np.uint64)
+            kcols = np.zeros((nv, max(c_klev.shape[0], 1)))
+            wcols = np.zeros((nv, max(c_wlev.shape[0], 1)))
+            for k in range(nv):
+                v_streams[k] = mix64(streams[k] ^ VERTICAL_SALT)
             # The block's state, gathered so that it stays in the L1 cache.
             bx = np.empty(nb_)
             by = np.empty(nb_)
@@ -791,6 +822,9 @@ def compiled_mover(
             for s in range(nsteps):
                 t = t0 + s * dt
                 t_end = t + dt
+                v_most = 0
+                for k in range(nv):
+                    v_on[k] = False
                 for k in range(nb_):
                     p = lo + k
                     st = bst[k]
@@ -807,7 +841,7 @@ def compiled_mover(
                             c_ustar, tab_i[s, 0], tab_w[s, 0], cell_j[k], cell_i[k]
                         )
                         chance = vertical.resuspension_chance(us, c_params, t_end - t)
-                        vs = mix64(streams[k] ^ VERTICAL_SALT)
+                        vs = v_streams[k]
                         if chance > 0.0 and open_unit(column_hash(vs, step0 + s, 0)) < chance:
                             sigma[p] = 0.0
                             bst[k] = STATUS_WATER
@@ -1025,26 +1059,32 @@ def compiled_mover(
                         cell_i[k] = ci
                         cell_j[k] = cj
                     if vertical_mode:
-                        column_profile(c_kz, c_klev, it, wt, pj, pi, kcol)
-                        column_profile(c_w, c_wlev, it, wt, pj, pi, wcol)
-                        sg, deposited = column_walk(
-                            stream,
-                            step0 + s,
-                            sigma[p],
-                            vertical.cell_frame_value(c_depth, it, wt, pj, pi),
-                            vertical.cell_frame_value(c_ustar, it, wt, pj, pi),
-                            settling[p],
-                            c_params,
-                            h,
-                            c_klev,
-                            kcol,
-                            c_wlev,
-                            wcol,
+                        hd = vertical.cell_frame_value(c_depth, it, wt, pj, pi)
+                        us = vertical.cell_frame_value(c_ustar, it, wt, pj, pi)
+                        column_profile(c_kz, c_klev, it, wt, pj, pi, kcols[k])
+                        column_profile(c_w, c_wlev, it, wt, pj, pi, wcols[k])
+                        nsub = column_substeps(
+                            h, vertical.substep_longest(hd, us, c_params, c_klev, kcols[k])
                         )
-                        sigma[p] = sg
-                        if deposited:
-                            st = STATUS_ON_BED
+                        v_on[k] = True
+                        v_depth[k] = hd
+                        v_ustar[k] = us
+                        v_n[k] = nsub
+                        v_sub[k] = h / nsub
+                        v_most = max(v_most, nsub)
                     bst[k] = st
+                if vertical_mode:
+                    column_walk(
+                        v_most,
+                        step0 + s,
+                        lo,
+                        sigma,
+                        settling,
+                        c_params,
+                        (v_on, v_depth, v_ustar, v_n, v_sub, v_streams),
+                        (c_klev, kcols, c_wlev, wcols),
+                        bst,
+                    )
             for k in range(nb_):
                 x[lo + k] = bx[k]
                 y[lo + k] = by[k]
@@ -1105,11 +1145,16 @@ def advance(
         face (-1: unknown), updated in place. On a mesh ``flow`` is (_, _, U, _, _, V, _) with
         U, V (nf, 1, nnode or nface), ``cells`` is (node_x, node_y, wet (nf, 1, nface), _, _, _),
         and the drift (nf, 1, nface) is per face.
-    column : in three dimensions (sigma, w_s, depth, u*, params): each particle's height above
-        the bed as a fraction of the depth (updated in place) and settling velocity (m s-1, > 0
-        down); the depth (m) and bed shear velocity (m s-1) frames on the cells (nf or 1, ny, nx;
-        (nf or 1, 1, nface) on a mesh); params = ``vertical.column_params`` (its first entry,
-        the K_z mode, picks the compiled option). None: depth-averaged.
+    column : in three dimensions (sigma, w_s, depth, u*, params, levels, w heights, w,
+        K_z heights, K_z): each particle's height above the bed as a fraction of the depth
+        (updated in place) and settling velocity (m s-1, > 0 down); the depth (m) and bed shear
+        velocity (m s-1) frames on the cells (nf or 1, ny, nx; (nf or 1, 1, nface) on a mesh);
+        params = ``vertical.column_params`` (its first entry, the K_z mode, picks the compiled
+        option); the layer centres of U and V (fractions of the depth, ascending; one entry:
+        U and V are depth means, else they are layered frames (nf nl or nl, ny, nx), layer k
+        of frame f at f nl + k); the heights and layered frames of the upward velocity w
+        (m s-1; no heights: none) and of K_z (m2 s-1; mode 3) on the cells. None:
+        depth-averaged.
 
     Particles are independent, so any split over threads gives the same numbers bitwise. One block
     runs on the calling thread (waking the others would cost more than the work).
