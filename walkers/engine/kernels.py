@@ -194,47 +194,52 @@ def column_substeps(h, longest):
 
 @nb.njit(**JIT)
 def column_walk(most, step, lo, sigma, settling, params, walk, profiles, bst):
-    """The vertical motion over a step of the particles lo.. of a block that take it
-    (``walk[0]``): ``vertical.column_step`` in each particle's substeps (``walk[3]`` of
-    ``walk[4]`` s, in its column of depth ``walk[1]`` and u* ``walk[2]``, with the K_z and w
-    profiles of ``profiles``), which keep Visser's criterion (``vertical.substep_longest``).
-    The loop runs over substeps, then over particles, so consecutive iterations are
-    independent. A particle that deposits goes "on the bed" (``bst``, sigma 0) and stops."""
-    on, depth, ustar, n, sub, vstreams = walk
+    """The vertical motion over a step of the particles lo.. of a block that take it (``walk[6]``
+    substeps, > 0): ``vertical.column_step`` in each particle's substeps of ``walk[7]`` s from
+    height ``walk[0]`` (m) in its column of depth ``walk[1]``, 1/depth ``walk[2]`` and u*
+    ``walk[3]``, with the K_z and w profiles of ``profiles``; the substeps keep Visser's
+    criterion (``vertical.substep_longest``). The loop runs over substeps, then over
+    particles, so consecutive iterations are independent. A particle that deposits goes "on the
+    bed" (``bst``, sigma 0) and stops; the others' sigma is z / h at the end."""
+    z, depth, inv_depth, ustar, vstreams, on, n, sub = walk
     klev, kcols, wlev, wcols = profiles
     for j in range(most):
         for k in range(on.shape[0]):
             if not on[k] or j >= n[k]:
                 continue
-            p = lo + k
             r = normal_from(column_hash(vstreams[k], step, 2 * j))
-            sg, chance = vertical.column_step(
-                sigma[p],
+            zn, chance = vertical.column_step(
+                z[k],
                 depth[k],
+                inv_depth[k],
                 ustar[k],
-                settling[p],
+                settling[lo + k],
                 params,
                 sub[k],
                 r,
                 klev,
-                kcols[k],
+                kcols,
                 wlev,
-                wcols[k],
+                wcols,
+                k,
             )
-            sigma[p] = sg
+            z[k] = zn
             if chance > 0.0 and open_unit(column_hash(vstreams[k], step, 2 * j + 1)) < chance:
-                sigma[p] = 0.0
+                z[k] = 0.0
                 on[k] = False
                 bst[k] = STATUS_ON_BED
+    for k in range(on.shape[0]):
+        if n[k] > 0:
+            sigma[lo + k] = z[k] / depth[k]
 
 
 @nb.njit(**JIT)
-def column_profile(arr, levels, it, wt, j, i, out):
+def column_profile(arr, levels, it, wt, j, i, out, row):
     """The values of (nf nl or nl, ny, nx) layered frames in cell (j, i) at time (it, wt), one
-    per level, into ``out`` (``vertical.layer_frame_value``)."""
+    per level, into row ``row`` of ``out`` (``vertical.layer_frame_value``)."""
     nl = levels.shape[0]
     for q in range(nl):
-        out[q] = vertical.layer_frame_value(arr, nl, q, it, wt, j, i)
+        out[row, q] = vertical.layer_frame_value(arr, nl, q, it, wt, j, i)
 
 
 @nb.njit(**JIT)
@@ -799,12 +804,14 @@ def compiled_mover(
             # column's depth, u*, K_z and w profiles, substeps and their length, sampled once
             # per step (``column_walk``).
             nv = nb_ if vertical_mode else 0
-            v_on = np.zeros(nv, np.bool_)
+            v_z = np.empty(nv)
             v_depth = np.empty(nv)
+            v_inv = np.empty(nv)
             v_ustar = np.empty(nv)
+            v_streams = np.empty(nv, np.uint64)
+            v_on = np.zeros(nv, np.bool_)
             v_n = np.zeros(nv, np.int64)
             v_sub = np.empty(nv)
-            v_streams = np.empty(nv, np.uint64)
             kcols = np.zeros((nv, max(c_klev.shape[0], 1)))
             wcols = np.zeros((nv, max(c_wlev.shape[0], 1)))
             for k in range(nv):
@@ -825,6 +832,7 @@ def compiled_mover(
                 v_most = 0
                 for k in range(nv):
                     v_on[k] = False
+                    v_n[k] = 0
                 for k in range(nb_):
                     p = lo + k
                     st = bst[k]
@@ -898,8 +906,8 @@ def compiled_mover(
                         else:
                             iu, wxu = locate(ux, invu[0], px)
                             ju, wyu = locate(uy, invu[1], py)
-                        if vertical_mode:
-                            # in the particle's layer (layered velocity) or the depth mean
+                        if vertical_mode and lay[0] > 1:
+                            # in the particle's layer (layered velocity)
                             nl, lk, lw = lay
                             u1 = layer_bilinear(U, nl, it, wt, iu, ju, wxu, wyu, lk, lw)
                             if not shared:
@@ -1061,17 +1069,21 @@ def compiled_mover(
                     if vertical_mode:
                         hd = vertical.cell_frame_value(c_depth, it, wt, pj, pi)
                         us = vertical.cell_frame_value(c_ustar, it, wt, pj, pi)
-                        column_profile(c_kz, c_klev, it, wt, pj, pi, kcols[k])
-                        column_profile(c_w, c_wlev, it, wt, pj, pi, wcols[k])
-                        nsub = column_substeps(
-                            h, vertical.substep_longest(hd, us, c_params, c_klev, kcols[k])
-                        )
-                        v_on[k] = True
-                        v_depth[k] = hd
-                        v_ustar[k] = us
-                        v_n[k] = nsub
-                        v_sub[k] = h / nsub
-                        v_most = max(v_most, nsub)
+                        if hd >= vertical.MIN_COLUMN_DEPTH:
+                            # (shallower: too shallow to step in, sigma is kept)
+                            column_profile(c_kz, c_klev, it, wt, pj, pi, kcols, k)
+                            column_profile(c_w, c_wlev, it, wt, pj, pi, wcols, k)
+                            nsub = column_substeps(
+                                h, vertical.substep_longest(hd, us, c_params, c_klev, kcols, k)
+                            )
+                            v_on[k] = True
+                            v_z[k] = sigma[p] * hd
+                            v_depth[k] = hd
+                            v_inv[k] = 1.0 / hd
+                            v_ustar[k] = us
+                            v_n[k] = nsub
+                            v_sub[k] = h / nsub
+                            v_most = max(v_most, nsub)
                     bst[k] = st
                 if vertical_mode:
                     column_walk(
@@ -1081,7 +1093,7 @@ def compiled_mover(
                         sigma,
                         settling,
                         c_params,
-                        (v_on, v_depth, v_ustar, v_n, v_sub, v_streams),
+                        (v_z, v_depth, v_inv, v_ustar, v_streams, v_on, v_n, v_sub),
                         (c_klev, kcols, c_wlev, wcols),
                         bst,
                     )

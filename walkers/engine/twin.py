@@ -652,19 +652,34 @@ def _column(column, act, streams, step, it, wt, h, cells_at, status):
     longest = vertical_twin.substep_longest(hw, us, params, klev, kcol)
     with np.errstate(divide="ignore", invalid="ignore"):
         n = np.where(longest < h, np.minimum(np.ceil(h / longest), MAX_SUBSTEPS), 1).astype(int)
-    sub = h / n
-    sg = sigma[act]
+    # columns too shallow to step in keep their particles' sigma
+    n = np.where(hw >= vertical_twin.MIN_COLUMN_DEPTH, n, 0)
+    sub = h / np.maximum(n, 1)
+    safe_h = np.where(n > 0, hw, 1.0)
+    z = sigma[act] * hw
+    inv = 1.0 / safe_h
     ws = settling[act]
     down = np.zeros(act.size, bool)
     for k in range(int(n.max()) if n.size else 0):
         on = np.flatnonzero((k < n) & ~down)
         r = normals(_column_hashes(vstreams[on], step, 2 * k))
         new, chance = vertical_twin.column_steps(
-            sg[on], hw[on], us[on], ws[on], params, sub[on], r, klev, kcol[on], wlev, wcol[on]
+            z[on],
+            hw[on],
+            inv[on],
+            us[on],
+            ws[on],
+            params,
+            sub[on],
+            r,
+            klev,
+            kcol[on],
+            wlev,
+            wcol[on],
         )
-        sg[on] = new
+        z[on] = new
         u = _open_unit(_column_hashes(vstreams[on], step, 2 * k + 1))
         down[on] = (chance > 0.0) & (u < chance)
-    sg[down] = 0.0
-    sigma[act] = sg
+    z[down] = 0.0
+    sigma[act] = np.where(n > 0, z / safe_h, sigma[act])
     status[act[down]] = STATUS_ON_BED

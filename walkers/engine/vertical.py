@@ -106,58 +106,57 @@ def layer_frame_value(arr, nl, q, it, wt, j, i):
 
 
 @nb.njit(**JIT)  # type: ignore[call-overload]  # JIT is a plain dict of options
-def profile_at(levels, values, s):
-    """A profile given at ascending heights ``levels`` (fractions of the depth) at height s:
-    (value, d value / d s), linear between levels, the end value (slope 0) beyond them."""
+def profile_at(levels, values, row, s):
+    """A profile given at ascending heights ``levels`` (fractions of the depth), row ``row`` of
+    ``values`` (rows, levels), at height s: (value, d value / d s), linear between levels, the
+    end value (slope 0) beyond them."""
     n = levels.shape[0]
     if n == 1 or s <= levels[0]:
-        return values[0], 0.0
+        return values[row, 0], 0.0
     if s >= levels[n - 1]:
-        return values[n - 1], 0.0
+        return values[row, n - 1], 0.0
     k = 0
     while levels[k + 1] <= s:
         k += 1
-    g = (values[k + 1] - values[k]) / (levels[k + 1] - levels[k])
-    return values[k] + g * (s - levels[k]), g
+    g = (values[row, k + 1] - values[row, k]) / (levels[k + 1] - levels[k])
+    return values[row, k] + g * (s - levels[k]), g
 
 
 @nb.njit(**JIT)  # type: ignore[call-overload]  # JIT is a plain dict of options
-def column_step(sigma, depth, ustar, ws, params, dt, r, klev, kcol, wlev, wcol):
+def column_step(z, depth, inv_depth, ustar, ws, params, dt, r, klev, kcols, wlev, wcols, row):
     """One vertical step of a particle (Visser 1997; see the module docstring).
 
-    sigma : height above the bed / depth; depth h (m); ustar u* (m s-1, parabolic mode);
-    ws : settling velocity (m s-1, > 0 down);
+    z : height above the bed (m); depth h (m, at least MIN_COLUMN_DEPTH) and inv_depth = 1/h;
+    ustar u* (m s-1, parabolic mode); ws : settling velocity (m s-1, > 0 down);
     params : ``column_params`` (mode 1 constant, 2 parabolic or 3 file K_z, K0 (m2 s-1), w_d
     (m s-1), drift factor (1; 0 removes the drift, for tests), the fraction of 1/|d²K_z/dz²| a
     substep may last, ...);
     dt : step (s); r : standard normal deviate;
-    klev, kcol : K_z (m2 s-1) of the particle's column at heights klev (fractions of the depth,
-    ascending; mode 3), linear between them;
-    wlev, wcol : the vertical velocity w (m s-1, > 0 up) of the column at heights wlev (none when
-    wlev is empty), linear between them.
+    klev, kcols : K_z (m2 s-1) of the particle's column, row ``row`` of kcols, at heights klev
+    (fractions of the depth, ascending; mode 3), linear between them;
+    wlev, wcols : the vertical velocity w (m s-1, > 0 up) of the column, row ``row`` of wcols,
+    at heights wlev (none when wlev is empty), linear between them.
 
-    Returns (sigma', P): the new fraction of the depth and the probability that the particle
-    deposits in this step (0 unless its step ended below a depositing bed).
+    Returns (z', P): the new height (m) and the probability that the particle deposits in this
+    step (0 unless its step ended below a depositing bed). The walk of a step stays in z and
+    multiplies by 1/h (no division on the substeps' chain).
     """
-    if depth < MIN_COLUMN_DEPTH:
-        return sigma, 0.0
-    z = sigma * depth
     mode = params[0]
     if mode == KZ_CONSTANT:
         dk = 0.0
         k = params[1]
     elif mode == KZ_FILE:
-        g = profile_at(klev, kcol, sigma)[1]
-        dk = g / depth * params[3]
+        g = profile_at(klev, kcols, row, z * inv_depth)[1]
+        dk = g * inv_depth * params[3]
         zm = min(max(z + 0.5 * dk * dt, 0.0), depth)
-        k = max(profile_at(klev, kcol, zm / depth)[0], 0.0)
+        k = max(profile_at(klev, kcols, row, zm * inv_depth)[0], 0.0)
     else:
         a = KAPPA * ustar
-        dk = a * (1.0 - 2.0 * z / depth) * params[3]
+        dk = a * (1.0 - 2.0 * z * inv_depth) * params[3]
         zm = min(max(z + 0.5 * dk * dt, 0.0), depth)
-        k = a * zm * (1.0 - zm / depth)
+        k = a * zm * (1.0 - zm * inv_depth)
     if wlev.shape[0] > 0:
-        w = profile_at(wlev, wcol, sigma)[0]
+        w = profile_at(wlev, wcols, row, z * inv_depth)[0]
         zn = z + (dk - ws + w) * dt + r * math.sqrt(2.0 * k * dt)
     else:
         zn = z + (dk - ws) * dt + r * math.sqrt(2.0 * k * dt)
@@ -180,18 +179,18 @@ def column_step(sigma, depth, ustar, ws, params, dt, r, klev, kcol, wlev, wcol):
             chance = min(wd / ws, 1.0)
         else:
             chance = 1.0
-    return zn / depth, chance
+    return zn, chance
 
 
 @nb.njit(**JIT)  # type: ignore[call-overload]  # JIT is a plain dict of options
-def profile_curvature(depth, klev, kcol):
-    """The largest |d²K_z/dz²| (s-1) of a piecewise linear K_z profile at
+def profile_curvature(depth, klev, kcols, row):
+    """The largest |d²K_z/dz²| (s-1) of a piecewise linear K_z profile (row ``row`` of kcols) at
     heights klev (fractions of the depth h, m): at each inner level, the change of slope over
     half the distance between its neighbours; 0 for fewer than three levels."""
     worst = 0.0
     for q in range(1, klev.shape[0] - 1):
-        below = (kcol[q] - kcol[q - 1]) / ((klev[q] - klev[q - 1]) * depth)
-        above = (kcol[q + 1] - kcol[q]) / ((klev[q + 1] - klev[q]) * depth)
+        below = (kcols[row, q] - kcols[row, q - 1]) / ((klev[q] - klev[q - 1]) * depth)
+        above = (kcols[row, q + 1] - kcols[row, q]) / ((klev[q + 1] - klev[q]) * depth)
         c = abs(above - below) / (0.5 * (klev[q + 1] - klev[q - 1]) * depth)
         worst = max(worst, c)
     return worst
@@ -255,7 +254,7 @@ def column_longest(depth, ustar, params):
 
 
 @nb.njit(**JIT)  # type: ignore[call-overload]  # JIT is a plain dict of options
-def substep_longest(depth, ustar, params, klev, kcol):
+def substep_longest(depth, ustar, params, klev, kcols, row):
     """The longest vertical substep (s) in a particle's column: :func:`column_longest`, or for a
     K_z read from the file params[4] / :func:`profile_curvature` (inf for a straight profile or
     a column too shallow to step in)."""
@@ -263,7 +262,7 @@ def substep_longest(depth, ustar, params, klev, kcol):
         return column_longest(depth, ustar, params)
     if not depth >= MIN_COLUMN_DEPTH:
         return math.inf
-    c = profile_curvature(depth, klev, kcol)
+    c = profile_curvature(depth, klev, kcols, row)
     if not c > 0.0:
         return math.inf
     return params[4] / c

@@ -91,27 +91,26 @@ def resuspension_chances(ustar, params, dt):
     return np.where(up, -np.expm1(-np.where(up, rate, 0.0)), 0.0)
 
 
-def column_steps(sigma, depth, ustar, ws, params, dt, r, klev, kcol, wlev, wcol):
-    """Twin of ``vertical.column_step`` for arrays (dt an array of steps, s; kcol and wcol the
-    (particles, levels) profiles)."""
-    deep = depth >= MIN_COLUMN_DEPTH
-    h = np.where(deep, depth, 1.0)
-    z = sigma * h
+def column_steps(z, depth, inv_depth, ustar, ws, params, dt, r, klev, kcol, wlev, wcol):
+    """Twin of ``vertical.column_step`` for arrays (z heights, m; columns deeper than
+    MIN_COLUMN_DEPTH; dt an array of steps, s; kcol and wcol the (particles, levels)
+    profiles). Returns (z', P)."""
+    h = depth
     if params[0] == KZ_CONSTANT:
         dk = np.zeros_like(z)
         k = np.full_like(z, params[1])
     elif params[0] == KZ_FILE:
-        g = profile_at(klev, kcol, sigma)[1]
-        dk = g / h * params[3]
+        g = profile_at(klev, kcol, z * inv_depth)[1]
+        dk = g * inv_depth * params[3]
         zm = np.minimum(np.maximum(z + 0.5 * dk * dt, 0.0), h)
-        k = np.maximum(profile_at(klev, kcol, zm / h)[0], 0.0)
+        k = np.maximum(profile_at(klev, kcol, zm * inv_depth)[0], 0.0)
     else:
         a = KAPPA * ustar
-        dk = a * (1.0 - 2.0 * z / h) * params[3]
+        dk = a * (1.0 - 2.0 * z * inv_depth) * params[3]
         zm = np.minimum(np.maximum(z + 0.5 * dk * dt, 0.0), h)
-        k = a * zm * (1.0 - zm / h)
+        k = a * zm * (1.0 - zm * inv_depth)
     if wlev.shape[0] > 0:
-        w = profile_at(wlev, wcol, sigma)[0]
+        w = profile_at(wlev, wcol, z * inv_depth)[0]
         zn = z + (dk - ws + w) * dt + r * np.sqrt(2.0 * k * dt)
     else:
         zn = z + (dk - ws) * dt + r * np.sqrt(2.0 * k * dt)
@@ -132,4 +131,4 @@ def column_steps(sigma, depth, ustar, ws, params, dt, r, klev, kcol, wlev, wcol)
         by_k = np.minimum(wd * np.sqrt(np.pi * dt / safe_k), 1.0)
         by_ws = np.where(ws > 0.0, np.minimum(wd / safe_ws, 1.0), 1.0)
         chance = np.where(below, np.where(k > 0.0, by_k, by_ws), 0.0)
-    return np.where(deep, zn / h, sigma), np.where(deep, chance, 0.0)
+    return zn, chance
