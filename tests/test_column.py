@@ -300,37 +300,34 @@ def taylor_coefficient(levels, speeds):
     dispersion of matter in turbulent flow through a pipe", Proc. R. Soc. A 223; Elder 1959,
     "The dispersion of marked fluid in turbulent shear flow", J. Fluid Mech. 5, for the open
     channel; from memory), for the profile the step samples (linear between the layer centres,
-    held beyond them) and the parabolic K_z, by scipy.integrate.quad."""
+    held beyond them) and the parabolic K_z: the inner integral by scipy's cumulative
+    trapezoid rule on 200 001 points (exact for the piecewise linear u between them), the outer
+    by Simpson's rule (scipy.integrate.simpson)."""
     from scipy import integrate
 
-    def u(z):
-        return np.interp(z / H, levels, speeds)
-
-    mean = integrate.quad(u, 0.0, H, points=list(levels * H), limit=200)[0] / H
-
-    def q(z):
-        return integrate.quad(lambda s: u(s) - mean, 0.0, z, points=list(levels * H))[0]
-
-    def integrand(z):
-        return q(z) ** 2 / (KAPPA * USTAR * z * (1.0 - z / H))
-
-    return integrate.quad(integrand, 0.0, H, points=list(levels * H), limit=200)[0] / H
+    z = np.linspace(0.0, H, 200001)
+    u = np.interp(z / H, levels, speeds)
+    q = integrate.cumulative_trapezoid(u - integrate.trapezoid(u, z) / H, z, initial=0.0)
+    kz = KAPPA * USTAR * z * (1.0 - z / H)
+    inner = np.divide(q**2, kz, out=np.zeros_like(z), where=kz > 0.0)
+    return integrate.simpson(inner, x=z) / H
 
 
 def test_log_profile_with_vertical_mixing_gives_taylor_elder_shear_dispersion():
     """A well-mixed release in the layered log profile with the parabolic K_z and no horizontal
     dispersion: the longitudinal variance grows at 2K with K of Taylor's integral for that
     profile (Taylor 1954; Elder 1959 gives K = 5.93 h u* for the continuous log law, from
-    memory), between 2 and 6 mixing times h²/K̄_z; within 5 standard errors of the growth,
-    estimated from 20 batches of the particles. The twin, the depth-averaged run of the same
+    memory; 4.80 h u* here, the profile held below the lowest layer centre), between 1.5 and
+    4.5 mixing times h²/K̄_z; within 5 standard errors of the growth, estimated from 20 batches
+    of 200 particles (measured: 2.36 ± 0.07 m2 s-1 against 2.40). The twin, the depth-averaged run of the same
     release, shows no growth and fails."""
     expect = taylor_coefficient(LEVELS, log_speed(LEVELS))
     assert 0.6 * 5.93 * H * USTAR < expect < 1.4 * 5.93 * H * USTAR  # near Elder's value
     mean_speed = float(np.mean(log_speed(LEVELS)))
     flow, inputs = channel(nx=60, u0=mean_speed)
-    n, dt = 20000, 20.0
+    n, dt = 4000, 20.0
     t_mix = H**2 / (KAPPA * USTAR * H / 6.0)
-    s1, s2 = int(round(2.0 * t_mix / dt)), int(round(6.0 * t_mix / dt))
+    s1, s2 = int(round(1.5 * t_mix / dt)), int(round(4.5 * t_mix / dt))
     sig = np.random.default_rng(21).uniform(0.0, 1.0, n)
     for layered, expect_ok in ((True, True), (False, False)):
         inp = mover.with_column(

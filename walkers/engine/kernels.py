@@ -192,54 +192,48 @@ def column_substeps(h, longest):
     return min(int(math.ceil(h / longest)), MAX_SUBSTEPS)
 
 
-@functools.cache
-def column_walker(mode, with_w):
-    """:func:`column_walk` compiled for one K_z mode, with or without w
-    (``vertical.column_stepper``)."""
-    column_step = vertical.column_stepper(mode, with_w)
-
-    @nb.njit(**JIT)
-    def column_walk(most, step, lo, sigma, settling, params, walk, profiles, bst):
-        """The vertical motion over a step of the particles lo.. of a block that take it
-        (``walk[6]`` substeps, > 0): ``column_step`` in each particle's substeps of ``walk[7]``
-        s from height ``walk[0]`` (m) in its column of depth ``walk[1]``, 1/depth ``walk[2]``
-        and u* ``walk[3]``, with the K_z and w profiles of ``profiles``; the substeps keep
-        Visser's criterion (``vertical.substep_longest``). The loop runs over substeps, then
-        over particles, so consecutive iterations are independent. A particle that deposits
-        goes "on the bed" (``bst``, sigma 0) and stops; the others' sigma is z / h at the
-        end."""
-        z, depth, inv_depth, ustar, vstreams, on, n, sub = walk
-        klev, kcols, wlev, wcols = profiles
-        for j in range(most):
-            for k in range(on.shape[0]):
-                if not on[k] or j >= n[k]:
-                    continue
-                r = normal_from(column_hash(vstreams[k], step, 2 * j))
-                zn, chance = column_step(
-                    z[k],
-                    depth[k],
-                    inv_depth[k],
-                    ustar[k],
-                    settling[lo + k],
-                    params,
-                    sub[k],
-                    r,
-                    klev,
-                    kcols,
-                    wlev,
-                    wcols,
-                    k,
-                )
-                z[k] = zn
-                if chance > 0.0 and open_unit(column_hash(vstreams[k], step, 2 * j + 1)) < chance:
-                    z[k] = 0.0
-                    on[k] = False
-                    bst[k] = STATUS_ON_BED
+@nb.njit(inline="always", **JIT)
+def column_walk(most, step, lo, sigma, settling, params, walk, profiles, bst, mode, with_w):
+    """The vertical motion over a step of the particles lo.. of a block that take it
+    (``walk[6]`` substeps, > 0): ``vertical.column_step`` in each particle's substeps of ``walk[7]``
+    s from height ``walk[0]`` (m) in its column of depth ``walk[1]``, 1/depth ``walk[2]``
+    and u* ``walk[3]``, with the K_z and w profiles of ``profiles``; the substeps keep
+    Visser's criterion (``vertical.substep_longest``). The loop runs over substeps, then
+    over particles, so consecutive iterations are independent. A particle that deposits
+    goes "on the bed" (``bst``, sigma 0) and stops; the others' sigma is z / h at the
+    end."""
+    z, depth, inv_depth, ustar, vstreams, on, n, sub = walk
+    klev, kcols, wlev, wcols = profiles
+    for j in range(most):
         for k in range(on.shape[0]):
-            if n[k] > 0:
-                sigma[lo + k] = z[k] / depth[k]
-
-    return column_walk
+            if not on[k] or j >= n[k]:
+                continue
+            r = normal_from(column_hash(vstreams[k], step, 2 * j))
+            zn, chance = vertical.column_step(
+                z[k],
+                depth[k],
+                inv_depth[k],
+                ustar[k],
+                settling[lo + k],
+                params,
+                sub[k],
+                r,
+                klev,
+                kcols,
+                wlev,
+                wcols,
+                k,
+                mode,
+                with_w,
+            )
+            z[k] = zn
+            if chance > 0.0 and open_unit(column_hash(vstreams[k], step, 2 * j + 1)) < chance:
+                z[k] = 0.0
+                on[k] = False
+                bst[k] = STATUS_ON_BED
+    for k in range(on.shape[0]):
+        if n[k] > 0:
+            sigma[lo + k] = z[k] / depth[k]
 
 
 @nb.njit(**JIT)
@@ -739,8 +733,8 @@ def compiled_mover(
         ``meshwalk.trace_mesh_path``, the drift is per face, and there is no bridge test.
     vertical_mode : 0 depth-averaged; 1 a vertical step with constant K_z, 2 with parabolic
         K_z, 3 with the K_z profiles of the flow's column, plus 4 with the vertical velocity w
-        of the column (``column_walker``:
-        ``vertical.column_stepper`` in substeps that keep Visser's criterion, after the horizontal
+        of the column (``column_walk``:
+        ``vertical.column_step`` in substeps that keep Visser's criterion, after the horizontal
         step of the block's particles, with the depth, u*, K_z and w of the cell each step
         starts in); a particle whose substep ends below a depositing bed may go "on the bed"
         (``STATUS_ON_BED``), and returns to the water above a critical bed shear stress
@@ -751,8 +745,9 @@ def compiled_mover(
     rk4 = scheme == 1
     on_nodes = mesh == 1
     two_d = ndim == 2
-    # the vertical walk for the K_z mode (low two bits) and w (bit 2) of vertical_mode
-    column_walk = column_walker(max(vertical_mode & 3, 1), bool(vertical_mode & 4))
+    # the K_z mode (low two bits) and w (bit 2) of vertical_mode, constants of the walk
+    kz_mode = vertical_mode & 3
+    with_w = (vertical_mode & 4) != 0
 
     @nb.njit(parallel=parallel, **JIT)
     def move(
@@ -1113,6 +1108,8 @@ def compiled_mover(
                         (v_z, v_depth, v_inv, v_ustar, v_streams, v_on, v_n, v_sub),
                         (c_klev, kcols, c_wlev, wcols),
                         bst,
+                        kz_mode,
+                        with_w,
                     )
             for k in range(nb_):
                 x[lo + k] = bx[k]

@@ -44,7 +44,6 @@ bed" and is no longer moved.
 
 from __future__ import annotations
 
-import functools
 import math
 
 import numba as nb
@@ -123,70 +122,66 @@ def profile_at(levels, values, row, s):
     return values[row, k] + g * (s - levels[k]), g
 
 
-@functools.cache
-def column_stepper(mode: int, with_w: bool):  # type: ignore[no-untyped-def]
-    """:func:`column_step` compiled for one K_z mode and with or without a vertical velocity
-    (the branches of the others removed, as ``kernels.compiled_mover`` does for the step)."""
-    constant = mode == KZ_CONSTANT
-    from_file = mode == KZ_FILE
+@nb.njit(inline="always", **JIT)  # type: ignore[call-overload]  # JIT is a plain dict
+def column_step(
+    z, depth, inv_depth, ustar, ws, params, dt, r, klev, kcols, wlev, wcols, row, mode, with_w
+):
+    """One vertical step of a particle (Visser 1997; see the module docstring).
 
-    @nb.njit(**JIT)  # type: ignore[call-overload]  # JIT is a plain dict of options
-    def column_step(z, depth, inv_depth, ustar, ws, params, dt, r, klev, kcols, wlev, wcols, row):
-        """One vertical step of a particle (Visser 1997; see the module docstring).
+    z : height above the bed (m); depth h (m, at least MIN_COLUMN_DEPTH) and inv_depth =
+    1/h; ustar u* (m s-1, parabolic mode); ws : settling velocity (m s-1, > 0 down);
+    params : ``column_params`` (K0 (m2 s-1), w_d (m s-1), drift factor (1; 0 removes the
+    drift, for tests), ...); dt : step (s); r : standard normal deviate;
+    klev, kcols : K_z (m2 s-1) of the particle's column, row ``row`` of kcols, at heights
+    klev (fractions of the depth, ascending; mode 3), linear between them;
+    wlev, wcols : the vertical velocity w (m s-1, > 0 up) of the column, row ``row`` of
+    wcols, at heights wlev (with_w), linear between them.
 
-        z : height above the bed (m); depth h (m, at least MIN_COLUMN_DEPTH) and inv_depth =
-        1/h; ustar u* (m s-1, parabolic mode); ws : settling velocity (m s-1, > 0 down);
-        params : ``column_params`` (K0 (m2 s-1), w_d (m s-1), drift factor (1; 0 removes the
-        drift, for tests), ...); dt : step (s); r : standard normal deviate;
-        klev, kcols : K_z (m2 s-1) of the particle's column, row ``row`` of kcols, at heights
-        klev (fractions of the depth, ascending; mode 3), linear between them;
-        wlev, wcols : the vertical velocity w (m s-1, > 0 up) of the column, row ``row`` of
-        wcols, at heights wlev (with_w), linear between them.
+    mode, with_w : the K_z mode and whether w is given: constants of the compiled step (the
+    function is inlined, so the branches of the other modes are removed).
 
-        Returns (z', P): the new height (m) and the probability that the particle deposits in
-        this step (0 unless its step ended below a depositing bed). The walk of a step stays in
-        z and multiplies by 1/h (no division on the substeps' chain).
-        """
-        if constant:
-            dk = 0.0
-            k = params[1]
-        elif from_file:
-            g = profile_at(klev, kcols, row, z * inv_depth)[1]
-            dk = g * inv_depth * params[3]
-            zm = min(max(z + 0.5 * dk * dt, 0.0), depth)
-            k = max(profile_at(klev, kcols, row, zm * inv_depth)[0], 0.0)
+    Returns (z', P): the new height (m) and the probability that the particle deposits in
+    this step (0 unless its step ended below a depositing bed). The walk of a step stays in
+    z and multiplies by 1/h (no division on the substeps' chain).
+    """
+    if mode == KZ_CONSTANT:
+        dk = 0.0
+        k = params[1]
+    elif mode == KZ_FILE:
+        g = profile_at(klev, kcols, row, z * inv_depth)[1]
+        dk = g * inv_depth * params[3]
+        zm = min(max(z + 0.5 * dk * dt, 0.0), depth)
+        k = max(profile_at(klev, kcols, row, zm * inv_depth)[0], 0.0)
+    else:
+        a = KAPPA * ustar
+        dk = a * (1.0 - 2.0 * z * inv_depth) * params[3]
+        zm = min(max(z + 0.5 * dk * dt, 0.0), depth)
+        k = a * zm * (1.0 - zm * inv_depth)
+    if with_w:
+        w = profile_at(wlev, wcols, row, z * inv_depth)[0]
+        zn = z + (dk - ws + w) * dt + r * math.sqrt(2.0 * k * dt)
+    else:
+        zn = z + (dk - ws) * dt + r * math.sqrt(2.0 * k * dt)
+    below = False
+    for _ in range(MAX_COLUMN_REFLECTIONS):
+        if zn < 0.0:
+            zn = -zn
+            below = True
+        elif zn > depth:
+            zn = 2.0 * depth - zn
         else:
-            a = KAPPA * ustar
-            dk = a * (1.0 - 2.0 * z * inv_depth) * params[3]
-            zm = min(max(z + 0.5 * dk * dt, 0.0), depth)
-            k = a * zm * (1.0 - zm * inv_depth)
-        if with_w:
-            w = profile_at(wlev, wcols, row, z * inv_depth)[0]
-            zn = z + (dk - ws + w) * dt + r * math.sqrt(2.0 * k * dt)
+            break
+    zn = min(max(zn, 0.0), depth)
+    chance = 0.0
+    wd = params[2]
+    if below and wd > 0.0:
+        if k > 0.0:
+            chance = min(wd * math.sqrt(math.pi * dt / k), 1.0)
+        elif ws > 0.0:
+            chance = min(wd / ws, 1.0)
         else:
-            zn = z + (dk - ws) * dt + r * math.sqrt(2.0 * k * dt)
-        below = False
-        for _ in range(MAX_COLUMN_REFLECTIONS):
-            if zn < 0.0:
-                zn = -zn
-                below = True
-            elif zn > depth:
-                zn = 2.0 * depth - zn
-            else:
-                break
-        zn = min(max(zn, 0.0), depth)
-        chance = 0.0
-        wd = params[2]
-        if below and wd > 0.0:
-            if k > 0.0:
-                chance = min(wd * math.sqrt(math.pi * dt / k), 1.0)
-            elif ws > 0.0:
-                chance = min(wd / ws, 1.0)
-            else:
-                chance = 1.0
-        return zn, chance
-
-    return column_step
+            chance = 1.0
+    return zn, chance
 
 
 @nb.njit(**JIT)  # type: ignore[call-overload]  # JIT is a plain dict of options

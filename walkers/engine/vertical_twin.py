@@ -92,7 +92,7 @@ def resuspension_chances(ustar, params, dt):
 
 
 def column_steps(z, depth, inv_depth, ustar, ws, params, dt, r, klev, kcol, wlev, wcol):
-    """Twin of ``vertical.column_stepper`` for arrays (z heights, m; columns deeper than
+    """Twin of ``vertical.column_step`` for arrays (z heights, m; columns deeper than
     MIN_COLUMN_DEPTH; dt an array of steps, s; kcol and wcol the (particles, levels)
     profiles). Returns (z', P)."""
     h = depth
