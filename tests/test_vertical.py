@@ -351,8 +351,12 @@ def test_horizontal_motion_is_unchanged_by_the_vertical_step():
 def test_bad_vertical_settings_are_refused_with_the_key_named():
     flow, inputs = still_column(10.0)
     h = flow.depth.data
-    with pytest.raises(InputError, match="vertical diffusivity mode 3"):
-        mover.with_column(inputs, h, USTAR, 3)
+    with pytest.raises(InputError, match="vertical diffusivity mode 4"):
+        mover.with_column(inputs, h, USTAR, 4)
+    with pytest.raises(InputError, match="the file has no vertical diffusivity"):
+        mover.with_column(inputs, h, USTAR, vertical.KZ_FILE)
+    with pytest.raises(InputError, match="critical shear stress = -1.0: must be a number >= 0"):
+        mover.with_column(inputs, h, USTAR, 1, 0.01, critical_shear_stress=-1.0)
     with pytest.raises(InputError, match="deposition velocity = -0.1: must be a number >= 0"):
         mover.with_column(inputs, h, USTAR, 1, 0.01, -0.1)
     with pytest.raises(InputError, match="dt = 30000 s would need 12300 vertical substeps"):

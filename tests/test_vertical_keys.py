@@ -194,7 +194,7 @@ def test_inspect_of_a_scenario_says_whether_its_run_is_3d(tmp_path):
         out[name] = res.output
     assert "Run: three-dimensional: parabolic K_z = 0.41 u* z (1 - z/h)" in out["deep"]
     assert "depositing bed, w_d = 0.5 mm/s" in out["deep"]
-    assert "no vertical velocity in the flow file: none used" in out["deep"]
+    assert "vertical velocity: none (no vertical advection)" in out["deep"]
     assert "r: settling (50 % at 0.1 mm/s, 50 % at 1 mm/s), from 1 m above the bed" in out["deep"]
     assert f"up to {math.ceil(60.0 / (0.01 * H / (2 * 0.41 * 0.015)))} (Visser" in out["deep"]
     assert "Run: depth-averaged" in out["flat"] and "three-dimensional" not in out["flat"]

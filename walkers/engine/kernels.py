@@ -205,20 +205,108 @@ def column_substeps(h, longest):
     return min(int(math.ceil(h / longest)), MAX_SUBSTEPS)
 
 
+@nb.njit(inline="always", **JIT)
+def column_walk(most, step, lo, sigma, settling, params, walk, profiles, bst, mode, with_w):
+    """The vertical motion over a step of the particles lo.. of a block that take it
+    (``walk[6]`` substeps, > 0): ``vertical.column_step`` in each particle's substeps of ``walk[7]``
+    s from height ``walk[0]`` (m) in its column of depth ``walk[1]``, 1/depth ``walk[2]``
+    and u* ``walk[3]``, with the K_z and w profiles of ``profiles``; the substeps keep
+    Visser's criterion (``vertical.substep_longest``). The loop runs over substeps, then
+    over particles, so consecutive iterations are independent. A particle that deposits
+    goes "on the bed" (``bst``, sigma 0) and stops; the others' sigma is z / h at the
+    end."""
+    z, depth, inv_depth, ustar, vstreams, on, n, sub = walk
+    klev, kcols, wlev, wcols = profiles
+    for j in range(most):
+        for k in range(on.shape[0]):
+            if not on[k] or j >= n[k]:
+                continue
+            r = normal_from(column_hash(vstreams[k], step, 2 * j))
+            zn, chance = vertical.column_step(
+                z[k],
+                depth[k],
+                inv_depth[k],
+                ustar[k],
+                settling[lo + k],
+                params,
+                sub[k],
+                r,
+                klev,
+                kcols,
+                wlev,
+                wcols,
+                k,
+                mode,
+                with_w,
+            )
+            z[k] = zn
+            if chance > 0.0 and open_unit(column_hash(vstreams[k], step, 2 * j + 1)) < chance:
+                z[k] = 0.0
+                on[k] = False
+                bst[k] = STATUS_ON_BED
+    for k in range(on.shape[0]):
+        if n[k] > 0:
+            sigma[lo + k] = z[k] / depth[k]
+
+
 @nb.njit(**JIT)
-def column_walk(stream, step, sigma, depth, ustar, ws, params, h):
-    """A particle's vertical motion over a step of h seconds: ``vertical.column_step`` in
-    substeps that keep Visser's criterion in its column (``vertical.column_longest``). Returns
-    (sigma', deposited)."""
-    vstream = mix64(stream ^ VERTICAL_SALT)
-    n = column_substeps(h, vertical.column_longest(depth, ustar, params))
-    sub = h / n
-    for j in range(n):
-        r = normal_from(column_hash(vstream, step, 2 * j))
-        sigma, chance = vertical.column_step(sigma, depth, ustar, ws, params, sub, r)
-        if chance > 0.0 and open_unit(column_hash(vstream, step, 2 * j + 1)) < chance:
-            return 0.0, True
-    return sigma, False
+def column_profile(arr, levels, it, wt, j, i, out, row):
+    """The values of (nf nl or nl, ny, nx) layered frames in cell (j, i) at time (it, wt), one
+    per level, into row ``row`` of ``out`` (``vertical.layer_frame_value``)."""
+    nl = levels.shape[0]
+    for q in range(nl):
+        out[row, q] = vertical.layer_frame_value(arr, nl, q, it, wt, j, i)
+
+
+@nb.njit(**JIT)
+def layer_weight(levels, s):
+    """Layer index k and weight w of height s (fraction of the depth) between the layer centres
+    ``levels`` (ascending): the velocity is linear between centres, and below the lowest and
+    above the highest centre the value of that layer (a layer's value is its mean over the
+    layer in a finite-volume model; common practice), (0, 0) and (nl - 1, 0)."""
+    nl = levels.shape[0]
+    if nl == 1 or s <= levels[0]:
+        return 0, 0.0
+    if s >= levels[nl - 1]:
+        return nl - 1, 0.0
+    k = 0
+    while levels[k + 1] <= s:
+        k += 1
+    return k, (s - levels[k]) / (levels[k + 1] - levels[k])
+
+
+@nb.njit(**JIT)
+def layer_bilinear(arr, nl, it, wt, i, j, wx, wy, k, wz):
+    """:func:`bilinear` of layered frames (nf nl or nl, ny, nx; frame f layer k at f nl + k)
+    at layer k with weight wz towards layer k + 1 (nl = 1: ``bilinear`` itself)."""
+    if nl == 1:
+        return bilinear(arr, it, wt, i, j, wx, wy)
+    nx = arr.shape[2]
+    ny = arr.shape[1]
+    i1 = min(i + 1, nx - 1)
+    j1 = min(j + 1, ny - 1)
+    if arr.shape[0] == nl:
+        it = 0
+        wt = 0.0
+    out = 0.0
+    for q in range(2):
+        if q == 1 and not wz > 0.0:
+            break
+        f0 = it * nl + k + q
+        f = (1.0 - wy) * ((1.0 - wx) * arr[f0, j, i] + wx * arr[f0, j, i1]) + wy * (
+            (1.0 - wx) * arr[f0, j1, i] + wx * arr[f0, j1, i1]
+        )
+        if wt > 0.0:
+            f1 = f0 + nl
+            g = (1.0 - wy) * ((1.0 - wx) * arr[f1, j, i] + wx * arr[f1, j, i1]) + wy * (
+                (1.0 - wx) * arr[f1, j1, i] + wx * arr[f1, j1, i1]
+            )
+            f = f + wt * (g - f)
+        if q == 0:
+            out = f
+        else:
+            out = out + wz * (f - out)
+    return out
 
 
 @nb.njit(**JIT)
@@ -584,15 +672,32 @@ def mesh_velocity_at(node_x, node_y, face_nodes, neighbours, U, V, it, wt, f, px
     )
 
 
+@nb.njit(**JIT)
+def layered_velocity(ux, uy, U, vx, vy, V, inv, shared, it, wt, x, y, lay):
+    """:func:`velocity` of layered frames at the layer and weight of lay = (nl, k, wz)
+    (:func:`layer_bilinear`)."""
+    nl, k, wz = lay
+    i, wx = locate(ux, inv[0], x)
+    j, wy = locate(uy, inv[1], y)
+    u = layer_bilinear(U, nl, it, wt, i, j, wx, wy, k, wz)
+    if not shared:
+        i, wx = locate(vx, inv[2], x)
+        j, wy = locate(vy, inv[3], y)
+    return u, layer_bilinear(V, nl, it, wt, i, j, wx, wy, k, wz)
+
+
 @nb.njit(**INLINE)
-def stage_velocity(mesh, on_nodes, shared, grid, topo, U, V, it, wt, f, x, y, w):
-    """(u, v) at an RK4 stage point (x, y): on the lattice's velocity axes (``grid``), or on a
-    mesh by walking from face f (``topo``; :func:`mesh_velocity_at`)."""
+def stage_velocity(mesh, on_nodes, shared, grid, topo, U, V, it, wt, f, x, y, w, lay):
+    """(u, v) at an RK4 stage point (x, y): on the lattice's velocity axes (``grid``; in the
+    particle's layer lay = (nl, k, wz) when the velocity is layered, nl > 1), or on a mesh by
+    walking from face f (``topo``; :func:`mesh_velocity_at`)."""
     ux, uy, vx, vy, invu, node_x, node_y = grid
     if mesh:
         return mesh_velocity_at(
             node_x, node_y, topo[0], topo[1], U, V, it, wt, f, x, y, w, on_nodes
         )
+    if lay[0] > 1:
+        return layered_velocity(ux, uy, U, vx, vy, V, invu, shared, it, wt, x, y, lay)
     return velocity(ux, uy, U, vx, vy, V, invu, shared, it, wt, x, y)
 
 
@@ -663,16 +768,23 @@ def compiled_mover(
         On a mesh the argument tuples keep their shapes with other contents (see ``advance``),
         a particle's cell is its face, the walls and open boundaries are those of
         ``meshwalk.trace_mesh_path``, the drift is per face, and there is no bridge test.
-    vertical_mode : 0 depth-averaged; 1 a vertical step with constant K_z, 2 with parabolic K_z
-        (``column_walk``: ``vertical.column_step`` in substeps that keep Visser's criterion,
-        after the horizontal step, with the depth and u* of the cell the step starts in); a
-        particle whose substep ends below a depositing bed may go "on the bed"
-        (``STATUS_ON_BED``). The ``column`` argument is (sigma, w_s, depth, u*, params), see
-        ``advance``.
+    vertical_mode : 0 depth-averaged; 1 a vertical step with constant K_z, 2 with parabolic
+        K_z, 3 with the K_z profiles of the flow's column, plus 4 with the vertical velocity w
+        of the column (``column_walk``:
+        ``vertical.column_step`` in substeps that keep Visser's criterion, after the horizontal
+        step of the block's particles, with the depth, u*, K_z and w of the cell each step
+        starts in); a particle whose substep ends below a depositing bed may go "on the bed"
+        (``STATUS_ON_BED``), and returns to the water above a critical bed shear stress
+        (``vertical.resuspension_chance``). With layered velocities (more than one layer
+        centre in ``column``) u and v are sampled at each particle's height
+        (``layer_bilinear``). The ``column`` argument is described in ``advance``.
     """
     rk4 = scheme == 1
     on_nodes = mesh == 1
     two_d = ndim == 2
+    # the K_z mode (low two bits) and w (bit 2) of vertical_mode, constants of the walk
+    kz_mode = vertical_mode & 3
+    with_w = (vertical_mode & 4) != 0
 
     @nb.njit(parallel=parallel, **JIT)
     def move(
@@ -719,6 +831,10 @@ def compiled_mover(
         # made here, once: made in the loop, they took a reference to each array every step)
         grid = (ux, uy, vx, vy, invu, xe, ye)
         topo = (face_nodes, neighbours)
+        # layer centres of U and V, heights and frames of w and of K_z (fractions of the depth)
+        c_levels, c_wlev, c_w, c_klev, c_kz = column[5], column[6], column[7], column[8], column[9]
+        n_levels = c_levels.shape[0]
+        resuspend = c_params.shape[0] > 5 and c_params[5] > 0.0
         tab_i = np.zeros((nsteps, 3), np.int64)
         tab_w = np.zeros((nsteps, 3))
         tab_decay = np.ones(nsteps)
@@ -736,6 +852,22 @@ def compiled_mover(
             else:
                 cell_i, cell_j, streams = block_scratch(lo, hi, x, y, xe, ye, invc, key)
             w4 = np.zeros(4)
+            # The vertical walk of a step, for the particles of the block that take it: their
+            # column's depth, u*, K_z and w profiles, substeps and their length, sampled once
+            # per step (``column_walk``).
+            nv = nb_ if vertical_mode else 0
+            v_z = np.empty(nv)
+            v_depth = np.empty(nv)
+            v_inv = np.empty(nv)
+            v_ustar = np.empty(nv)
+            v_streams = np.empty(nv, np.uint64)
+            v_on = np.zeros(nv, np.bool_)
+            v_n = np.zeros(nv, np.int64)
+            v_sub = np.empty(nv)
+            kcols = np.zeros((nv, max(c_klev.shape[0], 1)))
+            wcols = np.zeros((nv, max(c_wlev.shape[0], 1)))
+            for k in range(nv):
+                v_streams[k] = mix64(streams[k] ^ VERTICAL_SALT)
             # The block's state, gathered so that it stays in the L1 cache.
             bx = np.empty(nb_)
             by = np.empty(nb_)
@@ -749,6 +881,10 @@ def compiled_mover(
             for s in range(nsteps):
                 t = t0 + s * dt
                 t_end = t + dt
+                v_most = 0
+                for k in range(nv):
+                    v_on[k] = False
+                    v_n[k] = 0
                 for k in range(nb_):
                     p = lo + k
                     st = bst[k]
@@ -759,6 +895,17 @@ def compiled_mover(
                         tstart = max(t, trel[p])
                     elif st == STATUS_WATER or st == STATUS_HELD_DRY:
                         tstart = t
+                    elif vertical_mode and st == STATUS_ON_BED and resuspend:
+                        # back to the water at the bed (``vertical.resuspension_chance``)
+                        us = vertical.cell_frame_value(
+                            c_ustar, tab_i[s, 0], tab_w[s, 0], cell_j[k], cell_i[k]
+                        )
+                        chance = vertical.resuspension_chance(us, c_params, t_end - t)
+                        vs = v_streams[k]
+                        if chance > 0.0 and open_unit(column_hash(vs, step0 + s, 0)) < chance:
+                            sigma[p] = 0.0
+                            bst[k] = STATUS_WATER
+                        continue
                     else:
                         continue
                     h = t_end - tstart
@@ -794,6 +941,10 @@ def compiled_mover(
                         continue
                     px = bx[k]
                     py = by[k]
+                    lay = (1, 0, 0.0)
+                    if vertical_mode and n_levels > 1:
+                        lk, lw = layer_weight(c_levels, sigma[p])
+                        lay = (n_levels, lk, lw)
                     # Where the particle sits on the cell-centre grid (K, drift) and on the
                     # velocity axes; located once and shared wherever the axes coincide.
                     ic, wxc = locate(cx, invc[2], px)
@@ -808,13 +959,22 @@ def compiled_mover(
                         else:
                             iu, wxu = locate(ux, invu[0], px)
                             ju, wyu = locate(uy, invu[1], py)
-                        u1 = bilinear(U, it, wt, iu, ju, wxu, wyu)
-                        if shared:
-                            v1 = bilinear(V, it, wt, iu, ju, wxu, wyu)
+                        if vertical_mode and lay[0] > 1:
+                            # in the particle's layer (layered velocity)
+                            nl, lk, lw = lay
+                            u1 = layer_bilinear(U, nl, it, wt, iu, ju, wxu, wyu, lk, lw)
+                            if not shared:
+                                iu, wxu = locate(vx, invu[2], px)
+                                ju, wyu = locate(vy, invu[3], py)
+                            v1 = layer_bilinear(V, nl, it, wt, iu, ju, wxu, wyu, lk, lw)
                         else:
-                            iv, wxv = locate(vx, invu[2], px)
-                            jv, wyv = locate(vy, invu[3], py)
-                            v1 = bilinear(V, it, wt, iv, jv, wxv, wyv)
+                            u1 = bilinear(U, it, wt, iu, ju, wxu, wyu)
+                            if shared:
+                                v1 = bilinear(V, it, wt, iu, ju, wxu, wyu)
+                            else:
+                                iv, wxv = locate(vx, invu[2], px)
+                                jv, wyv = locate(vy, invu[3], py)
+                                v1 = bilinear(V, it, wt, iv, jv, wxv, wyv)
                     if geographic:
                         sx, sy = metres_to_grid(True, py)
                     else:
@@ -833,17 +993,17 @@ def compiled_mover(
                         xm = px + 0.5 * h * u1 * sx
                         ym = py + 0.5 * h * v1 * sy
                         u2, v2 = stage_velocity(
-                            mesh, on_nodes, shared, grid, topo, U, V, itm, wtm, pi, xm, ym, w4
+                            mesh, on_nodes, shared, grid, topo, U, V, itm, wtm, pi, xm, ym, w4, lay
                         )
                         xm = px + 0.5 * h * u2 * sx
                         ym = py + 0.5 * h * v2 * sy
                         u3, v3 = stage_velocity(
-                            mesh, on_nodes, shared, grid, topo, U, V, itm, wtm, pi, xm, ym, w4
+                            mesh, on_nodes, shared, grid, topo, U, V, itm, wtm, pi, xm, ym, w4, lay
                         )
                         xm = px + h * u3 * sx
                         ym = py + h * v3 * sy
                         u4, v4 = stage_velocity(
-                            mesh, on_nodes, shared, grid, topo, U, V, ite, wte, pi, xm, ym, w4
+                            mesh, on_nodes, shared, grid, topo, U, V, ite, wte, pi, xm, ym, w4, lay
                         )
                         ax_ = h * sx * (u1 + 2.0 * u2 + 2.0 * u3 + u4) / 6.0
                         ay_ = h * sy * (v1 + 2.0 * v2 + 2.0 * v3 + v4) / 6.0
@@ -957,20 +1117,43 @@ def compiled_mover(
                         cell_i[k] = ci
                         cell_j[k] = cj
                     if vertical_mode:
-                        sg, deposited = column_walk(
-                            stream,
-                            step0 + s,
-                            sigma[p],
-                            vertical.cell_frame_value(c_depth, it, wt, pj, pi),
-                            vertical.cell_frame_value(c_ustar, it, wt, pj, pi),
-                            settling[p],
-                            c_params,
-                            h,
-                        )
-                        sigma[p] = sg
-                        if deposited:
-                            st = STATUS_ON_BED
+                        hd = vertical.cell_frame_value(c_depth, it, wt, pj, pi)
+                        us = vertical.cell_frame_value(c_ustar, it, wt, pj, pi)
+                        if hd >= vertical.MIN_COLUMN_DEPTH:
+                            # (shallower: too shallow to step in, sigma is kept)
+                            if c_klev.shape[0] > 0:
+                                column_profile(c_kz, c_klev, it, wt, pj, pi, kcols, k)
+                                longest = vertical.substep_longest(
+                                    hd, us, c_params, c_klev, kcols, k
+                                )
+                            else:
+                                longest = vertical.column_longest(hd, us, c_params)
+                            if c_wlev.shape[0] > 0:
+                                column_profile(c_w, c_wlev, it, wt, pj, pi, wcols, k)
+                            nsub = column_substeps(h, longest)
+                            v_on[k] = True
+                            v_z[k] = sigma[p] * hd
+                            v_depth[k] = hd
+                            v_inv[k] = 1.0 / hd
+                            v_ustar[k] = us
+                            v_n[k] = nsub
+                            v_sub[k] = h / nsub
+                            v_most = max(v_most, nsub)
                     bst[k] = st
+                if vertical_mode:
+                    column_walk(
+                        v_most,
+                        step0 + s,
+                        lo,
+                        sigma,
+                        settling,
+                        c_params,
+                        (v_z, v_depth, v_inv, v_ustar, v_streams, v_on, v_n, v_sub),
+                        (c_klev, kcols, c_wlev, wcols),
+                        bst,
+                        kz_mode,
+                        with_w,
+                    )
             for k in range(nb_):
                 x[lo + k] = bx[k]
                 y[lo + k] = by[k]
@@ -1031,11 +1214,16 @@ def advance(
         face (-1: unknown), updated in place. On a mesh ``flow`` is (_, _, U, _, _, V, _) with
         U, V (nf, 1, nnode or nface), ``cells`` is (node_x, node_y, wet (nf, 1, nface), _, _, _),
         and the drift (nf, 1, nface) is per face.
-    column : in three dimensions (sigma, w_s, depth, u*, params): each particle's height above
-        the bed as a fraction of the depth (updated in place) and settling velocity (m s-1, > 0
-        down); the depth (m) and bed shear velocity (m s-1) frames on the cells (nf or 1, ny, nx;
-        (nf or 1, 1, nface) on a mesh); params = ``vertical.column_params`` (its first entry,
-        the K_z mode, picks the compiled option). None: depth-averaged.
+    column : in three dimensions (sigma, w_s, depth, u*, params, levels, w heights, w,
+        K_z heights, K_z): each particle's height above the bed as a fraction of the depth
+        (updated in place) and settling velocity (m s-1, > 0 down); the depth (m) and bed shear
+        velocity (m s-1) frames on the cells (nf or 1, ny, nx; (nf or 1, 1, nface) on a mesh);
+        params = ``vertical.column_params`` (its first entry, the K_z mode, picks the compiled
+        option); the layer centres of U and V (fractions of the depth, ascending; one entry:
+        U and V are depth means, else they are layered frames (nf nl or nl, ny, nx), layer k
+        of frame f at f nl + k); the heights and layered frames of the upward velocity w
+        (m s-1; no heights: none) and of K_z (m2 s-1; mode 3) on the cells. None:
+        depth-averaged.
 
     Particles are independent, so any split over threads gives the same numbers bitwise. One block
     runs on the calling thread (waking the others would cost more than the work).
@@ -1050,9 +1238,11 @@ def advance(
     vertical_mode = 0
     if column is None:
         flat = np.zeros((1, 1, 1))
-        column = (np.zeros(1), np.zeros(1), flat, flat, np.zeros(4))
+        none = np.zeros(0)
+        column = (np.zeros(1), np.zeros(1), flat, flat, np.zeros(4), np.zeros(1))
+        column = (*column, none, flat, none, flat)
     else:
-        vertical_mode = int(column[4][0])
+        vertical_mode = int(column[4][0]) + (4 if column[6].shape[0] > 0 else 0)
     move = compiled_mover(
         int(opts[0]),
         int(opts[1]),

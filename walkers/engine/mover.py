@@ -10,14 +10,14 @@ from __future__ import annotations
 
 from collections import OrderedDict
 from dataclasses import dataclass, replace
-from typing import Literal
+from typing import Any, Literal
 
 import numpy as np
 
 from walkers.engine import kernels, twin, vertical
 from walkers.engine.state import ParticleState
 from walkers.errors import InputError
-from walkers.fields.base import FlowField, FlowWindow, centre_to_edges
+from walkers.fields.base import FlowField, FlowWindow, WindowColumn, centre_to_edges
 from walkers.fields.geo import metres_per_degree
 from walkers.scenario.config import Transport
 
@@ -298,7 +298,8 @@ class KernelInputs:
     edges_mode: np.ndarray
     decay_rate: float
     topology: tuple | None = None  # on a mesh: face_nodes, neighbours, edge_open (and faces)
-    #: in three dimensions (depth, u*, params): see ``kernels.advance`` and ``with_column``
+    #: in three dimensions (depth, u*, params, layer centres, w heights, w, K_z heights, K_z):
+    #: see ``kernels.advance`` and ``with_column``
     column: tuple | None = None
 
 
@@ -422,18 +423,38 @@ def with_column(
     kz: float = 0.0,
     deposition_velocity: float = 0.0,
     dt: float | None = None,
+    *,
+    layers: WindowColumn | None = None,
+    critical_shear_stress: float = 0.0,
+    erosion_rate: float = 0.0,
+    water_density: float = 1025.0,
 ) -> KernelInputs:
     """The kernel inputs of a window with the vertical step (``walkers.engine.vertical``).
 
     depth : water depth frames on the cells (nf or 1, ny, nx), m; ustar : bed shear velocity
     (m s-1), a number or frames of the depth's shape; mode : ``vertical.KZ_CONSTANT`` (K_z = kz,
-    m2 s-1) or ``vertical.KZ_PARABOLIC``; deposition_velocity : w_d (m s-1), 0 a reflecting bed;
-    dt : the run's step (s), checked against the number of vertical substeps Visser's criterion
-    asks (``vertical.check_substeps``) when given.
+    m2 s-1), ``vertical.KZ_PARABOLIC`` or ``vertical.KZ_FILE`` (the K_z of ``layers``);
+    deposition_velocity : w_d (m s-1), 0 a reflecting bed; dt : the run's step (s), checked
+    against the number of vertical substeps Visser's criterion asks
+    (``vertical.check_substeps``) when given.
+    layers : the window's vertical structure (``FlowWindow.column``): u and v in layers are
+    sampled at each particle's height, w is added to the vertical step where given;
+    critical_shear_stress τ_c (Pa; 0: particles on the bed stay there), erosion_rate M_e (s-1)
+    and water_density ρ (kg m-3): the return of particles on the bed to the water
+    (``vertical.resuspension_chance``).
     """
-    if mode not in (vertical.KZ_CONSTANT, vertical.KZ_PARABOLIC):
-        raise InputError(f"vertical diffusivity mode {mode!r}: give 1 (constant) or 2 (parabolic)")
-    for name, value in (("vertical diffusivity", kz), ("deposition velocity", deposition_velocity)):
+    if mode not in (vertical.KZ_CONSTANT, vertical.KZ_PARABOLIC, vertical.KZ_FILE):
+        raise InputError(
+            f"vertical diffusivity mode {mode!r}: give 1 (constant), 2 (parabolic) or 3 (from "
+            "the flow file)"
+        )
+    for name, value in (
+        ("vertical diffusivity", kz),
+        ("deposition velocity", deposition_velocity),
+        ("critical shear stress", critical_shear_stress),
+        ("erosion rate", erosion_rate),
+        ("water density", water_density),
+    ):
         if not (np.isfinite(value) and value >= 0.0):
             raise InputError(f"{name} = {value!r}: must be a number >= 0 (SI units)")
     h = np.ascontiguousarray(depth, dtype=np.float64)
@@ -443,10 +464,82 @@ def with_column(
     shape = np.broadcast_shapes(h.shape, u.shape)
     h = np.ascontiguousarray(np.broadcast_to(h, shape))
     u = np.ascontiguousarray(np.broadcast_to(u, shape))
-    params = vertical.column_params(mode, kz, deposition_velocity)
+    params = vertical.column_params(
+        mode, kz, deposition_velocity, critical_shear_stress, erosion_rate, water_density
+    )
+    none, flat = np.zeros(0), np.zeros((1, 1, 1))
+    levels, wlev, w, klev, kzf = np.zeros(1), none, flat, none, flat
+    flow = inputs.flow
+    if layers is not None:
+        if layers.levels.size > 1:
+            levels = np.ascontiguousarray(layers.levels, dtype=np.float64)
+            flow = (*flow[:2], layers.u, *flow[3:5], layers.v, flow[6])
+        if layers.w_levels.size:
+            wlev, w = layers.w_levels, layers.w
+        if layers.kz_levels.size:
+            klev, kzf = layers.kz_levels, layers.kz
+    if mode == vertical.KZ_FILE and not klev.size:
+        raise InputError(
+            "vertical diffusivity from the flow file: the file has no vertical diffusivity "
+            "(CF standard name ocean_vertical_tracer_diffusivity or ocean_vertical_diffusivity); "
+            "add it, or choose a parabolic or constant K_z"
+        )
     if dt is not None:
-        vertical.check_substeps(dt, h, u, params)
-    return replace(inputs, column=(h, u, params))
+        vertical.check_substeps(dt, h, u, params, klev, kzf)
+    arrays = tuple(np.ascontiguousarray(a, dtype=np.float64) for a in (levels, wlev, w, klev, kzf))
+    return replace(inputs, flow=flow, column=(h, u, params, *arrays))
+
+
+#: The K_z modes of the vertical settings' ``diffusivity`` (``Vertical``, walkers.scenario.config).
+KZ_MODES = {
+    "constant": vertical.KZ_CONSTANT,
+    "parabolic": vertical.KZ_PARABOLIC,
+    "file": vertical.KZ_FILE,
+}
+
+
+def column_inputs(
+    inputs: KernelInputs,
+    flow: FlowField,
+    window: FlowWindow,
+    settings: Any,
+    ustar: np.ndarray | float,
+    dt: float,
+) -> KernelInputs:
+    """The kernel inputs of a window in three dimensions: the call a run makes per window.
+
+    settings : the scenario's vertical settings (``diffusivity`` "constant", "parabolic" or
+    "file", ``coefficient`` K_z (m2 s-1), ``deposition_velocity`` (m s-1),
+    ``critical_shear_stress`` (Pa; None: no resuspension), ``erosion_rate`` (s-1),
+    ``water_density`` (kg m-3)); ustar : u* frames on the cells (m s-1); dt : the step (s).
+    The window's layered velocities, w and K_z (``window.column``, kept when the flow was
+    opened with ``column=True``) are used where the flow has them.
+    """
+    mode = KZ_MODES.get(settings.diffusivity)
+    if mode is None:
+        raise InputError(
+            f"vertical.diffusivity = {settings.diffusivity!r}: give one of {', '.join(KZ_MODES)}"
+        )
+    if mode == vertical.KZ_FILE and window.column is None:
+        raise InputError(
+            f'vertical.diffusivity = "file": the flow {flow.source} has no layers, so no '
+            "vertical diffusivity profile; give a layered flow file with K_z, or choose a "
+            "parabolic or constant K_z"
+        )
+    tau_c = settings.critical_shear_stress
+    return with_column(
+        inputs,
+        window.depth,
+        ustar,
+        mode,
+        float(settings.coefficient or 0.0),
+        float(settings.deposition_velocity or 0.0),
+        dt=dt,
+        layers=window.column,
+        critical_shear_stress=0.0 if tau_c is None else float(tau_c),
+        erosion_rate=float(settings.erosion_rate or 0.0),
+        water_density=float(getattr(settings, "water_density", 1025.0)),
+    )
 
 
 def advect_points(

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from walkers.engine import meshwalk_twin, vertical_twin
+from walkers.engine import column_twin, meshwalk_twin
 from walkers.engine.kernels import (
     COMP_BRIDGE_X,
     COMP_BRIDGE_Y,
@@ -17,15 +17,11 @@ from walkers.engine.kernels import (
     COMPONENTS,
     DECAYED_FRACTION,
     DEG,
-    MAX_SUBSTEPS,
     STATUS_DECAYED,
     STATUS_EXITED,
     STATUS_HELD_DRY,
-    STATUS_ON_BED,
     STATUS_WAITING,
     STATUS_WATER,
-    VERTICAL_COMPONENTS,
-    VERTICAL_SALT,
     WGS84_A,
     WGS84_E2,
     ZIG_F,
@@ -188,23 +184,23 @@ def _metres_to_grid(geographic, y):
     return 1.0 / (n_rad * np.cos(y * DEG) * DEG), 1.0 / (m_rad * DEG)
 
 
-def _velocity(flow, times, t, x, y):
+def _velocity(flow, times, t, x, y, lay=(1, None, None)):
     ux, uy, U, vx, vy, V, inv = flow
     it, wt = _time_weight(times, t)
     return (
-        _sample(U, ux, uy, inv[0], inv[1], it, wt, x, y),
-        _sample(V, vx, vy, inv[2], inv[3], it, wt, x, y),
+        column_twin.sample_layered(U, lay, ux, uy, inv[0], inv[1], it, wt, x, y),
+        column_twin.sample_layered(V, lay, vx, vy, inv[2], inv[3], it, wt, x, y),
     )
 
 
-def _advect(flow, times, scheme, geographic, x, y, t, h):
-    u1, v1 = _velocity(flow, times, t, x, y)
+def _advect(flow, times, scheme, geographic, x, y, t, h, lay=(1, None, None)):
+    u1, v1 = _velocity(flow, times, t, x, y, lay)
     sx, sy = _metres_to_grid(geographic, y)
     if scheme == 0:
         return u1 * h * sx, v1 * h * sy
-    u2, v2 = _velocity(flow, times, t + 0.5 * h, x + 0.5 * h * u1 * sx, y + 0.5 * h * v1 * sy)
-    u3, v3 = _velocity(flow, times, t + 0.5 * h, x + 0.5 * h * u2 * sx, y + 0.5 * h * v2 * sy)
-    u4, v4 = _velocity(flow, times, t + h, x + h * u3 * sx, y + h * v3 * sy)
+    u2, v2 = _velocity(flow, times, t + 0.5 * h, x + 0.5 * h * u1 * sx, y + 0.5 * h * v1 * sy, lay)
+    u3, v3 = _velocity(flow, times, t + 0.5 * h, x + 0.5 * h * u2 * sx, y + 0.5 * h * v2 * sy, lay)
+    u4, v4 = _velocity(flow, times, t + h, x + h * u3 * sx, y + h * v3 * sy, lay)
     return (
         h * sx * (u1 + 2.0 * u2 + 2.0 * u3 + u4) / 6.0,
         h * sy * (v1 + 2.0 * v2 + 2.0 * v3 + v4) / 6.0,
@@ -382,9 +378,22 @@ def advance(
     for s in range(nsteps):
         t = t0 + s * dt
         t_end = t + dt
+        back = np.zeros(0, np.int64)
+        if column is not None:
+
+            def cells_of(p):
+                if mesh:
+                    return faces_all[p], np.zeros(p.size, np.int64)
+                return _cell(xe, x[p]), _cell(ye, y[p])
+
+            back = column_twin.resuspend(
+                column, status, streams_all, step0 + s, times, t, t_end, cells_of
+            )
         new = (status == STATUS_WAITING) & (trel < t_end)
         status[new] = STATUS_WATER
         act = np.flatnonzero((status == STATUS_WATER) | (status == STATUS_HELD_DRY))
+        if back.size:
+            act = act[~np.isin(act, back)]
         if act.size == 0:
             continue
         tstart = np.where(new[act], np.maximum(t, trel[act]), t)
@@ -422,7 +431,10 @@ def advance(
                 flow, mesh_t, neighbours, mesh == 1, times, scheme, px, py, tstart, h, face
             )
         else:
-            ax_, ay_ = _advect(flow, times, scheme, geographic, px, py, tstart, h)
+            lay = (1, None, None)
+            if column is not None and column[5].shape[0] > 1:
+                lay = (column[5].shape[0], *column_twin.layer_weight(column[5], column[0][act]))
+            ax_, ay_ = _advect(flow, times, scheme, geographic, px, py, tstart, h, lay)
         if kconst[0] >= 0.0:
             k1 = np.full(act.size, kconst[0])
             k2 = np.full(act.size, kconst[1])
@@ -443,7 +455,7 @@ def advance(
             nym = root * (l21 * z1 + l22 * z2)
             kxx, kyy = k1, k2
         elif aligned:
-            u, v = (u_start, v_start) if mesh else _velocity(flow, times, tstart, px, py)
+            u, v = (u_start, v_start) if mesh else _velocity(flow, times, tstart, px, py, lay)
             speed = np.sqrt(u * u + v * v)
             moving_flow = speed > 0.0
             safe = np.where(moving_flow, speed, 1.0)
@@ -541,7 +553,7 @@ def advance(
                 cells_at = (face[stay], np.zeros(int(stay.sum()), np.int64))
             else:
                 cells_at = (pi[stay], pj[stay])
-            _column(
+            column_twin.column_walk(
                 column,
                 act[stay],
                 streams[stay],
@@ -554,35 +566,3 @@ def advance(
             )
     if mesh:
         hint[:] = faces_all
-
-
-def _column_hashes(vstreams, step, comp):
-    counter = np.uint64(step) * np.uint64(VERTICAL_COMPONENTS) + np.uint64(comp)
-    return mix64(vstreams + np.full_like(vstreams, counter) * _GOLDEN)
-
-
-def _column(column, act, streams, step, it, wt, h, cells_at, status):
-    """Twin of the kernel's ``column_walk`` for the particles ``act`` still in the water after
-    the horizontal step, in the cells ``cells_at`` (i, j) where their steps began."""
-    sigma, settling, depth, ustar, params = column
-    i, j = cells_at
-    vstreams = mix64(streams ^ VERTICAL_SALT)
-    hw = vertical_twin.cell_frame_values(depth, it, wt, j, i)
-    us = vertical_twin.cell_frame_values(ustar, it, wt, j, i)
-    longest = vertical_twin.column_longest(hw, us, params)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        n = np.where(longest < h, np.minimum(np.ceil(h / longest), MAX_SUBSTEPS), 1).astype(int)
-    sub = h / n
-    sg = sigma[act]
-    ws = settling[act]
-    down = np.zeros(act.size, bool)
-    for k in range(int(n.max()) if n.size else 0):
-        on = np.flatnonzero((k < n) & ~down)
-        r = normals(_column_hashes(vstreams[on], step, 2 * k))
-        new, chance = vertical_twin.column_steps(sg[on], hw[on], us[on], ws[on], params, sub[on], r)
-        sg[on] = new
-        u = _open_unit(_column_hashes(vstreams[on], step, 2 * k + 1))
-        down[on] = (chance > 0.0) & (u < chance)
-    sg[down] = 0.0
-    sigma[act] = sg
-    status[act[down]] = STATUS_ON_BED

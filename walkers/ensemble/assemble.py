@@ -68,7 +68,7 @@ def _assemble(red: _OrderedReducer, prepared: _Prepared, thr: tuple[float, ...])
     }
     vertical = prepared.transport.vertical
     if vertical is not None:
-        attrs["vertical"] = describe_vertical(vertical)
+        attrs["vertical"] = describe_vertical(vertical, prepared.flow)
         attrs["release_behaviour"] = describe_releases(sc.releases)
     return xr.Dataset(data, coords=coords, attrs=attrs)
 

@@ -69,6 +69,65 @@ class GriddedVariable:
 
 
 @dataclass
+class WindowColumn:
+    """The vertical structure of a window of frames, for the three-dimensional step.
+
+    Heights are fractions of the local water depth above the bed (0 bed, 1 surface), ascending;
+    the levels of a variable are flattened into the frame axis: frame f, level k at f nl + k
+    (nl levels; a steady variable has nl frames).
+
+    levels, u, v : centres of the velocity layers (nl,), and u, v (m s-1) there on the axes of
+        the flow's ``u`` and ``v``.
+    w_levels, w : heights (nw,; empty when the file has no vertical velocity) and the upward
+        velocity w (m s-1) on the cells.
+    kz_levels, kz : heights (nk,; empty when the file has no vertical diffusivity) and K_z
+        (m2 s-1) on the cells.
+    """
+
+    levels: np.ndarray
+    u: np.ndarray
+    v: np.ndarray
+    w_levels: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    w: np.ndarray = field(default_factory=lambda: np.zeros((1, 1, 1)))
+    kz_levels: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    kz: np.ndarray = field(default_factory=lambda: np.zeros((1, 1, 1)))
+
+
+@dataclass
+class ColumnFields:
+    """What a layered flow file holds of the vertical, kept for three-dimensional runs.
+
+    Each variable's ``data`` is (nt, levels, ny, nx) (lazy, sliced along time like
+    :class:`GriddedVariable`); levels are fractions of the depth above the bed, ascending.
+    ``w`` and ``kz`` are None when the file has none. ``describe`` is one line for
+    ``walkers inspect``.
+    """
+
+    levels: np.ndarray
+    u: GriddedVariable
+    v: GriddedVariable
+    w_levels: np.ndarray | None = None
+    w: GriddedVariable | None = None
+    kz_levels: np.ndarray | None = None
+    kz: GriddedVariable | None = None
+    describe: str = ""
+
+    def window(self, i0: int, i1: int) -> WindowColumn:
+        """Frames i0..i1 with the levels flattened into the frame axis."""
+
+        def flat(var: GriddedVariable) -> np.ndarray:
+            a = var.frames(i0, i1)
+            return np.ascontiguousarray(a.reshape(-1, *a.shape[2:]))
+
+        out = WindowColumn(self.levels, flat(self.u), flat(self.v))
+        if self.w is not None and self.w_levels is not None:
+            out.w_levels, out.w = self.w_levels, flat(self.w)
+        if self.kz is not None and self.kz_levels is not None:
+            out.kz_levels, out.kz = self.kz_levels, flat(self.kz)
+        return out
+
+
+@dataclass
 class FlowWindow:
     """Frames ``i0..i1`` of a flow field as in-memory arrays, ready for the engine."""
 
@@ -77,6 +136,7 @@ class FlowWindow:
     v: np.ndarray  # (nf or 1, nyv, nxv) m s-1
     depth: np.ndarray  # (nf or 1, ny, nx) m (2-D) or m2 (1-D)
     wet: np.ndarray  # (nf or 1, ny, nx) uint8, 1 where water
+    column: WindowColumn | None = None  # layered velocities, w and K_z (3-D runs)
 
 
 @dataclass
@@ -100,6 +160,8 @@ class FlowField:
     attrs: dict[str, Any] = field(default_factory=dict)
     #: the grid kind (:mod:`walkers.fields.grids`); None is the rectilinear grid of x and y
     grid: Any = None
+    #: the vertical structure kept for three-dimensional runs (None: depth-averaged only)
+    column: ColumnFields | None = None
 
     def kind(self) -> Any:
         """The grid kind: how the engine's coordinates (``x``, ``y``) lie in the world."""
@@ -165,6 +227,7 @@ class FlowField:
             v=self.v.frames(i0, i1),
             depth=self.depth.frames(i0, i1),
             wet=np.ascontiguousarray(self.wet.frames(i0, i1) > 0.5, dtype=np.uint8),
+            column=None if self.column is None else self.column.window(i0, i1),
         )
 
 

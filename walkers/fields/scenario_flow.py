@@ -90,8 +90,13 @@ def check_points_in_water(
             )
 
 
-def build_flow(spec: FlowSpec) -> FlowField:
-    """Open the flow files, or lay the analytic flow on its grid (time 0 = run start)."""
+def build_flow(spec: FlowSpec, column: bool = False) -> FlowField:
+    """Open the flow files, or lay the analytic flow on its grid (time 0 = run start).
+
+    column : a three-dimensional run (also when ``spec.column``, set by a [vertical] section):
+    keep a layered file's vertical structure (``open_flow(..., column=True)``; grids only, a mesh
+    keeps its depth mean)."""
+    column = column or spec.column
     if spec.kind == "files":
         from walkers.fields.netcdf.open import open_flow
         from walkers.fields.netcdf.ugrid import is_ugrid
@@ -114,6 +119,7 @@ def build_flow(spec: FlowSpec) -> FlowField:
             time_range=spec.time_range,
             layers=spec.layers,
             velocity_axes=spec.velocity_axes,
+            column=column,
         )
     from walkers.fields.analytic import analytic_flow
 

@@ -53,16 +53,6 @@ def check_column_flow(flow: FlowField, vertical: Vertical) -> None:
             "one in); a three-dimensional run needs the depth of every column from the file: "
             "add a depth or water level to it, or remove [vertical]"
         )
-    if vertical.diffusivity == "file":
-        raise InputError(
-            "vertical.diffusivity = 'file': K_z from the flow file is not in this build's "
-            "vertical step yet; give 'parabolic' or 'constant'"
-        )
-    if vertical.critical_shear_stress is not None:
-        raise InputError(
-            "vertical.critical_shear_stress: resuspension is not in this build's vertical step "
-            "yet; remove critical_shear_stress and erosion_rate (the bed keeps what it gets)"
-        )
 
 
 def place_in_columns(
@@ -160,14 +150,8 @@ def column_inputs(
     """The kernel inputs of a window with the vertical step: depth and u* frames on the cells,
     K_z mode and value, the bed's deposition velocity; the step dt (s) checked against Visser's
     criterion (``mover.with_column``)."""
-    return mover.with_column(
-        inputs,
-        window.depth,
-        cell_shear_velocity(flow, window, vertical),
-        vertical.kz_mode,
-        vertical.coefficient,
-        vertical.deposition_velocity,
-        dt=dt,
+    return mover.column_inputs(
+        inputs, flow, window, vertical, cell_shear_velocity(flow, window, vertical), dt
     )
 
 
@@ -197,7 +181,7 @@ def describe_scenario_column(scenario: Scenario, flow: FlowField) -> list[str]:
         params,
     )
     return [
-        f"Run: three-dimensional: {describe_vertical(v)}",
+        f"Run: three-dimensional: {describe_vertical(v, flow)}",
         f"  releases in the water column: {describe_releases(scenario.releases)}",
         f"  vertical substeps per time step of {scenario.dt:g} s: up to {substeps} (Visser 1997: "
         f"each at most {column_step.VISSER_FRACTION:g} / max|d2K_z/dz2| in columns deeper than "
@@ -205,12 +189,14 @@ def describe_scenario_column(scenario: Scenario, flow: FlowField) -> list[str]:
     ]
 
 
-def describe_vertical(vertical: Vertical) -> str:
-    """The run's vertical step in words: K_z, the bed, and the vertical velocity used."""
-    return (
-        f"{vertical.describe()}; no vertical velocity in the flow file: none used (the "
-        "horizontal velocity is the depth mean at every height)"
+def describe_vertical(vertical: Vertical, flow: FlowField) -> str:
+    """The run's vertical step in words: K_z, the bed, and what the flow file gives of the
+    water column (layered velocities, a vertical velocity, K_z; ``flow.attrs["column"]``, set by
+    the reader of a three-dimensional run)."""
+    column = flow.attrs.get("column") or (
+        "velocity: the depth mean at every height; vertical velocity: none (no vertical advection)"
     )
+    return f"{vertical.describe()}; from the flow file: {column}"
 
 
 def describe_releases(releases: Sequence[Release]) -> str:

@@ -329,6 +329,6 @@ def simulate_scenario(
     if transport.vertical is not None:
         from walkers.run.column import describe_releases, describe_vertical
 
-        ds.attrs["vertical"] = describe_vertical(transport.vertical)
+        ds.attrs["vertical"] = describe_vertical(transport.vertical, flow)
         ds.attrs["release_behaviour"] = describe_releases(scenario.releases)
     return ds

@@ -207,6 +207,9 @@ class _FileSchema:
         self.time_dim = self._time_dim(u_var)
         self.vertical = find_vertical(ds, path, u_var, self.time_dim)
         self.bed_from_formula = False
+        #: the vertical velocity and diffusivity kept for 3-D runs (``.column``), role ->
+        #: (layout, vertical coordinate); filled by ``open_flow`` when asked
+        self.column_variables: dict[str, Any] = {}
         skip = {self.time_dim, None if self.vertical is None else self.vertical.dim}
         spatial = [d for d in u_var.dimensions if d not in skip and ds.dimensions[d].size > 1]
         self.ndim = 1 if len(spatial) == 1 else 2

@@ -10,10 +10,12 @@ import netCDF4
 import numpy as np
 
 from walkers.errors import InputError, RunFailure
+from walkers.fields.netcdf.column import common_levels, on_levels
 from walkers.fields.netcdf.discovery import _Layout
 from walkers.fields.netcdf.layers import (
     VerticalCoordinate,
     layer_faces,
+    layer_points,
     layer_weights,
     thickness_mean,
 )
@@ -132,9 +134,18 @@ class _FlowSource:
         constant_depth: float | None,
         vertical: VerticalCoordinate | None = None,
         selection: LayerSelection | None = None,
+        column: dict[str, tuple[_Layout, VerticalCoordinate]] | None = None,
     ) -> None:
         self.paths = paths
         self.vertical = vertical
+        #: three-dimensional runs: the layered velocities are kept (with w and K_z, roles "w"
+        #: and "kz", and their vertical coordinates) besides their depth mean
+        self.keep_column = column is not None and vertical is not None
+        self.column_vertical = {r: vc for r, (_, vc) in (column or {}).items()}
+        if self.keep_column:
+            layouts = {**layouts, **{r: lay for r, (lay, _) in (column or {}).items()}}
+        #: per role, the common levels of its points (None: equal layers), fixed on first read
+        self.column_levels: dict[str, Any] = {}
         self.selection = selection or LayerSelection()
         self.layouts = layouts
         self.frame_file = frame_file
@@ -258,6 +269,7 @@ class _FlowSource:
             depth = self._depth_from_levels(raw)
         else:
             depth = np.full(shape, float(self.constant_depth or 0.0))
+        column = self._column(raw, u, v, depth) if self.keep_column else {}
         if self.vertical is not None:
             u, v = self._reduce_layers(raw, u, v, depth)
         if self.wet_from_file:
@@ -272,14 +284,67 @@ class _FlowSource:
         u, v = np.nan_to_num(u, nan=0.0), np.nan_to_num(v, nan=0.0)
         if self.index_velocity is not None:
             u, v = self.index_velocity(u, v)
+        if self.index_velocity is not None and column:
+            column["column_u"], column["column_v"] = self.index_velocity(
+                column["column_u"], column["column_v"]
+            )
         result = {
             "u": u,
             "v": v,
             "depth": np.where(np.isfinite(depth), depth, 0.0),
             "wet": wet.astype(np.float64),
+            **column,
         }
         self._cache = ((i0, i1), result)
         return result
+
+    def _surface_and_bed(
+        self, raw: dict[str, np.ndarray], depth: np.ndarray, vc: VerticalCoordinate
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """Surface height above and bed depth below the datum (m) on the cells, as the vertical
+        coordinate vc needs them."""
+        if "water_level" in self.layouts:
+            eta = self._get(raw, "water_level")
+        else:
+            eta = np.zeros_like(depth)  # the datum closes the top layer
+        if vc.parametric:
+            bed = self._get(raw, "bed_level")  # depth below the datum (CF-1.8 Appendix D)
+        else:
+            bed = np.where(depth > 0.0, depth - eta, np.nan)
+        return eta, bed
+
+    def _column(
+        self, raw: dict[str, np.ndarray], u: np.ndarray, v: np.ndarray, depth: np.ndarray
+    ) -> dict[str, np.ndarray]:
+        """The layered u, v (at their points, the surface and bed of the cells around them as in
+        :meth:`_reduce_layers`), w and K_z (on the cells) as profiles on fractions of the depth
+        (:func:`.column.on_levels`): ``column_<role>`` (frames, levels, y, x) and
+        ``column_<role>_levels``."""
+        out: dict[str, np.ndarray] = {}
+        fracs: dict[str, np.ndarray] = {}
+        found: dict[str, np.ndarray] = {}
+        for role, values in (("u", u), ("v", v), ("w", None), ("kz", None)):
+            vc = self.vertical if role in ("u", "v") else self.column_vertical.get(role)
+            if vc is None or role not in self.layouts:
+                continue
+            eta, bed = self._surface_and_bed(raw, depth, vc)
+            if values is None:
+                values = self._get(raw, role)
+            else:
+                eta, bed = _wet_mean(eta, bed, self._velocity_brackets(role))
+            with np.errstate(invalid="ignore"):
+                fracs[role] = layer_points(vc, eta, bed)
+            found[role] = values
+        if not self.column_levels:
+            self.column_levels = {r: common_levels(f) for r, f in fracs.items()}
+            cu, cv = self.column_levels.get("u"), self.column_levels.get("v", None)
+            if "v" in fracs and (cu is None or cv is None or not np.array_equal(cu[0], cv[0])):
+                # u and v share one set of levels in the step
+                self.column_levels["u"] = self.column_levels["v"] = None
+        for role, values in found.items():
+            levels, out[f"column_{role}"] = on_levels(fracs[role], values, self.column_levels[role])
+            out[f"column_{role}_levels"] = levels
+        return out
 
     def _reduce_layers(
         self, raw: dict[str, np.ndarray], u: np.ndarray, v: np.ndarray, depth: np.ndarray
@@ -291,14 +356,7 @@ class _FlowSource:
         """
         vc = self.vertical
         assert vc is not None
-        if "water_level" in self.layouts:
-            eta = self._get(raw, "water_level")
-        else:
-            eta = np.zeros_like(depth)  # the datum closes the top layer
-        if vc.parametric:
-            bed = self._get(raw, "bed_level")  # depth below the datum (CF-1.8 Appendix D)
-        else:
-            bed = np.where(depth > 0.0, depth - eta, np.nan)
+        eta, bed = self._surface_and_bed(raw, depth, vc)
         out = []
         for role, vel in (("u", u), ("v", v)):
             if role not in self.layouts:
@@ -401,7 +459,7 @@ class _FlowSource:
 class _LazyFrames:
     """One derived variable of a :class:`_FlowSource`, sliced along time like an array."""
 
-    def __init__(self, source: _FlowSource, key: str, shape: tuple[int, int, int]) -> None:
+    def __init__(self, source: _FlowSource, key: str, shape: tuple[int, ...]) -> None:
         self.source = source
         self.key = key
         self.shape = shape

@@ -82,6 +82,8 @@ class VerticalCoordinate:
     thickness_from: str
     terms: dict[str, str] = field(default_factory=dict)
     depth_c: float = 0.0
+    #: per 1-D term, its value at each layer's own point (the coordinate's values), file order
+    points: dict[str, np.ndarray] = field(default_factory=dict)
 
     @property
     def size(self) -> int:
@@ -243,7 +245,7 @@ def _z_levels(ds: netCDF4.Dataset, path: str, coord: Any) -> VerticalCoordinate:
         lower, upper = _faces_from_midpoints(mid, -np.inf, np.inf)
         source = "midpoints (the surface and the bed close the top and bottom layers)"
     return VerticalCoordinate(
-        "z", coord.dimensions[0], coord.name, {"z": lower}, {"z": upper}, source
+        "z", coord.dimensions[0], coord.name, {"z": lower}, {"z": upper}, source, points={"z": mid}
     )
 
 
@@ -305,7 +307,7 @@ def _parametric(ds: netCDF4.Dataset, path: str, coord: Any, kind: str) -> Vertic
             lower[t], upper[t] = _faces_from_midpoints(values, -1.0, 0.0)
         source = "midpoints (the surface and the bed close the top and bottom layers)"
     return VerticalCoordinate(
-        kind, coord.dimensions[0], coord.name, lower, upper, source, terms, depth_c
+        kind, coord.dimensions[0], coord.name, lower, upper, source, terms, depth_c, mids
     )
 
 
@@ -352,6 +354,16 @@ def _height(vc: VerticalCoordinate, face: dict[str, np.ndarray], eta, depth) -> 
     with np.errstate(divide="ignore", invalid="ignore"):
         stretched = (dc * s + h * c) / (dc + h)  # CF-1.8 Appendix D, ocean_s_coordinate_g2
     return e + (e + h) * stretched
+
+
+def layer_points(vc: VerticalCoordinate, eta: np.ndarray, depth: np.ndarray) -> np.ndarray:
+    """Heights above the bed as fractions of the water depth (0 bed, 1 surface) of each layer's
+    own point (its coordinate value), (frames, layers, y, x), from ``eta`` and ``depth`` as in
+    :func:`layer_faces`; NaN where the column has no water."""
+    z = _height(vc, vc.points, eta, depth)
+    total = (eta + depth)[:, None]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(total > 0.0, (z + depth[:, None]) / total, np.nan)
 
 
 def layer_faces(vc: VerticalCoordinate, eta: np.ndarray, depth: np.ndarray):

@@ -41,7 +41,8 @@ import netCDF4
 import numpy as np
 
 from walkers.errors import InputError
-from walkers.fields.base import FlowField, GriddedVariable, centre_to_edges
+from walkers.fields.base import ColumnFields, FlowField, GriddedVariable, centre_to_edges
+from walkers.fields.netcdf.column import find_column_variables
 from walkers.fields.netcdf.discovery import _FileSchema
 from walkers.fields.netcdf.frames import _FlowSource, _LazyFrames
 from walkers.fields.netcdf.roles import _ROLE_WORDS, STANDARD_NAMES
@@ -159,6 +160,7 @@ def open_flow(
     constant_depth: float | None = None,
     layers: LayerSelection | None = None,
     velocity_axes: str = "auto",
+    column: bool = False,
 ) -> FlowField:
     """Open a hydrodynamic-model flow field from one NetCDF file or several along time.
 
@@ -179,6 +181,9 @@ def open_flow(
     velocity_axes : on a curvilinear grid, how the velocity components are oriented: "auto"
         (from standard names and a grid-angle variable), "east_north" or "grid" (along the grid
         axes); see :mod:`walkers.fields.netcdf.curvilinear`.
+    column : for three-dimensional runs: keep layered velocities, and the vertical velocity and
+        diffusivity where the file has them, in ``flow.column`` (:mod:`.column`); u and v stay
+        the depth mean.
 
     Returns
     -------
@@ -191,7 +196,7 @@ def open_flow(
     file_list = _expand_paths(paths)
     try:
         first, dates, calendar, cell, wkt = _read_schemas(
-            file_list, variables, units, constant_depth is not None, crs, velocity_axes
+            file_list, variables, units, constant_depth is not None, crs, velocity_axes, column
         )
     except RuntimeError as exc:  # netCDF's error for data it cannot read
         raise InputError(
@@ -222,6 +227,7 @@ def open_flow(
         constant_depth,
         first.vertical,
         layers,
+        first.column_variables if column else None,
     )
     source.index_velocity = first.index_velocity
     flow = _build_flow(source, first, seconds, time_units, calendar, wkt, file_list)
@@ -243,6 +249,10 @@ def open_flow(
         ),
     )
     first_block = source.block(0, 0)
+    if source.keep_column:
+        flow.column = _column_fields(source, first, first_block, seconds.size)
+    if column:
+        flow.attrs["column"] = _describe_column(flow.column, first)
     if not np.any(first_block["wet"] > 0.5):
         raise InputError(
             f"flow {flow.source}: every cell is land or dry in the first frame "
@@ -291,6 +301,7 @@ def _read_schemas(
     has_constant_depth: bool,
     crs: str | None,
     velocity_axes: str = "auto",
+    column: bool = False,
 ) -> tuple[_FileSchema, list[list[Any]], str, tuple[np.ndarray, np.ndarray], str | None]:
     """Discover the layout of every file and check they agree: the first file's schema, each
     file's frame dates, the calendar, the cell grid and the CRS (WKT)."""
@@ -308,6 +319,7 @@ def _read_schemas(
             dates.append(d)
             calendars.add(cal)
         first = schemas[0]
+        first.column_variables = find_column_variables(first) if column else {}
         cell = _cell_grid(first)
         _check_shapes(first, cell)
         for schema in schemas[1:]:
@@ -431,6 +443,62 @@ def _check_times(
             f"{_seconds_iso(seconds[k + 1], units, calendar)}; frames must be strictly increasing "
             "in time with no duplicates (remove the overlap)"
         )
+
+
+def _column_fields(
+    source: _FlowSource, schema: _FileSchema, block: dict[str, np.ndarray], nt: int
+) -> ColumnFields:
+    """The layered fields a three-dimensional run uses, lazy like the flow's (their levels from
+    the first frame's block)."""
+    cx, cy = source.cell_x, source.cell_y
+
+    def var(role: str, x, y, steady: bool, unit: str) -> GriddedVariable:
+        nl = block[f"column_{role}_levels"].size
+        shape = (1 if steady else nt, nl, y.size, x.size)
+        name = source.layouts[role].name
+        return GriddedVariable(x, y, _LazyFrames(source, f"column_{role}", shape), name, unit)
+
+    lu, lv = schema.layouts["u"], schema.layouts["v"]
+    assert lu.y is not None and lv.y is not None
+    unit = "m s-1" if schema.curvilinear is None else "s-1 (grid index units)"
+    out = ColumnFields(
+        block["column_u_levels"],
+        var("u", lu.x.values, lu.y.values, source.velocity_steady, unit),
+        var("v", lv.x.values, lv.y.values, source.velocity_steady, unit),
+    )
+    for role, unit in (("w", "m s-1"), ("kz", "m2 s-1")):
+        if f"column_{role}" not in block:
+            continue
+        steady = source.depth_steady and role not in source.varying
+        levels = block[f"column_{role}_levels"]
+        setattr(out, f"{role}_levels", levels)
+        setattr(out, role, var(role, cx, cy, steady, unit))
+    out.describe = _describe_column(out, schema)
+    return out
+
+
+def _describe_column(column: ColumnFields | None, schema: _FileSchema) -> str:
+    """One line for ``walkers inspect``: what the file gives of the vertical."""
+    if column is None:
+        return (
+            "velocity: the depth mean (the file has no layers); vertical velocity: none (no "
+            "vertical advection); K_z: none in the file"
+        )
+    names = {r: lay.name for r, (lay, _) in schema.column_variables.items()}
+    w = (
+        f"from {names['w']!r} on {column.w_levels.size} levels"
+        if column.w is not None and column.w_levels is not None
+        else "none in the file (no vertical advection)"
+    )
+    kz = (
+        f"from {names['kz']!r} on {column.kz_levels.size} levels"
+        if column.kz is not None and column.kz_levels is not None
+        else "none in the file"
+    )
+    return (
+        f"velocity in {column.levels.size} levels (fractions of the depth "
+        f"{', '.join(f'{x:.3g}' for x in column.levels)}); vertical velocity: {w}; K_z: {kz}"
+    )
 
 
 def _build_flow(
