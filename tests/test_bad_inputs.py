@@ -255,6 +255,11 @@ SCENARIO_CASES = [
         expected=["flow.analytic.u", "velocity", "cm/s"],
     ),
     case(
+        "velocity so large that |u| dt overflows",
+        [('u = "0.2 m/s"', "u = 1e308")],
+        expected=["flow velocity 'u'", "overflows", "units"],
+    ),
+    case(
         "unknown unit",
         [('cell_size = "200 m"', 'cell_size = "200 yards"')],
         expected=["output.grid.cell_size", "unknown unit", "km"],

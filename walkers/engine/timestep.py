@@ -22,6 +22,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from walkers.engine.mover import metres_per_grid_unit
+from walkers.errors import InputError
 from walkers.fields.base import FlowField
 from walkers.scenario.config import Transport
 
@@ -195,7 +196,15 @@ def check_time_step(flow: FlowField, transport: Transport, t0: float, t1: float)
             # curvilinear grids carry velocity in index units per second: one index unit is
             # the cell's side along that axis
             speed = np.abs(arr) * across if flow.curvilinear else np.abs(arr)
-            ratio = np.where(water, speed, 0.0) * dt / across
+            with np.errstate(over="ignore", invalid="ignore"):
+                ratio = np.where(water, speed, 0.0) * dt / across
+            if not np.all(np.isfinite(ratio[water])):
+                raise InputError(
+                    f"flow velocity {var.name or axis!r} ({flow.source}): speeds up to "
+                    f"{float(np.nanmax(np.where(water, speed, 0.0))):.3g} m s-1, or not finite, "
+                    f"so that |u|·dt overflows at the time step of {dt:g} s; check the "
+                    "velocity values and their units in the flow"
+                )
             j, k = np.unravel_index(int(np.nanargmax(ratio)), ratio.shape)
             if ratio[j, k] > advection:
                 advection = float(ratio[j, k])

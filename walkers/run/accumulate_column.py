@@ -59,7 +59,7 @@ class ColumnSeries:
 
     def arrays(self) -> dict[str, np.ndarray]:
         """Every series by a flat name (``column.<name>``), for checkpoints."""
-        out = {"column.profile": self.profile}
+        out: dict[str, np.ndarray] = {"column.profile": self.profile}
         if self.track_z is not None:
             out["column.track_z"] = self.track_z
         if self.section is not None and self.section_depth is not None:

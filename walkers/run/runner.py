@@ -169,8 +169,8 @@ def memory_estimate(scenario: Scenario, flow: FlowField) -> tuple[int, int]:
     """
     g = scenario.output
     nt = int(round(scenario.duration / scenario.output_interval)) + 1
-    column = scenario.column_output if scenario.transport_base.vertical is not None else None
-    variables = _field_variables(g, column)
+    three_d = scenario.transport_base.vertical is not None
+    variables = _field_variables(g, scenario.column_output if three_d else None)
     field_bytes = g.nx * g.ny * sum(np.dtype(d).itemsize for d in variables.values())
     held = 3 if streams_to_disk((nt, g.ny, g.nx), variables) else 2 * nt
     series = 2 * nt * (8 * len(scenario.receptors) + 2 * 8 * scenario.tracks)
@@ -180,8 +180,7 @@ def memory_estimate(scenario: Scenario, flow: FlowField) -> tuple[int, int]:
         spacing = float(np.median(np.diff(flow.times)))
         frames = min(len(flow.times), int(np.ceil(scenario.output_interval / spacing)) + 2)
     window = 10 * 8 * frames * flow.x.size * flow.y.size
-    column = COLUMN_BYTES if scenario.transport_base.vertical is not None else 0
-    return PARTICLE_WORKING_BYTES + column, outputs + window
+    return PARTICLE_WORKING_BYTES + (COLUMN_BYTES if three_d else 0), outputs + window
 
 
 def check_memory(scenario: Scenario, flow: FlowField) -> None:

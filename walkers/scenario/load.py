@@ -237,7 +237,7 @@ def _transports(
         scheme=scheme,
         decay_rate=decay_rate,
         edges=dict(edges),
-        vertical=_build_vertical(s["vertical"], dispersion),
+        vertical=_build_vertical(s.get("vertical"), dispersion),
     )
     transport = (
         dataclasses.replace(base_transport, dispersion=dispersion.constant)
