@@ -1,6 +1,7 @@
 """The numpy twin of the three-dimensional parts of the step (``kernels.column_walk``, the
-return from the bed, layered velocities): the twin's vertical half, vectorised over particles,
-with the arithmetic of ``walkers.engine.vertical`` (``vertical_twin``)."""
+return from the bed, the layer weights of layered velocities, which ``twin._sample`` samples):
+the twin's vertical half, vectorised over particles, with the arithmetic of
+``walkers.engine.vertical`` (``vertical_twin``)."""
 
 from __future__ import annotations
 
@@ -28,38 +29,6 @@ def layer_weight(levels, s):
     low = s <= levels[0]
     high = s >= levels[-1]
     return np.where(high, nl - 1, k), np.where(low | high, 0.0, w)
-
-
-def sample_layered(arr, lay, ax, ay, invx, invy, it, wt, x, y):
-    """Twin of ``kernels.layer_bilinear`` after locating (x, y): lay = (nl, k, wz) with arrays
-    k, wz; nl = 1 is :func:`_sample`."""
-    nl, k, wz = lay
-    if nl == 1:
-        return _twin._sample(arr, ax, ay, invx, invy, it, wt, x, y)
-    nf = arr.shape[0] // nl
-    i, wx = _twin._locate(ax, x, invx)
-    j, wy = _twin._locate(ay, y, invy)
-    i1 = np.minimum(i + 1, arr.shape[2] - 1)
-    j1 = np.minimum(j + 1, arr.shape[1] - 1)
-    if nf == 1:
-        it = np.zeros_like(it)
-        wt = np.zeros_like(wt)
-
-    def at(f):
-        return (1.0 - wy) * ((1.0 - wx) * arr[f, j, i] + wx * arr[f, j, i1]) + wy * (
-            (1.0 - wx) * arr[f, j1, i] + wx * arr[f, j1, i1]
-        )
-
-    def in_time(q):
-        f0 = np.minimum(it * nl + k + q, arr.shape[0] - 1)
-        f = at(f0)
-        later = wt > 0.0
-        g = at(np.minimum(f0 + nl, arr.shape[0] - 1))
-        return np.where(later, f + wt * (g - f), f)
-
-    out = in_time(0)
-    up = wz > 0.0
-    return np.where(up, out + wz * (in_time(1) - out), out)
 
 
 def column_hashes(vstreams, step, comp):

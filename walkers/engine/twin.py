@@ -150,27 +150,38 @@ def _time_weight(times: np.ndarray, t: np.ndarray) -> tuple[np.ndarray, np.ndarr
     return _locate(times, t)
 
 
-def _sample(arr, ax, ay, invx, invy, it, wt, x, y):
-    nf, ny, nx = arr.shape
+def _sample(arr, ax, ay, invx, invy, it, wt, x, y, lay=(1, None, None)):
+    """Bilinear in space at (x, y) on the axes (ax, ay), linear in time between frames it and
+    it + 1 (a single frame as is): the twin of ``kernels.sample``. Layered frames, lay = (nl, k,
+    wz) with nl > 1 (frame f layer k at f nl + k): at layer k, linear in height towards layer
+    k + 1 with weight wz > 0, the twin of ``kernels.layer_bilinear``."""
+    nl, k, wz = lay
+    last = arr.shape[0] - 1
     i, wx = _locate(ax, x, invx)
     j, wy = _locate(ay, y, invy)
-    i1 = np.minimum(i + 1, nx - 1)
-    j1 = np.minimum(j + 1, ny - 1)
-    if nf == 1:
+    i1 = np.minimum(i + 1, arr.shape[2] - 1)
+    j1 = np.minimum(j + 1, arr.shape[1] - 1)
+    if arr.shape[0] == nl:
         it = np.zeros_like(it)
         wt = np.zeros_like(wt)
 
-    def at(k):
-        return (1.0 - wy) * ((1.0 - wx) * arr[k, j, i] + wx * arr[k, j, i1]) + wy * (
-            (1.0 - wx) * arr[k, j1, i] + wx * arr[k, j1, i1]
+    def at(f):
+        return (1.0 - wy) * ((1.0 - wx) * arr[f, j, i] + wx * arr[f, j, i1]) + wy * (
+            (1.0 - wx) * arr[f, j1, i] + wx * arr[f, j1, i1]
         )
 
-    f = at(it)
-    later = wt > 0.0
-    if np.any(later):
-        g = at(np.minimum(it + 1, nf - 1))
-        f = np.where(later, f + wt * (g - f), f)
-    return f
+    def in_time(layer):
+        f0 = np.minimum(it * nl + layer, last)
+        f = at(f0)
+        later = wt > 0.0
+        if np.any(later):
+            f = np.where(later, f + wt * (at(np.minimum(f0 + nl, last)) - f), f)
+        return f
+
+    if nl == 1:
+        return in_time(0)
+    out = in_time(k)
+    return np.where(wz > 0.0, out + wz * (in_time(k + 1) - out), out)
 
 
 def _metres_to_grid(geographic, y):
@@ -188,8 +199,8 @@ def _velocity(flow, times, t, x, y, lay=(1, None, None)):
     ux, uy, U, vx, vy, V, inv = flow
     it, wt = _time_weight(times, t)
     return (
-        column_twin.sample_layered(U, lay, ux, uy, inv[0], inv[1], it, wt, x, y),
-        column_twin.sample_layered(V, lay, vx, vy, inv[2], inv[3], it, wt, x, y),
+        _sample(U, ux, uy, inv[0], inv[1], it, wt, x, y, lay),
+        _sample(V, vx, vy, inv[2], inv[3], it, wt, x, y, lay),
     )
 
 
