@@ -11,6 +11,7 @@ import math
 import numba
 import numpy as np
 import pytest
+import xarray as xr
 
 from walkers.engine.state import ON_BED, ParticleState
 from walkers.run import checkpoint, column
@@ -184,6 +185,46 @@ def test_a_depositing_bed_follows_the_first_order_law_and_the_budget_stays_exact
     assert not fraction_law_holds(ds, 1.25 * WD, H, 4000)
     # exact: released = in water + out + decayed + held dry + on the bed, to round-off
     assert np.all(np.abs(budget_closure(ds).values) <= 1e-12 * 1000.0)
+
+
+def deposit_outputs(ds, folder):
+    """The deposit outputs of result ``ds``: (variable written, deposit.png drawn, deposit
+    GeoTIFF exported), through the writer, the figures and ``walkers export``."""
+    from click.testing import CliRunner
+    from pyproj import CRS
+
+    from walkers.cli import main
+    from walkers.outputs.figures import _load
+    from walkers.outputs.figures_column import column_figures
+    from walkers.outputs.writer import write_results
+
+    folder.mkdir()
+    ds = ds.copy()
+    ds.attrs["crs_wkt"] = CRS.from_epsg(32631).to_wkt()  # the analytic basin, placed on a map
+    path = write_results(ds, folder / "run.nc")
+    figures = [p.name for p in column_figures(_load(path, None, None), folder)]
+    out = CliRunner().invoke(main, ["export", str(path)])
+    assert out.exit_code == 0, out.output
+    with xr.open_dataset(path) as written:
+        has_variable = "deposit" in written
+    return has_variable, "deposit.png" in figures, (folder / "run_deposit.tif").is_file()
+
+
+def test_only_a_depositing_bed_writes_the_deposit_its_map_and_its_geotiff(
+    neutral_runs, deposition_run, tmp_path
+):
+    pytest.importorskip("rasterio")
+    _, reflecting, _ = neutral_runs
+    # a reflecting bed keeps nothing: no all-zero deposit, no empty map, no empty GeoTIFF ...
+    assert float(np.abs(reflecting.budget_on_bed).max()) == 0.0
+    assert deposit_outputs(reflecting, tmp_path / "reflecting") == (False, False, False)
+    assert "concentration_in_band" in reflecting  # ... though it is a three-dimensional result
+    # a depositing bed writes all three, and the deposit is the mass on the bed (the output grid
+    # covers the basin; cells of 1000 m x 1000 m)
+    assert deposit_outputs(deposition_run, tmp_path / "depositing") == (True, True, True)
+    on_grid = deposition_run.deposit.sum(("y", "x")).values * 1e6
+    np.testing.assert_allclose(on_grid, deposition_run.budget_on_bed.values, rtol=1e-12)
+    assert float(on_grid[-1]) > 0.0
 
 
 # ---------------------------------------------------------------------------------------------

@@ -77,8 +77,8 @@ def report_command(result: Path, output: Path | None, units: str | None, overwri
     "--geotiff",
     type=click.Path(dir_okay=False, path_type=Path),
     help="GeoTIFF of the maximum concentration (kg m-3), runs only "
-    "[default: <result>_concentration_max.tif]; a 3-D run also gets <result>_deposit.tif "
-    "(the deposit at the end, kg m-2).",
+    "[default: <result>_concentration_max.tif]; a 3-D run with a depositing bed also gets "
+    "<result>_deposit.tif (the deposit at the end, kg m-2).",
 )
 @click.option("--no-gis", is_flag=True, help="Write only the CSV, no GeoJSON or GeoTIFF.")
 @UNITS_OPTION

@@ -495,8 +495,9 @@ def plot_results(
 
     Files: ``concentration_max.png``, ``concentration_tNNNN.png`` (NNNN = output-time index),
     ``receptors.png`` (when there are receptors), ``mass_budget.png`` and ``plume.gif``; for a
-    three-dimensional run also ``deposit.png``, ``receptor_profiles.png`` (when there are
-    receptors) and ``section.png`` (when the scenario names a section), see
+    three-dimensional run also ``deposit.png`` (with a depositing bed),
+    ``receptor_profiles.png`` (when there are receptors) and ``section.png`` (when the scenario
+    names a section), see
     :mod:`walkers.outputs.figures_column`.
     """
     folder = Path(outdir)

@@ -13,8 +13,8 @@ and holes clockwise (§3.1.6). Features:
 Contours are traced on the output grid's cell centres with matplotlib's contour generator
 (contourpy), so an edge lies between the centre of a cell above the level and one below it.
 The GeoTIFF holds ``concentration_max`` in kg m-3 (SI, like the NetCDF) on the result's CRS,
-north up; for a three-dimensional run a second one holds the deposit on the bed at the end of the
-run (kg m-2). Both are written to a temporary name and renamed when complete.
+north up; for a three-dimensional run with a depositing bed a second one holds the deposit on the
+bed at the end of the run (kg m-2). Both are written to a temporary name and renamed when complete.
 """
 
 from __future__ import annotations

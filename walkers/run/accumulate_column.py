@@ -35,7 +35,8 @@ def column_field_variables(column_output: ColumnOutput) -> dict[str, type]:
     variables: dict[str, type] = {
         band_field(k): np.float64 for k in range(len(column_output.bands))
     }
-    variables["deposit"] = np.float64
+    if column_output.deposit:
+        variables["deposit"] = np.float64
     return variables
 
 
@@ -105,7 +106,8 @@ class ColumnSeries:
         args = (p.x, p.y, p.sigma, depths, p.mass, p.status)
         bands, _ = column.band_concentration(*args, self.output.bands, grid, measure)
         fields = {band_field(b): bands[b] for b in range(len(self.output.bands))}
-        fields["deposit"] = column.deposit(p.x, p.y, p.mass, p.status, grid, measure)[0]
+        if self.output.deposit:
+            fields["deposit"] = column.deposit(p.x, p.y, p.mass, p.status, grid, measure)[0]
         if receptors:
             places, area = column.receptor_places(receptors, grid, measure, geographic)
             self.profile[:, :, k] = column.receptor_profiles(
@@ -208,17 +210,18 @@ class ColumnSeries:
                     "thickness in each column)",
                 },
             ),
-            "deposit": (
-                ("time", "y", "x"),
-                fields.data("deposit"),
-                {"units": "kg m-2", "long_name": "mass on the bed per bed area"},
-            ),
             "receptor_profile": (
                 ("receptor", "height", "time"),
                 self.profile,
                 {"units": KG_M3, "long_name": "concentration in the layer at the receptor"},
             ),
         }
+        if self.output.deposit:
+            data["deposit"] = (
+                ("time", "y", "x"),
+                fields.data("deposit"),
+                {"units": "kg m-2", "long_name": "mass on the bed per bed area"},
+            )
         section = self.output.section
         if section is not None and self.section is not None and self.section_depth is not None:
             data["section_concentration"] = (

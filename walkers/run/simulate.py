@@ -283,7 +283,12 @@ def simulate(
     )
     walk_key, release_rng = run_streams(seed, member)
     shape = (len(times), output_grid.ny, output_grid.nx)
-    settings = (column_output or ColumnOutput()) if transport.vertical is not None else None
+    settings = None
+    if transport.vertical is not None:
+        # the deposit on the bed only where the bed can keep particles (a depositing bed)
+        settings = dataclasses.replace(
+            column_output or ColumnOutput(), deposit=transport.vertical.deposition_velocity > 0
+        )
     variables = _field_variables(output_grid, settings)
     if resume is None:
         particles, owner = released_particles(releases, flow, release_rng, transport)

@@ -106,11 +106,15 @@ class ColumnOutput:
     levels : number of equal layers (fractions of the depth) of the receptor profiles and the
         section, >= 1.
     section : the vertical section, or None.
+    deposit : whether the run writes the deposit on the bed: only a depositing bed keeps
+        particles (a reflecting one never holds any, so its deposit would be zero everywhere);
+        set by the run from its [vertical] bed.
     """
 
     bands: tuple[DepthBand, ...] = field(default_factory=default_bands)
     levels: int = DEFAULT_LEVELS
     section: SectionLine | None = None
+    deposit: bool = True
 
     def __post_init__(self) -> None:
         names = [b.name for b in self.bands]
