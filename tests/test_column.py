@@ -110,6 +110,54 @@ def test_depth_mean_of_a_layered_run_equals_the_depth_averaged_run():
         assert ok == expect_ok
 
 
+def wall_roughness_length(drag_coefficient):
+    """z0 (m) of a depth H whose depth-averaged law of the wall has the drag coefficient C_d:
+    U/u* = (1/κ)(ln(H/z0) − 1) with u* = √C_d U, i.e. C_d = [κ / (ln(H/z0) − 1)]² (Soulsby 1997,
+    Dynamics of marine sands, §3.3, from memory)."""
+    return H * math.exp(-1.0 - KAPPA / math.sqrt(drag_coefficient))
+
+
+@pytest.mark.parametrize("roughness", ["drag", "manning"])
+def test_below_the_lowest_layer_centre_particles_move_at_the_law_of_the_wall_speed(roughness):
+    """Particles held (K_z = 0) at heights below the lowest layer centre z1 travel at the law of
+    the wall through the lowest layer's value, u1 ln(z/z0) / ln(z1/z0), 0 at or below z0 (to
+    1e-9: the float sum of 10 steps), with z0 that of the bed roughness; at and above z1 at the
+    layers' speed. The compiled kernel equals its twin (1e-12). The twin check: without a
+    roughness the lowest layer's value is held down to the bed, and the same check fails."""
+    g = 9.80665  # m s-2, standard gravity (CGPM 1901)
+    if roughness == "drag":
+        cd, bed_log = 0.0025, vertical.bed_log_law(None, 0.0025)
+    else:
+        # Manning's u* = n U √g / h^(1/6) (common practice) is C_d = g n² / h^(1/3)
+        cd, bed_log = g * 0.03**2 / H ** (1.0 / 3.0), vertical.bed_log_law(0.03, None)
+    z0, z1 = wall_roughness_length(cd), LEVELS[0] * H
+    assert 0.0 < z0 < 0.1 * z1  # the log layer is resolved: z0 ~ 1-3 mm, z1 = 0.5 m
+    z = np.array([0.0, 0.5 * z0, z0, 1.5 * z0, 0.01, 0.05, 0.2, 0.45, z1, LEVELS[3] * H])
+    u1 = float(log_speed(LEVELS[0]))
+    with np.errstate(divide="ignore"):
+        law = np.where(z > z0, u1 * np.log(z / z0) / np.log(z1 / z0), 0.0)
+        expect = np.where(z < z1, law, log_speed(z / H))
+    flow, inputs = channel()
+    for bed, expect_ok in ((bed_log, True), ((0.0, 0.0), False)):
+        inp = mover.with_column(
+            inputs,
+            flow.depth.data,
+            USTAR,
+            vertical.KZ_CONSTANT,
+            layers=log_layers(flow),
+            bed_log=bed,
+        )
+        moved = []
+        for stepper in ("fast", "reference"):
+            state = start(z.size, z / H)
+            mover.advance(state, inp, 0.0, 20.0, 10, 0, 1, stepper=stepper)
+            moved.append(state.x)
+        np.testing.assert_allclose(moved[0], moved[1], rtol=0, atol=1e-12 * 2500.0)
+        speed = (moved[0] - 2500.0) / 200.0
+        ok = np.allclose(speed, expect, rtol=1e-9, atol=1e-12)
+        assert ok == expect_ok, (speed, expect)
+
+
 # ---------------------------------------------------------------------------------------------
 # Vertical velocity and K_z from the file
 
@@ -272,6 +320,7 @@ def test_compiled_column_step_equals_numpy_twin(scheme):
         layers=col,
         critical_shear_stress=0.05,
         erosion_rate=5e-3,
+        bed_log=vertical.bed_log_law(None, 0.0025),  # the law of the wall below LEVELS[0]
     )
     n = 1200
     a = ParticleState.from_arrays(

@@ -5,6 +5,8 @@ the twin's vertical half, vectorised over particles, with the arithmetic of
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from walkers.engine import twin as _twin
@@ -16,11 +18,20 @@ from walkers.engine.kernels import (
     VERTICAL_COMPONENTS,
     VERTICAL_SALT,
 )
-from walkers.engine.vertical import MIN_COLUMN_DEPTH
+from walkers.engine.vertical import MIN_COLUMN_DEPTH, P_LOG_A, P_LOG_B
 
 
-def layer_weight(levels, s):
-    """Twin of ``kernels.layer_weight`` for an array of heights s."""
+def bed_weights(s1, s, log_ratio):
+    """Twin of ``kernels.bed_weight`` for arrays of heights s and of ln(h/z0) ``log_ratio``."""
+    lo = math.log(s1) + log_ratio
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ls = np.log(s)
+        w = np.where(ls + log_ratio > 0.0, (ls - math.log(s1)) / lo, -1.0)
+    return np.where((log_ratio > 0.0) & (lo > 0.0), w, 0.0)
+
+
+def layer_weight(levels, s, log_ratio):
+    """Twin of ``kernels.layer_weight`` for arrays of heights s and of ln(h/z0)."""
     nl = levels.shape[0]
     if nl == 1:
         return np.zeros(s.shape, np.int64), np.zeros(s.shape)
@@ -28,7 +39,18 @@ def layer_weight(levels, s):
     w = (s - levels[k]) / (levels[k + 1] - levels[k])
     low = s <= levels[0]
     high = s >= levels[-1]
-    return np.where(high, nl - 1, k), np.where(low | high, 0.0, w)
+    w = np.where(low | high, 0.0, w)
+    if np.any(low):
+        w = np.where(low, bed_weights(levels[0], s, log_ratio), w)
+    return np.where(high, nl - 1, k), w
+
+
+def bed_log_ratios(params, depth, it, wt, j, i):
+    """Twin of ``kernels.bed_log_ratio`` for arrays of (it, wt, j, i)."""
+    if params.shape[0] <= P_LOG_A or not params[P_LOG_A] > 0.0:
+        return np.zeros(np.shape(i))
+    h = vertical_twin.cell_frame_values(depth, it, wt, j, i)
+    return 1.0 + params[P_LOG_A] * np.maximum(h, 0.0) ** params[P_LOG_B]
 
 
 def column_hashes(vstreams, step, comp):

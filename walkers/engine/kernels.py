@@ -258,15 +258,49 @@ def column_profile(arr, levels, it, wt, j, i, out, row):
         out[row, q] = vertical.layer_frame_value(arr, nl, q, it, wt, j, i)
 
 
+@nb.njit(**INLINE)
+def bed_log_ratio(params, depth, it, wt, j, i):
+    """ln(h/z0) = 1 + a h^b of column (j, i) at time (it, wt), (a, b) = params[P_LOG_A],
+    params[P_LOG_B] (``vertical.bed_log_law``); 0 without a bed roughness (a = 0)."""
+    if params.shape[0] <= vertical.P_LOG_A or not params[vertical.P_LOG_A] > 0.0:
+        return 0.0
+    h = vertical.cell_frame_value(depth, it, wt, j, i)
+    return 1.0 + params[vertical.P_LOG_A] * max(h, 0.0) ** params[vertical.P_LOG_B]
+
+
+@nb.njit(**INLINE)
+def bed_weight(s1, s, log_ratio):
+    """The weight w <= 0 of height s below the lowest layer centre s1 (fractions of the depth)
+    in a column with ln(h/z0) = ``log_ratio``: the law of the wall through the lowest layer's
+    value u1, u = u1 ln(z/z0) / ln(z1/z0) = u1 (1 + w), so w = (ln s − ln s1) / (ln s1 +
+    log_ratio), and w = -1 (u = 0) at or below z0. 0 (the lowest layer's value) without a
+    roughness (log_ratio 0) or where z0 >= z1."""
+    if not log_ratio > 0.0:
+        return 0.0
+    lo = math.log(s1) + log_ratio
+    if not lo > 0.0:
+        return 0.0
+    if not s > 0.0:
+        return -1.0
+    ls = math.log(s)
+    if not ls + log_ratio > 0.0:
+        return -1.0
+    return (ls - math.log(s1)) / lo
+
+
 @nb.njit(**JIT)
-def layer_weight(levels, s):
+def layer_weight(levels, s, log_ratio):
     """Layer index k and weight w of height s (fraction of the depth) between the layer centres
-    ``levels`` (ascending): the velocity is linear between centres, and below the lowest and
-    above the highest centre the value of that layer (a layer's value is its mean over the
-    layer in a finite-volume model; common practice), (0, 0) and (nl - 1, 0)."""
+    ``levels`` (ascending): the velocity is linear between centres, above the highest centre the
+    value of that layer (a layer's value is its mean over the layer in a finite-volume model;
+    common practice), (nl - 1, 0), and below the lowest one the law of the wall to the bed in a
+    column with ln(h/z0) = ``log_ratio`` (:func:`bed_log_ratio`), (0, w <= 0) of
+    :func:`bed_weight`."""
     nl = levels.shape[0]
-    if nl == 1 or s <= levels[0]:
+    if nl == 1:
         return 0, 0.0
+    if s <= levels[0]:
+        return 0, bed_weight(levels[0], s, log_ratio)
     if s >= levels[nl - 1]:
         return nl - 1, 0.0
     k = 0
@@ -278,7 +312,8 @@ def layer_weight(levels, s):
 @nb.njit(**JIT)
 def layer_bilinear(arr, nl, it, wt, i, j, wx, wy, k, wz):
     """:func:`bilinear` of layered frames (nf nl or nl, ny, nx; frame f layer k at f nl + k)
-    at layer k with weight wz towards layer k + 1 (nl = 1: ``bilinear`` itself)."""
+    at layer k with weight wz > 0 towards layer k + 1, or -wz > 0 towards 0 (the law of the wall
+    below the lowest centre, :func:`layer_weight`) (nl = 1: ``bilinear`` itself)."""
     if nl == 1:
         return bilinear(arr, it, wt, i, j, wx, wy)
     nx = arr.shape[2]
@@ -306,6 +341,8 @@ def layer_bilinear(arr, nl, it, wt, i, j, wx, wy, k, wz):
             out = f
         else:
             out = out + wz * (f - out)
+    if wz < 0.0:
+        out = out * (1.0 + wz)
     return out
 
 
@@ -943,7 +980,9 @@ def compiled_mover(
                     py = by[k]
                     lay = (1, 0, 0.0)
                     if vertical_mode and n_levels > 1:
-                        lk, lw = layer_weight(c_levels, sigma[p])
+                        lk, lw = layer_weight(
+                            c_levels, sigma[p], bed_log_ratio(c_params, c_depth, it, wt, pj, pi)
+                        )
                         lay = (n_levels, lk, lw)
                     # Where the particle sits on the cell-centre grid (K, drift) and on the
                     # velocity axes; located once and shared wherever the axes coincide.

@@ -428,6 +428,7 @@ def with_column(
     critical_shear_stress: float = 0.0,
     erosion_rate: float = 0.0,
     water_density: float = 1025.0,
+    bed_log: tuple[float, float] = (0.0, 0.0),
 ) -> KernelInputs:
     """The kernel inputs of a window with the vertical step (``walkers.engine.vertical``).
 
@@ -441,7 +442,9 @@ def with_column(
     sampled at each particle's height, w is added to the vertical step where given;
     critical_shear_stress τ_c (Pa; 0: particles on the bed stay there), erosion_rate M_e (s-1)
     and water_density ρ (kg m-3): the return of particles on the bed to the water
-    (``vertical.resuspension_chance``).
+    (``vertical.resuspension_chance``); bed_log : (a, b) of ln(h/z0) = 1 + a h^b, the law of the
+    wall of layered velocities below their lowest layer centre (``vertical.bed_log_law``; a = 0:
+    the lowest layer's value down to the bed).
     """
     if mode not in (vertical.KZ_CONSTANT, vertical.KZ_PARABOLIC, vertical.KZ_FILE):
         raise InputError(
@@ -465,7 +468,7 @@ def with_column(
     h = np.ascontiguousarray(np.broadcast_to(h, shape))
     u = np.ascontiguousarray(np.broadcast_to(u, shape))
     params = vertical.column_params(
-        mode, kz, deposition_velocity, critical_shear_stress, erosion_rate, water_density
+        mode, kz, deposition_velocity, critical_shear_stress, erosion_rate, water_density, bed_log
     )
     none, flat = np.zeros(0), np.zeros((1, 1, 1))
     levels, wlev, w, klev, kzf = np.zeros(1), none, flat, none, flat
@@ -511,7 +514,9 @@ def column_inputs(
     settings : the scenario's vertical settings (``diffusivity`` "constant", "parabolic" or
     "file", ``coefficient`` K_z (m2 s-1), ``deposition_velocity`` (m s-1),
     ``critical_shear_stress`` (Pa; None: no resuspension), ``erosion_rate`` (s-1),
-    ``water_density`` (kg m-3)); ustar : u* frames on the cells (m s-1); dt : the step (s).
+    ``water_density`` (kg m-3), the bed roughness ``manning_n`` or ``drag_coefficient`` of the
+    law of the wall below the lowest layer centre, ``vertical.bed_log_law``); ustar : u* frames
+    on the cells (m s-1); dt : the step (s).
     The window's layered velocities, w and K_z (``window.column``, kept when the flow was
     opened with ``column=True``) are used where the flow has them.
     """
@@ -539,6 +544,9 @@ def column_inputs(
         critical_shear_stress=0.0 if tau_c is None else float(tau_c),
         erosion_rate=float(settings.erosion_rate or 0.0),
         water_density=float(getattr(settings, "water_density", 1025.0)),
+        bed_log=vertical.bed_log_law(
+            getattr(settings, "manning_n", None), getattr(settings, "drag_coefficient", None)
+        ),
     )
 
 

@@ -154,7 +154,8 @@ def _sample(arr, ax, ay, invx, invy, it, wt, x, y, lay=(1, None, None)):
     """Bilinear in space at (x, y) on the axes (ax, ay), linear in time between frames it and
     it + 1 (a single frame as is): the twin of ``kernels.sample``. Layered frames, lay = (nl, k,
     wz) with nl > 1 (frame f layer k at f nl + k): at layer k, linear in height towards layer
-    k + 1 with weight wz > 0, the twin of ``kernels.layer_bilinear``."""
+    k + 1 with weight wz > 0, or towards 0 with weight -wz > 0 (the law of the wall below the
+    lowest layer centre), the twin of ``kernels.layer_bilinear``."""
     nl, k, wz = lay
     last = arr.shape[0] - 1
     i, wx = _locate(ax, x, invx)
@@ -181,7 +182,8 @@ def _sample(arr, ax, ay, invx, invy, it, wt, x, y, lay=(1, None, None)):
     if nl == 1:
         return in_time(0)
     out = in_time(k)
-    return np.where(wz > 0.0, out + wz * (in_time(k + 1) - out), out)
+    out = np.where(wz > 0.0, out + wz * (in_time(k + 1) - out), out)
+    return np.where(wz < 0.0, out * (1.0 + wz), out)
 
 
 def _metres_to_grid(geographic, y):
@@ -444,7 +446,11 @@ def advance(
         else:
             lay = (1, None, None)
             if column is not None and column[5].shape[0] > 1:
-                lay = (column[5].shape[0], *column_twin.layer_weight(column[5], column[0][act]))
+                ratio = column_twin.bed_log_ratios(
+                    column[4], column[2], it, wt, _cell(ye, py), _cell(xe, px)
+                )
+                weights = column_twin.layer_weight(column[5], column[0][act], ratio)
+                lay = (column[5].shape[0], *weights)
             ax_, ay_ = _advect(flow, times, scheme, geographic, px, py, tstart, h, lay)
         if kconst[0] >= 0.0:
             k1 = np.full(act.size, kconst[0])

@@ -49,6 +49,7 @@ import math
 import numba as nb
 import numpy as np
 
+from walkers.engine.coefficients import GRAVITY
 from walkers.engine.kernels import JIT
 from walkers.errors import InputError
 
@@ -67,7 +68,7 @@ KZ_CONSTANT = 1
 KZ_PARABOLIC = 2
 KZ_FILE = 3
 #: Entries of ``column_params``.
-P_MODE, P_K0, P_WD, P_DRIFT, P_FRACTION, P_TAU_C, P_EROSION, P_RHO = range(8)
+P_MODE, P_K0, P_WD, P_DRIFT, P_FRACTION, P_TAU_C, P_EROSION, P_RHO, P_LOG_A, P_LOG_B = range(10)
 #: Depth (m) below which a column is too shallow to step in; sigma is kept.
 MIN_COLUMN_DEPTH = 1e-3
 #: Columns shallower than this (m; drying banks) may need more substeps than the kernel allows:
@@ -226,10 +227,12 @@ def column_params(
     critical_shear_stress: float = 0.0,
     erosion_rate: float = 0.0,
     water_density: float = 1025.0,
+    bed_log: tuple[float, float] = (0.0, 0.0),
 ) -> np.ndarray:
     """The ``params`` array of :func:`column_step` (indices ``P_*``): (mode, K0 (m2 s-1), w_d
     (m s-1), drift factor 1, Visser's fraction of 1/|d²K_z/dz²| that a substep may last, τ_c
-    (Pa; 0 no resuspension), M_e (s-1), ρ (kg m-3); see :func:`resuspension_chance`)."""
+    (Pa; 0 no resuspension), M_e (s-1), ρ (kg m-3), and the (a, b) of :func:`bed_log_law`; see
+    :func:`resuspension_chance`)."""
     return np.array(
         [
             float(mode),
@@ -240,9 +243,29 @@ def column_params(
             float(critical_shear_stress),
             float(erosion_rate),
             float(water_density),
+            float(bed_log[0]),
+            float(bed_log[1]),
         ],
         np.float64,
     )
+
+
+def bed_log_law(manning_n: float | None, drag_coefficient: float | None) -> tuple[float, float]:
+    """(a, b) of ln(h/z0) = 1 + a h^b (h in m): the roughness length z0 of the law of the wall
+    that layered velocities follow below their lowest layer centre (``kernels.bed_log_ratio``),
+    from the bed roughness that gives u* (``coefficients.shear_velocity``).
+
+    The depth-averaged law of the wall, U/u* = (1/κ)(ln(h/z0) − 1), is C_d = [κ/(ln(h/z0) −
+    1)]² (Soulsby 1997, Dynamics of marine sands, §3.3, from memory); with u* = √C_d U,
+    ln(h/z0) = 1 + κ/√C_d: a = κ/√C_d, b = 0; with Manning's u* = n U √g / h^(1/6),
+    a = κ/(n √g), b = 1/6. z0 then depends on the roughness and the depth, not on the speed, and
+    the profile's bed stress is the one u* stands for. No roughness (neither given): (0, 0), the
+    lowest layer's value down to the bed."""
+    if drag_coefficient is not None:
+        return KAPPA / math.sqrt(drag_coefficient), 0.0
+    if manning_n is not None:
+        return KAPPA / (manning_n * math.sqrt(GRAVITY)), 1.0 / 6.0
+    return 0.0, 0.0
 
 
 @nb.njit(**JIT)  # type: ignore[call-overload]  # JIT is a plain dict of options
