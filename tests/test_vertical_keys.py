@@ -200,6 +200,28 @@ def test_inspect_of_a_scenario_says_whether_its_run_is_3d(tmp_path):
     assert "Run: depth-averaged" in out["flat"] and "three-dimensional" not in out["flat"]
 
 
+def test_the_roughness_of_an_estimated_dispersion_reaches_a_constant_kz_too(tmp_path):
+    """One bed roughness for the run: a constant K_z (no u* needed) still takes the estimated
+    [dispersion]'s Manning n, for the law of the wall below the lowest layer centre of a layered
+    velocity, and the run's summary says which applies; with a given horizontal K there is no
+    roughness, and the lowest layer's value is held (the twin)."""
+    from test_column_files import sigma_file
+
+    constant = {"diffusivity": "constant", "coefficient": "0.01 m2/s"}
+    estimated = scenario(vertical=constant)
+    estimated["dispersion"] = {"method": "estimated", "manning_n": 0.025, "channel": "meandering"}
+    layered = open_flow(sigma_file(tmp_path)[0], column=True)
+    said = []
+    for table, n in ((estimated, 0.025), (scenario(vertical=constant), None)):
+        v = load_scenario(table).transport_base.vertical
+        assert v is not None and v.manning_n == n and v.drag_coefficient is None
+        said.append(column.describe_vertical(v, layered))
+    assert said[0].endswith(
+        "below the lowest layer centre the law of the wall to z0 of the roughness"
+    )
+    assert said[1].endswith("below the lowest layer centre its value (no bed roughness given)")
+
+
 def test_template_vertical_block_loads_when_uncommented(tmp_path):
     """The template of `walkers new` carries a commented [vertical] block and release keys that
     load as they stand once uncommented; the template itself stays depth-averaged (the twin)."""

@@ -192,10 +192,16 @@ def describe_scenario_column(scenario: Scenario, flow: FlowField) -> list[str]:
 def describe_vertical(vertical: Vertical, flow: FlowField) -> str:
     """The run's vertical step in words: K_z, the bed, and what the flow file gives of the
     water column (layered velocities, a vertical velocity, K_z; ``flow.attrs["column"]``, set by
-    the reader of a three-dimensional run)."""
+    the reader of a three-dimensional run), with the velocity below the lowest layer centre."""
     column = flow.attrs.get("column") or (
         "velocity: the depth mean at every height; vertical velocity: none (no vertical advection)"
     )
+    layers = getattr(flow, "column", None)
+    if layers is not None and layers.levels.size > 1:
+        if vertical.manning_n is None and vertical.drag_coefficient is None:
+            column += "; below the lowest layer centre its value (no bed roughness given)"
+        else:
+            column += "; below the lowest layer centre the law of the wall to z0 of the roughness"
     return f"{vertical.describe()}; from the flow file: {column}"
 
 

@@ -326,15 +326,17 @@ def _build_vertical(v: dict[str, Any] | None, dispersion: DispersionSpec) -> Ver
         return None
     manning_n, drag = v["manning_n"], v["drag_coefficient"]
     needs_roughness = v["diffusivity"] == "parabolic" or v["critical_shear_stress"] is not None
-    if needs_roughness and manning_n is None and drag is None:
-        if dispersion.method != "estimated":
-            raise InputError(
-                f"vertical.diffusivity = {v['diffusivity']!r}: a parabolic K_z = 0.41 u* z "
-                "(1 - z/h) or resuspension (tau = rho u*^2) needs the bed roughness for u*; give "
-                "vertical.manning_n or vertical.drag_coefficient (or estimate [dispersion] with "
-                "one, which [vertical] then uses)"
-            )
+    if manning_n is None and drag is None and dispersion.method == "estimated":
+        # the one bed roughness of the run: u* of K_z and of resuspension, and z0 of the law of
+        # the wall below the lowest layer centre of a layered velocity
         manning_n, drag = dispersion.manning_n, dispersion.drag_coefficient
+    elif needs_roughness and manning_n is None and drag is None:
+        raise InputError(
+            f"vertical.diffusivity = {v['diffusivity']!r}: a parabolic K_z = 0.41 u* z "
+            "(1 - z/h) or resuspension (tau = rho u*^2) needs the bed roughness for u*; give "
+            "vertical.manning_n or vertical.drag_coefficient (or estimate [dispersion] with "
+            "one, which [vertical] then uses)"
+        )
     elif (manning_n is not None or drag is not None) and dispersion.method == "estimated":
         raise InputError(
             "vertical.manning_n / drag_coefficient: [dispersion] is estimated from a bed "

@@ -71,7 +71,9 @@ class Vertical:
     critical_shear_stress : tau_c (Pa) above which particles on the bed go back into the water;
         None: no resuspension. erosion_rate : the rate of resuspension (s-1) per unit excess
         stress tau / tau_c − 1. water_density : rho (kg m-3) of tau = rho u*^2. u* (of a
-        parabolic K_z and of tau) comes from ``manning_n`` or ``drag_coefficient``.
+        parabolic K_z and of tau) comes from ``manning_n`` or ``drag_coefficient``, and so does
+        z0 of the law of the wall below the lowest layer centre of a layered velocity
+        (``walkers.engine.vertical.bed_log_law``).
     """
 
     diffusivity: Literal["parabolic", "constant", "file"] = "parabolic"

@@ -29,13 +29,15 @@ VERTICAL = Section(
         "manning_n": Key(
             "number",
             "Manning roughness n (s m^-1/3) of u* = n |U| sqrt(g) / h^(1/6); default: that of "
-            "[dispersion] when it is estimated. For a parabolic K_z and for resuspension.",
+            "[dispersion] when it is estimated. For a parabolic K_z, for resuspension, and for "
+            "the law of the wall below the lowest layer of a layered velocity.",
             bound="positive",
         ),
         "drag_coefficient": Key(
             "number",
             "Bed drag coefficient C_d of u* = sqrt(C_d) |U|; default: that of [dispersion] when "
-            "it is estimated. For a parabolic K_z and for resuspension.",
+            "it is estimated. For a parabolic K_z, for resuspension, and for the law of the wall "
+            "below the lowest layer of a layered velocity.",
             bound="positive",
         ),
         "bed": Key(
