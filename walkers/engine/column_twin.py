@@ -30,8 +30,8 @@ def bed_weights(s1, s, log_ratio):
     return np.where((log_ratio > 0.0) & (lo > 0.0), w, 0.0)
 
 
-def layer_weight(levels, s, log_ratio):
-    """Twin of ``kernels.layer_weight`` for arrays of heights s and of ln(h/z0)."""
+def layer_weight(levels, s, params, depth, it, wt, j, i):
+    """Twin of ``kernels.layer_weight`` for arrays of heights s and of (it, wt, j, i)."""
     nl = levels.shape[0]
     if nl == 1:
         return np.zeros(s.shape, np.int64), np.zeros(s.shape)
@@ -41,7 +41,8 @@ def layer_weight(levels, s, log_ratio):
     high = s >= levels[-1]
     w = np.where(low | high, 0.0, w)
     if np.any(low):
-        w = np.where(low, bed_weights(levels[0], s, log_ratio), w)
+        ratio = bed_log_ratios(params, depth, it[low], wt[low], j[low], i[low])
+        w[low] = bed_weights(levels[0], s[low], ratio)
     return np.where(high, nl - 1, k), w
 
 

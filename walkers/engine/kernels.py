@@ -289,18 +289,18 @@ def bed_weight(s1, s, log_ratio):
 
 
 @nb.njit(**JIT)
-def layer_weight(levels, s, log_ratio):
+def layer_weight(levels, s, params, depth, it, wt, j, i):
     """Layer index k and weight w of height s (fraction of the depth) between the layer centres
     ``levels`` (ascending): the velocity is linear between centres, above the highest centre the
     value of that layer (a layer's value is its mean over the layer in a finite-volume model;
-    common practice), (nl - 1, 0), and below the lowest one the law of the wall to the bed in a
-    column with ln(h/z0) = ``log_ratio`` (:func:`bed_log_ratio`), (0, w <= 0) of
-    :func:`bed_weight`."""
+    common practice), (nl - 1, 0), and below the lowest one the law of the wall to the bed in
+    column (j, i) at time (it, wt) (ln(h/z0) of :func:`bed_log_ratio`, looked up only there),
+    (0, w <= 0) of :func:`bed_weight`."""
     nl = levels.shape[0]
     if nl == 1:
         return 0, 0.0
     if s <= levels[0]:
-        return 0, bed_weight(levels[0], s, log_ratio)
+        return 0, bed_weight(levels[0], s, bed_log_ratio(params, depth, it, wt, j, i))
     if s >= levels[nl - 1]:
         return nl - 1, 0.0
     k = 0
@@ -980,9 +980,7 @@ def compiled_mover(
                     py = by[k]
                     lay = (1, 0, 0.0)
                     if vertical_mode and n_levels > 1:
-                        lk, lw = layer_weight(
-                            c_levels, sigma[p], bed_log_ratio(c_params, c_depth, it, wt, pj, pi)
-                        )
+                        lk, lw = layer_weight(c_levels, sigma[p], c_params, c_depth, it, wt, pj, pi)
                         lay = (n_levels, lk, lw)
                     # Where the particle sits on the cell-centre grid (K, drift) and on the
                     # velocity axes; located once and shared wherever the axes coincide.

@@ -446,10 +446,16 @@ def advance(
         else:
             lay = (1, None, None)
             if column is not None and column[5].shape[0] > 1:
-                ratio = column_twin.bed_log_ratios(
-                    column[4], column[2], it, wt, _cell(ye, py), _cell(xe, px)
+                weights = column_twin.layer_weight(
+                    column[5],
+                    column[0][act],
+                    column[4],
+                    column[2],
+                    it,
+                    wt,
+                    _cell(ye, py),
+                    _cell(xe, px),
                 )
-                weights = column_twin.layer_weight(column[5], column[0][act], ratio)
                 lay = (column[5].shape[0], *weights)
             ax_, ay_ = _advect(flow, times, scheme, geographic, px, py, tstart, h, lay)
         if kconst[0] >= 0.0:
