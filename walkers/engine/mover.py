@@ -505,13 +505,16 @@ def column_inputs(
     settings: Any,
     ustar: np.ndarray | float,
     dt: float,
+    depth: np.ndarray | None = None,
 ) -> KernelInputs:
     """The kernel inputs of a window in three dimensions: the call a run makes per window.
 
     settings : the scenario's vertical settings (``diffusivity`` "constant", "parabolic" or
     "file", ``coefficient`` K_z (m2 s-1), ``deposition_velocity`` (m s-1),
     ``critical_shear_stress`` (Pa; None: no resuspension), ``erosion_rate`` (s-1),
-    ``water_density`` (kg m-3)); ustar : u* frames on the cells (m s-1); dt : the step (s).
+    ``water_density`` (kg m-3)); ustar : u* frames on the cells (m s-1); dt : the step (s);
+    depth : the columns' depth frames (m; None: ``window.depth``, the cells'; on a mesh the
+    faces', (nf or 1, 1, nface), ``mesh_inputs.column_depths``).
     The window's layered velocities, w and K_z (``window.column``, kept when the flow was
     opened with ``column=True``) are used where the flow has them.
     """
@@ -529,7 +532,7 @@ def column_inputs(
     tau_c = settings.critical_shear_stress
     return with_column(
         inputs,
-        window.depth,
+        window.depth if depth is None else depth,
         ustar,
         mode,
         float(settings.coefficient or 0.0),

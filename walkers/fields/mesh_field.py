@@ -172,6 +172,11 @@ def mesh_field(flow: MeshFlow) -> FlowField:
     )
 
 
+def is_mesh_flow(flow: FlowField) -> bool:
+    """Whether a flow is on an unstructured mesh (its grid kind a :class:`MeshKind`)."""
+    return bool(getattr(flow.kind(), "mesh", False))
+
+
 def node_depth_location(flow: FlowField) -> bool:
     """Whether a mesh flow's depth is given on the nodes (else on the faces)."""
     return flow.attrs.get("locations", {}).get("depth") == NODE
