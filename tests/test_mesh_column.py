@@ -1,0 +1,283 @@
+"""Three-dimensional runs on unstructured meshes (walkers.run.column with a mesh flow): the
+vertical step in each face's column, with depth and u* per face, through the run's driver
+(walkers.run.simulate), against published results.
+
+Sources: the well-mixed condition of the vertical walk (Visser 1997, "Using random walk models to
+simulate the vertical distribution of particles in a turbulent water column", Mar. Ecol. Prog.
+Ser. 158, 275-281); the first-order law of deposition from a well-mixed column, 1 − exp(−w_d t /
+h) (common practice; the slab series of Carslaw & Jaeger 1959, Conduction of Heat in Solids,
+§3.11, from memory, bounds its gap); the exponential profile exp(−w_s z / K) of settling against
+constant diffusion (Rouse 1937 with K constant, from memory); the bed shear velocity
+u* = sqrt(C_d) |U| and u* = n |U| sqrt(g) / h^(1/6) (common practice). Tolerances: 5 binomial
+standard errors, 5 standard errors of a mean, χ² and Kolmogorov–Smirnov tests at the 5σ level;
+each check has a twin that fails.
+
+The runs reuse the step's option sets that tests/test_vertical.py (parabolic K_z on a mesh) and
+tests/test_mesh_step.py (a depth-averaged mesh run) compile; the constant-K_z runs add one.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from mesh_files import jittered_mesh
+from scipy import stats
+from test_vertical import exponential_cdf, slab_fraction_left
+
+from walkers.engine import vertical
+from walkers.engine.mesh_inputs import mesh_kernel_inputs
+from walkers.engine.state import IN_WATER, ON_BED
+from walkers.errors import InputError
+from walkers.fields.mesh import MeshFlow, MeshVariable, build_geometry
+from walkers.fields.mesh_field import mesh_field
+from walkers.fields.mesh_open import coast_only
+from walkers.run import column
+from walkers.run.simulate import released_particles, simulate
+from walkers.scenario.config import Dispersion, OutputGrid, Release, Transport, Vertical
+
+FIVE_SIGMA = 2.0 * stats.norm.sf(5.0)
+CELL = 200.0  # m: 24 x 16 jittered cells of 200 m (512 triangles, 128 quadrilaterals)
+GRID = OutputGrid(x0=100.0, dx=200.0, nx=24, y0=100.0, dy=200.0, ny=16)
+SPEED = 0.5  # m s-1 along x
+MANNING = 0.025  # s m^-1/3
+
+
+def mesh_flow(depth):
+    """A steady mesh flow of SPEED along x (on the nodes), depth a function of the node x (m),
+    coast all round."""
+    x, y, faces = jittered_mesh(24, 16, CELL, jitter=40.0, seed=5)
+    g = build_geometry(x, y, faces, where="test")
+    mesh = MeshFlow(
+        g,
+        np.array([0.0]),
+        "seconds since 2026-01-01T00:00:00Z",
+        "standard",
+        MeshVariable("node", np.full((1, g.nnode), SPEED)),
+        MeshVariable("node", np.zeros((1, g.nnode))),
+        MeshVariable("node", np.broadcast_to(depth(g.node_x), (1, g.nnode)).copy()),
+        np.ones((1, g.nface), np.uint8),
+        coast_only(g),
+        source="test mesh",
+    )
+    return mesh_field(mesh), g
+
+
+def sloping(x):
+    return 3.0 + 0.001 * x  # m: 3 m at the west coast, 7.8 m at the east
+
+
+def corner_mean(g, node_values):
+    """Each face's mean of its corners' values, computed here from the face-node table."""
+    used = g.face_nodes >= 0
+    picked = np.where(used, node_values[np.maximum(g.face_nodes, 0)], 0.0)
+    return picked.sum(axis=1) / used.sum(axis=1)
+
+
+def run(flow, transport, release, end, interval=None, seed=11):
+    """simulate() from 0 to ``end`` s; (result, particles at the last output)."""
+    last = {}
+    ds = simulate(
+        flow,
+        transport,
+        [release],
+        start=0.0,
+        end=end,
+        output_interval=interval or end,
+        output_grid=GRID,
+        seed=seed,
+        on_output=lambda rs: last.update(particles=rs.particles.copy()),
+    )
+    return ds, last["particles"]
+
+
+def point(n, **column_keys):
+    return Release("point", np.array([[600.0, 1600.0]]), n, mass=1.0, **column_keys)
+
+
+# ---------------------------------------------------------------------------------------------
+# The column's inputs on a mesh
+
+
+def test_bed_shear_velocity_per_face_follows_the_roughness_laws():
+    """u* per face: sqrt(C_d) |U| with a drag coefficient, n |U| sqrt(g) / h^(1/6) with Manning's
+    n and h the face's corner mean of the node depths (common practice; g = 9.81 m s-2). The
+    twin: the Manning law with the deepest node's depth instead does not match."""
+    flow, g = mesh_flow(sloping)
+    window = flow.window(0.0, 0.0)
+    drag = column.cell_shear_velocity(flow, window, Vertical(drag_coefficient=0.0025))
+    assert drag.shape == (1, 1, g.nface)
+    np.testing.assert_allclose(drag[0, 0], 0.05 * SPEED, rtol=1e-12)
+    manning = column.cell_shear_velocity(flow, window, Vertical(manning_n=MANNING))
+    h = corner_mean(g, sloping(g.node_x))
+    expect = MANNING * SPEED * math.sqrt(9.81) / h ** (1.0 / 6.0)
+    np.testing.assert_allclose(manning[0, 0], expect, rtol=1e-3)  # g to three digits
+    deepest = np.max(np.where(g.face_nodes >= 0, sloping(g.node_x)[g.face_nodes], 0.0), axis=1)
+    wrong = MANNING * SPEED * math.sqrt(9.81) / deepest ** (1.0 / 6.0)
+    assert not np.allclose(manning[0, 0], wrong, rtol=1e-3)
+    np.testing.assert_allclose(column.column_depth(flow, window)[0, 0], h, rtol=1e-12)
+
+
+def test_particles_start_at_their_height_above_the_bed_of_their_face():
+    """A release 1 m above the bed on a sloping bed: sigma = 1 m / the depth of each particle's
+    face (the column the step walks in). The twin: the depth at the release centre for all."""
+    flow, g = mesh_flow(sloping)
+    rel = Release(
+        "circle",
+        np.array([[1500.0, 1600.0]]),
+        400,
+        radius=900.0,
+        start_height="above_bed",
+        height_above_bed=1.0,
+    )
+    tr = Transport(dt=30.0, vertical=Vertical(manning_n=MANNING))
+    p, _ = released_particles([rel], flow, np.random.default_rng(3), tr)
+    h = corner_mean(g, sloping(g.node_x))[p.face]
+    assert np.ptp(h) > 1.0  # the release spans columns of different depths
+    np.testing.assert_allclose(p.sigma, 1.0 / h, rtol=1e-12)
+    assert not np.allclose(p.sigma, 1.0 / sloping(1500.0), rtol=1e-3)
+
+
+def test_three_dimensional_runs_on_a_mesh_refuse_kz_from_the_file():
+    flow, _ = mesh_flow(sloping)
+    tr = Transport(dt=30.0, vertical=Vertical("file"))
+    with pytest.raises(InputError, match='diffusivity = "file": K_z profiles are not read from'):
+        released_particles([point(10)], flow, np.random.default_rng(3), tr)
+
+
+# ---------------------------------------------------------------------------------------------
+# Well mixed under a parabolic K_z (Visser 1997)
+
+
+def without_vertical_drift(monkeypatch):
+    """The twin's walk: the vertical step without its drift dK_z/dz."""
+    plain = vertical.column_params
+
+    def no_drift(*args, **kwargs):
+        params = plain(*args, **kwargs)
+        params[vertical.P_DRIFT] = 0.0
+        return params
+
+    monkeypatch.setattr(vertical, "column_params", no_drift)
+
+
+@pytest.mark.parametrize("drift", [True, False])
+def test_well_mixed_release_stays_well_mixed_on_a_mesh(drift, monkeypatch):
+    """Particles spread uniformly over the column, carried at 0.5 m/s over a bed sloping from
+    3.6 to 5.4 m, K_z parabolic with u* from Manning's n per face (0.030-0.032 m/s): after 3600 s
+    (1.3 to 2.2 mixing times 6 h / (κ u*)) their heights are still uniform, χ² over 20 bins of
+    2000 at the 5σ level. The twin without the drift dK_z/dz gathers them at the bed and the
+    surface and fails."""
+    if not drift:
+        without_vertical_drift(monkeypatch)
+    flow, _ = mesh_flow(sloping)
+    tr = Transport(
+        dt=30.0, dispersion=Dispersion(k1=1.0, k2=1.0), vertical=Vertical(manning_n=MANNING)
+    )
+    _, p = run(flow, tr, point(2000, start_height="column"), 3600.0)
+    assert np.all(p.status == IN_WATER)
+    counts = np.histogram(p.sigma, bins=20, range=(0.0, 1.0))[0]
+    pvalue = stats.chisquare(counts).pvalue
+    assert (pvalue > FIVE_SIGMA) == drift, pvalue
+
+
+# ---------------------------------------------------------------------------------------------
+# The depth mean of a 3-D run is the depth-averaged run
+
+
+@pytest.mark.parametrize("settling", [False, True])
+def test_neutral_three_dimensional_run_moves_as_the_depth_averaged_run(settling):
+    """With the depth-averaged velocity at every height a neutral 3-D release goes where the
+    depth-averaged release goes: centroid within 5 standard errors (σ_x / √n) after 3600 s (its
+    paths are in fact the same to the bit: the vertical step draws from a stream of its own).
+    The twin, a settling release over a depositing bed (w_s 5 mm/s, w_d 2 mm/s), leaves particles
+    behind on the bed and fails."""
+    flow, _ = mesh_flow(sloping)
+    k = Dispersion(k1=1.0, k2=1.0)
+    n, t = 2000, 3600.0
+    flat, flat_p = run(flow, Transport(dt=30.0, dispersion=k), point(n), t)
+    if settling:
+        rel = point(n, behaviour="settling", settling=(0.005,), start_height="column")
+        bed = Vertical(manning_n=MANNING, deposition_velocity=0.002)
+    else:
+        rel, bed = point(n, start_height="column"), Vertical(manning_n=MANNING)
+    deep, deep_p = run(flow, Transport(dt=30.0, dispersion=k, vertical=bed), rel, t)
+    # the centroid of all the mass, in the water and on the bed (equal masses)
+    se = float(np.std(flat_p.x, ddof=1)) / math.sqrt(n)
+    gap = abs(float(np.mean(deep_p.x)) - float(np.mean(flat_p.x)))
+    assert (gap < 5.0 * se) != settling, (gap, se)
+    if not settling:
+        assert float(flat.centroid_x[-1]) == pytest.approx(600.0 + SPEED * t, abs=5.0 * se)
+        np.testing.assert_array_equal(deep_p.x, flat_p.x)
+        np.testing.assert_array_equal(deep_p.y, flat_p.y)
+    else:
+        assert np.mean(deep_p.status == ON_BED) > 0.5
+
+
+# ---------------------------------------------------------------------------------------------
+# Deposition and settling with a constant K_z
+
+
+def level(x):
+    return np.full_like(np.asarray(x, dtype=np.float64), 2.0)  # m: a flat bed 2 m down
+
+
+@pytest.mark.parametrize("factor", [1.0, 1.0 / math.sqrt(math.pi)])
+def test_deposit_on_a_mesh_follows_the_first_order_law(factor):
+    """h = 2 m, K_z = 0.01 m2/s, w_d = 10⁻⁴ m/s (w_d h / K = 0.02) while the release drifts
+    across the mesh at 0.5 m/s with K = 1 m2/s: after h ln 2 / w_d (13 860 s) half the mass is
+    on the bed. 3000 particles: 5 binomial standard errors plus the gap between the first-order
+    law and the slab series (0.2 %). The twin, w_d off by 1/√π, fails."""
+    flow, _ = mesh_flow(level)
+    h, kz, wd = 2.0, 0.01, 1e-4
+    tr = Transport(
+        dt=10.0,
+        dispersion=Dispersion(k1=1.0, k2=1.0),
+        vertical=Vertical("constant", coefficient=kz, deposition_velocity=wd * factor),
+    )
+    n, t = 3000, 13860.0
+    ds, p = run(flow, tr, Release("point", np.array([[400.0, 1600.0]]), n), t)
+    on_bed = float(ds.budget_on_bed[-1] / ds.budget_released[-1])
+    assert np.all(p.sigma[p.status == ON_BED] == 0.0)
+    law = 1.0 - math.exp(-wd * t / h)
+    exact = 1.0 - slab_fraction_left(kz, h, wd, t)
+    tol = 5.0 * math.sqrt(law * (1.0 - law) / n) + abs(exact - law)
+    assert (abs(on_bed - law) < tol) == (factor == 1.0), (on_bed, law, tol)
+
+
+@pytest.mark.parametrize("sign", [1.0, -1.0])
+def test_settling_on_a_mesh_reaches_the_exponential_profile(sign):
+    """Settling at 2 mm/s in 10 m of water with K_z = 0.01 m2/s, released 2 m above the bed:
+    after 5000 s (5.4 times the slowest relaxation time 1 / (K π² / h² + w_s² / 4K)) the heights
+    follow exp(−w_s z / K), KS test of 3000 heights at the 5σ level; the twin, the profile of
+    the opposite sign, is refused."""
+    flow, _ = mesh_flow(lambda x: np.full_like(x, 10.0))
+    kz, ws = 0.01, 0.002
+    tr = Transport(
+        dt=5.0,
+        dispersion=Dispersion(k1=1.0, k2=1.0),
+        vertical=Vertical("constant", coefficient=kz),
+    )
+    rel = point(
+        3000, behaviour="settling", settling=(ws,), start_height="above_bed", height_above_bed=2.0
+    )
+    _, p = run(flow, tr, rel, 5000.0)
+    assert np.all(p.status == IN_WATER)
+    cdf = exponential_cdf(sign * kz / ws / 10.0)
+    assert (stats.kstest(p.sigma, cdf).pvalue > FIVE_SIGMA) == (sign > 0)
+
+
+def test_mesh_column_inputs_carry_face_depths_to_the_step():
+    """The window's column inputs on a mesh: depth and u* (nf, 1, nface), the faces' values."""
+    flow, g = mesh_flow(sloping)
+    window = flow.window(0.0, 0.0)
+    tr = Transport(dt=30.0, vertical=Vertical(manning_n=MANNING))
+    assert tr.vertical is not None
+    inputs = column.column_inputs(
+        mesh_kernel_inputs(flow, window, tr), flow, window, tr.vertical, 30.0
+    )
+    depth, ustar = inputs.column[0], inputs.column[1]
+    assert depth.shape == ustar.shape == (1, 1, g.nface)
+    np.testing.assert_allclose(depth[0, 0], corner_mean(g, sloping(g.node_x)), rtol=1e-12)
+    np.testing.assert_array_equal(ustar, column.cell_shear_velocity(flow, window, tr.vertical))
