@@ -8,9 +8,11 @@ Ser. 158, 275-281); the first-order law of deposition from a well-mixed column, 
 h) (common practice; the slab series of Carslaw & Jaeger 1959, Conduction of Heat in Solids,
 §3.11, from memory, bounds its gap); the exponential profile exp(−w_s z / K) of settling against
 constant diffusion (Rouse 1937 with K constant, from memory); the bed shear velocity
-u* = sqrt(C_d) |U| and u* = n |U| sqrt(g) / h^(1/6) (common practice). Tolerances: 5 binomial
+u* = sqrt(C_d) |U| and u* = n |U| sqrt(g) / h^(1/6) (common practice); for layered files, the
+logarithmic law of the wall and CF-1.8 Appendix D's ocean_sigma_coordinate. Tolerances: 5 binomial
 standard errors, 5 standard errors of a mean, χ² and Kolmogorov–Smirnov tests at the 5σ level;
-each check has a twin that fails.
+each check has a twin that fails (the twin of the compiled-vs-twin check is
+tests/test_vertical.py::test_vertical_twin_check_can_fail).
 
 The runs reuse the step's option sets that tests/test_vertical.py (parabolic K_z on a mesh) and
 tests/test_mesh_step.py (a depth-averaged mesh run) compile; the constant-K_z runs add one.
@@ -22,17 +24,18 @@ import math
 
 import numpy as np
 import pytest
-from mesh_files import jittered_mesh
+from mesh_files import jittered_mesh, write_ugrid
 from scipy import stats
 from test_vertical import exponential_cdf, slab_fraction_left
 
 from walkers.engine import vertical
-from walkers.engine.mesh_inputs import mesh_kernel_inputs
-from walkers.engine.state import IN_WATER, ON_BED
+from walkers.engine.mesh_inputs import locate_particles, mesh_kernel_inputs
+from walkers.engine.state import IN_WATER, ON_BED, ParticleState
 from walkers.errors import InputError
 from walkers.fields.mesh import MeshFlow, MeshVariable, build_geometry
 from walkers.fields.mesh_field import mesh_field
 from walkers.fields.mesh_open import coast_only
+from walkers.fields.netcdf.ugrid import open_mesh_flow
 from walkers.run import column
 from walkers.run.simulate import released_particles, simulate
 from walkers.scenario.config import Dispersion, OutputGrid, Release, Transport, Vertical
@@ -281,3 +284,221 @@ def test_mesh_column_inputs_carry_face_depths_to_the_step():
     assert depth.shape == ustar.shape == (1, 1, g.nface)
     np.testing.assert_allclose(depth[0, 0], corner_mean(g, sloping(g.node_x)), rtol=1e-12)
     np.testing.assert_array_equal(ustar, column.cell_shear_velocity(flow, window, tr.vertical))
+
+
+# ---------------------------------------------------------------------------------------------
+# Layered velocities on a mesh
+
+
+NL = 10  # equal sigma layers
+LEVELS = (np.arange(NL) + 0.5) / NL  # layer centres, fractions of the depth above the bed
+USTAR, Z0, KAPPA = 0.05, 0.002, 0.41  # m s-1, m, von Kármán's constant (common practice)
+
+
+def log_speed(sigma, h):
+    """The logarithmic law of the wall u(z) = (u*/κ) ln(z/z0) (e.g. Fischer et al. 1979, Mixing
+    in Inland and Coastal Waters, §5.1, from memory)."""
+    return USTAR / KAPPA * np.log(sigma * h / Z0)
+
+
+def layered_file(tmp_path, bed):
+    """A steady mesh file in NL equal sigma layers (CF-1.8 Appendix D, ocean_sigma_coordinate):
+    u of the log law of a 10 m column at each layer centre on the nodes, v = 0, the surface at
+    the datum and the bed ``bed(x)`` m below it on the nodes."""
+    x, y, faces = jittered_mesh(24, 16, CELL, jitter=40.0, seed=5)
+    sigma = -LEVELS[::-1]  # top layer first, as models write them
+    u = np.broadcast_to(log_speed(1.0 + sigma, 10.0)[None, :, None], (1, NL, x.size))
+    fields = {
+        "u": ("node", u),
+        "v": ("node", np.zeros_like(u)),
+        "eta": ("node", np.zeros((1, x.size))),
+        "bed": ("node", bed(x)[None, :]),
+    }
+    return write_ugrid(tmp_path / "layered.nc", x, y, faces, fields=fields, sigma=sigma)
+
+
+def test_layered_mesh_velocity_is_kept_on_its_levels(tmp_path):
+    """Opened for a 3-D run, a sigma-layered mesh file keeps u at the layer centres 1 + σ
+    (ascending from the bed), beside the thickness-weighted depth mean it always gives; the
+    run's summary says so. The twin: opened for a 2-D run it keeps no layers."""
+    path = layered_file(tmp_path, lambda x: np.full_like(x, 10.0))
+    deep = open_mesh_flow(path, column=True)
+    assert deep.layers is not None
+    np.testing.assert_allclose(deep.layers.levels, LEVELS, rtol=1e-12)
+    np.testing.assert_allclose(deep.layers.u.data[0, :, 0], log_speed(LEVELS, 10.0), rtol=1e-12)
+    flat = open_mesh_flow(path)
+    assert flat.layers is None
+    np.testing.assert_array_equal(deep.u.data, flat.u.data)
+    # equal layers: the depth mean is the plain mean of the layer values
+    np.testing.assert_allclose(flat.u.data, np.mean(log_speed(LEVELS, 10.0)), rtol=1e-12)
+    text = column.describe_vertical(Vertical("constant"), mesh_field(deep))
+    assert "velocity in 10 levels" in text
+    assert "depth mean" in column.describe_vertical(Vertical("constant"), mesh_field(flat))
+
+
+@pytest.mark.parametrize("layers", [True, False])
+def test_particles_at_the_layer_centres_travel_at_the_speed_of_their_height(tmp_path, layers):
+    """Releases held at each layer centre (K_z = 0, no horizontal dispersion) of a layered mesh
+    file travel at the log-law speed of their height, to 1e-6 (the float sum of 100 steps). The
+    twin, the same file opened without its layers (the depth mean at every height), does not."""
+    path = layered_file(tmp_path, lambda x: np.full_like(x, 10.0))
+    flow = mesh_field(open_mesh_flow(path, column=layers))
+    releases = [
+        Release(
+            "point",
+            np.array([[600.0, 1600.0]]),
+            30,
+            name=f"layer {k}",
+            start_height="above_bed",
+            height_above_bed=10.0 * s,
+        )
+        for k, s in enumerate(LEVELS)
+    ]
+    tr = Transport(
+        dt=20.0,
+        dispersion=Dispersion(k1=0.0, k2=0.0),
+        vertical=Vertical("constant", coefficient=0.0),
+    )
+    last = {}
+    simulate(
+        flow,
+        tr,
+        releases,
+        start=0.0,
+        end=2000.0,
+        output_interval=2000.0,
+        output_grid=GRID,
+        seed=3,
+        on_output=lambda rs: last.update(p=rs.particles.copy(), owner=rs.owner.copy()),
+    )
+    p, owner = last["p"], last["owner"]
+    speed = (p.x - 600.0) / 2000.0
+    expect = log_speed(LEVELS, 10.0)[owner]
+    assert np.allclose(speed, expect, rtol=1e-6, atol=0.0) == layers
+
+
+def test_compiled_step_equals_numpy_twin_with_layered_mesh_velocity():
+    """Layered node velocities (a shear growing with height, in time as well) sampled at each
+    particle's height on a mesh: the compiled step and its twin agree (status bitwise, positions
+    and heights to 1e-12), and differ from the run with the depth mean (the layers are used)."""
+    from walkers.engine import mover
+    from walkers.fields.base import WindowColumn
+
+    x, y, faces = jittered_mesh(24, 16, 64, jitter=12, seed=5)
+    g = build_geometry(x, y, faces, where="test")
+    node_depth = 2.0 + 0.004 * g.node_x
+    mesh = MeshFlow(
+        g,
+        np.array([0.0, 1800.0]),
+        "seconds since 2026-01-01T00:00:00Z",
+        "standard",
+        MeshVariable("node", np.full((2, g.nnode), 0.2)),
+        MeshVariable("node", np.full((2, g.nnode), 0.05)),
+        MeshVariable("node", node_depth[None]),
+        np.ones((1, g.nface), np.uint8),
+        coast_only(g),
+        source="test mesh",
+    )
+    flow = mesh_field(mesh)
+    tr = Transport(dt=30.0, dispersion=Dispersion(k1=1.0, k2=1.0))
+    inputs = mesh_kernel_inputs(flow, flow.window(0.0, 1800.0), tr)
+    levels = np.array([0.1, 0.3, 0.6, 0.9])
+    shear = np.array([0.0, 0.1, 0.25, 0.4])[None, :, None] * np.array([1.0, -0.5])[:, None, None]
+    u = np.ascontiguousarray(np.broadcast_to(0.2 + shear, (2, 4, g.nnode)).reshape(8, 1, -1))
+    v = np.ascontiguousarray(0.3 * u[::-1])
+    face_depth = corner_mean(g, node_depth)[None, None, :]
+    plain = mover.with_column(inputs, face_depth, 0.02, vertical.KZ_PARABOLIC, 0.0, 1e-3)
+    layered = mover.with_column(
+        inputs,
+        face_depth,
+        0.02,
+        vertical.KZ_PARABOLIC,
+        0.0,
+        1e-3,
+        layers=WindowColumn(levels, u, v),
+    )
+    rng = np.random.default_rng(6)
+    n = 800
+    a = ParticleState.from_arrays(
+        rng.uniform(10, 1500, n), rng.uniform(10, 1000, n), np.ones(n), rng.uniform(0, 600, n)
+    ).in_column(rng.uniform(0.0, 1.0, n), rng.choice([0.002, 0.0, -0.001], n))
+    locate_particles(flow, a)
+    b, c = a.copy(), a.copy()
+    mover.advance(a, layered, 0.0, 30.0, 60, 0, 9, stepper="fast")
+    mover.advance(b, layered, 0.0, 30.0, 60, 0, 9, stepper="reference")
+    mover.advance(c, plain, 0.0, 30.0, 60, 0, 9, stepper="fast")
+    np.testing.assert_array_equal(a.status, b.status)
+    np.testing.assert_allclose(a.sigma, b.sigma, rtol=0, atol=1e-12)
+    np.testing.assert_allclose(a.x, b.x, rtol=0, atol=1e-12 * 1500)
+    np.testing.assert_allclose(a.y, b.y, rtol=0, atol=1e-12 * 1500)
+    assert np.max(np.abs(a.x - c.x)) > 1.0
+
+
+@pytest.mark.parametrize("settling", [False, True])
+def test_layered_three_dimensional_run_moves_on_average_as_the_depth_averaged_run(
+    tmp_path, settling
+):
+    """A well-mixed neutral release under a parabolic K_z in the layered flow over a bed sloping
+    from 3.6 to 6.8 m: its mean displacement after 3600 s is that of the depth-averaged run of
+    the same file (for equal layers the depth mean of the profile, linear between the layer
+    centres and held beyond them, is the mean of the layer values, the reader's thickness-
+    weighted mean), within 5 standard errors of the mean of 2000 displacements. The twin, a
+    settling release over a depositing bed (w_s 5 mm/s, w_d 2 mm/s), lags and fails."""
+    path = layered_file(tmp_path, sloping)
+    deep_flow = mesh_field(open_mesh_flow(path, column=True))
+    flat_flow = mesh_field(open_mesh_flow(path))
+    k = Dispersion(k1=1.0, k2=1.0)
+    n, t = 2000, 3600.0
+    _, flat_p = run(flat_flow, Transport(dt=30.0, dispersion=k), point(n), t)
+    if settling:
+        rel = point(n, behaviour="settling", settling=(0.005,), start_height="column")
+        bed = Vertical(manning_n=MANNING, deposition_velocity=0.002)
+    else:
+        rel, bed = point(n, start_height="column"), Vertical(manning_n=MANNING)
+    _, deep_p = run(deep_flow, Transport(dt=30.0, dispersion=k, vertical=bed), rel, t)
+    se = float(np.std(deep_p.x, ddof=1)) / math.sqrt(n)
+    gap = abs(float(np.mean(deep_p.x)) - float(np.mean(flat_p.x)))
+    assert (gap < 5.0 * se) != settling, (gap, se)
+
+
+def test_inspect_of_a_mesh_scenario_describes_its_water_column(tmp_path):
+    """`walkers inspect case.toml` of a 3-D run on the layered mesh: K_z, the layered velocity,
+    and Visser's substeps per face: u* = n |U| sqrt(g) / h^(1/6) of the depth mean |U| (the mean
+    of the layer values) in 10 m, substeps of at most 0.01 h / (2 κ u*). The twin: the same
+    scenario without [vertical] is depth-averaged."""
+    from walkers.fields.scenario_flow import build_flow
+    from walkers.scenario.load import load_scenario
+
+    path = layered_file(tmp_path, lambda x: np.full_like(x, 10.0))
+    table = {
+        "run": {
+            "start": "2026-06-01T00:00:00Z",
+            "end": "2026-06-01T01:00:00Z",
+            "time_step": "60 s",
+            "output_interval": "30 min",
+        },
+        "flow": {"files": [str(path)]},
+        "dispersion": {"method": "constant", "longitudinal": "1 m2/s", "transverse": "1 m2/s"},
+        "vertical": {"diffusivity": "parabolic", "manning_n": MANNING},
+        "releases": [{"name": "r", "shape": "point", "x": "600 m", "y": "1600 m", "mass": "1 kg"}],
+        "output": {
+            "grid": {
+                "west": "100 m",
+                "east": "4700 m",
+                "south": "100 m",
+                "north": "3100 m",
+                "cell_size": "200 m",
+            }
+        },
+    }
+    text = {}
+    for name in ("deep", "flat"):
+        sc = load_scenario(table, base_dir=tmp_path)
+        text[name] = "\n".join(column.describe_scenario_column(sc, build_flow(sc.flow)))
+        del table["vertical"]
+    ustar = MANNING * np.mean(log_speed(LEVELS, 10.0)) * math.sqrt(9.81) / 10.0 ** (1 / 6)
+    substeps = math.ceil(60.0 / (0.01 * 10.0 / (2 * KAPPA * ustar)))
+    assert "Run: three-dimensional: parabolic K_z" in text["deep"]
+    assert "velocity in 10 levels (fractions of the depth 0.05, 0.15" in text["deep"]
+    assert f"up to {substeps} (Visser" in text["deep"]
+    assert text["flat"] == "Run: depth-averaged (no [vertical] section)"

@@ -16,8 +16,8 @@ A run is three-dimensional when its transport has a :class:`~walkers.scenario.co
 
 On an unstructured mesh a particle's column is its face: depth and u* are per face (a node depth
 or velocity is taken as the mean of the face's corners), used piecewise constant as a cell's on a
-grid. The horizontal velocity is the depth mean at every height: a mesh file's layers are
-averaged by the reader (layered velocities, w and K_z are not read from mesh files yet).
+grid. A layered mesh file's velocity is kept on its levels and sampled at each particle's
+height, as on grids; w and K_z are not read from mesh files yet.
 """
 
 from __future__ import annotations
@@ -237,13 +237,11 @@ def describe_vertical(vertical: Vertical, flow: FlowField) -> str:
     column = flow.attrs.get("column") or (
         "velocity: the depth mean at every height; vertical velocity: none (no vertical advection)"
     )
-    if is_mesh_flow(flow):
-        layers = flow.attrs.get("vertical")
+    if is_mesh_flow(flow) and not flow.attrs.get("column"):
         column = (
-            "velocity: the depth mean at every height ("
-            + (f"the mesh file's layers averaged: {layers}" if layers else "no layers in the file")
-            + "; layered velocities, w and K_z are not read from unstructured meshes yet); "
-            "vertical velocity: none (no vertical advection); K_z: none from the file"
+            "velocity: the depth mean at every height (no layers kept from the mesh file); "
+            "vertical velocity: none (no vertical advection); K_z: none (not read from mesh "
+            "files yet)"
         )
     return f"{vertical.describe()}; from the flow file: {column}"
 
