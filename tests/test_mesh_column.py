@@ -480,7 +480,16 @@ def test_inspect_of_a_mesh_scenario_describes_its_water_column(tmp_path):
         "flow": {"files": [str(path)]},
         "dispersion": {"method": "constant", "longitudinal": "1 m2/s", "transverse": "1 m2/s"},
         "vertical": {"diffusivity": "parabolic", "manning_n": MANNING},
-        "releases": [{"name": "r", "shape": "point", "x": "600 m", "y": "1600 m", "mass": "1 kg"}],
+        "releases": [
+            {
+                "name": "r",
+                "shape": "point",
+                "x": "600 m",
+                "y": "1600 m",
+                "mass": "1 kg",
+                "particles": 10,
+            }
+        ],
         "output": {
             "grid": {
                 "west": "100 m",
@@ -495,7 +504,7 @@ def test_inspect_of_a_mesh_scenario_describes_its_water_column(tmp_path):
     for name in ("deep", "flat"):
         sc = load_scenario(table, base_dir=tmp_path)
         text[name] = "\n".join(column.describe_scenario_column(sc, build_flow(sc.flow)))
-        del table["vertical"]
+        table.pop("vertical", None)
     ustar = MANNING * np.mean(log_speed(LEVELS, 10.0)) * math.sqrt(9.81) / 10.0 ** (1 / 6)
     substeps = math.ceil(60.0 / (0.01 * 10.0 / (2 * KAPPA * ustar)))
     assert "Run: three-dimensional: parabolic K_z" in text["deep"]
