@@ -511,3 +511,35 @@ def test_inspect_of_a_mesh_scenario_describes_its_water_column(tmp_path):
     assert "velocity in 10 levels (fractions of the depth 0.05, 0.15" in text["deep"]
     assert f"up to {substeps} (Visser" in text["deep"]
     assert text["flat"] == "Run: depth-averaged (no [vertical] section)"
+
+
+def test_layers_of_a_lon_lat_mesh_are_turned_onto_the_grid_axes(tmp_path):
+    """On a lon/lat mesh the kept layers are turned from east/north onto the local projection's
+    axes like the depth means: the mean of two equal sigma layers equals the depth mean and each
+    layer keeps its speed (to 1e-12). The twin: the file's east/north values unturned differ."""
+    x, y, faces = jittered_mesh(24, 16, CELL, jitter=40.0, seed=5)
+    u = np.broadcast_to(np.array([1.0, 2.0])[None, :, None], (1, 2, x.size))
+    fields = {
+        "u": ("node", u),
+        "v": ("node", 0.5 * u),
+        "eta": ("node", np.zeros((1, x.size))),
+        "bed": ("node", np.full((1, x.size), 5.0)),
+    }
+    path = write_ugrid(
+        tmp_path / "geo.nc",
+        -4.5 + x * 1e-5,
+        52.0 + y * 1e-5,
+        faces,
+        fields=fields,
+        sigma=np.array([-0.25, -0.75]),
+        geographic=True,
+    )
+    flow = open_mesh_flow(path, column=True)
+    assert flow.layers is not None
+    lu, lv = flow.layers.u.data, flow.layers.v.data
+    np.testing.assert_allclose(0.5 * (lu[:, 0] + lu[:, 1]), flow.u.data, rtol=0, atol=1e-12)
+    np.testing.assert_allclose(0.5 * (lv[:, 0] + lv[:, 1]), flow.v.data, rtol=0, atol=1e-12)
+    speed = np.hypot(lu[0], lv[0])  # bottom layer first (level 0.25): 2 m/s east, 1 m/s north
+    np.testing.assert_allclose(speed[0], math.hypot(2.0, 1.0), rtol=1e-12)
+    np.testing.assert_allclose(speed[1], math.hypot(1.0, 0.5), rtol=1e-12)
+    assert not np.allclose(lu[0, 0], 2.0, rtol=0, atol=1e-12)
