@@ -11,8 +11,8 @@ constant diffusion (Rouse 1937 with K constant, from memory); the bed shear velo
 u* = sqrt(C_d) |U| and u* = n |U| sqrt(g) / h^(1/6) (common practice); for layered files, the
 logarithmic law of the wall and CF-1.8 Appendix D's ocean_sigma_coordinate. Tolerances: 5 binomial
 standard errors, 5 standard errors of a mean, χ² and Kolmogorov–Smirnov tests at the 5σ level;
-each check has a twin that fails (the twin of the compiled-vs-twin check is
-tests/test_vertical.py::test_vertical_twin_check_can_fail).
+each check has a twin that fails. The compiled step against its numpy twin on a mesh, with and
+without layered velocities, is in tests/test_vertical.py.
 
 The runs reuse the step's option sets that tests/test_vertical.py (parabolic K_z on a mesh) and
 tests/test_mesh_step.py (a depth-averaged mesh run) compile; the constant-K_z runs add one.
@@ -29,8 +29,8 @@ from scipy import stats
 from test_vertical import exponential_cdf, slab_fraction_left
 
 from walkers.engine import vertical
-from walkers.engine.mesh_inputs import locate_particles, mesh_kernel_inputs
-from walkers.engine.state import IN_WATER, ON_BED, ParticleState
+from walkers.engine.mesh_inputs import mesh_kernel_inputs
+from walkers.engine.state import IN_WATER, ON_BED
 from walkers.errors import InputError
 from walkers.fields.mesh import MeshFlow, MeshVariable, build_geometry
 from walkers.fields.mesh_field import mesh_field
@@ -189,6 +189,22 @@ def test_well_mixed_release_stays_well_mixed_on_a_mesh(drift, monkeypatch):
 # The depth mean of a 3-D run is the depth-averaged run
 
 
+def flat_and_deep(flat_flow, deep_flow, settling, n, t):
+    """A depth-averaged run on ``flat_flow`` and a 3-D run on ``deep_flow`` of n particles from
+    the same point for t seconds, K = 1 m2/s, parabolic K_z: a neutral release spread over the
+    column, or (``settling``) one settling at 5 mm/s over a bed depositing at 2 mm/s. Returns
+    (2-D result, 2-D particles, 3-D particles)."""
+    k = Dispersion(k1=1.0, k2=1.0)
+    flat, flat_p = run(flat_flow, Transport(dt=30.0, dispersion=k), point(n), t)
+    if settling:
+        rel = point(n, behaviour="settling", settling=(0.005,), start_height="column")
+        bed = Vertical(manning_n=MANNING, deposition_velocity=0.002)
+    else:
+        rel, bed = point(n, start_height="column"), Vertical(manning_n=MANNING)
+    _, deep_p = run(deep_flow, Transport(dt=30.0, dispersion=k, vertical=bed), rel, t)
+    return flat, flat_p, deep_p
+
+
 @pytest.mark.parametrize("settling", [False, True])
 def test_neutral_three_dimensional_run_moves_as_the_depth_averaged_run(settling):
     """With the depth-averaged velocity at every height a neutral 3-D release goes where the
@@ -197,15 +213,8 @@ def test_neutral_three_dimensional_run_moves_as_the_depth_averaged_run(settling)
     The twin, a settling release over a depositing bed (w_s 5 mm/s, w_d 2 mm/s), leaves particles
     behind on the bed and fails."""
     flow, _ = mesh_flow(sloping)
-    k = Dispersion(k1=1.0, k2=1.0)
     n, t = 2000, 3600.0
-    flat, flat_p = run(flow, Transport(dt=30.0, dispersion=k), point(n), t)
-    if settling:
-        rel = point(n, behaviour="settling", settling=(0.005,), start_height="column")
-        bed = Vertical(manning_n=MANNING, deposition_velocity=0.002)
-    else:
-        rel, bed = point(n, start_height="column"), Vertical(manning_n=MANNING)
-    deep, deep_p = run(flow, Transport(dt=30.0, dispersion=k, vertical=bed), rel, t)
+    flat, flat_p, deep_p = flat_and_deep(flow, flow, settling, n, t)
     # the centroid of all the mass, in the water and on the bed (equal masses)
     se = float(np.std(flat_p.x, ddof=1)) / math.sqrt(n)
     gap = abs(float(np.mean(deep_p.x)) - float(np.mean(flat_p.x)))
@@ -377,63 +386,6 @@ def test_particles_at_the_layer_centres_travel_at_the_speed_of_their_height(tmp_
     assert np.allclose(speed, expect, rtol=1e-6, atol=0.0) == layers
 
 
-def test_compiled_step_equals_numpy_twin_with_layered_mesh_velocity():
-    """Layered node velocities (a shear growing with height, in time as well) sampled at each
-    particle's height on a mesh: the compiled step and its twin agree (status bitwise, positions
-    and heights to 1e-12), and differ from the run with the depth mean (the layers are used)."""
-    from walkers.engine import mover
-    from walkers.fields.base import WindowColumn
-
-    x, y, faces = jittered_mesh(24, 16, 64, jitter=12, seed=5)
-    g = build_geometry(x, y, faces, where="test")
-    node_depth = 2.0 + 0.004 * g.node_x
-    mesh = MeshFlow(
-        g,
-        np.array([0.0, 1800.0]),
-        "seconds since 2026-01-01T00:00:00Z",
-        "standard",
-        MeshVariable("node", np.full((2, g.nnode), 0.2)),
-        MeshVariable("node", np.full((2, g.nnode), 0.05)),
-        MeshVariable("node", node_depth[None]),
-        np.ones((1, g.nface), np.uint8),
-        coast_only(g),
-        source="test mesh",
-    )
-    flow = mesh_field(mesh)
-    tr = Transport(dt=30.0, dispersion=Dispersion(k1=1.0, k2=1.0))
-    inputs = mesh_kernel_inputs(flow, flow.window(0.0, 1800.0), tr)
-    levels = np.array([0.1, 0.3, 0.6, 0.9])
-    shear = np.array([0.0, 0.1, 0.25, 0.4])[None, :, None] * np.array([1.0, -0.5])[:, None, None]
-    u = np.ascontiguousarray(np.broadcast_to(0.2 + shear, (2, 4, g.nnode)).reshape(8, 1, -1))
-    v = np.ascontiguousarray(0.3 * u[::-1])
-    face_depth = corner_mean(g, node_depth)[None, None, :]
-    plain = mover.with_column(inputs, face_depth, 0.02, vertical.KZ_PARABOLIC, 0.0, 1e-3)
-    layered = mover.with_column(
-        inputs,
-        face_depth,
-        0.02,
-        vertical.KZ_PARABOLIC,
-        0.0,
-        1e-3,
-        layers=WindowColumn(levels, u, v),
-    )
-    rng = np.random.default_rng(6)
-    n = 800
-    a = ParticleState.from_arrays(
-        rng.uniform(10, 1500, n), rng.uniform(10, 1000, n), np.ones(n), rng.uniform(0, 600, n)
-    ).in_column(rng.uniform(0.0, 1.0, n), rng.choice([0.002, 0.0, -0.001], n))
-    locate_particles(flow, a)
-    b, c = a.copy(), a.copy()
-    mover.advance(a, layered, 0.0, 30.0, 60, 0, 9, stepper="fast")
-    mover.advance(b, layered, 0.0, 30.0, 60, 0, 9, stepper="reference")
-    mover.advance(c, plain, 0.0, 30.0, 60, 0, 9, stepper="fast")
-    np.testing.assert_array_equal(a.status, b.status)
-    np.testing.assert_allclose(a.sigma, b.sigma, rtol=0, atol=1e-12)
-    np.testing.assert_allclose(a.x, b.x, rtol=0, atol=1e-12 * 1500)
-    np.testing.assert_allclose(a.y, b.y, rtol=0, atol=1e-12 * 1500)
-    assert np.max(np.abs(a.x - c.x)) > 1.0
-
-
 @pytest.mark.parametrize("settling", [False, True])
 def test_layered_three_dimensional_run_moves_on_average_as_the_depth_averaged_run(
     tmp_path, settling
@@ -447,15 +399,8 @@ def test_layered_three_dimensional_run_moves_on_average_as_the_depth_averaged_ru
     path = layered_file(tmp_path, sloping)
     deep_flow = mesh_field(open_mesh_flow(path, column=True))
     flat_flow = mesh_field(open_mesh_flow(path))
-    k = Dispersion(k1=1.0, k2=1.0)
     n, t = 2000, 3600.0
-    _, flat_p = run(flat_flow, Transport(dt=30.0, dispersion=k), point(n), t)
-    if settling:
-        rel = point(n, behaviour="settling", settling=(0.005,), start_height="column")
-        bed = Vertical(manning_n=MANNING, deposition_velocity=0.002)
-    else:
-        rel, bed = point(n, start_height="column"), Vertical(manning_n=MANNING)
-    _, deep_p = run(deep_flow, Transport(dt=30.0, dispersion=k, vertical=bed), rel, t)
+    _, flat_p, deep_p = flat_and_deep(flat_flow, deep_flow, settling, n, t)
     se = float(np.std(deep_p.x, ddof=1)) / math.sqrt(n)
     gap = abs(float(np.mean(deep_p.x)) - float(np.mean(flat_p.x)))
     assert (gap < 5.0 * se) != settling, (gap, se)
