@@ -27,6 +27,7 @@ LONGEST_FIRST = (
     "test_curvilinear.py",
     "test_attribution.py",
     "test_vertical_runs.py",
+    "test_mesh_column.py",
     "test_bad_inputs.py",
 )
 

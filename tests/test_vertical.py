@@ -371,12 +371,16 @@ def test_bad_vertical_settings_are_refused_with_the_key_named():
         state.in_column(0.5, np.nan)
 
 
-def test_compiled_vertical_step_equals_numpy_twin_on_a_mesh():
+@pytest.mark.parametrize("layered", [False, True])
+def test_compiled_vertical_step_equals_numpy_twin_on_a_mesh(layered):
     """On an unstructured mesh (a particle's column is its face; depth and u* per face, the
-    mean of the face's node depths) the compiled step and its twin agree, status bitwise."""
+    mean of the face's node depths) the compiled step and its twin agree, status bitwise; also
+    with layered node velocities (a shear growing with height, in time as well) sampled at each
+    particle's height, which then differ from the depth-mean run (the layers are used)."""
     from mesh_files import jittered_mesh
 
     from walkers.engine.mesh_inputs import locate_particles, mesh_kernel_inputs
+    from walkers.fields.base import WindowColumn
     from walkers.fields.mesh import MeshFlow, MeshVariable, build_geometry
     from walkers.fields.mesh_field import mesh_field
     from walkers.fields.mesh_open import coast_only
@@ -386,11 +390,11 @@ def test_compiled_vertical_step_equals_numpy_twin_on_a_mesh():
     node_depth = 2.0 + 0.004 * g.node_x
     mesh = MeshFlow(
         g,
-        np.array([0.0]),
+        np.array([0.0, 1800.0]),
         "seconds since 2026-01-01T00:00:00Z",
         "standard",
-        MeshVariable("node", np.full((1, g.nnode), 0.2)),
-        MeshVariable("node", np.full((1, g.nnode), 0.05)),
+        MeshVariable("node", np.full((2, g.nnode), 0.2)),
+        MeshVariable("node", np.full((2, g.nnode), 0.05)),
         MeshVariable("node", node_depth[None]),
         np.ones((1, g.nface), np.uint8),
         coast_only(g),
@@ -402,17 +406,33 @@ def test_compiled_vertical_step_equals_numpy_twin_on_a_mesh():
     face_depth = np.where(corners, node_depth[np.maximum(g.face_nodes, 0)], 0.0).sum(1)
     face_depth = (face_depth / corners.sum(1))[None, None, :]
     inputs = mesh_kernel_inputs(flow, flow.window(0.0, 1800.0), tr)
-    inputs = mover.with_column(inputs, face_depth, 0.02, vertical.KZ_PARABOLIC, 0.0, 1e-3)
+    plain = mover.with_column(inputs, face_depth, 0.02, vertical.KZ_PARABOLIC, 0.0, 1e-3)
+    if layered:
+        shear = np.array([1.0, -0.5])[:, None] * np.array([0.0, 0.1, 0.25, 0.4])[None, :]
+        u = np.broadcast_to(0.2 + shear[:, :, None, None], (2, 4, 1, g.nnode)).reshape(8, 1, -1)
+        u = np.ascontiguousarray(u)
+        layers = WindowColumn(
+            np.array([0.1, 0.3, 0.6, 0.9]), u, np.ascontiguousarray(0.3 * u[::-1])
+        )
+        inputs = mover.with_column(
+            inputs, face_depth, 0.02, vertical.KZ_PARABOLIC, 0.0, 1e-3, layers=layers
+        )
+    else:
+        inputs = plain
     rng = np.random.default_rng(6)
     n = 800
     a = ParticleState.from_arrays(
         rng.uniform(10, 1500, n), rng.uniform(10, 1000, n), np.ones(n), rng.uniform(0, 600, n)
     ).in_column(rng.uniform(0.0, 1.0, n), rng.choice([0.002, 0.0, -0.001], n))
     locate_particles(flow, a)
-    b = a.copy()
+    b, c = a.copy(), a.copy()
     mover.advance(a, inputs, 0.0, 30.0, 60, 0, 9, stepper="fast")
     mover.advance(b, inputs, 0.0, 30.0, 60, 0, 9, stepper="reference")
     np.testing.assert_array_equal(a.status, b.status)
     assert {IN_WATER, ON_BED} <= set(np.unique(a.status))
     np.testing.assert_allclose(a.sigma, b.sigma, rtol=0, atol=1e-12)
     np.testing.assert_allclose(a.x, b.x, rtol=0, atol=1e-12 * 1500)
+    np.testing.assert_allclose(a.y, b.y, rtol=0, atol=1e-12 * 1500)
+    if layered:
+        mover.advance(c, plain, 0.0, 30.0, 60, 0, 9, stepper="fast")
+        assert np.max(np.abs(a.x - c.x)) > 1.0

@@ -683,29 +683,41 @@ def frame_value(arr, it, wt, n):
 
 
 @nb.njit(**INLINE)
-def mesh_velocity(node_x, node_y, face_nodes, U, V, it, wt, f, px, py, w, on_nodes):
+def mesh_value(arr, lay, it, wt, n):
+    """Value n of a mesh variable at time (it, wt): of (nf, 1, n) frames (:func:`frame_value`),
+    or, with layers (lay = (nl, k, wz), nl > 1), of layered frames (nf nl or nl, 1, n) in layer
+    k with weight wz towards k + 1 (:func:`layer_bilinear` at one point)."""
+    if lay[0] > 1:
+        return layer_bilinear(arr, lay[0], it, wt, n, 0, 0.0, 0.0, lay[1], lay[2])
+    return frame_value(arr, it, wt, n)
+
+
+@nb.njit(**INLINE)
+def mesh_velocity(node_x, node_y, face_nodes, U, V, it, wt, f, px, py, w, on_nodes, lay):
     """(u, v) in m s-1 at p in face f of a mesh: node values interpolated with the corner
     weights (barycentric or bilinear, ``meshwalk.face_weights``, written into w), or the face's
-    own value (piecewise constant)."""
+    own value (piecewise constant); in the particle's layer lay (:func:`mesh_value`)."""
     if not on_nodes:
-        return frame_value(U, it, wt, f), frame_value(V, it, wt, f)
+        return mesh_value(U, lay, it, wt, f), mesh_value(V, lay, it, wt, f)
     meshwalk.face_weights(node_x, node_y, face_nodes, f, px, py, w)
     u = 0.0
     v = 0.0
     for c in range(meshwalk.corner_count(face_nodes, f)):
         node = face_nodes[f, c]
-        u += w[c] * frame_value(U, it, wt, node)
-        v += w[c] * frame_value(V, it, wt, node)
+        u += w[c] * mesh_value(U, lay, it, wt, node)
+        v += w[c] * mesh_value(V, lay, it, wt, node)
     return u, v
 
 
 @nb.njit(**JIT)
-def mesh_velocity_at(node_x, node_y, face_nodes, neighbours, U, V, it, wt, f, px, py, w, on_nodes):
+def mesh_velocity_at(
+    node_x, node_y, face_nodes, neighbours, U, V, it, wt, f, px, py, w, on_nodes, lay
+):
     """:func:`mesh_velocity` at a point found by walking from face f (an RK4 stage point; one
     outside the mesh is evaluated with the weights of f, extrapolated)."""
     g = meshwalk.walk_to_face(node_x, node_y, face_nodes, neighbours, f, px, py)
     return mesh_velocity(
-        node_x, node_y, face_nodes, U, V, it, wt, g if g >= 0 else f, px, py, w, on_nodes
+        node_x, node_y, face_nodes, U, V, it, wt, g if g >= 0 else f, px, py, w, on_nodes, lay
     )
 
 
@@ -727,11 +739,11 @@ def layered_velocity(ux, uy, U, vx, vy, V, inv, shared, it, wt, x, y, lay):
 def stage_velocity(mesh, on_nodes, shared, grid, topo, U, V, it, wt, f, x, y, w, lay):
     """(u, v) at an RK4 stage point (x, y): on the lattice's velocity axes (``grid``; in the
     particle's layer lay = (nl, k, wz) when the velocity is layered, nl > 1), or on a mesh by
-    walking from face f (``topo``; :func:`mesh_velocity_at`)."""
+    walking from face f (``topo``; :func:`mesh_velocity_at`, in the particle's layer too)."""
     ux, uy, vx, vy, invu, node_x, node_y = grid
     if mesh:
         return mesh_velocity_at(
-            node_x, node_y, topo[0], topo[1], U, V, it, wt, f, x, y, w, on_nodes
+            node_x, node_y, topo[0], topo[1], U, V, it, wt, f, x, y, w, on_nodes, lay
         )
     if lay[0] > 1:
         return layered_velocity(ux, uy, U, vx, vy, V, invu, shared, it, wt, x, y, lay)
@@ -988,7 +1000,7 @@ def compiled_mover(
                     jc, wyc = locate(cy, invc[3], py)
                     if mesh:
                         u1, v1 = mesh_velocity(
-                            xe, ye, face_nodes, U, V, it, wt, pi, px, py, w4, on_nodes
+                            xe, ye, face_nodes, U, V, it, wt, pi, px, py, w4, on_nodes, lay
                         )
                     else:
                         if centred:

@@ -126,6 +126,32 @@ def mesh_kernel_inputs(flow: FlowField, window: FlowWindow, transport: Transport
     )
 
 
+def face_values(flow: FlowField, location: str, values: np.ndarray) -> np.ndarray:
+    """(nf, 1, nface) face values of (nf, 1, n) values on the mesh's nodes or faces: the mean of
+    each face's corners (the value of the linear or bilinear interpolant at its parametric
+    centre) for node values, the values themselves for face values."""
+    if location != NODE:
+        return np.ascontiguousarray(values, dtype=np.float64)
+    g = flow.attrs["mesh"].geometry
+    return np.ascontiguousarray(g.face_mean_of_nodes(values[:, 0, :])[:, None, :])
+
+
+def column_depths(flow: FlowField, depth: np.ndarray) -> np.ndarray:
+    """The water depth (m) of each face's column, (nf, 1, nface), from depth frames (nf, 1, n):
+    the depth of the three-dimensional step, which uses it piecewise constant per face (as it
+    uses a cell's depth on a grid)."""
+    return face_values(flow, flow.attrs["mesh"].depth.location, depth)
+
+
+def face_speeds(flow: FlowField, window: FlowWindow) -> np.ndarray:
+    """The depth-averaged speed (m s-1) on each face for each frame of the window, (nf, 1,
+    nface): |(u, v)| of the face's velocity (the corner means of node velocities)."""
+    mesh: MeshFlow = flow.attrs["mesh"]
+    u = face_values(flow, mesh.u.location, window.u)
+    v = face_values(flow, mesh.v.location, window.v)
+    return np.hypot(u, v)
+
+
 def locate_particles(flow: FlowField, state: ParticleState, what: str = "particle") -> None:
     """Each particle's face (a k-d tree on face centroids, then the walk) into ``state.face``;
     InputError naming ``what`` if one lies outside the mesh."""

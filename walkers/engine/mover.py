@@ -508,6 +508,7 @@ def column_inputs(
     settings: Any,
     ustar: np.ndarray | float,
     dt: float,
+    depth: np.ndarray | None = None,
 ) -> KernelInputs:
     """The kernel inputs of a window in three dimensions: the call a run makes per window.
 
@@ -516,7 +517,9 @@ def column_inputs(
     ``critical_shear_stress`` (Pa; None: no resuspension), ``erosion_rate`` (s-1),
     ``water_density`` (kg m-3), the bed roughness ``manning_n`` or ``drag_coefficient`` of the
     law of the wall below the lowest layer centre, ``vertical.bed_log_law``); ustar : u* frames
-    on the cells (m s-1); dt : the step (s).
+    on the cells (m s-1); dt : the step (s); depth : the columns' depth frames (m; None:
+    ``window.depth``, the cells'; on a mesh the faces', (nf or 1, 1, nface),
+    ``mesh_inputs.column_depths``).
     The window's layered velocities, w and K_z (``window.column``, kept when the flow was
     opened with ``column=True``) are used where the flow has them.
     """
@@ -534,7 +537,7 @@ def column_inputs(
     tau_c = settings.critical_shear_stress
     return with_column(
         inputs,
-        window.depth,
+        window.depth if depth is None else depth,
         ustar,
         mode,
         float(settings.coefficient or 0.0),

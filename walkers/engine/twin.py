@@ -228,11 +228,34 @@ def _frame_value(arr, it, wt, n):
     return np.where(wt > 0.0, f + wt * (arr[np.minimum(it + 1, arr.shape[0] - 1), 0, n] - f), f)
 
 
-def _mesh_velocity(flow, mesh_t, on_nodes, it, wt, faces, x, y):
-    """Twin of ``kernels.mesh_velocity`` (node values with the corner weights, or per face)."""
+def _mesh_value(arr, lay, it, wt, n):
+    """Twin of ``kernels.mesh_value``: values n of (nf, 1, n) frames, or of layered frames
+    (nf nl or nl, 1, n) in the layers of lay = (nl, k, wz) (arrays k, wz; wz < 0: towards 0
+    below the lowest layer centre, as ``_sample``)."""
+    nl, k, wz = lay
+    if nl == 1:
+        return _frame_value(arr, it, wt, n)
+    top = arr.shape[0] - 1
+    if arr.shape[0] == nl:
+        it, wt = np.zeros_like(it), np.zeros_like(wt)
+
+    def in_time(q):
+        f0 = np.minimum(it * nl + k + q, top)
+        f = arr[f0, 0, n]
+        g = arr[np.minimum(f0 + nl, top), 0, n]
+        return np.where(wt > 0.0, f + wt * (g - f), f)
+
+    out = in_time(0)
+    out = np.where(wz > 0.0, out + wz * (in_time(1) - out), out)
+    return np.where(wz < 0.0, out * (1.0 + wz), out)
+
+
+def _mesh_velocity(flow, mesh_t, on_nodes, it, wt, faces, x, y, lay):
+    """Twin of ``kernels.mesh_velocity`` (node values with the corner weights, or per face; in
+    the particles' layers lay)."""
     U, V = flow[2], flow[5]
     if not on_nodes:
-        return _frame_value(U, it, wt, faces), _frame_value(V, it, wt, faces)
+        return _mesh_value(U, lay, it, wt, faces), _mesh_value(V, lay, it, wt, faces)
     node_x, node_y, face_nodes = mesh_t
     w = meshwalk_twin.face_weights(node_x, node_y, face_nodes, faces, x, y)
     u = np.zeros(x.size)
@@ -241,23 +264,24 @@ def _mesh_velocity(flow, mesh_t, on_nodes, it, wt, faces, x, y):
         node = face_nodes[faces, c]
         present = node >= 0
         safe = np.where(present, node, 0)
-        u = np.where(present, u + w[:, c] * _frame_value(U, it, wt, safe), u)
-        v = np.where(present, v + w[:, c] * _frame_value(V, it, wt, safe), v)
+        u = np.where(present, u + w[:, c] * _mesh_value(U, lay, it, wt, safe), u)
+        v = np.where(present, v + w[:, c] * _mesh_value(V, lay, it, wt, safe), v)
     return u, v
 
 
-def _mesh_advect(flow, mesh_t, neighbours, on_nodes, times, scheme, x, y, t, h, faces):
+def _mesh_advect(flow, mesh_t, neighbours, on_nodes, times, scheme, x, y, t, h, faces, lay):
     """Twin of the advective part of the kernel's step on a mesh (Euler or RK4, the stage
-    points located by walking from the particle's face)."""
+    points located by walking from the particle's face; in the particles' layers lay)."""
     node_x, node_y, face_nodes = mesh_t
 
     def at(tt, xx, yy, start):
         it, wt = _time_weight(times, tt)
         g = meshwalk_twin.locate_points(node_x, node_y, face_nodes, neighbours, start, xx, yy)
-        return _mesh_velocity(flow, mesh_t, on_nodes, it, wt, np.where(g >= 0, g, start), xx, yy)
+        found = np.where(g >= 0, g, start)
+        return _mesh_velocity(flow, mesh_t, on_nodes, it, wt, found, xx, yy, lay)
 
     it, wt = _time_weight(times, t)
-    u1, v1 = _mesh_velocity(flow, mesh_t, on_nodes, it, wt, faces, x, y)
+    u1, v1 = _mesh_velocity(flow, mesh_t, on_nodes, it, wt, faces, x, y, lay)
     if scheme == 0:
         return u1 * h, v1 * h, u1, v1
     u2, v2 = at(t + 0.5 * h, x + 0.5 * h * u1, y + 0.5 * h * v1, faces)
@@ -438,25 +462,21 @@ def advance(
         if act.size == 0:
             continue
         streams = streams_all[act]
+        lay = (1, None, None)
+        if column is not None and column[5].shape[0] > 1:
+            # the particles' columns: the face on a mesh (row 0), the cell on a lattice
+            cj = np.zeros(act.size, np.int64) if mesh else _cell(ye, py)
+            ci = faces_all[act] if mesh else _cell(xe, px)
+            weights = column_twin.layer_weight(
+                column[5], column[0][act], column[4], column[2], it, wt, cj, ci
+            )
+            lay = (column[5].shape[0], *weights)
         if mesh:
             face = faces_all[act]
             ax_, ay_, u_start, v_start = _mesh_advect(
-                flow, mesh_t, neighbours, mesh == 1, times, scheme, px, py, tstart, h, face
+                flow, mesh_t, neighbours, mesh == 1, times, scheme, px, py, tstart, h, face, lay
             )
         else:
-            lay = (1, None, None)
-            if column is not None and column[5].shape[0] > 1:
-                weights = column_twin.layer_weight(
-                    column[5],
-                    column[0][act],
-                    column[4],
-                    column[2],
-                    it,
-                    wt,
-                    _cell(ye, py),
-                    _cell(xe, px),
-                )
-                lay = (column[5].shape[0], *weights)
             ax_, ay_ = _advect(flow, times, scheme, geographic, px, py, tstart, h, lay)
         if kconst[0] >= 0.0:
             k1 = np.full(act.size, kconst[0])

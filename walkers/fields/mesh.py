@@ -150,6 +150,8 @@ class MeshFlow:
     wet : (nt or 1, nface) uint8, 1 where the face holds water (dry faces are walls).
     open_boundaries : the named open boundaries (:class:`walkers.fields.mesh_open.OpenBoundaries`;
         none, every boundary edge coast, unless the file or the caller names some).
+    layers : the layered velocity of a layered file read for a three-dimensional run
+        (:class:`MeshLayers`); None otherwise (u and v are always the depth means).
     """
 
     geometry: MeshGeometry
@@ -163,10 +165,25 @@ class MeshFlow:
     open_boundaries: OpenBoundaries
     source: str = ""
     attrs: dict[str, Any] = field(default_factory=dict)
+    layers: MeshLayers | None = None
 
     @property
     def steady(self) -> bool:
         return int(self.times.size) == 1
+
+
+@dataclass
+class MeshLayers:
+    """Layered horizontal velocity of a mesh flow, kept for three-dimensional runs.
+
+    levels : (nl,) heights of the layers' values as fractions of the water depth above the bed
+        (0 bed, 1 surface), ascending (:func:`walkers.fields.netcdf.column.on_levels`).
+    u, v : m s-1, data (frames, nl, n) on the location of the depth-averaged u and v.
+    """
+
+    levels: np.ndarray
+    u: MeshVariable
+    v: MeshVariable
 
 
 # ----------------------------------------------------------------------------------------------

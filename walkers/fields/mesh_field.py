@@ -14,7 +14,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from walkers.fields.base import FlowField, GriddedVariable
+from walkers.fields.base import ColumnFields, FlowField, GriddedVariable
 from walkers.fields.mesh import NODE, MeshFlow, MeshVariable
 
 
@@ -143,7 +143,9 @@ def _variable(var: MeshVariable, units: str) -> GriddedVariable:
 
 def mesh_field(flow: MeshFlow) -> FlowField:
     """The mesh flow as a :class:`FlowField` for the run stage (variables over nodes or faces as
-    ``(frames, 1, n)``; ``grid`` its :class:`MeshKind`; ``attrs["mesh"]`` the mesh flow)."""
+    ``(frames, 1, n)``; ``grid`` its :class:`MeshKind`; ``attrs["mesh"]`` the mesh flow; a
+    layered velocity kept for a three-dimensional run as its ``column``, ``(frames, levels, 1,
+    n)``, described in ``attrs["column"]``)."""
     wet = np.asarray(flow.wet, dtype=np.float64)[:, None, :]
     kind = MeshKind(flow)
     crs = flow.geometry.crs_wkt
@@ -155,6 +157,17 @@ def mesh_field(flow: MeshFlow) -> FlowField:
     attrs = dict(flow.attrs)
     attrs["mesh"] = flow
     attrs["locations"] = {"u": flow.u.location, "depth": flow.depth.location}
+    column = None
+    if flow.layers is not None:
+        lay = flow.layers
+        attrs["column"] = (
+            f"velocity in {lay.levels.size} levels (fractions of the depth "
+            f"{', '.join(f'{x:.3g}' for x in lay.levels)}); vertical velocity: none (not read "
+            "from mesh files yet: no vertical advection); K_z: none (not read from mesh files yet)"
+        )
+        column = ColumnFields(
+            lay.levels, _layered(lay.u), _layered(lay.v), describe=attrs["column"]
+        )
     return FlowField(
         u=_variable(flow.u, "m s-1"),
         v=_variable(flow.v, "m s-1"),
@@ -169,7 +182,20 @@ def mesh_field(flow: MeshFlow) -> FlowField:
         source=flow.source,
         attrs=attrs,
         grid=kind,
+        column=column,
     )
+
+
+def _layered(var: MeshVariable) -> GriddedVariable:
+    """Layered (frames, nl, n) mesh values as a column variable (frames, nl, 1, n)."""
+    n = var.data.shape[-1]
+    data = np.ascontiguousarray(np.asarray(var.data, dtype=np.float64)[:, :, None, :])
+    return GriddedVariable(np.arange(n, dtype=np.float64), np.array([0.0]), data, var.name, "m s-1")
+
+
+def is_mesh_flow(flow: FlowField) -> bool:
+    """Whether a flow is on an unstructured mesh (its grid kind a :class:`MeshKind`)."""
+    return bool(getattr(flow.kind(), "mesh", False))
 
 
 def node_depth_location(flow: FlowField) -> bool:

@@ -94,8 +94,8 @@ def build_flow(spec: FlowSpec, column: bool = False) -> FlowField:
     """Open the flow files, or lay the analytic flow on its grid (time 0 = run start).
 
     column : a three-dimensional run (also when ``spec.column``, set by a [vertical] section):
-    keep a layered file's vertical structure (``open_flow(..., column=True)``; grids only, a mesh
-    keeps its depth mean)."""
+    keep a layered file's vertical structure (``open_flow(..., column=True)``; on a mesh its
+    layered velocities, ``open_mesh_flow(..., column=True)``)."""
     column = column or spec.column
     if spec.kind == "files":
         from walkers.fields.netcdf.open import open_flow
@@ -103,7 +103,7 @@ def build_flow(spec: FlowSpec, column: bool = False) -> FlowField:
 
         paths = [str(p) for p in spec.paths]
         if any(is_ugrid(p) for p in paths if "*" not in p and "?" not in p):
-            return _mesh_flow(spec, paths)
+            return _mesh_flow(spec, paths, column)
         if spec.open_boundaries:
             raise InputError(
                 "flow.open_boundaries: open boundaries are named on unstructured meshes (UGRID "
@@ -127,8 +127,8 @@ def build_flow(spec: FlowSpec, column: bool = False) -> FlowField:
     return dataclasses.replace(flow, time_units=f"seconds since {spec.time_origin}")
 
 
-def _mesh_flow(spec: FlowSpec, paths: list[str]) -> FlowField:
-    """A UGRID mesh flow (one file) as the run stage's flow."""
+def _mesh_flow(spec: FlowSpec, paths: list[str], column: bool) -> FlowField:
+    """A UGRID mesh flow (one file) as the run stage's flow (``column``: with its layers)."""
     from walkers.fields.mesh_field import mesh_field
     from walkers.fields.netcdf.ugrid import open_mesh_flow
 
@@ -145,6 +145,7 @@ def _mesh_flow(spec: FlowSpec, paths: list[str]) -> FlowField:
         min_depth=spec.min_depth,
         layers=spec.layers,
         open_boundaries=dict(spec.open_boundaries),
+        column=column,
     )
     return mesh_field(mesh)
 

@@ -13,6 +13,11 @@ A run is three-dimensional when its transport has a :class:`~walkers.scenario.co
   the cells (:func:`walkers.engine.coefficients.shear_velocity` of the depth and the
   depth-averaged speed at the cell centres, with the roughness of the scenario) to the kernel
   inputs, and checks the step against Visser's criterion.
+
+On an unstructured mesh a particle's column is its face: depth and u* are per face (a node depth
+or velocity is taken as the mean of the face's corners), used piecewise constant as a cell's on a
+grid. A layered mesh file's velocity is kept on its levels and sampled at each particle's
+height, as on grids; w and K_z are not read from mesh files yet.
 """
 
 from __future__ import annotations
@@ -22,11 +27,12 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from walkers.engine import mover
+from walkers.engine import mesh_inputs, mover
 from walkers.engine.coefficients import shear_velocity
 from walkers.engine.state import ParticleState
 from walkers.errors import InputError
 from walkers.fields.base import FlowField, FlowWindow, centre_to_edges
+from walkers.fields.mesh_field import is_mesh_flow
 from walkers.run import reduce
 from walkers.scenario.config import Release, Vertical
 
@@ -36,16 +42,17 @@ if TYPE_CHECKING:
 
 def check_column_flow(flow: FlowField, vertical: Vertical) -> None:
     """InputError unless ``flow`` can carry a three-dimensional run: a 2-D flow on a rectilinear
-    or curvilinear grid with a water depth of its own (not the scenario's constant fill)."""
+    or curvilinear grid or an unstructured mesh with a water depth of its own (not the
+    scenario's constant fill); on a mesh, K_z not from the file."""
     if flow.ndim != 2:
         raise InputError(
             "vertical: a three-dimensional run needs a 2-D flow with a water depth; this flow is "
             "a 1-D channel (remove [vertical])"
         )
-    if getattr(flow.kind(), "mesh", False):
+    if is_mesh_flow(flow) and vertical.diffusivity == "file":
         raise InputError(
-            "vertical: three-dimensional runs on unstructured meshes are not available yet; run "
-            "this mesh depth-averaged (remove [vertical])"
+            f'vertical.diffusivity = "file": K_z profiles are not read from unstructured mesh '
+            f"files ({flow.source!r}) yet; choose a parabolic or constant K_z"
         )
     if flow.depth.name == "constant depth":
         raise InputError(
@@ -90,7 +97,8 @@ def place_in_columns(
 
 
 def _depth_at_release(particles: ParticleState, flow: FlowField) -> np.ndarray:
-    """The water depth (m) of each particle's cell in the flow frame nearest its release time."""
+    """The water depth (m) of each particle's cell (its face on a mesh: the column the vertical
+    step walks in) in the flow frame nearest its release time."""
     xe, ye = centre_to_edges(flow.x), centre_to_edges(flow.y)
     frame = np.zeros(len(particles), dtype=np.int64)
     if not flow.steady and flow.depth.data.shape[0] > 1:
@@ -100,6 +108,11 @@ def _depth_at_release(particles: ParticleState, flow: FlowField) -> np.ndarray:
     out = np.zeros(len(particles))
     for f in np.unique(frame):
         pick = frame == f
+        if is_mesh_flow(flow):
+            assert particles.face is not None  # located when placed (simulate)
+            h = mesh_inputs.column_depths(flow, flow.depth.frames(int(f), int(f)))
+            out[pick] = h[0, 0, particles.face[pick]]
+            continue
         part = ParticleState.from_arrays(
             particles.x[pick],
             particles.y[pick],
@@ -114,11 +127,23 @@ def cell_shear_velocity(flow: FlowField, window: FlowWindow, vertical: Vertical)
     """Bed shear velocity u* (m s-1) on the cells for each frame of the window (nf, ny, nx): the
     depth-averaged speed interpolated to the cell centres (physical speed on a curvilinear grid),
     with the roughness of ``vertical``; 0 in dry cells, and everywhere when nothing uses u* (a
-    constant K_z or one from the file without resuspension)."""
-    nf = max(window.u.shape[0], window.v.shape[0], window.depth.shape[0])
+    constant K_z or one from the file without resuspension). On a mesh, per face (nf, 1, nface):
+    the speed of the face's velocity (corner means of node velocities) and the face's column
+    depth (:func:`column_depth`), with the same roughness."""
+    if is_mesh_flow(flow):
+        nface = window.wet.shape[-1]
+        if not vertical.uses_shear_velocity:
+            return np.zeros((1, 1, nface))
+        wet = window.wet > 0
+        return _shear_velocity(
+            vertical,
+            np.where(wet, column_depth(flow, window), 0.0),
+            np.where(wet, mesh_inputs.face_speeds(flow, window), 0.0),
+        )
     ny, nx = flow.depth.data.shape[1:]
     if not vertical.uses_shear_velocity:
         return np.zeros((1, ny, nx))
+    nf = max(window.u.shape[0], window.v.shape[0], window.depth.shape[0])
     out = np.zeros((nf, ny, nx))
     for f in range(nf):
         u, v = mover._velocity_at_centres(flow, window, f)
@@ -131,13 +156,23 @@ def cell_shear_velocity(flow: FlowField, window: FlowWindow, vertical: Vertical)
         h = window.depth[min(f, window.depth.shape[0] - 1)]
         wet = window.wet[min(f, window.wet.shape[0] - 1)] > 0
         speed = np.where(wet, np.hypot(np.nan_to_num(u), np.nan_to_num(v)), 0.0)
-        out[f] = shear_velocity(
-            np.where(wet, h, 0.0),
-            speed,
-            manning_n=vertical.manning_n,
-            drag_coefficient=vertical.drag_coefficient,
-        )
+        out[f] = _shear_velocity(vertical, np.where(wet, h, 0.0), speed)
     return out
+
+
+def _shear_velocity(vertical: Vertical, depth: np.ndarray, speed: np.ndarray) -> np.ndarray:
+    """u* (m s-1) of depth (m) and depth-averaged speed (m s-1) with the run's bed roughness."""
+    return shear_velocity(
+        depth, speed, manning_n=vertical.manning_n, drag_coefficient=vertical.drag_coefficient
+    )
+
+
+def column_depth(flow: FlowField, window: FlowWindow) -> np.ndarray:
+    """The depth frames (m) of the vertical step's columns: the cells' (nf or 1, ny, nx), or on
+    a mesh the faces' (nf or 1, 1, nface; :func:`walkers.engine.mesh_inputs.column_depths`)."""
+    if is_mesh_flow(flow):
+        return mesh_inputs.column_depths(flow, window.depth)
+    return np.ascontiguousarray(window.depth)
 
 
 def column_inputs(
@@ -151,7 +186,13 @@ def column_inputs(
     K_z mode and value, the bed's deposition velocity; the step dt (s) checked against Visser's
     criterion (``mover.with_column``)."""
     return mover.column_inputs(
-        inputs, flow, window, vertical, cell_shear_velocity(flow, window, vertical), dt
+        inputs,
+        flow,
+        window,
+        vertical,
+        cell_shear_velocity(flow, window, vertical),
+        dt,
+        depth=column_depth(flow, window),
     )
 
 
@@ -171,7 +212,7 @@ def describe_scenario_column(scenario: Scenario, flow: FlowField) -> list[str]:
     offset = flow_offset(scenario, flow)
     window = flow.window(offset, offset + scenario.duration)
     ustar = cell_shear_velocity(flow, window, v)
-    h = np.ascontiguousarray(window.depth)
+    h = column_depth(flow, window)
     shape = np.broadcast_shapes(h.shape, ustar.shape)
     params = column_step.column_params(v.kz_mode, v.coefficient, v.deposition_velocity)
     substeps = column_step.check_substeps(
@@ -196,6 +237,12 @@ def describe_vertical(vertical: Vertical, flow: FlowField) -> str:
     column = flow.attrs.get("column") or (
         "velocity: the depth mean at every height; vertical velocity: none (no vertical advection)"
     )
+    if is_mesh_flow(flow) and not flow.attrs.get("column"):
+        column = (
+            "velocity: the depth mean at every height (no layers kept from the mesh file); "
+            "vertical velocity: none (no vertical advection); K_z: none (not read from mesh "
+            "files yet)"
+        )
     layers = getattr(flow, "column", None)
     if layers is not None and layers.levels.size > 1:
         if vertical.manning_n is None and vertical.drag_coefficient is None:

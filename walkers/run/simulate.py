@@ -45,6 +45,7 @@ from walkers.engine.timestep import check_time_step
 from walkers.errors import InputError, RunFailure
 from walkers.fields.base import FlowField, FlowWindow, centre_to_edges
 from walkers.fields.geo import metres_per_degree
+from walkers.fields.mesh_field import is_mesh_flow
 from walkers.run import column, reduce
 from walkers.run.accumulate import _Accumulator, _field_variables
 from walkers.run.store import FieldMode, field_store
@@ -371,7 +372,7 @@ def _metres_per_unit(flow: FlowField, y: float | None) -> tuple[float, float]:
     or their mean over the grid when ``y`` is None."""
     if not flow.geographic:
         return 1.0, 1.0
-    if _on_mesh(flow):
+    if is_mesh_flow(flow):
         g = flow.grid.geometry
         rows = flow.grid.to_physical(g.node_x, g.node_y)[1] if y is None else np.array([float(y)])
         mx, my = metres_per_degree(rows)
@@ -393,7 +394,7 @@ def _to_engine_coordinates(
     """Particle positions from the scenario's coordinates to the engine's (index space on a
     curvilinear grid; nothing to do on a rectilinear one). A release outside the grid is an
     InputError naming it."""
-    if _on_mesh(flow):
+    if is_mesh_flow(flow):
         inside = flow.grid.locate(particles.x, particles.y) >= 0
         particles.x[:], particles.y[:] = flow.grid.to_engine(particles.x, particles.y)
         if not inside.all():
@@ -423,7 +424,7 @@ def physical_view(particles: ParticleState, flow: FlowField) -> ParticleState:
     """The particles with positions in the scenario's coordinates (the particles themselves on
     a rectilinear grid or a projected mesh; a copy of the positions mapped out of index space on
     a curvilinear grid, or out of a lon/lat mesh's local projection)."""
-    if not (flow.curvilinear or (_on_mesh(flow) and flow.geographic)):
+    if not (flow.curvilinear or (is_mesh_flow(flow) and flow.geographic)):
         return particles
     x, y = flow.grid.to_physical(particles.x, particles.y)
     return dataclasses.replace(particles, x=x, y=y)
@@ -490,13 +491,13 @@ def _advance_interval(
     of ``dt`` (the first numbered ``step0``), in calls of at most :data:`PARTICLE_STEPS_PER_CALL`
     particle-steps, checking positions after each call."""
     window = flow.window(t_prev, t)
-    if _on_mesh(flow):
+    if is_mesh_flow(flow):
         inputs = mesh_inputs.mesh_kernel_inputs(flow, window, transport)
     else:
         check_window_velocity(flow, window)
         inputs = mover.kernel_inputs(flow, window, transport)
-        if transport.vertical is not None:
-            inputs = column.column_inputs(inputs, flow, window, transport.vertical, dt)
+    if transport.vertical is not None:
+        inputs = column.column_inputs(inputs, flow, window, transport.vertical, dt)
     per_call = max(1, PARTICLE_STEPS_PER_CALL // max(len(particles), 1))
     for s in range(0, steps, per_call):
         n = min(per_call, steps - s)
@@ -511,11 +512,6 @@ def _particle_depths_at(
     """The water depth (m) at each particle at time ``t``: the flow frame nearest in time."""
     window_now = flow.window(t, t)
     frame = 0 if window_now.depth.shape[0] == 1 else int(np.argmin(np.abs(window_now.times - t)))
-    if _on_mesh(flow):
+    if is_mesh_flow(flow):
         return mesh_inputs.depths_at(flow, window_now.depth[frame], particles)
     return reduce.particle_depths(particles, window_now.depth[frame], xe, ye)
-
-
-def _on_mesh(flow: FlowField) -> bool:
-    """Whether the flow is on an unstructured mesh (:mod:`walkers.fields.mesh_field`)."""
-    return bool(getattr(flow.kind(), "mesh", False))

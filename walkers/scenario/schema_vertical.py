@@ -15,7 +15,8 @@ VERTICAL = Section(
         "diffusivity": Key(
             "choice",
             "K_z: 'parabolic' (K_z = 0.41 u* z (1 - z/h), u* from the bed roughness), "
-            "'constant' (give coefficient) or 'file' (the flow file's vertical diffusivity).",
+            "'constant' (give coefficient) or 'file' (the flow file's vertical diffusivity; "
+            "grid files only, not unstructured meshes yet).",
             default="parabolic",
             allowed=("parabolic", "constant", "file"),
         ),

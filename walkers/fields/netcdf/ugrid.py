@@ -222,10 +222,17 @@ def _to_grid_axes(flow: MeshFlow, north: tuple[np.ndarray, np.ndarray]) -> None:
     """Eastward / northward velocities of a lon/lat mesh turned onto the projection's x / y axes:
     with true north N = (sin a, cos a) and east E = (cos a, -sin a) in grid axes,
     (u, v)_grid = u_east E + v_north N. Each component keeps its location; where the other one
-    sits elsewhere it is moved there (corner mean, or area-weighted face mean) for the turn."""
-    g = flow.geometry
+    sits elsewhere it is moved there (corner mean, or area-weighted face mean) for the turn.
+    Layered velocities (``flow.layers``) are turned alike."""
+    _turn(flow.geometry, north, flow.u, flow.v)
+    if flow.layers is not None:
+        _turn(flow.geometry, north, flow.layers.u, flow.layers.v)
+
+
+def _turn(g: MeshGeometry, north: tuple[np.ndarray, np.ndarray], u, v) -> None:
+    """:func:`_to_grid_axes` of one pair of velocity components (data (..., n)), in place."""
     sin_n, cos_n = north
-    old = {"u": flow.u, "v": flow.v}
+    old = {"u": u, "v": v}
     new = {}
     for role, var in old.items():
         other = old["v" if role == "u" else "u"]
@@ -242,7 +249,7 @@ def _to_grid_axes(flow: MeshFlow, north: tuple[np.ndarray, np.ndarray]) -> None:
             new[role] = var.data * cos_a + across * sin_a
         else:
             new[role] = -across * sin_a + var.data * cos_a
-    flow.u.data, flow.v.data = new["u"], new["v"]
+    u.data, v.data = new["u"], new["v"]
 
 
 def face_node_table(ds: netCDF4.Dataset, path: str, topo: Topology) -> np.ndarray:
@@ -384,13 +391,15 @@ def open_mesh_flow(
     min_depth: float = 0.05,
     layers: LayerSelection | None = None,
     open_boundaries: dict[str, Any] | None = None,
+    column: bool = False,
 ) -> MeshFlow:
     """Read a depth-averaged flow on a UGRID 1.0 2-D mesh into a :class:`MeshFlow`.
 
     Parameters as :func:`walkers.fields.netcdf.open.open_flow`; ``mesh`` names the topology
     variable when a file holds several; ``open_boundaries`` adds named open boundaries to those
     of the file (see :func:`scenario_boundaries`). Faces shallower than ``min_depth`` (m), or
-    flagged dry by a wet/dry variable, are dry.
+    flagged dry by a wet/dry variable, are dry. ``column``: keep a layered file's velocity on its
+    levels as well (``MeshFlow.layers``, for a three-dimensional run).
     """
     path = os.fspath(path)
     try:
@@ -412,6 +421,7 @@ def open_mesh_flow(
             units=dict(units or {}),
             min_depth=min_depth,
             layers=layers or LayerSelection(),
+            column=column,
         )
         if geometry.projection:
             _to_grid_axes(flow, grid_north(ds, path, topo, crs))

@@ -11,7 +11,10 @@ levels) are reduced to one value per node or face by the thickness-weighted mean
 :mod:`walkers.fields.netcdf.layers` (the same code as on grids). The surface height and bed depth
 it needs are taken where the velocity sits; a term on the other location is moved there (node
 values to a face: the mean of its corners; face values to a node: the area-weighted mean of the
-faces around it).
+faces around it). For a three-dimensional run (``column=True``) the layered u and v are also
+kept, on heights that are fractions of the depth (:class:`~walkers.fields.mesh.MeshLayers`),
+placed as on grids (:func:`walkers.fields.netcdf.column.on_levels`: sigma layers as they are,
+z and s layers interpolated in each column to equal layers' centres).
 
 Wet/dry per face and frame: a face is wet when its water depth (the mean of its corners' depths
 where depth is on nodes) is at least the minimum depth and, where the file has a wet/dry or
@@ -29,14 +32,16 @@ import netCDF4
 import numpy as np
 
 from walkers.errors import InputError
-from walkers.fields.mesh import FACE, NODE, MeshFlow, MeshGeometry, MeshVariable
+from walkers.fields.mesh import FACE, NODE, MeshFlow, MeshGeometry, MeshLayers, MeshVariable
 from walkers.fields.mesh_open import coast_only
+from walkers.fields.netcdf.column import common_levels, on_levels
 from walkers.fields.netcdf.discovery import file_times, time_dimension
 from walkers.fields.netcdf.frames import _mask_to_water, depth_from_levels
 from walkers.fields.netcdf.layers import (
     VerticalCoordinate,
     find_vertical,
     layer_faces,
+    layer_points,
     layer_weights,
     thickness_mean,
 )
@@ -237,8 +242,10 @@ def read_mesh_fields(
     units: dict[str, str],
     min_depth: float,
     layers: LayerSelection,
+    column: bool = False,
 ) -> MeshFlow:
-    """Velocity, depth and wet/dry of a mesh file (see the module docstring)."""
+    """Velocity, depth and wet/dry of a mesh file (see the module docstring); ``column``: keep
+    layered velocities on their levels too (a three-dimensional run)."""
     if not (np.isfinite(min_depth) and min_depth >= 0):
         raise InputError(f"minimum depth {min_depth!r} m: must be a finite number >= 0")
     mf = _MeshFile(ds, path, topo, geometry, variables, units)
@@ -252,9 +259,13 @@ def read_mesh_fields(
     roles = {"u": u_name, "v": v_name}
     u, v = mf.read(u_name, "u"), mf.read(v_name, "v")
     depth, level = _depth(mf, vertical, roles)
+    kept = None
     if vertical is not None:
+        layered = u, v
         u = _reduce_layers(mf, vertical, u, depth, level, layers, roles)
         v = _reduce_layers(mf, vertical, v, depth, level, layers, roles)
+        if column:
+            kept = _on_levels(mf, vertical, *layered, depth, level)
     mask_name = mf.find("mask", required=False)
     wet = _wet(mf, depth, mask_name, min_depth)
     if mask_name is not None:
@@ -295,6 +306,7 @@ def read_mesh_fields(
         open_boundaries=coast_only(geometry),
         source=path,
         attrs=attrs,
+        layers=kept,
     )
 
 
@@ -352,15 +364,49 @@ def _reduce_layers(
             f"mesh file {mf.path!r}: velocity {vel.name!r} has no layer dimension {vc.dim!r} "
             f"while {roles['u']!r} has; give both components in the same layers"
         )
-    on = vel.location
+    eta, bed = _surface_and_bed(mf, vel.location, depth, level)
+    lower, upper = layer_faces(vc, eta[:, None, :], bed[:, None, :])
+    weights = layer_weights(vc, lower, upper, eta[:, None, :], selection)
+    mean = thickness_mean(vel.data[:, :, None, :], weights)[:, 0, :]
+    return MeshVariable(vel.location, mean, vel.name, vel.units)
+
+
+def _surface_and_bed(
+    mf: _MeshFile, on: str, depth: MeshVariable, level: MeshVariable | None
+) -> tuple[np.ndarray, np.ndarray]:
+    """The surface height and the bed's depth below the datum (m), (frames, n) on ``on``; the
+    surface at the datum where the file gives no water level; NaN bed where there is no water."""
     total = mf.at(depth, on)
     eta = np.zeros_like(total) if level is None else mf.at(level, on)
     with np.errstate(invalid="ignore"):
         bed = np.where(total > 0.0, total - eta, np.nan)
-    lower, upper = layer_faces(vc, eta[:, None, :], bed[:, None, :])
-    weights = layer_weights(vc, lower, upper, eta[:, None, :], selection)
-    mean = thickness_mean(vel.data[:, :, None, :], weights)[:, 0, :]
-    return MeshVariable(on, mean, vel.name, vel.units)
+    return eta, bed
+
+
+def _on_levels(
+    mf: _MeshFile,
+    vc: VerticalCoordinate,
+    u: MeshVariable,
+    v: MeshVariable,
+    depth: MeshVariable,
+    level: MeshVariable | None,
+) -> MeshLayers:
+    """Layered (frames, layers, n) u and v on heights that are fractions of the depth, as on
+    grids (:func:`walkers.fields.netcdf.column.on_levels`)."""
+    out = []
+    for vel in (u, v):
+        eta, bed = _surface_and_bed(mf, vel.location, depth, level)
+        fraction = layer_points(vc, eta[:, None, :], bed[:, None, :])  # (frames, layers, 1, n)
+        values = vel.data[:, :, None, :]
+        values = np.broadcast_to(values, np.broadcast_shapes(values.shape, fraction.shape))
+        levels, kept = on_levels(fraction, values, common_levels(fraction))
+        out.append((levels, MeshVariable(vel.location, kept[:, :, 0, :], vel.name, vel.units)))
+    if not np.array_equal(out[0][0], out[1][0]):
+        raise InputError(
+            f"mesh file {mf.path!r}: the layers of {u.name!r} and {v.name!r} lie at different "
+            "heights; give both velocity components on the same layers and location"
+        )
+    return MeshLayers(out[0][0], out[0][1], out[1][1])
 
 
 def _wet(mf: _MeshFile, depth: MeshVariable, mask_name: str | None, min_depth: float) -> np.ndarray:
