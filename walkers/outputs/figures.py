@@ -20,7 +20,6 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 from matplotlib import colormaps
-from matplotlib.animation import PillowWriter
 from matplotlib.axes import Axes
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.colors import LogNorm
@@ -28,6 +27,7 @@ from matplotlib.figure import Figure
 from matplotlib.layout_engine import ConstrainedLayoutEngine
 from matplotlib.lines import Line2D
 from matplotlib.ticker import FuncFormatter
+from PIL import Image
 
 import walkers
 from walkers.errors import InputError
@@ -44,6 +44,7 @@ from walkers.outputs.display import (
 from walkers.outputs.mapping import (
     RECEPTOR_COLOUR,
     RELEASE_COLOUR,
+    THIN_GID,
     cell_edges,
     draw_furniture,
     draw_ground,
@@ -174,8 +175,9 @@ def _figure(width: float, height: float, lines: int = 3) -> Figure:
     return fig
 
 
-def _footer(fig: Figure, when: str) -> None:
-    fig.text(
+def _footer(fig: Figure, when: str):
+    """The footer: the time span ``when`` and the caution; returns its Text."""
+    return fig.text(
         0.01,
         0.005,
         _footer_text(fig.get_figwidth(), when),
@@ -227,9 +229,22 @@ def _draw_map(run: _Run, ax: Axes, field: np.ndarray, counts: np.ndarray | None)
         origin="lower",
         interpolation="nearest",
     )
-    thin = counts is not None and hatch_thin_cells(ax, ds, counts)
     draw_places(ax, ds)
     draw_furniture(ax, ds)
+    _set_thin_cells(run, ax, counts)
+    return image
+
+
+def _set_thin_cells(run: _Run, ax: Axes, counts: np.ndarray | None) -> None:
+    """Hatch the thin cells of ``counts`` (replacing those of an earlier map on ``ax``) and draw
+    the legend anew (it names the thin-cell hatching only where there is some)."""
+    ds = run.ds
+    for patch in list(ax.patches):
+        if patch.get_gid() == THIN_GID:
+            patch.remove()
+    if ax.get_legend() is not None:
+        ax.get_legend().remove()
+    thin = counts is not None and hatch_thin_cells(ax, ds, counts)
     handles = legend_handles(ds, thin)
     handles.append(
         Line2D(
@@ -252,7 +267,6 @@ def _draw_map(run: _Run, ax: Axes, field: np.ndarray, counts: np.ndarray | None)
             )
         )
     ax.legend(handles=handles, fontsize=6, loc="upper left", framealpha=0.85)
-    return image
 
 
 def _map_size(run: _Run, width: float) -> tuple[float, float]:
@@ -284,20 +298,35 @@ def _colour_bar_label(fig: Figure, ax: Axes, mesh, label: str) -> None:
     bar.ax.yaxis.set_minor_formatter(FuncFormatter(lambda v, _pos: ""))
 
 
-def _map_figure(
-    run: _Run, field: np.ndarray, counts: np.ndarray | None, title: str, when: str, path: Path
-) -> Path:
-    fig = _figure(*_map_size(run, 7.0))
-    ax = fig.add_subplot()
-    if run.one_dimensional:
-        _draw_profile(run, ax, field[0])
-    else:
-        mesh = _draw_map(run, ax, field, counts)
-        _colour_bar(run, fig, ax, mesh)
-    ax.set_title(title, fontsize=10)
-    _footer(fig, when)
-    fig.savefig(path)
-    return path
+def _map_figures(
+    run: _Run, maps: Sequence[tuple[np.ndarray, np.ndarray | None, str, str, Path]]
+) -> list[Path]:
+    """Draw the maps (field, particle counts, title, time span, file) one after the other on one
+    figure: the first is laid out and drawn in full, the others change only the field, the
+    thin-cell hatching, the legend, the title and the footer, and keep the first one's layout
+    (the panel, its furniture and the colour bar stay where they were)."""
+    written: list[Path] = []
+    fig = ax = image = heading = footer = None
+    for field, counts, title, when, path in maps:
+        if fig is None or run.one_dimensional:
+            fig = _figure(*_map_size(run, 7.0))
+            ax = fig.add_subplot()
+            if run.one_dimensional:
+                _draw_profile(run, ax, field[0])
+            else:
+                image = _draw_map(run, ax, field, counts)
+                _colour_bar(run, fig, ax, image)
+            heading = ax.set_title(title, fontsize=10)
+            footer = _footer(fig, when)
+        else:
+            image.set_data(np.ma.masked_less_equal(run.conc(field), 0.0))
+            _set_thin_cells(run, ax, counts)
+            heading.set_text(title)
+            footer.set_text(_footer_text(fig.get_figwidth(), when))
+        fig.savefig(path)
+        fig.set_layout_engine("none")  # the next maps keep this layout
+        written.append(path)
+    return written
 
 
 def _draw_profile(run: _Run, ax: Axes, profile: np.ndarray):
@@ -426,6 +455,13 @@ def _budget_figure(run: _Run, path: Path) -> Path:
 
 
 def _animation(run: _Run, path: Path, fps: int) -> Path:
+    """The plume as an animated GIF of every k-th output time (at most MAX_FRAMES frames).
+
+    The figure is drawn in full once without the field and the title (the base), and what lies
+    over the field in the panel (places, furniture, legend) once alone on a transparent canvas
+    (the overlay). Each frame puts the base back, draws only the field and the title on it and
+    lays the overlay over them ("over" compositing with straight alpha, Porter and Duff 1984,
+    from memory): text layout, halos and the colour bar are not redone per frame."""
     conc = run.ds["concentration"]
     first = np.asarray(conc.isel(time=0).values)
     fig = _figure(*_map_size(run, 6.4))
@@ -438,20 +474,58 @@ def _animation(run: _Run, path: Path, fps: int) -> Path:
         _colour_bar(run, fig, ax, artist)
     title = ax.set_title(f"Concentration at {run.stamps[0]}", fontsize=10)
     _footer(fig, f"{run.stamps[0]} to {run.stamps[-1]}")
-
     fig.canvas.draw()
     fig.set_layout_engine("none")  # freeze the layout: solving it anew for every frame is slow
-    writer = PillowWriter(fps=max(1, int(fps)))
+    over = _drawn_over(ax, artist)
+    placed = title.get_position()  # a hidden title is moved by the next draw: put it back after
+    for a in (artist, title, *over):
+        a.set_visible(False)
+    fig.canvas.draw()
+    base = fig.canvas.copy_from_bbox(fig.bbox)
+    for a in (artist, title, *over):
+        a.set_visible(True)
+    title.set_position(placed)
+    fig.canvas.get_renderer().clear()  # transparent
+    for a in over:
+        ax.draw_artist(a)
+    overlay = np.asarray(fig.canvas.buffer_rgba(), dtype=np.float32) / 255.0
+    alpha = overlay[..., 3:]
+    over_part = overlay[..., :3] * alpha * 255.0
+    frames = []
     stride = max(1, -(-conc.sizes["time"] // MAX_FRAMES))
-    with writer.saving(fig, path, dpi=fig.dpi):
-        for i, field in _frames(conc, stride):
-            if run.one_dimensional:
-                artist.set_ydata(np.where(field[0] > 0, run.conc(field[0]), np.nan))
-            else:
-                artist.set_data(np.ma.masked_less_equal(run.conc(field), 0.0))
-            title.set_text(f"Concentration at {run.stamps[i]}")
-            writer.grab_frame()
+    for i, field in _frames(conc, stride):
+        if run.one_dimensional:
+            artist.set_ydata(np.where(field[0] > 0, run.conc(field[0]), np.nan))
+        else:
+            artist.set_data(np.ma.masked_less_equal(run.conc(field), 0.0))
+        title.set_text(f"Concentration at {run.stamps[i]}")
+        fig.canvas.restore_region(base)
+        ax.draw_artist(artist)
+        fig.draw_artist(title)
+        below = np.asarray(fig.canvas.buffer_rgba())[..., :3]
+        rgb = over_part + below * (1.0 - alpha)
+        frame = Image.fromarray(np.clip(np.rint(rgb), 0, 255).astype(np.uint8), "RGB")
+        # 256 colours by the fast octree (the median cut PIL uses otherwise takes ~60 ms a frame)
+        frames.append(frame.quantize(256, method=Image.Quantize.FASTOCTREE))
+    frames[0].save(
+        path,
+        format="GIF",
+        save_all=True,
+        append_images=frames[1:],
+        duration=int(round(1000.0 / max(1, int(fps)))),
+        loop=0,
+    )
     return path
+
+
+def _drawn_over(ax: Axes, artist) -> list:
+    """The artists of ``ax`` drawn after ``artist`` inside the panel (matplotlib draws by zorder,
+    then in the order added), without the axes' ticks and labels and the title (outside it) and
+    inset axes such as the colour bar (beside it)."""
+    drawn = sorted(ax.get_children(), key=lambda a: a.get_zorder())  # a stable sort
+    skip = (ax.xaxis, ax.yaxis, ax.patch, ax.title)
+    after = drawn[drawn.index(artist) + 1 :]
+    return [a for a in after if a.get_visible() and a not in skip and not isinstance(a, Axes)]
 
 
 def _chosen_indices(run: _Run, times: Sequence[float] | None) -> list[int]:
@@ -510,39 +584,36 @@ def plot_results(
             if entry.suffix in (".png", ".gif"):
                 refuse_inputs(entry, [ds_or_path])
     run = _load(ds_or_path, land, units)
-    chosen = _chosen_indices(run, times)
-    written = _summary_figures(run, folder)
     conc = run.ds["concentration"]
     counts = run.ds["particle_count"] if "particle_count" in run.ds else None
-    for i in chosen:
-        written.append(
-            _map_figure(
-                run,
-                np.asarray(conc.isel(time=i).values),
-                None if counts is None else np.asarray(counts.isel(time=i).values),
-                f"Concentration at {run.stamps[i]} ({run.hours[i]:g} h after the run start)",
-                run.stamps[i],
-                folder / f"concentration_t{i:04d}.png",
-            )
+    maps = [
+        (
+            np.asarray(conc.isel(time=i).values),
+            None if counts is None else np.asarray(counts.isel(time=i).values),
+            f"Concentration at {run.stamps[i]} ({run.hours[i]:g} h after the run start)",
+            run.stamps[i],
+            folder / f"concentration_t{i:04d}.png",
         )
+        for i in _chosen_indices(run, times)
+    ]
+    written = _summary_figures(run, folder, maps)
     written.append(_animation(run, folder / "plume.gif", fps))
     return written
 
 
-def _summary_figures(run: _Run, folder: Path) -> list[Path]:
-    """The maximum map (thin cells judged by the particle count at each cell's maximum), the
-    receptor series (when there are receptors) and the mass budget."""
+def _summary_figures(run: _Run, folder: Path, maps: Sequence = ()) -> list[Path]:
+    """The maximum map (thin cells judged by the particle count at each cell's maximum) and the
+    further ``maps`` (as :func:`_map_figures` takes them), the receptor series (when there are
+    receptors) and the mass budget."""
     cmax, at_max = _max_and_count(run)
-    written = [
-        _map_figure(
-            run,
-            cmax,
-            at_max,
-            "Maximum concentration over the run",
-            f"{run.stamps[0]} to {run.stamps[-1]}",
-            folder / "concentration_max.png",
-        )
-    ]
+    most = (
+        cmax,
+        at_max,
+        "Maximum concentration over the run",
+        f"{run.stamps[0]} to {run.stamps[-1]}",
+        folder / "concentration_max.png",
+    )
+    written = _map_figures(run, [most, *maps])
     if "receptor_concentration" in run.ds and run.ds.sizes.get("receptor", 0) > 0:
         written.append(_receptor_figure(run, folder / "receptors.png"))
     if "budget_in_water" in run.ds:

@@ -22,7 +22,8 @@ import xarray as xr
 from matplotlib import patheffects
 from matplotlib.axes import Axes
 from matplotlib.colors import ListedColormap
-from matplotlib.patches import Circle, Patch
+from matplotlib.patches import Circle, Patch, PathPatch
+from matplotlib.path import Path
 from matplotlib.ticker import MaxNLocator, ScalarFormatter
 
 from walkers.outputs.display import release_points
@@ -74,6 +75,9 @@ def crs_name(ds: xr.Dataset) -> str:
     return "grid coordinates, no CRS"
 
 
+THIN_GID = "thin cells"  # the gid of the thin-cell hatching on a map
+
+
 def _extent(ds: xr.Dataset) -> tuple[float, float, float, float]:
     xe, ye = cell_edges(ds["x"].values), cell_edges(ds["y"].values)
     return (float(xe[0]), float(xe[-1]), float(ye[0]), float(ye[-1]))
@@ -98,19 +102,45 @@ def draw_ground(ax: Axes, ds: xr.Dataset, land: np.ndarray | None = None) -> Non
         _hatch(ax, ds, outside, "////", OUTSIDE_HATCH_COLOUR)
 
 
-def _hatch(ax: Axes, ds: xr.Dataset, where: np.ndarray, pattern: str, colour: Any) -> None:
+def _hatch(
+    ax: Axes, ds: xr.Dataset, where: np.ndarray, pattern: str, colour: Any, gid: str | None = None
+) -> None:
+    """Hatch the cells ``where`` (y, x) as one patch: one compound path of every hatched cell's
+    outline, filled by the nonzero rule (their union), so the hatch is drawn once instead of once
+    per cell (a thousand-cell region drew in about 0.1 s a figure as a collection of cells)."""
     xe, ye = cell_edges(ds["x"].values), cell_edges(ds["y"].values)
-    mesh = ax.pcolor(xe, ye, np.ma.masked_where(~where, np.ones(where.shape)), hatch=pattern)
-    mesh.set_facecolor("none")
-    mesh.set_edgecolor(colour)
-    mesh.set_linewidth(0.0)
+    j, i = np.nonzero(where)
+    corners = np.stack(
+        [
+            np.column_stack([xe[i], ye[j]]),
+            np.column_stack([xe[i + 1], ye[j]]),
+            np.column_stack([xe[i + 1], ye[j + 1]]),
+            np.column_stack([xe[i], ye[j + 1]]),
+            np.column_stack([xe[i], ye[j]]),
+        ],
+        axis=1,
+    ).reshape(-1, 2)
+    codes = np.tile(
+        [Path.MOVETO, Path.LINETO, Path.LINETO, Path.LINETO, Path.CLOSEPOLY], i.size
+    ).astype(Path.code_type)
+    ax.add_patch(
+        PathPatch(
+            Path(corners, codes),
+            hatch=pattern,
+            facecolor="none",
+            edgecolor=colour,
+            linewidth=0.0,
+            gid=gid,
+        )
+    )
 
 
 def hatch_thin_cells(ax: Axes, ds: xr.Dataset, counts: np.ndarray) -> bool:
-    """Hatch cells with 1 to TRUSTED_PARTICLES - 1 particles; True if any were hatched."""
+    """Hatch cells with 1 to TRUSTED_PARTICLES - 1 particles (one patch, gid THIN_GID); True if
+    any were hatched."""
     thin = (counts > 0) & (counts < TRUSTED_PARTICLES)
     if thin.any():
-        _hatch(ax, ds, thin, "xxxx", THIN_COLOUR)
+        _hatch(ax, ds, thin, "xxxx", THIN_COLOUR, THIN_GID)
     return bool(thin.any())
 
 
