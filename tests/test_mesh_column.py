@@ -31,7 +31,6 @@ from test_vertical import exponential_cdf, slab_fraction_left
 from walkers.engine import vertical
 from walkers.engine.mesh_inputs import mesh_kernel_inputs
 from walkers.engine.state import IN_WATER, ON_BED
-from walkers.errors import InputError
 from walkers.fields.mesh import MeshFlow, MeshVariable, build_geometry
 from walkers.fields.mesh_field import mesh_field
 from walkers.fields.mesh_open import coast_only
@@ -140,13 +139,6 @@ def test_particles_start_at_their_height_above_the_bed_of_their_face():
     assert np.ptp(h) > 1.0  # the release spans columns of different depths
     np.testing.assert_allclose(p.sigma, 1.0 / h, rtol=1e-12)
     assert not np.allclose(p.sigma, 1.0 / sloping(1500.0), rtol=1e-3)
-
-
-def test_three_dimensional_runs_on_a_mesh_refuse_kz_from_the_file():
-    flow, _ = mesh_flow(sloping)
-    tr = Transport(dt=30.0, vertical=Vertical("file"))
-    with pytest.raises(InputError, match='diffusivity = "file": K_z profiles are not read from'):
-        released_particles([point(10)], flow, np.random.default_rng(3), tr)
 
 
 # ---------------------------------------------------------------------------------------------

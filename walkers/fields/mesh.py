@@ -179,11 +179,19 @@ class MeshLayers:
     levels : (nl,) heights of the layers' values as fractions of the water depth above the bed
         (0 bed, 1 surface), ascending (:func:`walkers.fields.netcdf.column.on_levels`).
     u, v : m s-1, data (frames, nl, n) on the location of the depth-averaged u and v.
+    w_levels, w : heights (nw,) and the upward velocity w (m s-1), data (frames, nw, nface) on
+        the faces (the columns of the vertical step); None when the file has no w.
+    kz_levels, kz : heights (nk,) and the vertical diffusivity K_z (m2 s-1), (frames, nk,
+        nface) on the faces; None when the file has none.
     """
 
     levels: np.ndarray
     u: MeshVariable
     v: MeshVariable
+    w_levels: np.ndarray | None = None
+    w: MeshVariable | None = None
+    kz_levels: np.ndarray | None = None
+    kz: MeshVariable | None = None
 
 
 # ----------------------------------------------------------------------------------------------

@@ -160,13 +160,29 @@ def mesh_field(flow: MeshFlow) -> FlowField:
     column = None
     if flow.layers is not None:
         lay = flow.layers
+        w_text = (
+            f"vertical velocity {lay.w.name!r} in {lay.w_levels.size} levels, on the faces"
+            if lay.w is not None and lay.w_levels is not None
+            else "vertical velocity: none (no vertical advection)"
+        )
+        kz_text = (
+            f"K_z {lay.kz.name!r} in {lay.kz_levels.size} levels, on the faces"
+            if lay.kz is not None and lay.kz_levels is not None
+            else "K_z: none in the file"
+        )
         attrs["column"] = (
             f"velocity in {lay.levels.size} levels (fractions of the depth "
-            f"{', '.join(f'{x:.3g}' for x in lay.levels)}); vertical velocity: none (not read "
-            "from mesh files yet: no vertical advection); K_z: none (not read from mesh files yet)"
+            f"{', '.join(f'{x:.3g}' for x in lay.levels)}); {w_text}; {kz_text}"
         )
         column = ColumnFields(
-            lay.levels, _layered(lay.u), _layered(lay.v), describe=attrs["column"]
+            lay.levels,
+            _layered(lay.u, "m s-1"),
+            _layered(lay.v, "m s-1"),
+            lay.w_levels,
+            None if lay.w is None else _layered(lay.w, "m s-1"),
+            lay.kz_levels,
+            None if lay.kz is None else _layered(lay.kz, "m2 s-1"),
+            describe=attrs["column"],
         )
     return FlowField(
         u=_variable(flow.u, "m s-1"),
@@ -186,11 +202,11 @@ def mesh_field(flow: MeshFlow) -> FlowField:
     )
 
 
-def _layered(var: MeshVariable) -> GriddedVariable:
-    """Layered (frames, nl, n) mesh values as a column variable (frames, nl, 1, n)."""
+def _layered(var: MeshVariable, units: str) -> GriddedVariable:
+    """Layered (frames, nl, n) mesh values as a column variable (frames, nl, 1, n) in ``units``."""
     n = var.data.shape[-1]
     data = np.ascontiguousarray(np.asarray(var.data, dtype=np.float64)[:, :, None, :])
-    return GriddedVariable(np.arange(n, dtype=np.float64), np.array([0.0]), data, var.name, "m s-1")
+    return GriddedVariable(np.arange(n, dtype=np.float64), np.array([0.0]), data, var.name, units)
 
 
 def is_mesh_flow(flow: FlowField) -> bool:

@@ -17,7 +17,8 @@ A run is three-dimensional when its transport has a :class:`~walkers.scenario.co
 On an unstructured mesh a particle's column is its face: depth and u* are per face (a node depth
 or velocity is taken as the mean of the face's corners), used piecewise constant as a cell's on a
 grid. A layered mesh file's velocity is kept on its levels and sampled at each particle's
-height, as on grids; w and K_z are not read from mesh files yet.
+height, as on grids, and so are its w and K_z (on the faces, the columns; the reader's
+``ugrid_fields._column_variable``).
 """
 
 from __future__ import annotations
@@ -43,16 +44,11 @@ if TYPE_CHECKING:
 def check_column_flow(flow: FlowField, vertical: Vertical) -> None:
     """InputError unless ``flow`` can carry a three-dimensional run: a 2-D flow on a rectilinear
     or curvilinear grid or an unstructured mesh with a water depth of its own (not the
-    scenario's constant fill); on a mesh, K_z not from the file."""
+    scenario's constant fill)."""
     if flow.ndim != 2:
         raise InputError(
             "vertical: a three-dimensional run needs a 2-D flow with a water depth; this flow is "
             "a 1-D channel (remove [vertical])"
-        )
-    if is_mesh_flow(flow) and vertical.diffusivity == "file":
-        raise InputError(
-            f'vertical.diffusivity = "file": K_z profiles are not read from unstructured mesh '
-            f"files ({flow.source!r}) yet; choose a parabolic or constant K_z"
         )
     if flow.depth.name == "constant depth":
         raise InputError(
@@ -240,8 +236,8 @@ def describe_vertical(vertical: Vertical, flow: FlowField) -> str:
     if is_mesh_flow(flow) and not flow.attrs.get("column"):
         column = (
             "velocity: the depth mean at every height (no layers kept from the mesh file); "
-            "vertical velocity: none (no vertical advection); K_z: none (not read from mesh "
-            "files yet)"
+            "vertical velocity: none (no vertical advection); K_z: none in the file (w and K_z "
+            "are read with layered velocities only)"
         )
     layers = getattr(flow, "column", None)
     if layers is not None and layers.levels.size > 1:

@@ -15,8 +15,9 @@ VERTICAL = Section(
         "diffusivity": Key(
             "choice",
             "K_z: 'parabolic' (K_z = 0.41 u* z (1 - z/h), u* from the bed roughness), "
-            "'constant' (give coefficient) or 'file' (the flow file's vertical diffusivity; "
-            "grid files only, not unstructured meshes yet).",
+            "'constant' (give coefficient) or 'file' (the flow file's vertical diffusivity, "
+            "CF standard name ocean_vertical_tracer_diffusivity or ocean_vertical_diffusivity, "
+            "on layers of a grid or a mesh).",
             default="parabolic",
             allowed=("parabolic", "constant", "file"),
         ),

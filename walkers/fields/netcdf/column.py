@@ -38,7 +38,7 @@ KZ_NAMES = (
     "ocean_vertical_heat_diffusivity",
     "ocean_vertical_diffusivity",
 )
-_DIFFUSIVITY_UNITS = {"m2 s-1": 1.0, "m2/s": 1.0, "m^2 s^-1": 1.0, "m**2 s**-1": 1.0, "m2.s-1": 1.0}
+DIFFUSIVITY_UNITS = {"m2 s-1": 1.0, "m2/s": 1.0, "m^2 s^-1": 1.0, "m**2 s**-1": 1.0, "m2.s-1": 1.0}
 #: Levels of a profile whose points lie at the same fractions of the depth everywhere (to this).
 SAME_LEVELS = 1e-9
 
@@ -57,7 +57,7 @@ def find_column_variables(schema: Any) -> dict[str, tuple[Any, VerticalCoordinat
     out: dict[str, tuple[Any, VerticalCoordinate]] = {}
     for role, names, units in (
         ("w", W_NAMES, _VELOCITY_UNITS),
-        ("kz", KZ_NAMES, _DIFFUSIVITY_UNITS),
+        ("kz", KZ_NAMES, DIFFUSIVITY_UNITS),
     ):
         found = [v for n in names for v in ds.variables.values() if _standard(v) == n]
         if not found:

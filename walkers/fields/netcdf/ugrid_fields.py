@@ -14,7 +14,9 @@ values to a face: the mean of its corners; face values to a node: the area-weigh
 faces around it). For a three-dimensional run (``column=True``) the layered u and v are also
 kept, on heights that are fractions of the depth (:class:`~walkers.fields.mesh.MeshLayers`),
 placed as on grids (:func:`walkers.fields.netcdf.column.on_levels`: sigma layers as they are,
-z and s layers interpolated in each column to equal layers' centres).
+z and s layers interpolated in each column to equal layers' centres), with the vertical velocity
+w and the vertical diffusivity K_z where the file has them (by CF standard name, on their own
+layers, e.g. the interfaces), moved to the faces, the columns of the vertical step.
 
 Wet/dry per face and frame: a face is wet when its water depth (the mean of its corners' depths
 where depth is on nodes) is at least the minimum depth and, where the file has a wet/dry or
@@ -34,7 +36,13 @@ import numpy as np
 from walkers.errors import InputError
 from walkers.fields.mesh import FACE, NODE, MeshFlow, MeshGeometry, MeshLayers, MeshVariable
 from walkers.fields.mesh_open import coast_only
-from walkers.fields.netcdf.column import common_levels, on_levels
+from walkers.fields.netcdf.column import (
+    DIFFUSIVITY_UNITS,
+    KZ_NAMES,
+    W_NAMES,
+    common_levels,
+    on_levels,
+)
 from walkers.fields.netcdf.discovery import file_times, time_dimension
 from walkers.fields.netcdf.frames import _mask_to_water, depth_from_levels
 from walkers.fields.netcdf.layers import (
@@ -52,6 +60,7 @@ from walkers.fields.netcdf.roles import (
     _ROLE_SI,
     _ROLE_UNITS,
     _ROLE_WORDS,
+    _VELOCITY_UNITS,
     _WATER_WORDS,
     STANDARD_NAMES,
     _norm_units,
@@ -198,11 +207,21 @@ class _MeshFile:
             )
         return table[_norm_units(file_units)]
 
-    def read(self, name: str, role: str) -> MeshVariable:
-        """A variable as (frames, [layers,] n) float64 in SI, NaN for fill values."""
+    def read(
+        self,
+        name: str,
+        role: str,
+        layer_dim: str | None = None,
+        factor: float | None = None,
+        si: str = "",
+    ) -> MeshVariable:
+        """A variable as (frames, [layers,] n) float64 in SI, NaN for fill values; its layers on
+        ``layer_dim`` (default: the velocity's), scaled by ``factor`` to ``si`` (default: the
+        role's units)."""
         var = self.ds.variables[name]
         loc, dim = self.location(name, role)
-        keep = [d for d in (self.time_dim, self.layer_dim, dim) if d in var.dimensions]
+        layers = layer_dim or self.layer_dim
+        keep = [d for d in (self.time_dim, layers, dim) if d in var.dimensions]
         index: list[Any] = []
         for d in var.dimensions:
             if d in keep:
@@ -220,8 +239,10 @@ class _MeshFile:
         data = np.transpose(raw, [kept.index(d) for d in keep])
         if self.time_dim not in var.dimensions:
             data = data[None]
-        factor = 1.0 if role == "mask" else self.factor(name, role)
-        return MeshVariable(loc, np.ascontiguousarray(data * factor), name, _ROLE_SI.get(role, ""))
+        if factor is None:
+            factor = 1.0 if role == "mask" else self.factor(name, role)
+            si = _ROLE_SI.get(role, "")
+        return MeshVariable(loc, np.ascontiguousarray(data * factor), name, si)
 
     def at(self, variable: MeshVariable, location: str) -> np.ndarray:
         """A (frames, n) variable's values on ``location``."""
@@ -266,6 +287,8 @@ def read_mesh_fields(
         v = _reduce_layers(mf, vertical, v, depth, level, layers, roles)
         if column:
             kept = _on_levels(mf, vertical, *layered, depth, level)
+            kept.w_levels, kept.w = _column_variable(mf, "w", depth, level)
+            kept.kz_levels, kept.kz = _column_variable(mf, "kz", depth, level)
     mask_name = mf.find("mask", required=False)
     wet = _wet(mf, depth, mask_name, min_depth)
     if mask_name is not None:
@@ -407,6 +430,52 @@ def _on_levels(
             "heights; give both velocity components on the same layers and location"
         )
     return MeshLayers(out[0][0], out[0][1], out[1][1])
+
+
+def _column_variable(
+    mf: _MeshFile, role: str, depth: MeshVariable, level: MeshVariable | None
+) -> tuple[np.ndarray | None, MeshVariable | None]:
+    """The mesh's vertical velocity (``role`` "w") or vertical diffusivity ("kz"), found by its
+    CF standard name (``column.W_NAMES``, ``column.KZ_NAMES``), on heights that are fractions
+    of the depth (its own vertical coordinate: models write w and K_z on the layer interfaces as
+    often as at their centres) and on the faces, the columns of the vertical step (node values:
+    the mean of a face's corners, level by level): (levels, values (frames, n, nface)), or
+    (None, None) when the file has none."""
+    names, units, si = {
+        "w": (W_NAMES, _VELOCITY_UNITS, "m s-1"),
+        "kz": (KZ_NAMES, DIFFUSIVITY_UNITS, "m2 s-1"),
+    }[role]
+    found = [
+        n for std in names for n in mf.members if _attr(mf.ds.variables[n], "standard_name") == std
+    ]
+    if not found:
+        return None, None
+    name = found[0]
+    var = mf.ds.variables[name]
+    where = f"mesh file {mf.path!r}: variable {name!r} ({_attr(var, 'standard_name')})"
+    vc = find_vertical(mf.ds, mf.path, var, mf.time_dim)
+    if vc is None:
+        raise InputError(
+            f"{where} has no vertical coordinate; give it in layers (sigma, s or z coordinates, "
+            "CF-1.8 §4.3), or remove its standard_name to leave it unused"
+        )
+    unit = _norm_units(_attr(var, "units"))
+    if unit not in units:
+        raise InputError(f"{where} has units {unit!r}; give one of {', '.join(units)}")
+    values = mf.read(name, role, layer_dim=vc.dim, factor=units[unit], si=si)
+    if values.data.ndim != 3:
+        raise InputError(f"{where}: dimensions {var.dimensions} are not time, layers, node or face")
+    eta, bed = _surface_and_bed(mf, values.location, depth, level)
+    fraction = layer_points(vc, eta[:, None, :], bed[:, None, :])  # (frames, layers, 1, n)
+    data = values.data[:, :, None, :]
+    data = np.broadcast_to(data, np.broadcast_shapes(data.shape, fraction.shape))
+    levels, kept = on_levels(fraction, data, common_levels(fraction))
+    kept = kept[:, :, 0, :]
+    if values.location == NODE:
+        nf, nk, n = kept.shape
+        faces = mf.geometry.face_mean_of_nodes(kept.reshape(nf * nk, n))
+        kept = faces.reshape(nf, nk, -1)
+    return levels, MeshVariable(FACE, np.ascontiguousarray(kept), name, si)
 
 
 def _wet(mf: _MeshFile, depth: MeshVariable, mask_name: str | None, min_depth: float) -> np.ndarray:
