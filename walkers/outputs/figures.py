@@ -207,18 +207,22 @@ def _draw_receptor_lines(run: _Run, ax: Axes) -> None:
         )
 
 
+def _ground_flags(run: _Run) -> np.ndarray | None:
+    """The ground flags a map draws (``mapping.draw_ground``): the land mask given to the
+    figures as land (1) over the result's own flags (1 land, 2 outside the flow grid), or None
+    (the result's flags)."""
+    if run.land is None:
+        return None
+    return np.where(run.land, 1, run.ds["land"].values if "land" in run.ds else 0)
+
+
 def _draw_map(run: _Run, ax: Axes, field: np.ndarray, counts: np.ndarray | None):
     """Ground, the concentration field (log scale, display unit), thin cells hatched, the
     release, the receptors and the map furniture. The output grid is regular, so the field is
     an image (far faster to draw than a mesh, which matters for the animation)."""
     ds = run.ds
     xe, ye = cell_edges(ds["x"].values), cell_edges(ds["y"].values)
-    land = (
-        None
-        if run.land is None
-        else np.where(run.land, 1, ds["land"].values if "land" in ds else 0)
-    )
-    draw_ground(ax, ds, land)
+    draw_ground(ax, ds, _ground_flags(run))
     cmap = colormaps[CONC_CMAP].with_extremes(bad=(0, 0, 0, 0), under=(0, 0, 0, 0))
     image = ax.imshow(
         np.ma.masked_less_equal(run.conc(field), 0.0),

@@ -22,6 +22,7 @@ from walkers.outputs.figures import (
     _colour_bar_label,
     _figure,
     _footer,
+    _ground_flags,
     _map_size,
     _Run,
 )
@@ -79,8 +80,7 @@ def _deposit_figure(run: _Run, path: Path) -> Path:
     fig = _figure(*_map_size(run, 7.0))
     ax = fig.add_subplot()
     xe, ye = cell_edges(ds["x"].values), cell_edges(ds["y"].values)
-    land = None if run.land is None else run.land.astype(int)
-    draw_ground(ax, ds, land)
+    draw_ground(ax, ds, _ground_flags(run))
     norm = _log_norm(field)
     if norm is None:
         _no_data(ax, "nothing on the bed at this time")
