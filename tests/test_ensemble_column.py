@@ -147,6 +147,20 @@ def test_water_column_outputs_pass_the_cf_checker_and_are_drawn(by_one, tmp_path
     assert "deposit_probability_thr1.png" in names
 
 
+def test_water_column_sums_of_a_batch_do_not_grow_with_its_members():
+    from walkers.ensemble.members import _reduce_batch
+
+    prepared = _prepare(_recipe_of(scenario_3d(), None))
+    two, four = (_reduce_batch(prepared, 0, n, THRESHOLDS).column for n in (2, 4))
+    assert two is not None and four is not None
+    for name in ("band_exceed", "deposit_exceed", "deposit_sum"):
+        assert getattr(two, name).nbytes == getattr(four, name).nbytes, name
+    # only the per-member table grows, by one row of output times a member
+    assert four.on_bed[0].shape == (4, two.on_bed[0].shape[1])
+    # twin: the counts themselves do grow with the members counted
+    assert 0 < two.band_exceed.sum() < four.band_exceed.sum()
+
+
 @pytest.mark.parametrize(
     ("change", "message"),
     [

@@ -139,8 +139,8 @@ def plot_band_probability_map(
     name = str(ds["band"].values[band])
     n = int(ds.sizes["member"])
     title = (
-        f"Probability that concentration in band {name} ({_band_words(ds, band)}) exceeds "
-        f"{unit.text(level)} at {stamp} ({n} members)"
+        f"Probability that concentration exceeds {unit.text(level)} in band {name}\n"
+        f"({_band_words(ds, band)}) at {stamp} ({n} members)"
     )
     field = ds["band_exceedance_probability"].values[threshold, -1, band]
     return _draw_probability(ds, field, title, stamp, path)
