@@ -19,6 +19,7 @@ from walkers.ensemble.batches import (
     BOOTSTRAP_RESAMPLES,
     CONFIDENCE,
     PERCENTILES,
+    PROBABILITY_COMMENT,
     _OrderedReducer,
     add_percentiles,
     percentiles_with_ci,
@@ -179,7 +180,7 @@ def _add_exceedance(data: dict[str, Any], red: _OrderedReducer, nthr: int) -> No
         {
             "units": one,
             "long_name": "probability that the concentration exceeds the threshold",
-            "comment": "fraction of members; binomial standard error sqrt(P (1 - P) / N)",
+            "comment": PROBABILITY_COMMENT,
         },
     )
     data["window_exceedance_probability"] = (

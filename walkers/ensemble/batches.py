@@ -24,6 +24,8 @@ PERCENTILES = (5.0, 50.0, 95.0)
 #: Bootstrap resamples and confidence level of the percentile intervals.
 BOOTSTRAP_RESAMPLES = 2000
 CONFIDENCE = 0.95
+#: How an exceedance probability over the members is read (the ``comment`` of its variable).
+PROBABILITY_COMMENT = "fraction of members; binomial standard error sqrt(P (1 - P) / N)"
 #: Fixed key mixed with the run seed for the bootstrap Generator.
 _BOOTSTRAP_KEY = 0x626F6F74
 #: Batches per half of the ensemble aimed at, at most (the work is spread over workers batch by
@@ -121,6 +123,13 @@ class _OrderedReducer:
         self.arrival.append(r.arrival)
         self.above.append(r.above)
         self.particle_steps += r.particle_steps
+
+
+def count_exceedance(counts: np.ndarray, field: np.ndarray, thresholds: np.ndarray) -> None:
+    """Add one member's ``field`` to the exceedance counts: counts[i] += field > thresholds[i]
+    (``counts`` of shape (thresholds, *field.shape)); in place."""
+    for i, level in enumerate(thresholds):
+        counts[i] += field > level
 
 
 def _order_statistic(sorted_values: np.ndarray, q: float) -> np.ndarray:

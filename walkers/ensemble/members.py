@@ -21,6 +21,7 @@ import xarray as xr
 
 from walkers.engine.dispersion import transport_for
 from walkers.engine.randomness import run_streams
+from walkers.ensemble.batches import count_exceedance
 from walkers.ensemble.draws import SourceDraw, draw_source, member_release
 from walkers.ensemble.water_column import ColumnSums, deposit_thresholds
 from walkers.errors import InputError
@@ -261,8 +262,7 @@ def _reduce_batch(
     def fold(k: int, b: int, conc: np.ndarray, values: np.ndarray, budget: dict) -> None:
         conc_sum[k] += conc
         np.maximum(conc_max[b], conc, out=conc_max[b])
-        for i in range(nthr):
-            exceed[i, k] += conc > thr[i]
+        count_exceedance(exceed[:, k], conc, thr)
         series[b, :, k] = values
         if column is not None:
             column.fold_budget(k, b, budget)

@@ -27,7 +27,14 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from walkers.ensemble.batches import CONFIDENCE, PERCENTILES, add_percentiles, percentiles_with_ci
+from walkers.ensemble.batches import (
+    CONFIDENCE,
+    PERCENTILES,
+    PROBABILITY_COMMENT,
+    add_percentiles,
+    count_exceedance,
+    percentiles_with_ci,
+)
 from walkers.outputs.display import plain
 from walkers.run.accumulate_column import band_coordinates, column_settings
 
@@ -88,12 +95,10 @@ class ColumnSums:
         deposit_thresholds: np.ndarray,
     ) -> None:
         """Add one member's bands (kg m-3) and deposit (kg m-2) at output ``k``."""
-        for i, level in enumerate(thresholds):
-            self.band_exceed[i, k] += bands > level
+        count_exceedance(self.band_exceed[:, k], bands, thresholds)
         if bed is not None and self.deposit_sum is not None and self.deposit_exceed is not None:
             self.deposit_sum[k] += bed
-            for i, level in enumerate(deposit_thresholds):
-                self.deposit_exceed[i, k] += bed > level
+            count_exceedance(self.deposit_exceed[:, k], bed, deposit_thresholds)
 
     def fold_budget(self, k: int, b: int, budget: dict) -> None:
         """Record member ``b``'s fraction on the bed at output ``k`` (NaN before it releases)."""
@@ -149,7 +154,7 @@ def add_column_variables(
                 "units": one,
                 "long_name": "probability that the concentration in the depth band exceeds the "
                 "threshold",
-                "comment": "fraction of members; binomial standard error sqrt(P (1 - P) / N)",
+                "comment": PROBABILITY_COMMENT,
             },
         )
     if sums.deposit_sum is not None and sums.deposit_exceed is not None:
@@ -172,7 +177,7 @@ def add_column_variables(
                     "units": one,
                     "long_name": "probability that the mass on the bed per bed area exceeds "
                     "the deposit threshold",
-                    "comment": "fraction of members; binomial standard error sqrt(P (1 - P) / N)",
+                    "comment": PROBABILITY_COMMENT,
                 },
             )
     fraction = np.concatenate(sums.on_bed)
