@@ -337,6 +337,8 @@ def test_result_carries_probabilities_percentiles_member_table_and_convergence(a
     assert se_max == pytest.approx(math.sqrt(0.25 / MEMBERS))
     assert 0.0 <= change < 6 * se_max
     assert ds.attrs["caution"] == walkers.CAUTION
+    # a depth-averaged ensemble has no water column: no bands, deposit or share on the bed
+    assert "band" not in ds.dims and "member_on_bed_fraction" not in ds
 
 
 def test_change_between_half_and_all_members_shrinks_as_one_over_sqrt_members():

@@ -88,7 +88,8 @@ def scenario(multiplier: tuple[float, float] | None = (0.05, 0.3), members: int 
 
 
 def _member_run(prepared, member: int):
-    """Member ``member`` run on its own, as the ensemble ran members before populations."""
+    """Member ``member`` run on its own, as the ensemble ran members before populations (with
+    the scenario's water-column outputs in three dimensions)."""
     sc = prepared.scenario
     draw = member_draw(prepared, member)
     d = prepared.transport.dispersion
@@ -108,6 +109,7 @@ def _member_run(prepared, member: int):
         seed=sc.seed,
         member=member,
         time_step_check="substep" if sc.substep else "fail",
+        column_output=sc.column_output,
     )
 
 

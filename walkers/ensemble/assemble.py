@@ -19,10 +19,13 @@ from walkers.ensemble.batches import (
     BOOTSTRAP_RESAMPLES,
     CONFIDENCE,
     PERCENTILES,
+    PROBABILITY_COMMENT,
     _OrderedReducer,
+    add_percentiles,
     percentiles_with_ci,
 )
 from walkers.ensemble.members import _Prepared
+from walkers.ensemble.water_column import add_column_variables, column_summary_lines
 from walkers.outputs.display import ConcentrationUnit, concentration_unit, plain
 from walkers.run.column import describe_releases, describe_vertical
 from walkers.run.runner import release_places
@@ -47,6 +50,8 @@ def _assemble(red: _OrderedReducer, prepared: _Prepared, thr: tuple[float, ...])
     if nthr and nrec:
         _add_receptor_exceedance(data, red, rng, run_start)
     coords = _coordinates(frame, n, thr)
+    if red.column is not None:
+        add_column_variables(data, coords, red.column, prepared, n, nthr, rng)
     attrs = {
         "title": f"{sc.title}: ensemble of {n} members",
         "seed": int(sc.seed),
@@ -145,7 +150,7 @@ def _add_receptor_peaks(
         {"units": "kg m-3", "long_name": "peak concentration at receptor over the run"},
     )
     est, lo, hi = percentiles_with_ci(peak, rng)
-    _add_percentiles(
+    add_percentiles(
         data,
         "receptor_peak",
         ("receptor",),
@@ -175,7 +180,7 @@ def _add_exceedance(data: dict[str, Any], red: _OrderedReducer, nthr: int) -> No
         {
             "units": one,
             "long_name": "probability that the concentration exceeds the threshold",
-            "comment": "fraction of members; binomial standard error sqrt(P (1 - P) / N)",
+            "comment": PROBABILITY_COMMENT,
         },
     )
     data["window_exceedance_probability"] = (
@@ -239,7 +244,7 @@ def _add_receptor_exceedance(
         },
     )
     est, lo, hi = percentiles_with_ci(arrival, rng)
-    _add_percentiles(
+    add_percentiles(
         data,
         "arrival_time",
         ("receptor", "threshold"),
@@ -251,7 +256,7 @@ def _add_receptor_exceedance(
         f"{run_start}; NaN: not within the run",
     )
     est, lo, hi = percentiles_with_ci(above, rng)
-    _add_percentiles(
+    add_percentiles(
         data,
         "time_above_threshold",
         ("receptor", "threshold"),
@@ -286,29 +291,6 @@ def _coordinates(frame: xr.Dataset, n: int, thr: tuple[float, ...]) -> dict[str,
             {"units": "kg m-3", "long_name": "concentration threshold"},
         )
     return coords
-
-
-def _add_percentiles(data, stem, dims, est, lo, hi, units, what, comment) -> None:
-    extra = {"comment": comment} if comment else {}
-    level = f"{CONFIDENCE:.0%}"
-    for suffix, values, label in (
-        ("percentile", est, f"{what}: percentile over the members"),
-        (
-            "ci_lower",
-            lo,
-            f"{what}: lower bound of the bootstrap {level} interval of the percentile",
-        ),
-        (
-            "ci_upper",
-            hi,
-            f"{what}: upper bound of the bootstrap {level} interval of the percentile",
-        ),
-    ):
-        data[f"{stem}_{suffix}"] = (
-            (*dims, "percentile"),
-            values,
-            {"units": units, "long_name": label, **extra},
-        )
 
 
 def write_ensemble(
@@ -395,6 +377,9 @@ def summary_text(ds: xr.Dataset, units: str | None = None) -> str:
             )
     if "convergence_change" in ds:
         lines += ["", *convergence_lines(ds, unit)]
+    column = column_summary_lines(ds, unit)
+    if column:
+        lines += ["", *column]
     lines += [
         "",
         f"Percentiles {pct} over the members; arrival times in hours after the run start. "

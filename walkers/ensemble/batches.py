@@ -6,20 +6,26 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
+from typing import TYPE_CHECKING
 
 import numpy as np
 import xarray as xr
 
 from walkers.ensemble.draws import SourceDraw
-from walkers.ensemble.members import _BatchResult
 from walkers.errors import InputError
 from walkers.scenario.specs import Scenario
+
+if TYPE_CHECKING:
+    from walkers.ensemble.members import _BatchResult
+    from walkers.ensemble.water_column import ColumnSums
 
 #: Percentiles reported for the receptor distributions (percent).
 PERCENTILES = (5.0, 50.0, 95.0)
 #: Bootstrap resamples and confidence level of the percentile intervals.
 BOOTSTRAP_RESAMPLES = 2000
 CONFIDENCE = 0.95
+#: How an exceedance probability over the members is read (the ``comment`` of its variable).
+PROBABILITY_COMMENT = "fraction of members; binomial standard error sqrt(P (1 - P) / N)"
 #: Fixed key mixed with the run seed for the bootstrap Generator.
 _BOOTSTRAP_KEY = 0x626F6F74
 #: Batches per half of the ensemble aimed at, at most (the work is spread over workers batch by
@@ -83,6 +89,7 @@ class _OrderedReducer:
         self.above: list[np.ndarray] = []
         self.particle_steps = 0
         self.frame: xr.Dataset | None = None
+        self.column: ColumnSums | None = None
 
     @property
     def done(self) -> int:
@@ -104,6 +111,11 @@ class _OrderedReducer:
             self.exceed += r.exceed
             self.window += r.window
             self.conc_sum += r.conc_sum
+        if r.column is not None:
+            if self.column is None:
+                self.column = r.column.copy()
+            else:
+                self.column.add(r.column)
         if r.hi == self.half:
             self.exceed_half = self.exceed.copy()
         self.draws += r.draws
@@ -111,6 +123,13 @@ class _OrderedReducer:
         self.arrival.append(r.arrival)
         self.above.append(r.above)
         self.particle_steps += r.particle_steps
+
+
+def count_exceedance(counts: np.ndarray, field: np.ndarray, thresholds: np.ndarray) -> None:
+    """Add one member's ``field`` to the exceedance counts: counts[i] += field > thresholds[i]
+    (``counts`` of shape (thresholds, *field.shape)); in place."""
+    for i, level in enumerate(thresholds):
+        counts[i] += field > level
 
 
 def _order_statistic(sorted_values: np.ndarray, q: float) -> np.ndarray:
@@ -144,6 +163,33 @@ def percentiles_with_ci(
         return np.where(np.isfinite(a), a, np.nan)
 
     return finite(est), finite(lower), finite(upper)
+
+
+def add_percentiles(data, stem, dims, est, lo, hi, units, what, comment) -> None:
+    """Put the percentiles ``est`` of a quantity and the bounds ``lo``, ``hi`` of their bootstrap
+    intervals (as :func:`percentiles_with_ci` gives them) into ``data`` as the variables
+    ``<stem>_percentile``, ``<stem>_ci_lower`` and ``<stem>_ci_upper`` of dims ``(*dims,
+    "percentile")`` with ``units``; ``what`` names the quantity in their long names."""
+    extra = {"comment": comment} if comment else {}
+    level = f"{CONFIDENCE:.0%}"
+    for suffix, values, label in (
+        ("percentile", est, f"{what}: percentile over the members"),
+        (
+            "ci_lower",
+            lo,
+            f"{what}: lower bound of the bootstrap {level} interval of the percentile",
+        ),
+        (
+            "ci_upper",
+            hi,
+            f"{what}: upper bound of the bootstrap {level} interval of the percentile",
+        ),
+    ):
+        data[f"{stem}_{suffix}"] = (
+            (*dims, "percentile"),
+            values,
+            {"units": units, "long_name": label, **extra},
+        )
 
 
 def ensemble_thresholds(scenario: Scenario, extra: Sequence[float] = ()) -> tuple[float, ...]:

@@ -45,6 +45,11 @@ Estimates (N members, k of them in the first half):
   has an infinite arrival time: a percentile (or bound) that falls on such members is NaN, read
   "not within the run".
 
+Three-dimensional scenarios (a ``[vertical]`` table) add the water column: each member's
+concentration in each depth band and its deposit on the bed, reduced at each output time as its
+single run reduces them, and its share of the released mass on the bed
+(:mod:`walkers.ensemble.water_column`).
+
 Mass scaling: concentration is linear in the released mass, so a quantity with no threshold in it
 (the ensemble-mean concentration, a mean receptor series) could take a member's mass draw by
 scaling a unit-mass run of that member — provided the varying release is the only release (with
@@ -187,6 +192,10 @@ def run_ensemble(
     concentration, arrival time and time above threshold with bootstrap intervals, and
     ``receptor_exceedance_probability``; the member table (drawn source and receptor results
     along ``member``); ``convergence_change`` and ``convergence_standard_error`` (threshold).
+    A three-dimensional scenario adds ``band_exceedance_probability`` (threshold, time, band, y,
+    x), ``member_on_bed_fraction`` (member, time) and its percentiles, and where the bed deposits
+    ``deposit_mean`` (time, y, x) kg m-2 and ``deposit_exceedance_probability``
+    (deposit_threshold, time, y, x) (:mod:`walkers.ensemble.water_column`).
     The bitwise-same Dataset comes back however it is run (see the module docstring).
 
     Raises InputError for a scenario without ``[ensemble]``, bad options, or a Dask scheduler

@@ -20,7 +20,7 @@ import xarray as xr
 from matplotlib import colormaps
 
 from walkers.errors import InputError
-from walkers.outputs.display import concentration_unit, output_times, run_start, utc
+from walkers.outputs.display import concentration_unit, output_times, plain, run_start, utc
 from walkers.outputs.figures import PLAIN_TICKS, _figure, _footer
 from walkers.outputs.mapping import cell_edges, draw_furniture, draw_ground, draw_places
 from walkers.outputs.reader import open_results
@@ -74,6 +74,15 @@ def plot_probability_map(
         when, at = stamps[time_index], f"at {stamps[time_index]}"
     n = int(ds.sizes["member"])
     title = f"Probability that concentration exceeds {unit.text(level)} {at} ({n} members)"
+    return _draw_probability(ds, field, title, when, path)
+
+
+def _draw_probability(
+    ds: xr.Dataset, field: np.ndarray, title: str, when: str, path: str | os.PathLike
+) -> Path:
+    """Draw the probability ``field`` (y, x) over the map ground (a profile along the channel in
+    1-D), contours at :data:`PROBABILITY_LEVELS`, with ``title`` and the footer (``when`` and
+    the caution); save to ``path``."""
     x, y = ds["x"].values, ds["y"].values
     if ds.sizes["y"] == 1:
         fig = _figure(7.5, 4.2)
@@ -105,6 +114,82 @@ def plot_probability_map(
     _footer(fig, f"{when}; contours at P = {', '.join(f'{p:g}' for p in PROBABILITY_LEVELS)}")
     fig.savefig(path)
     return Path(path)
+
+
+def plot_band_probability_map(
+    ds_or_path: xr.Dataset | str | os.PathLike,
+    path: str | os.PathLike,
+    *,
+    band: int = 0,
+    threshold: int = 0,
+    units: str | None = None,
+) -> Path:
+    """Map the probability that the concentration in depth band number ``band`` exceeds
+    threshold number ``threshold`` at the last output time (a three-dimensional ensemble)."""
+    ds = _load(ds_or_path)
+    _check_map(
+        ds,
+        "band_exceedance_probability",
+        "no depth-band probabilities: a three-dimensional ensemble with thresholds has them",
+        {"band": band, "threshold": threshold},
+    )
+    unit = concentration_unit(ds, units)
+    level = float(ds["threshold"].values[threshold])
+    stamp = utc(output_times(ds)[-1])
+    name = str(ds["band"].values[band])
+    n = int(ds.sizes["member"])
+    title = (
+        f"Probability that concentration exceeds {unit.text(level)} in band {name}\n"
+        f"({_band_words(ds, band)}) at {stamp} ({n} members)"
+    )
+    field = ds["band_exceedance_probability"].values[threshold, -1, band]
+    return _draw_probability(ds, field, title, stamp, path)
+
+
+def _check_map(ds: xr.Dataset, variable: str, missing: str, picks: dict[str, int]) -> None:
+    """InputError unless ``ds`` holds ``variable`` (``missing`` says why not) and each index of
+    ``picks`` (dimension: index) lies within its dimension."""
+    if variable not in ds:
+        raise InputError(f"the ensemble has {missing}")
+    for dim, index in picks.items():
+        if not 0 <= index < ds.sizes[dim]:
+            raise InputError(f"{dim} {index}: expected 0 to {ds.sizes[dim] - 1}")
+
+
+def _band_words(ds: xr.Dataset, band: int) -> str:
+    """The band's place in the column in words, e.g. "0-1 m below the surface"."""
+    reference = str(ds["band_reference"].values[band])
+    if reference == "column":
+        return "whole column"
+    start, end = float(ds["band_start"].values[band]), float(ds["band_end"].values[band])
+    side = "below the surface" if reference == "surface" else "above the bed"
+    far = "the far end" if np.isinf(end) else f"{end:g} m"
+    return f"{start:g} m to {far} {side}"
+
+
+def plot_deposit_probability_map(
+    ds_or_path: xr.Dataset | str | os.PathLike, path: str | os.PathLike, *, threshold: int = 0
+) -> Path:
+    """Map the probability that the deposit on the bed exceeds deposit threshold number
+    ``threshold`` (shown in g/m²) at the last output time (a three-dimensional ensemble whose
+    bed deposits)."""
+    ds = _load(ds_or_path)
+    _check_map(
+        ds,
+        "deposit_exceedance_probability",
+        "no deposit probabilities: give ensemble.deposit_thresholds in a three-dimensional "
+        "scenario whose bed deposits",
+        {"deposit_threshold": threshold},
+    )
+    level = 1e3 * float(ds["deposit_threshold"].values[threshold])  # g/m2
+    stamp = utc(output_times(ds)[-1])
+    n = int(ds.sizes["member"])
+    title = (
+        f"Probability that the deposit on the bed exceeds {plain(level)} g/m² at {stamp} "
+        f"({n} members)"
+    )
+    field = ds["deposit_exceedance_probability"].values[threshold, -1]
+    return _draw_probability(ds, field, title, stamp, path)
 
 
 def plot_receptor_distributions(
@@ -178,8 +263,10 @@ def plot_ensemble(
 ) -> list[Path]:
     """Draw the ensemble figures into the existing directory ``outdir``; return the files.
 
-    Files: ``probability_thrK.png`` for each threshold K (probability over the whole run) and
-    ``receptor_distributions.png`` when there are receptors.
+    Files: ``probability_thrK.png`` for each threshold K (probability over the whole run); in a
+    three-dimensional ensemble ``band_probability_B_thrK.png`` for each depth band B and threshold
+    K and ``deposit_probability_thrK.png`` for each deposit threshold K (at the last output
+    time); ``receptor_distributions.png`` when there are receptors.
     """
     folder = Path(outdir)
     if not folder.is_dir():
@@ -189,6 +276,21 @@ def plot_ensemble(
         plot_probability_map(ds, folder / f"probability_thr{k}.png", threshold=k, units=units)
         for k in range(ds.sizes.get("threshold", 0) if "threshold" in ds.dims else 0)
     ]
+    if "band_exceedance_probability" in ds:
+        written += [
+            plot_band_probability_map(
+                ds, folder / f"band_probability_{b}_thr{k}.png", band=b, threshold=k, units=units
+            )
+            for b in range(ds.sizes["band"])
+            for k in range(ds.sizes["threshold"])
+        ]
+    if "deposit_exceedance_probability" in ds:
+        written += [
+            plot_deposit_probability_map(
+                ds, folder / f"deposit_probability_thr{k}.png", threshold=k
+            )
+            for k in range(ds.sizes["deposit_threshold"])
+        ]
     if ds.sizes.get("receptor", 0) and "member_receptor_peak" in ds:
         written.append(
             plot_receptor_distributions(ds, folder / "receptor_distributions.png", units)

@@ -21,7 +21,9 @@ import xarray as xr
 
 from walkers.engine.dispersion import transport_for
 from walkers.engine.randomness import run_streams
+from walkers.ensemble.batches import count_exceedance
 from walkers.ensemble.draws import SourceDraw, draw_source, member_release
+from walkers.ensemble.water_column import ColumnSums, deposit_thresholds
 from walkers.errors import InputError
 from walkers.fields.base import FlowField, GriddedVariable
 from walkers.fields.scenario_flow import build_flow
@@ -164,6 +166,7 @@ class _BatchResult:
     above: np.ndarray  # (nb, nrec, nthr) s
     particle_steps: int
     frame: xr.Dataset  # coordinates and attributes of a member's result, no data
+    column: ColumnSums | None = None  # three-dimensional runs: bands, deposit, on the bed
 
 
 def member_releases(prepared: _Prepared, draw: SourceDraw) -> list[Release]:
@@ -230,7 +233,8 @@ def _reduce_batch(
     """Members lo..hi-1 moved as one population (:mod:`walkers.run.population`) and reduced
     member by member at each output time: exceedance counts, the concentration sum, each
     member's running maximum (members of the batch x cells) and receptor series (members of the
-    batch x receptors x times)."""
+    batch x receptors x times); in three dimensions also the water-column sums
+    (:class:`~walkers.ensemble.water_column.ColumnSums`)."""
     from walkers.run.population import make_population, result_frame, simulate_population
 
     sc = prepared.scenario
@@ -252,13 +256,20 @@ def _reduce_batch(
     exceed = np.zeros((nthr, *shape), dtype=np.int32)
     conc_max = np.full((nb, grid.ny, grid.nx), -np.inf)
     series = np.zeros((nb, nrec, shape[0]))
+    column = ColumnSums.zeros(prepared, nthr, nb, shape)
+    deposit_thr = deposit_thresholds(prepared)
 
     def fold(k: int, b: int, conc: np.ndarray, values: np.ndarray, budget: dict) -> None:
         conc_sum[k] += conc
         np.maximum(conc_max[b], conc, out=conc_max[b])
-        for i in range(nthr):
-            exceed[i, k] += conc > thr[i]
+        count_exceedance(exceed[:, k], conc, thr)
         series[b, :, k] = values
+        if column is not None:
+            column.fold_budget(k, b, budget)
+
+    def fold_column(k: int, b: int, bands: np.ndarray, bed: np.ndarray | None) -> None:
+        assert column is not None
+        column.fold_fields(k, bands, bed, thr, deposit_thr)
 
     times = simulate_population(
         prepared.flow,
@@ -273,6 +284,8 @@ def _reduce_batch(
         walk_key=run_streams(sc.seed, lo)[0],
         time_step_check="substep" if sc.substep else "fail",
         stepper=stepper,
+        column_output=sc.column_output,
+        on_column=fold_column if column is not None else None,
     )
     window = np.zeros((nthr, *shape[1:]), dtype=np.int32)
     for i in range(nthr):
@@ -288,7 +301,9 @@ def _reduce_batch(
                 arrival[b, r, i], above[b, r, i] = threshold_crossing(t_rel, series[b, r], thr[i])
     frame = result_frame(times, prepared.flow, grid, sc.receptors)
     steps = nb * _particle_steps(sc)
-    return _BatchResult(lo, hi, exceed, window, conc_sum, draws, peak, arrival, above, steps, frame)
+    return _BatchResult(
+        lo, hi, exceed, window, conc_sum, draws, peak, arrival, above, steps, frame, column
+    )
 
 
 def _particle_steps(sc: Scenario) -> int:

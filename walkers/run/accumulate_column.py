@@ -10,6 +10,7 @@ the sampled tracks and the mass on the bed are series held in memory.
 
 from __future__ import annotations
 
+import dataclasses
 from collections.abc import Sequence
 from typing import Any
 
@@ -19,8 +20,8 @@ import numpy as np
 from walkers.run import column_reduce as column
 from walkers.run import reduce
 from walkers.run.store import DiskFields, MemoryFields
-from walkers.scenario.column_output import ColumnOutput
-from walkers.scenario.config import OutputGrid, Receptor
+from walkers.scenario.column_output import ColumnOutput, DepthBand
+from walkers.scenario.config import OutputGrid, Receptor, Vertical
 
 KG_M3 = "kg m-3"
 
@@ -38,6 +39,63 @@ def column_field_variables(column_output: ColumnOutput) -> dict[str, type]:
     if column_output.deposit:
         variables["deposit"] = np.float64
     return variables
+
+
+def column_settings(column_output: ColumnOutput | None, vertical: Vertical) -> ColumnOutput:
+    """The water-column outputs of a run with the vertical step ``vertical``: those the scenario
+    names (the defaults when None), with the deposit only where the bed can keep particles (a
+    depositing bed; a reflecting one never holds any, so its deposit would be zero everywhere)."""
+    return dataclasses.replace(
+        column_output or ColumnOutput(), deposit=vertical.deposition_velocity > 0
+    )
+
+
+def column_fields(
+    particles, depths: np.ndarray, column_output: ColumnOutput, grid: OutputGrid, measure
+) -> tuple[np.ndarray, np.ndarray | None]:
+    """The gridded water-column reductions at one output time: the concentration in each depth
+    band (kg m-3, (bands, ny, nx)) and the deposit on the bed (kg m-2, (ny, nx); None unless
+    ``column_output.deposit``). ``depths``: the water depth (m) at each particle; ``measure``:
+    the plan area (m2) of each output cell."""
+    p = particles
+    if p.sigma is None:
+        raise ValueError("water-column outputs need particles with heights (sigma): a 3-D run")
+    args = (p.x, p.y, p.sigma, depths, p.mass, p.status)
+    bands, _ = column.band_concentration(*args, column_output.bands, grid, measure)
+    bed = None
+    if column_output.deposit:
+        bed = column.deposit(p.x, p.y, p.mass, p.status, grid, measure)[0]
+    return bands, bed
+
+
+def band_coordinates(bands: Sequence[DepthBand]) -> dict[str, Any]:
+    """The ``band`` coordinate of a result and its reference and limits."""
+    return {
+        "band": (
+            "band",
+            np.array([b.name for b in bands], dtype=object),
+            {"long_name": "depth band name"},
+        ),
+        "band_reference": (
+            "band",
+            np.array([b.reference for b in bands]),
+            {"long_name": "what the band's limits are measured from: surface, bed or column"},
+        ),
+        "band_start": (
+            "band",
+            np.array([b.limits[0] for b in bands]),
+            {"units": "m", "long_name": "distance of the band's near limit from its reference"},
+        ),
+        "band_end": (
+            "band",
+            np.array([b.limits[1] for b in bands]),
+            {
+                "units": "m",
+                "long_name": "distance of the band's far limit from its reference (inf: "
+                "to the far end of the column); limits are clipped to the local depth",
+            },
+        ),
+    }
 
 
 class ColumnSeries:
@@ -100,14 +158,12 @@ class ColumnSeries:
     ) -> dict[str, np.ndarray]:
         """Reduce the particles at output ``k``; return the (y, x) fields for the field store."""
         p = particles
-        if p.sigma is None:
-            raise ValueError("water-column outputs need particles with heights (sigma): a 3-D run")
         measure = reduce.cell_measure(grid, geographic, 2)
-        args = (p.x, p.y, p.sigma, depths, p.mass, p.status)
-        bands, _ = column.band_concentration(*args, self.output.bands, grid, measure)
+        bands, bed = column_fields(p, depths, self.output, grid, measure)
         fields = {band_field(b): bands[b] for b in range(len(self.output.bands))}
-        if self.output.deposit:
-            fields["deposit"] = column.deposit(p.x, p.y, p.mass, p.status, grid, measure)[0]
+        if bed is not None:
+            fields["deposit"] = bed
+        args = (p.x, p.y, p.sigma, depths, p.mass, p.status)
         if receptors:
             places, area = column.receptor_places(receptors, grid, measure, geographic)
             self.profile[:, :, k] = column.receptor_profiles(
@@ -131,32 +187,8 @@ class ColumnSeries:
 
     def coordinates(self, geographic: bool, xunits: str, yunits: str) -> dict[str, Any]:
         """The band, height and section coordinates of the result."""
-        bands = self.output.bands
         coords: dict[str, Any] = {
-            "band": (
-                "band",
-                np.array([b.name for b in bands], dtype=object),
-                {"long_name": "depth band name"},
-            ),
-            "band_reference": (
-                "band",
-                np.array([b.reference for b in bands]),
-                {"long_name": "what the band's limits are measured from: surface, bed or column"},
-            ),
-            "band_start": (
-                "band",
-                np.array([b.limits[0] for b in bands]),
-                {"units": "m", "long_name": "distance of the band's near limit from its reference"},
-            ),
-            "band_end": (
-                "band",
-                np.array([b.limits[1] for b in bands]),
-                {
-                    "units": "m",
-                    "long_name": "distance of the band's far limit from its reference (inf: "
-                    "to the far end of the column); limits are clipped to the local depth",
-                },
-            ),
+            **band_coordinates(self.output.bands),
             "height": (
                 "height",
                 self.output.heights,

@@ -7,8 +7,9 @@ already) and a factor on the dispersion coefficients and their drift
 contiguous particles ``bounds[b]:bounds[b + 1]``, one kernel call per output interval moves all
 of them (:func:`walkers.run.simulate._advance_interval`, as for a single run), and at each output
 time each member is reduced on its own — its concentration field, receptor values and mass budget,
-by the same functions as a single run (:mod:`walkers.run.reduce`) — and handed to a callback that
-folds it into running sums. Nothing of size members × cells × times is kept here.
+and in three dimensions its depth bands and deposit, by the same functions as a single run
+(:mod:`walkers.run.reduce`, :func:`walkers.run.accumulate_column.column_fields`) — and handed to
+callbacks that fold it into running sums. Nothing of size members × cells × times is kept here.
 
 Each member's particles are placed by the member's own release generator
 (``run_streams(seed, member)``), so a member starts exactly as its own run would. The random walk
@@ -33,6 +34,7 @@ from walkers.engine.state import ParticleState
 from walkers.fields.base import FlowField, centre_to_edges
 from walkers.run import reduce
 from walkers.run.accumulate import _result_coordinates
+from walkers.run.accumulate_column import column_fields, column_settings
 from walkers.run.simulate import (
     _advance_interval,
     _check_window,
@@ -44,12 +46,17 @@ from walkers.run.simulate import (
     physical_view,
     released_particles,
 )
+from walkers.scenario.column_output import ColumnOutput
 from walkers.scenario.config import OutputGrid, Receptor, Release, Transport
 
 #: Called at each output time for each member: (output index, member's place in the population,
 #: concentration (ny, nx) kg m-3, receptor values (nrec,) kg m-3, mass budget as
 #: :func:`walkers.run.reduce.mass_budget` gives it).
 MemberOutput = Callable[[int, int, np.ndarray, np.ndarray, dict], None]
+#: Called at each output time for each member of a three-dimensional population: (output index,
+#: member's place in the population, concentration in each depth band (bands, ny, nx) kg m-3,
+#: deposit on the bed (ny, nx) kg m-2 or None), as :func:`column_fields` gives them.
+MemberColumnOutput = Callable[[int, int, np.ndarray, np.ndarray | None], None]
 
 
 @dataclass
@@ -119,9 +126,14 @@ def simulate_population(
     walk_key: int,
     time_step_check: Literal["fail", "substep", "warn", "off"] = "fail",
     stepper: Literal["fast", "reference"] = "fast",
+    column_output: ColumnOutput | None = None,
+    on_column: MemberColumnOutput | None = None,
 ) -> np.ndarray:
     """Move the population from ``start`` to ``end`` (s, flow frame) and call ``on_output`` for
     each member at each output time (see :data:`MemberOutput`); return the output times (s).
+    In a three-dimensional run, also ``on_column`` with the member's depth bands and deposit
+    (:data:`MemberColumnOutput`) of the water-column outputs ``column_output`` as a single run
+    makes them (:func:`~walkers.run.accumulate_column.column_settings`).
 
     The time step is checked (and sub-stepped) for the member with the largest dispersion
     multiplier, so every member moves with the steps the most demanding one needs.
@@ -142,6 +154,9 @@ def simulate_population(
     xe, ye = centre_to_edges(flow.x), centre_to_edges(flow.y)
     measure = reduce.cell_measure(output_grid, flow.geographic, flow.ndim)
     no_receptors = np.zeros(0)
+    settings = None
+    if on_column is not None and transport.vertical is not None:
+        settings = column_settings(column_output, transport.vertical)
     for k in range(len(times)):
         t = float(times[k])
         if k > 0:
@@ -172,6 +187,8 @@ def simulate_population(
                     mine, h, receptors, conc, output_grid, flow.geographic, flow.ndim
                 )
             on_output(k, b, conc, values, reduce.mass_budget(mine))
+            if settings is not None and on_column is not None:
+                on_column(k, b, *column_fields(mine, h, settings, output_grid, measure))
     return times
 
 

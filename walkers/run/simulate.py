@@ -48,6 +48,7 @@ from walkers.fields.geo import metres_per_degree
 from walkers.fields.mesh_field import is_mesh_flow
 from walkers.run import column, reduce
 from walkers.run.accumulate import _Accumulator, _field_variables
+from walkers.run.accumulate_column import column_settings
 from walkers.run.store import FieldMode, field_store
 from walkers.scenario.column_output import ColumnOutput
 from walkers.scenario.config import OutputGrid, Receptor, Release, Transport
@@ -286,10 +287,7 @@ def simulate(
     shape = (len(times), output_grid.ny, output_grid.nx)
     settings = None
     if transport.vertical is not None:
-        # the deposit on the bed only where the bed can keep particles (a depositing bed)
-        settings = dataclasses.replace(
-            column_output or ColumnOutput(), deposit=transport.vertical.deposition_velocity > 0
-        )
+        settings = column_settings(column_output, transport.vertical)
     variables = _field_variables(output_grid, settings)
     if resume is None:
         particles, owner = released_particles(releases, flow, release_rng, transport)

@@ -563,4 +563,5 @@ def _build_ensemble(
             if not lo <= hi:
                 raise InputError(f"ensemble.{key}_min: must not exceed {key}_max")
             fields[f"{key}_range"] = (lo, hi)
+    fields["deposit_thresholds"] = tuple(sorted(set(e["deposit_thresholds"] or ())))
     return EnsembleSpec(**fields)

@@ -33,7 +33,7 @@ from walkers.scenario.build import (
     _build_vertical,
 )
 from walkers.scenario.column_output import build_column_output
-from walkers.scenario.config import Dispersion, Transport
+from walkers.scenario.config import Dispersion, Transport, Vertical
 from walkers.scenario.keys import MAX_PARTICLES
 from walkers.scenario.schema import SCHEMA
 from walkers.scenario.specs import DispersionSpec, Scenario
@@ -137,6 +137,8 @@ def _build(
         if s["ensemble"] is not None
         else None
     )
+    if ensemble is not None and ensemble.deposit_thresholds:
+        _check_deposit_thresholds(base_transport.vertical)
     if ensemble is not None and ensemble.members * total > 10**11:
         raise InputError(
             f"ensemble.members = {ensemble.members}: with {total} particles per member this is "
@@ -189,6 +191,18 @@ def _check_column_keys(raw: dict[str, Any], s: dict[str, Any]) -> None:
                 f"releases[{i}].{given[0]}: applies to three-dimensional runs only; add a "
                 "[vertical] section (vertical diffusivity and bed) or remove the key"
             )
+
+
+def _check_deposit_thresholds(vertical: Vertical | None) -> None:
+    """Deposit thresholds need a bed that keeps particles: a three-dimensional run whose bed
+    deposits."""
+    if vertical is None or not vertical.deposition_velocity > 0:
+        where = "there is no [vertical] section" if vertical is None else "its bed does not deposit"
+        raise InputError(
+            f"ensemble.deposit_thresholds: {where}, so nothing ever lies on the bed; give a "
+            '[vertical] section with bed = "depositing" and a deposition_velocity, or remove the '
+            "key"
+        )
 
 
 def _run_times(run: dict[str, Any]) -> tuple[datetime, datetime, float, float, float]:

@@ -402,6 +402,14 @@ SCHEMA = Section(
                 "dispersion_multiplier_max": Key(
                     "number", "Uniform dispersion multiplier: maximum.", bound="nonnegative"
                 ),
+                "deposit_thresholds": Key(
+                    "quantities",
+                    "Three-dimensional runs with a depositing bed: deposits on the bed of concern "
+                    '(mass per bed area), e.g. ["1 g/m2", "10 g/m2"]; the ensemble gives the '
+                    "probability that the deposit exceeds each.",
+                    dimension="areal_density",
+                    bound="positive",
+                ),
             },
             choices=(
                 Choice((("start_earliest", "start_latest"), ("start_sd",)), required=False),

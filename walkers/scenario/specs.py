@@ -118,6 +118,8 @@ class EnsembleSpec:
         rate release the rates scale with the drawn mass.
     duration_range : uniform duration (s) range, or None.
     dispersion_multiplier_range : uniform multiplier range, or None.
+    deposit_thresholds : deposits on the bed (kg m-2) to give exceedance probabilities for,
+        sorted, each once (three-dimensional runs with a depositing bed only).
     """
 
     members: int
@@ -138,6 +140,7 @@ class EnsembleSpec:
     mass_max: float = 0.0
     duration_range: tuple[float, float] | None = None
     dispersion_multiplier_range: tuple[float, float] | None = None
+    deposit_thresholds: tuple[float, ...] = ()
 
 
 @dataclass(frozen=True)

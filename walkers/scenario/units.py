@@ -163,6 +163,11 @@ UNIT_TABLE: dict[str, tuple[str, str, dict[str, float]]] = {
         "a density",
         {"kg/m3": 1.0, "kg m-3": 1.0, "g/cm3": 1e3, "t/m3": 1e3},
     ),
+    "areal_density": (
+        "kg/m2",
+        "a mass per bed area",
+        {"kg/m2": 1.0, "g/m2": 1e-3, "mg/m2": 1e-6, "kg m-2": 1.0, "g m-2": 1e-3, "t/km2": 1e-3},
+    ),
 }
 
 DIMENSIONS = tuple(UNIT_TABLE)
