@@ -121,7 +121,7 @@ def test_kz_and_w_of_a_mesh_file_are_kept_on_their_interfaces_and_faces(tmp_path
     first_corner = kz[::-1][:, g.face_nodes[:, 0]]
     assert not np.allclose(layers.kz.data[0], first_corner, rtol=1e-6)
     flow = mesh_field(open_mesh_flow(path, column=True))
-    assert "K_z 'kh' in 9 levels, on the faces" in flow.attrs["column"]
+    assert "K_z: from 'kh' on 9 levels on the faces" in flow.attrs["column"]
     assert flow.column.kz.units == "m2 s-1"
 
 

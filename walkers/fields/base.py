@@ -93,6 +93,25 @@ class WindowColumn:
     kz: np.ndarray = field(default_factory=lambda: np.zeros((1, 1, 1)))
 
 
+def describe_column(
+    levels: np.ndarray,
+    w: tuple[str, int] | None,
+    kz: tuple[str, int] | None,
+    where: str = "",
+) -> str:
+    """One line for ``walkers inspect`` and the run summary: the velocity's levels (fractions of
+    the depth) and the file's vertical velocity and K_z as (variable name, number of levels) or
+    None, ``where`` they lie (e.g. " on the faces")."""
+    w_text = "none in the file (no vertical advection)"
+    if w:
+        w_text = f"from {w[0]!r} on {w[1]} levels{where}"
+    kz_text = f"from {kz[0]!r} on {kz[1]} levels{where}" if kz else "none in the file"
+    return (
+        f"velocity in {levels.size} levels (fractions of the depth "
+        f"{', '.join(f'{x:.3g}' for x in levels)}); vertical velocity: {w_text}; K_z: {kz_text}"
+    )
+
+
 @dataclass
 class ColumnFields:
     """What a layered flow file holds of the vertical, kept for three-dimensional runs.

@@ -14,7 +14,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from walkers.fields.base import ColumnFields, FlowField, GriddedVariable
+from walkers.fields.base import ColumnFields, FlowField, GriddedVariable, describe_column
 from walkers.fields.mesh import NODE, MeshFlow, MeshVariable
 
 
@@ -160,19 +160,13 @@ def mesh_field(flow: MeshFlow) -> FlowField:
     column = None
     if flow.layers is not None:
         lay = flow.layers
-        w_text = (
-            f"vertical velocity {lay.w.name!r} in {lay.w_levels.size} levels, on the faces"
-            if lay.w is not None and lay.w_levels is not None
-            else "vertical velocity: none (no vertical advection)"
-        )
-        kz_text = (
-            f"K_z {lay.kz.name!r} in {lay.kz_levels.size} levels, on the faces"
-            if lay.kz is not None and lay.kz_levels is not None
-            else "K_z: none in the file"
-        )
-        attrs["column"] = (
-            f"velocity in {lay.levels.size} levels (fractions of the depth "
-            f"{', '.join(f'{x:.3g}' for x in lay.levels)}); {w_text}; {kz_text}"
+        w = lay.w is not None and lay.w_levels is not None
+        kz = lay.kz is not None and lay.kz_levels is not None
+        attrs["column"] = describe_column(
+            lay.levels,
+            (lay.w.name, lay.w_levels.size) if w else None,
+            (lay.kz.name, lay.kz_levels.size) if kz else None,
+            " on the faces",
         )
         column = ColumnFields(
             lay.levels,

@@ -41,7 +41,13 @@ import netCDF4
 import numpy as np
 
 from walkers.errors import InputError
-from walkers.fields.base import ColumnFields, FlowField, GriddedVariable, centre_to_edges
+from walkers.fields.base import (
+    ColumnFields,
+    FlowField,
+    GriddedVariable,
+    centre_to_edges,
+    describe_column,
+)
 from walkers.fields.netcdf.column import find_column_variables
 from walkers.fields.netcdf.discovery import _FileSchema
 from walkers.fields.netcdf.frames import _FlowSource, _LazyFrames
@@ -485,19 +491,12 @@ def _describe_column(column: ColumnFields | None, schema: _FileSchema) -> str:
             "vertical advection); K_z: none in the file"
         )
     names = {r: lay.name for r, (lay, _) in schema.column_variables.items()}
-    w = (
-        f"from {names['w']!r} on {column.w_levels.size} levels"
-        if column.w is not None and column.w_levels is not None
-        else "none in the file (no vertical advection)"
-    )
-    kz = (
-        f"from {names['kz']!r} on {column.kz_levels.size} levels"
-        if column.kz is not None and column.kz_levels is not None
-        else "none in the file"
-    )
-    return (
-        f"velocity in {column.levels.size} levels (fractions of the depth "
-        f"{', '.join(f'{x:.3g}' for x in column.levels)}); vertical velocity: {w}; K_z: {kz}"
+    w = column.w is not None and column.w_levels is not None
+    kz = column.kz is not None and column.kz_levels is not None
+    return describe_column(
+        column.levels,
+        (names["w"], column.w_levels.size) if w else None,
+        (names["kz"], column.kz_levels.size) if kz else None,
     )
 
 
