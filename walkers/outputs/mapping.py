@@ -145,14 +145,21 @@ def hatch_thin_cells(ax: Axes, ds: xr.Dataset, counts: np.ndarray) -> bool:
 
 
 def draw_places(ax: Axes, ds: xr.Dataset) -> None:
-    """The release(s) and the receptors with their averaging circles."""
+    """The release(s) and the receptors with their averaging circles; a label in the east third
+    of the map goes to the left of its mark, so it stays inside the map."""
+    x0, x1, _, _ = _extent(ds)
+
+    def east(x: float) -> bool:
+        return x > x0 + 2.0 * (x1 - x0) / 3.0
+
     for name, x, y in release_points(ds):
         ax.plot(x, y, marker="*", ms=13, mfc=RELEASE_COLOUR, mec="white", mew=0.9, ls="none")
         ax.annotate(
             f"release: {name}",
             (x, y),
-            xytext=(7, -10),
+            xytext=(-7, -10) if east(x) else (7, -10),
             textcoords="offset points",
+            ha="right" if east(x) else "left",
             fontsize=7,
             fontweight="bold",
             path_effects=_HALO,
@@ -174,8 +181,9 @@ def draw_places(ax: Axes, ds: xr.Dataset) -> None:
         ax.annotate(
             str(name),
             (x, y),
-            xytext=(5, 4),
+            xytext=(-5, 4) if east(x) else (5, 4),
             textcoords="offset points",
+            ha="right" if east(x) else "left",
             fontsize=7,
             path_effects=_HALO,
         )
