@@ -35,6 +35,8 @@ import os
 
 import numba as nb
 import numpy as np
+from numba.core import cgutils, types
+from numba.extending import intrinsic
 
 # The OpenMP threads of the parallel kernels sleep between calls instead of spinning (the GNU
 # runtime's default spins): between kernel calls the run does its reductions in Python, and a
@@ -49,6 +51,37 @@ JIT = {"cache": True, "error_model": "numpy", "nogil": True}
 # not inline into, and a called function takes and drops a reference to every array it is
 # passed (atomic operations on counts that all threads share).
 INLINE = {**JIT, "inline": "always"}
+
+
+@intrinsic
+def borrowed(typingctx, arrays):
+    """The arrays of a tuple (or one array) as views that own no reference: their memory-info
+    pointer is null, so numba's reference counting of them costs a test of that pointer instead
+    of an atomic add on a count. numba takes and drops a reference to an array wherever an
+    inlined helper receives it; where a branch follows, LLVM merges the drops into one on a
+    selected pointer, which numba's pruning of reference operations no longer recognises, and
+    the step loop paid some forty atomic operations per particle-step. Only for arrays that the
+    caller keeps alive (the kernel's arguments) and that are neither returned nor stored."""
+    members = arrays.types if isinstance(arrays, types.BaseTuple) else (arrays,)
+    if not all(isinstance(t, types.Array) for t in members):
+        return None
+
+    def unowned(builder, value):
+        value = builder.insert_value(value, cgutils.get_null_value(value.type.elements[0]), 0)
+        return builder.insert_value(value, cgutils.get_null_value(value.type.elements[1]), 1)
+
+    def codegen(context, builder, signature, args):
+        if not isinstance(arrays, types.BaseTuple):
+            return unowned(builder, args[0])
+        value = args[0]
+        for k in range(len(members)):
+            value = builder.insert_value(
+                value, unowned(builder, builder.extract_value(value, k)), k
+            )
+        return value
+
+    return arrays(arrays), codegen
+
 
 # The mesh primitives and the vertical step import JIT from this module, so they are imported
 # after it.
@@ -864,6 +897,16 @@ def compiled_mover(
         # decorator: naming ``parallel`` here keeps the serial and the parallel kernel in entries
         # of their own (they shared one, and whichever was compiled first served both).
         _ = parallel
+        # The arrays as views without a reference of their own (the caller holds them):
+        # ``borrowed``.
+        x, y, m, m0, trel, texit, status = borrowed((x, y, m, m0, trel, texit, status))
+        flow, cells, disp, topology = (
+            borrowed(flow),
+            borrowed(cells),
+            borrowed(disp),
+            borrowed(topology),
+        )
+        times, edges_mode, column = borrowed(times), borrowed(edges_mode), borrowed(column)
         ux, uy, U, vx, vy, V, invu = flow[0], flow[1], flow[2], flow[3], flow[4], flow[5], flow[6]
         face_nodes, neighbours, edge_open, hint = topology[0], topology[1], topology[2], topology[3]
         xe, ye, wet, cx, cy, invc = cells[0], cells[1], cells[2], cells[3], cells[4], cells[5]
