@@ -328,7 +328,7 @@ def test_ensemble_runs_on_the_curvilinear_demo(tmp_path):
     table["run"]["end"] = "2026-05-04T09:00:00Z"
     table["ensemble"]["start_earliest"] = "2026-05-04T03:30:00Z"
     table["ensemble"]["start_latest"] = "2026-05-04T04:30:00Z"
-    table["releases"][0]["particles"] = 300  # > kernels.BLOCK: the threaded kernel of the demo
+    table["releases"][0]["particles"] = 300  # > kernels.BLOCK: blocks on threads, as in the demo
     table["output"]["file"] = str(tmp_path / "ens.nc")
     ds = run_ensemble(table, members=3, base_dir=here)
     assert int(ds.attrs.get("members", 3)) == 3

@@ -145,17 +145,22 @@ def test_one_thread_equals_two_threads_bitwise():
         assert np.array_equal(arr, b.arrays()[name], equal_nan=True), name
 
 
-def test_serial_and_parallel_kernels_are_cached_apart():
+def test_every_kernel_option_is_a_plain_value_the_kernel_closes_over():
     """numba's disk cache keys a compiled closure by the values of the variables it closes over
     (numba.core.caching, the index key; read from numba's source), not by its decorator's
-    options: the serial and the parallel kernel of one option set must differ there, or the one
-    compiled first is loaded for both."""
-    options = (2, 0, True, True, False, True, False, True, True)
-    serial = kernels.compiled_mover(*options, False).py_func
-    parallel = kernels.compiled_mover(*options, True).py_func
-    assert serial.__code__.co_code == parallel.__code__.co_code
-    values = [[c.cell_contents for c in f.__closure__] for f in (serial, parallel)]
-    assert values[0] != values[1]
+    options: two option sets must differ there, or the kernel compiled first is loaded for both;
+    and those values must be plain numbers (an object such as a dispatcher pickles differently
+    in every process, and the kernel would never load from the cache)."""
+    base = (2, 0, True, True, False, True, False, True, True, 0, 0)
+    other = (1, 1, False, False, True, False, True, False, False, 1, 1)
+
+    def closed_over(options):
+        return [c.cell_contents for c in kernels.compiled_mover(*options).py_func.__closure__]
+
+    assert all(type(v) in (bool, int) for v in closed_over(base))
+    for k, value in enumerate(other):
+        changed = (*base[:k], value, *base[k + 1 :])
+        assert closed_over(changed) != closed_over(base), k
 
 
 def test_no_particle_on_land_outside_or_nan():

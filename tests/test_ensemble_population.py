@@ -266,7 +266,7 @@ def test_the_numpy_twin_moves_a_population_as_the_kernels_do():
     path = Path(__file__).resolve().parents[1] / "scenarios" / "saltmarsh_ensemble.toml"
     data = tomllib.loads(path.read_text())
     data["run"]["end"] = "2026-05-04T06:00:00Z"
-    data["releases"][0]["particles"] = 100  # 3 members: 300 > kernels.BLOCK, the threaded kernel
+    data["releases"][0]["particles"] = 100  # 3 members: 300 > kernels.BLOCK, blocks on threads
     data["ensemble"].update(
         members=4,
         start_latest="2026-05-04T03:00:00Z",

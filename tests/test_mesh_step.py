@@ -95,7 +95,7 @@ def test_compiled_step_equals_numpy_twin_on_a_mesh():
         for scheme, mode in (("euler", "axes"), ("rk4", "aligned")):
             tr = Transport(dt=40.0, scheme=scheme, dispersion=Dispersion(mode=mode, k1=3.0, k2=1.0))
             rng = np.random.default_rng(2)
-            # 1000 particles: four blocks of kernels.BLOCK, so the threaded kernel, as in runs
+            # 1000 particles: four blocks of kernels.BLOCK, spread over threads as in runs
             start = (rng.uniform(10, 1500, 1000), rng.uniform(10, 1000, 1000))
             release = rng.uniform(0, 600, 1000)
             a, fa = run(flow, tr, *start, 1000, 1800.0, release=release)

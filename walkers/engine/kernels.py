@@ -24,31 +24,58 @@ uses Marsaglia's 1964 method. Rejections draw further hashes by chaining z -> mi
 Performance layout (see docs/performance.md): particles are moved in blocks of ``BLOCK``; inside a
 block the loop runs over steps, then over particles, so consecutive iterations are independent and
 the CPU overlaps them; each particle's current cell and random stream are kept in per-block scratch
-arrays; time weights of every step are computed once per call.
+arrays; time weights of every step are computed once per call. The step kernel is serial and
+releases the GIL: it moves the range of blocks it is given, and ``advance`` has the caller's
+``spread`` (``walkers.engine.blocks.spread_blocks``) run ranges on threads.
 """
 
 from __future__ import annotations
 
 import functools
 import math
-import os
 
 import numba as nb
 import numpy as np
-
-# The OpenMP threads of the parallel kernels sleep between calls instead of spinning (the GNU
-# runtime's default spins): between kernel calls the run does its reductions in Python, and a
-# spinning thread took the core they needed whenever the machine had other work (the demo
-# ensemble on two threads: 28 s against 13 s at load 7). Read when the threads start; a value
-# the user set is kept.
-os.environ.setdefault("OMP_WAIT_POLICY", "PASSIVE")
+from numba.core import cgutils, types
+from numba.extending import intrinsic
 
 JIT = {"cache": True, "error_model": "numpy", "nogil": True}
 # The small functions of the step loop are inlined by numba itself (in its IR), not left to
-# LLVM: the loop body of a parallel kernel is compiled as a function of its own that LLVM does
-# not inline into, and a called function takes and drops a reference to every array it is
-# passed (atomic operations on counts that all threads share).
+# LLVM, which inlined few of them; their array arguments come ``borrowed`` (below), so the
+# references numba takes and drops for an inlined helper cost no atomic operation.
 INLINE = {**JIT, "inline": "always"}
+
+
+@intrinsic
+def borrowed(typingctx, arrays):
+    """The arrays of a tuple (or one array) as views that own no reference: their memory-info
+    pointer is null, so numba's reference counting of them costs a test of that pointer instead
+    of an atomic add on a count. numba takes and drops a reference to an array wherever an
+    inlined helper receives it; where a branch follows, LLVM merges the drops into one on a
+    selected pointer, which numba's pruning of reference operations no longer recognises, and
+    the serial step loop spent about 70 % of its time in a dozen or more atomic operations per
+    particle-step (docs/performance.md). Only for arrays that the
+    caller keeps alive (the kernel's arguments) and that are neither returned nor stored."""
+    members = arrays.types if isinstance(arrays, types.BaseTuple) else (arrays,)
+    if not all(isinstance(t, types.Array) for t in members):
+        return None
+
+    def unowned(builder, value):
+        value = builder.insert_value(value, cgutils.get_null_value(value.type.elements[0]), 0)
+        return builder.insert_value(value, cgutils.get_null_value(value.type.elements[1]), 1)
+
+    def codegen(context, builder, signature, args):
+        if not isinstance(arrays, types.BaseTuple):
+            return unowned(builder, args[0])
+        value = args[0]
+        for k in range(len(members)):
+            value = builder.insert_value(
+                value, unowned(builder, builder.extract_value(value, k)), k
+            )
+        return value
+
+    return arrays(arrays), codegen
+
 
 # The mesh primitives and the vertical step import JIT from this module, so they are imported
 # after it.
@@ -792,7 +819,6 @@ def compiled_mover(
     tensor,
     shared,
     centred,
-    parallel,
     mesh=0,
     vertical_mode=0,
 ):
@@ -812,7 +838,6 @@ def compiled_mover(
         tensor of a curvilinear grid); the noise is its Cholesky factor times two normals.
     shared : u and v lie on the same axes (located once).
     centred : u and v lie on the cell centres (the location is shared with K and the drift).
-    parallel : blocks of particles spread over threads (otherwise one thread).
     mesh : 0 a lattice of cells; 1 an unstructured mesh with u, v on its nodes, 2 on its faces.
         On a mesh the argument tuples keep their shapes with other contents (see ``advance``),
         a particle's cell is its face, the walls and open boundaries are those of
@@ -835,7 +860,7 @@ def compiled_mover(
     kz_mode = vertical_mode & 3
     with_w = (vertical_mode & 4) != 0
 
-    @nb.njit(parallel=parallel, **JIT)
+    @nb.njit(**JIT)
     def move(
         x,
         y,
@@ -859,11 +884,16 @@ def compiled_mover(
         bridge,
         topology,
         column,
+        tables,
+        first_block,
+        last_block,
     ):
-        # numba's disk cache keys a closure by the values it uses, not by the options of its
-        # decorator: naming ``parallel`` here keeps the serial and the parallel kernel in entries
-        # of their own (they shared one, and whichever was compiled first served both).
-        _ = parallel
+        # The arrays as views without a reference of their own (the caller holds them):
+        # ``borrowed``.
+        x, y, m, m0, trel, texit, status = borrowed((x, y, m, m0, trel, texit, status))
+        flow, cells, disp, times = borrowed(flow), borrowed(cells), borrowed(disp), borrowed(times)
+        topology, column, edges_mode = borrowed(topology), borrowed(column), borrowed(edges_mode)
+        tab_i, tab_w, tab_decay = borrowed(tables)
         ux, uy, U, vx, vy, V, invu = flow[0], flow[1], flow[2], flow[3], flow[4], flow[5], flow[6]
         face_nodes, neighbours, edge_open, hint = topology[0], topology[1], topology[2], topology[3]
         xe, ye, wet, cx, cy, invc = cells[0], cells[1], cells[2], cells[3], cells[4], cells[5]
@@ -884,13 +914,8 @@ def compiled_mover(
         c_levels, c_wlev, c_w, c_klev, c_kz = column[5], column[6], column[7], column[8], column[9]
         n_levels = c_levels.shape[0]
         resuspend = c_params.shape[0] > 5 and c_params[5] > 0.0
-        tab_i = np.zeros((nsteps, 3), np.int64)
-        tab_w = np.zeros((nsteps, 3))
-        tab_decay = np.ones(nsteps)
-        step_tables(times, t0, dt, nsteps, decay_rate, tab_i, tab_w, tab_decay)
         n = x.shape[0]
-        nblocks = (n + BLOCK - 1) // BLOCK
-        for b in nb.prange(nblocks):
+        for b in range(first_block, last_block):
             lo = b * BLOCK
             hi = min(n, lo + BLOCK)
             nb_ = hi - lo
@@ -1236,6 +1261,7 @@ def advance(
     decay_rate,
     topology=None,
     column=None,
+    spread=None,
 ):
     """Advance every particle by ``nsteps`` steps of ``dt`` seconds from time ``t0``.
 
@@ -1273,9 +1299,12 @@ def advance(
         of frame f at f nl + k); the heights and layered frames of the upward velocity w
         (m s-1; no heights: none) and of K_z (m2 s-1; mode 3) on the cells. None:
         depth-averaged.
+    spread : a function ``spread(nblocks, run)`` that calls ``run(first, last)`` for ranges of
+        blocks of ``BLOCK`` particles that cover ``range(nblocks)`` once, on threads of its
+        choosing (``mover.spread_blocks``); None: one call for all blocks on this thread. The
+        kernel releases the GIL.
 
-    Particles are independent, so any split over threads gives the same numbers bitwise. One block
-    runs on the calling thread (waking the others would cost more than the work).
+    Particles are independent, so any split over threads gives the same numbers bitwise.
     """
     ux, uy, vx, vy = flow[0], flow[1], flow[3], flow[4]
     cx, cy = cells[3], cells[4]
@@ -1302,34 +1331,48 @@ def advance(
         bool(opts[7]),
         shared,
         centred,
-        x.shape[0] > BLOCK,
         int(opts[8]) if opts.shape[0] > 8 else 0,
         vertical_mode,
     )
-    move(
-        x,
-        y,
-        m,
-        m0,
-        trel,
-        texit,
-        status,
-        flow,
-        cells,
-        disp,
-        times,
-        edges_mode,
-        float(t0),
-        float(dt),
-        int(nsteps),
-        int(step0),
-        np.uint64(key),
-        float(decay_rate),
-        int(opts[5]),
-        bool(opts[4]),
-        topology,
-        column,
-    )
+    nsteps = int(nsteps)
+    # Time weights of every step of the call, for every range of blocks (``step_tables``).
+    tables = (np.zeros((nsteps, 3), np.int64), np.zeros((nsteps, 3)), np.ones(nsteps))
+    step_tables(times, float(t0), float(dt), nsteps, float(decay_rate), *tables)
+
+    def run(first, last):
+        move(
+            x,
+            y,
+            m,
+            m0,
+            trel,
+            texit,
+            status,
+            flow,
+            cells,
+            disp,
+            times,
+            edges_mode,
+            float(t0),
+            float(dt),
+            int(nsteps),
+            int(step0),
+            np.uint64(key),
+            float(decay_rate),
+            int(opts[5]),
+            bool(opts[4]),
+            topology,
+            column,
+            tables,
+            first,
+            last,
+        )
+
+    nblocks = (x.shape[0] + BLOCK - 1) // BLOCK
+    if spread is None:
+        run(0, nblocks)
+    else:
+        spread(nblocks, run)
 
 
 @nb.njit(**JIT)
@@ -1353,12 +1396,13 @@ def grid_mass(x, y, w, status, x0, dx, nx, y0, dy, ny, out, count):
         count[j, i] += 1
 
 
-@nb.njit(parallel=True, **JIT)
+@nb.njit(**JIT)
 def depth_at_particles(x, y, depth, xe, ye, out):
-    """Depth (m; cross-section m2 in 1-D) of the flow cell holding each particle."""
+    """Depth (m; cross-section m2 in 1-D) of the flow cell holding each particle (one thread:
+    a lookup per particle; no kernel here compiles numba's parallel loops)."""
     invx = axis_inverse_spacing(xe)
     invy = axis_inverse_spacing(ye)
-    for p in nb.prange(x.shape[0]):
+    for p in range(x.shape[0]):
         out[p] = depth[cell_index(ye, invy, y[p]), cell_index(xe, invx, x[p])]
 
 

@@ -4,6 +4,11 @@ The mover turns a :class:`~walkers.fields.base.FlowWindow` and the run's
 :class:`~walkers.scenario.config.Transport` into the plain arrays the kernels take: velocity frames
 on their own axes, the wet mask on the cell grid, and the dispersion coefficients with the drift
 (1/h) ∇·(h K) on cell centres, computed once per frame by finite differences.
+
+Threads: the compiled step kernel is serial and releases the GIL; :func:`advance` has
+:func:`walkers.engine.blocks.spread_blocks` spread ranges of blocks of particles over Python
+threads (numba's number of threads, ``numba.set_num_threads``), with the same numbers bitwise
+whatever the number of threads.
 """
 
 from __future__ import annotations
@@ -15,6 +20,7 @@ from typing import Any, Literal
 import numpy as np
 
 from walkers.engine import kernels, twin, vertical
+from walkers.engine.blocks import spread_blocks
 from walkers.engine.state import ParticleState
 from walkers.errors import InputError
 from walkers.fields.base import FlowField, FlowWindow, WindowColumn, centre_to_edges
@@ -374,6 +380,8 @@ def advance(
     Each particle's dispersion is further multiplied by ``state.dispersion_multiplier`` (1 if None).
     """
     mod = kernels if stepper == "fast" else twin
+    # the compiled kernel's blocks of particles over threads (the twin runs on this thread)
+    threads = {"spread": spread_blocks} if stepper == "fast" else {}
     topology = None
     if inputs.topology is not None:
         if state.face is None or state.face.shape[0] != len(state):
@@ -412,6 +420,7 @@ def advance(
         float(inputs.decay_rate),
         topology,
         column,
+        **threads,
     )
 
 
