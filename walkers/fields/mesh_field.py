@@ -160,12 +160,10 @@ def mesh_field(flow: MeshFlow) -> FlowField:
     column = None
     if flow.layers is not None:
         lay = flow.layers
-        w = lay.w is not None and lay.w_levels is not None
-        kz = lay.kz is not None and lay.kz_levels is not None
         attrs["column"] = describe_column(
             lay.levels,
-            (lay.w.name, lay.w_levels.size) if w else None,
-            (lay.kz.name, lay.kz_levels.size) if kz else None,
+            None if lay.w is None or lay.w_levels is None else (lay.w.name, lay.w_levels.size),
+            None if lay.kz is None or lay.kz_levels is None else (lay.kz.name, lay.kz_levels.size),
             " on the faces",
         )
         column = ColumnFields(

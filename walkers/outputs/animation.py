@@ -7,6 +7,7 @@ from pathlib import Path
 
 import numpy as np
 from matplotlib.axes import Axes
+from matplotlib.backends.backend_agg import FigureCanvasAgg
 from PIL import Image
 
 from walkers.outputs.figures import (
@@ -42,21 +43,23 @@ def plume_animation(run: _Run, path: Path, fps: int) -> Path:
         _colour_bar(run, fig, ax, artist)
     title = ax.set_title(f"Concentration at {run.stamps[0]}", fontsize=10)
     _footer(fig, f"{run.stamps[0]} to {run.stamps[-1]}")
-    fig.canvas.draw()
+    canvas = fig.canvas
+    assert isinstance(canvas, FigureCanvasAgg)  # the canvas of ``figures._figure``
+    canvas.draw()
     fig.set_layout_engine("none")  # freeze the layout: solving it anew for every frame is slow
     over = _drawn_over(ax, artist)
     placed = title.get_position()  # a hidden title is moved by the next draw: put it back after
     for a in (artist, title, *over):
         a.set_visible(False)
-    fig.canvas.draw()
-    base = fig.canvas.copy_from_bbox(fig.bbox)
+    canvas.draw()
+    base = canvas.copy_from_bbox(fig.bbox)
     for a in (artist, title, *over):
         a.set_visible(True)
     title.set_position(placed)
-    fig.canvas.get_renderer().clear()  # transparent
+    canvas.get_renderer().clear()  # transparent
     for a in over:
         ax.draw_artist(a)
-    overlay = np.asarray(fig.canvas.buffer_rgba(), dtype=np.float32) / 255.0
+    overlay = np.asarray(canvas.buffer_rgba(), dtype=np.float32) / 255.0
     alpha = overlay[..., 3:]
     over_part = overlay[..., :3] * alpha * 255.0
     frames = []
@@ -67,10 +70,10 @@ def plume_animation(run: _Run, path: Path, fps: int) -> Path:
         else:
             artist.set_data(np.ma.masked_less_equal(run.conc(field), 0.0))
         title.set_text(f"Concentration at {run.stamps[i]}")
-        fig.canvas.restore_region(base)
+        canvas.restore_region(base)
         ax.draw_artist(artist)
         fig.draw_artist(title)
-        below = np.asarray(fig.canvas.buffer_rgba())[..., :3]
+        below = np.asarray(canvas.buffer_rgba())[..., :3]
         rgb = over_part + below * (1.0 - alpha)
         frame = Image.fromarray(np.clip(np.rint(rgb), 0, 255).astype(np.uint8), "RGB")
         # 256 colours by the fast octree (the median cut PIL uses otherwise takes ~60 ms a frame)

@@ -26,6 +26,7 @@ from matplotlib.colors import LogNorm
 from matplotlib.figure import Figure
 from matplotlib.layout_engine import ConstrainedLayoutEngine
 from matplotlib.lines import Line2D
+from matplotlib.text import Text
 from matplotlib.ticker import FuncFormatter
 
 import walkers
@@ -174,7 +175,7 @@ def _figure(width: float, height: float, lines: int = 3) -> Figure:
     return fig
 
 
-def _footer(fig: Figure, when: str):
+def _footer(fig: Figure, when: str) -> Text:
     """The footer: the time span ``when`` and the caution; returns its Text."""
     return fig.text(
         0.01,
@@ -245,8 +246,9 @@ def _set_thin_cells(run: _Run, ax: Axes, counts: np.ndarray | None) -> None:
     for patch in list(ax.patches):
         if patch.get_gid() == THIN_GID:
             patch.remove()
-    if ax.get_legend() is not None:
-        ax.get_legend().remove()
+    legend = ax.get_legend()
+    if legend is not None:
+        legend.remove()
     thin = counts is not None and hatch_thin_cells(ax, ds, counts)
     handles = legend_handles(ds, thin)
     handles.append(
@@ -309,11 +311,11 @@ def _map_figures(
     thin-cell hatching, the legend, the title and the footer, and keep the first one's layout
     (the panel, its furniture and the colour bar stay where they were)."""
     written: list[Path] = []
-    fig = ax = image = heading = footer = None
-    for field, counts, title, when, path in maps:
-        if fig is None or run.one_dimensional:
+    for k, (field, counts, title, when, path) in enumerate(maps):
+        if k == 0 or run.one_dimensional:
             fig = _figure(*_map_size(run, 7.0))
             ax = fig.add_subplot()
+            image = None
             if run.one_dimensional:
                 _draw_profile(run, ax, field[0])
             else:
@@ -322,6 +324,7 @@ def _map_figures(
             heading = ax.set_title(title, fontsize=10)
             footer = _footer(fig, when)
         else:
+            assert image is not None  # the first map's field, drawn on this figure
             image.set_data(np.ma.masked_less_equal(run.conc(field), 0.0))
             _set_thin_cells(run, ax, counts)
             heading.set_text(title)

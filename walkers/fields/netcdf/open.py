@@ -491,12 +491,11 @@ def _describe_column(column: ColumnFields | None, schema: _FileSchema) -> str:
             "vertical advection); K_z: none in the file"
         )
     names = {r: lay.name for r, (lay, _) in schema.column_variables.items()}
-    w = column.w is not None and column.w_levels is not None
-    kz = column.kz is not None and column.kz_levels is not None
+    w, kz = column.w_levels, column.kz_levels
     return describe_column(
         column.levels,
-        (names["w"], column.w_levels.size) if w else None,
-        (names["kz"], column.kz_levels.size) if kz else None,
+        None if column.w is None or w is None else (names["w"], w.size),
+        None if column.kz is None or kz is None else (names["kz"], kz.size),
     )
 
 
