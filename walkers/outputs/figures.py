@@ -17,6 +17,7 @@ from collections.abc import Iterator, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
+import dask
 import numpy as np
 import xarray as xr
 from matplotlib import colormaps
@@ -57,6 +58,9 @@ from walkers.outputs.reader import open_results
 
 CONC_CMAP = "viridis"
 FOOTER_FONT = 6.0  # points
+#: dask's scheduler for reading a streamed result frame by frame: each read is one small task, and
+#: the threaded scheduler's start-up per read cost the estuary demo's figures 1.7 s of 6.4 s.
+READ_SCHEDULER = "synchronous"
 MAX_FRAMES = 25  # frames in the animated GIF at most (every k-th output time)
 DECADES = 4  # decades of concentration shown below the maximum on the log colour scale
 PLAIN_TICKS = FuncFormatter(lambda v, _pos: plain(v, 2))
@@ -515,23 +519,24 @@ def plot_results(
         for entry in folder.iterdir():  # a figure name that leads to the result: never drawn over
             if entry.suffix in (".png", ".gif"):
                 refuse_inputs(entry, [ds_or_path])
-    run = _load(ds_or_path, land, units)
-    conc = run.ds["concentration"]
-    counts = run.ds["particle_count"] if "particle_count" in run.ds else None
-    maps = [
-        (
-            np.asarray(conc.isel(time=i).values),
-            None if counts is None else np.asarray(counts.isel(time=i).values),
-            f"Concentration at {run.stamps[i]} ({run.hours[i]:g} h after the run start)",
-            run.stamps[i],
-            folder / f"concentration_t{i:04d}.png",
-        )
-        for i in _chosen_indices(run, times)
-    ]
-    written = _summary_figures(run, folder, maps)
     from walkers.outputs.animation import plume_animation  # it draws with this module's parts
 
-    written.append(plume_animation(run, folder / "plume.gif", fps))
+    with dask.config.set(scheduler=READ_SCHEDULER):
+        run = _load(ds_or_path, land, units)
+        conc = run.ds["concentration"]
+        counts = run.ds["particle_count"] if "particle_count" in run.ds else None
+        maps = [
+            (
+                np.asarray(conc.isel(time=i).values),
+                None if counts is None else np.asarray(counts.isel(time=i).values),
+                f"Concentration at {run.stamps[i]} ({run.hours[i]:g} h after the run start)",
+                run.stamps[i],
+                folder / f"concentration_t{i:04d}.png",
+            )
+            for i in _chosen_indices(run, times)
+        ]
+        written = _summary_figures(run, folder, maps)
+        written.append(plume_animation(run, folder / "plume.gif", fps))
     return written
 
 
@@ -565,4 +570,5 @@ def report_figures(
     """The figures a report shows: the maximum map, the receptor series (when there are
     receptors), the mass budget and, for a three-dimensional run, the water-column figures,
     drawn into the existing folder ``outdir``."""
-    return _summary_figures(_load(ds_or_path, None, units), Path(outdir))
+    with dask.config.set(scheduler=READ_SCHEDULER):
+        return _summary_figures(_load(ds_or_path, None, units), Path(outdir))
