@@ -1301,7 +1301,7 @@ def advance(
         depth-averaged.
     spread : a function ``spread(nblocks, run)`` that calls ``run(first, last)`` for ranges of
         blocks of ``BLOCK`` particles that cover ``range(nblocks)`` once, on threads of its
-        choosing (``mover.spread_blocks``); None: one call for all blocks on this thread. The
+        choosing (``blocks.spread_blocks``); None: one call for all blocks on this thread. The
         kernel releases the GIL.
 
     Particles are independent, so any split over threads gives the same numbers bitwise.
