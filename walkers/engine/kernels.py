@@ -277,6 +277,99 @@ def column_walk(most, step, lo, sigma, settling, params, walk, profiles, bst, mo
 
 
 @nb.njit(**JIT)
+def column_sweep(step, lo, sigma, settling, params, walk, bst, mode, scratch):
+    """:func:`column_walk` for a constant or parabolic K_z without w (``mode`` 1 or 2), in
+    sweeps over the whole block that the compiler turns into vector instructions. First each
+    particle's substeps (Visser's criterion, :func:`column_substeps`) and their length from the
+    step's length, which ``walk[7]`` holds on entry, and 1/depth (``walk[2]``); then per substep,
+    the fast path of the ziggurat for every particle, then the few deviates that need the rest
+    of it (:func:`ziggurat_rest`), then :func:`vertical.column_step`'s arithmetic with the
+    first reflection at the bed and at the surface written without branches, applied where the
+    particle takes the substep; the rare steps that need more reflections, and the deposition
+    of those that ended below a depositing bed, follow one by one. The same numbers as
+    :func:`column_walk`, bit for bit (``scratch``: four arrays of the block's length)."""
+    z, depth, inv_depth, ustar, vstreams, on, n, sub = walk
+    r, zf, flag, hashes = scratch
+    nk = on.shape[0]
+    k_const = params[vertical.P_K0]
+    drift = params[vertical.P_DRIFT]
+    wd = params[vertical.P_WD]
+    most = 0
+    for k in range(nk):
+        longest = vertical.column_longest(depth[k], ustar[k], params)
+        nsub = column_substeps(sub[k], longest) if on[k] else 0
+        n[k] = nsub
+        inv_depth[k] = 1.0 / depth[k]
+        sub[k] = sub[k] / max(nsub, 1)
+        most = max(most, nsub)
+    for j in range(most):
+        offset = (np.uint64(step) * np.uint64(VERTICAL_COMPONENTS) + np.uint64(2 * j)) * GOLDEN
+        for k in range(nk):
+            h = mix64(vstreams[k] + offset)
+            hashes[k] = h
+            i = h & np.uint64(255)
+            x = float(np.int64(h >> np.uint64(11))) * INV_2_53 * ZIG_X[i]
+            r[k] = x * float(1 - 2 * np.int64((h >> np.uint64(8)) & np.uint64(1)))
+            flag[k] = np.int8(x >= ZIG_X[i + np.uint64(1)])
+        for k in range(nk):
+            if flag[k]:
+                r[k] = ziggurat_rest(hashes[k])
+        for k in range(nk):
+            zk = z[k]
+            dt = sub[k]
+            if mode == vertical.KZ_CONSTANT:
+                dk = 0.0
+                kk = k_const
+            else:
+                a = vertical.KAPPA * ustar[k]
+                dk = a * (1.0 - 2.0 * zk * inv_depth[k]) * drift
+                zm = min(max(zk + 0.5 * dk * dt, 0.0), depth[k])
+                kk = a * zm * (1.0 - zm * inv_depth[k])
+            zn = zk + (dk - settling[lo + k]) * dt + r[k] * math.sqrt(2.0 * kk * dt)
+            below = zn < 0.0
+            zn = abs(zn)
+            zn = min(zn, 2.0 * depth[k] - zn)
+            take = on[k] and j < n[k]
+            zf[k] = zn
+            z[k] = min(max(zn, 0.0), depth[k]) if take else zk
+            # 1: below the bed, 2: still outside the column, 4: K of the step is 0
+            flag[k] = np.int8(take) * np.int8(
+                int(below) + 2 * int(zn < 0.0) + 4 * int(not kk > 0.0)
+            )
+            r[k] = kk
+        for k in range(nk):
+            if flag[k] & 2:
+                zn = zf[k]
+                below = (flag[k] & 1) != 0
+                # the turns :func:`vertical.column_step` has left: two were taken if the
+                # first was at the bed, one (at the surface) otherwise
+                for _ in range(vertical.MAX_COLUMN_REFLECTIONS - 1 - int(below)):
+                    if zn < 0.0:
+                        zn = -zn
+                        below = True
+                    elif zn > depth[k]:
+                        zn = 2.0 * depth[k] - zn
+                    else:
+                        break
+                z[k] = min(max(zn, 0.0), depth[k])
+                flag[k] |= np.int8(below)
+            if wd > 0.0 and flag[k] & 1:
+                if not flag[k] & 4:
+                    chance = min(wd * math.sqrt(math.pi * sub[k] / r[k]), 1.0)
+                elif settling[lo + k] > 0.0:
+                    chance = min(wd / settling[lo + k], 1.0)
+                else:
+                    chance = 1.0
+                if chance > 0.0 and open_unit(column_hash(vstreams[k], step, 2 * j + 1)) < chance:
+                    z[k] = 0.0
+                    on[k] = False
+                    bst[k] = STATUS_ON_BED
+    for k in range(nk):
+        if n[k] > 0:
+            sigma[lo + k] = z[k] / depth[k]
+
+
+@nb.njit(**JIT)
 def column_profile(arr, levels, it, wt, j, i, out, row):
     """The values of (nf nl or nl, ny, nx) layered frames in cell (j, i) at time (it, wt), one
     per level, into row ``row`` of ``out`` (``vertical.layer_frame_value``)."""
@@ -461,17 +554,23 @@ def bilinear(arr, it, wt, i, j, wx, wy):
     it and it+1 (a single frame is used as is)."""
     nx = arr.shape[2]
     ny = arr.shape[1]
-    i1 = min(i + 1, nx - 1)
-    j1 = min(j + 1, ny - 1)
+    # Unsigned indices (the callers' are never negative): numba then adds no wrap-around of
+    # negative indices, three instructions per index.
+    i0 = np.uint64(i)
+    j0 = np.uint64(j)
+    i1 = np.uint64(min(i + 1, nx - 1))
+    j1 = np.uint64(min(j + 1, ny - 1))
+    t0 = np.uint64(it)
     if arr.shape[0] == 1:
-        it = 0
+        t0 = np.uint64(0)
         wt = 0.0
-    f = (1.0 - wy) * ((1.0 - wx) * arr[it, j, i] + wx * arr[it, j, i1]) + wy * (
-        (1.0 - wx) * arr[it, j1, i] + wx * arr[it, j1, i1]
+    f = (1.0 - wy) * ((1.0 - wx) * arr[t0, j0, i0] + wx * arr[t0, j0, i1]) + wy * (
+        (1.0 - wx) * arr[t0, j1, i0] + wx * arr[t0, j1, i1]
     )
     if wt > 0.0:
-        g = (1.0 - wy) * ((1.0 - wx) * arr[it + 1, j, i] + wx * arr[it + 1, j, i1]) + wy * (
-            (1.0 - wx) * arr[it + 1, j1, i] + wx * arr[it + 1, j1, i1]
+        t1 = t0 + np.uint64(1)
+        g = (1.0 - wy) * ((1.0 - wx) * arr[t1, j0, i0] + wx * arr[t1, j0, i1]) + wy * (
+            (1.0 - wx) * arr[t1, j1, i0] + wx * arr[t1, j1, i1]
         )
         f = f + wt * (g - f)
     return f
@@ -549,7 +648,9 @@ def inside_cell(edges, k, v):
 @nb.njit(**INLINE)
 def trace_path(px, py, pi, pj, qx, qy, xe, ye, wet, iw, edges_mode, max_refl):
     """Follow the straight path of a step from (px, py) in wet cell (pi, pj) to (qx, qy), cell by
-    cell, and reflect it at the first closed face it meets.
+    cell, and reflect it at the first closed face it meets. A step that ends in its own cell or
+    a neighbour, with every cell of the rectangle between the two wet, is placed at once (the
+    end cell is then the one whose half-open extent [e_i, e_i+1) holds the end).
 
     A face is closed when the cell beyond it is land or dry (``wet[iw]`` 0) or when it is a
     reflecting domain edge. At a closed face the rest of the path is mirrored in the face (the
@@ -569,9 +670,18 @@ def trace_path(px, py, pi, pj, qx, qy, xe, ye, wet, iw, edges_mode, max_refl):
     still reflecting after ``max_refl`` reflections, or whose end is not a finite number, is not
     placed (the particle keeps its position).
     """
-    if xe[pi] <= qx < xe[pi + 1] and ye[pj] <= qy < ye[pj + 1]:
-        # Still in its own cell, as most steps are: the result of the trace below, found at once.
-        return -1, 1.0, True, qx, qy, pi, pj
+    # Most steps end in their own cell or in one of the eight around it. When the end lies in
+    # such a cell and that cell and the two beside both (the rectangle of cells between start
+    # and end, which holds the whole straight path) are wet, the path meets no closed face and
+    # the trace below would end there: it is found at once, without branches that depend on the
+    # random step (the comparisons give 0 or 1). A NaN end fails the test and goes to the trace.
+    ncx = xe.shape[0] - 1
+    ncy = ye.shape[0] - 1
+    ci = min(max(pi - int(qx < xe[pi]) + int(qx >= xe[pi + 1]), 0), ncx - 1)
+    cj = min(max(pj - int(qy < ye[pj]) + int(qy >= ye[pj + 1]), 0), ncy - 1)
+    near = xe[ci] <= qx < xe[ci + 1] and ye[cj] <= qy < ye[cj + 1]
+    if near and wet[iw, cj, ci] != 0 and wet[iw, pj, ci] != 0 and wet[iw, cj, pi] != 0:
+        return -1, 1.0, True, qx, qy, ci, cj
     return cross_cells(px, py, pi, pj, qx, qy, xe, ye, wet, iw, edges_mode, max_refl)
 
 
@@ -859,6 +969,9 @@ def compiled_mover(
     # the K_z mode (low two bits) and w (bit 2) of vertical_mode, constants of the walk
     kz_mode = vertical_mode & 3
     with_w = (vertical_mode & 4) != 0
+    # the vertical walk in sweeps over the block (``column_sweep``): K_z constant or parabolic,
+    # no w
+    sweep = vertical_mode != 0 and kz_mode != vertical.KZ_FILE and not with_w
 
     @nb.njit(**JIT)
     def move(
@@ -942,6 +1055,10 @@ def compiled_mover(
             wcols = np.zeros((nv, max(c_wlev.shape[0], 1)))
             for k in range(nv):
                 v_streams[k] = mix64(streams[k] ^ VERTICAL_SALT)
+            v_r = np.empty(nv)
+            v_zf = np.empty(nv)
+            v_flag = np.zeros(nv, np.int8)
+            v_hash = np.empty(nv, np.uint64)
             # The block's state, gathered so that it stays in the L1 cache.
             bx = np.empty(nb_)
             by = np.empty(nb_)
@@ -1193,7 +1310,15 @@ def compiled_mover(
                     if vertical_mode:
                         hd = vertical.cell_frame_value(c_depth, it, wt, pj, pi)
                         us = vertical.cell_frame_value(c_ustar, it, wt, pj, pi)
-                        if hd >= vertical.MIN_COLUMN_DEPTH:
+                        if hd >= vertical.MIN_COLUMN_DEPTH and sweep:
+                            # the substeps are counted in ``column_sweep``; v_sub holds the
+                            # step's length until then
+                            v_on[k] = True
+                            v_z[k] = sigma[p] * hd
+                            v_depth[k] = hd
+                            v_ustar[k] = us
+                            v_sub[k] = h
+                        elif hd >= vertical.MIN_COLUMN_DEPTH:
                             # (shallower: too shallow to step in, sigma is kept)
                             if c_klev.shape[0] > 0:
                                 column_profile(c_kz, c_klev, it, wt, pj, pi, kcols, k)
@@ -1214,7 +1339,19 @@ def compiled_mover(
                             v_sub[k] = h / nsub
                             v_most = max(v_most, nsub)
                     bst[k] = st
-                if vertical_mode:
+                if sweep:
+                    column_sweep(
+                        step0 + s,
+                        lo,
+                        sigma,
+                        settling,
+                        c_params,
+                        (v_z, v_depth, v_inv, v_ustar, v_streams, v_on, v_n, v_sub),
+                        bst,
+                        kz_mode,
+                        (v_r, v_zf, v_flag, v_hash),
+                    )
+                elif vertical_mode:
                     column_walk(
                         v_most,
                         step0 + s,

@@ -223,12 +223,13 @@ def _advect(flow, times, scheme, geographic, x, y, t, h, lay=(1, None, None)):
 def trace_paths(px, py, pi, pj, qx, qy, xe, ye, wet, iw, edges_mode, max_refl):
     """Twin of ``kernels.trace_path``, vectorised over particles: each pass moves every path one
     event further (into the next cell, a reflection, an exit or the end); ``iw`` is each
-    particle's frame of the wet mask. Returns (edge, fraction, placed, qx, qy, ci, cj)."""
+    particle's frame of the wet mask. A path that ends in its own cell or a neighbour, with
+    the cells of the rectangle between them wet, is placed at once, as in the kernel.
+    Returns (edge, fraction, placed, qx, qy, ci, cj)."""
     n = px.size
     ncx, ncy = xe.size - 1, ye.size - 1
     edge = np.full(n, -1)
     frac_out = np.ones(n)
-    placed = np.zeros(n, dtype=bool)
     i, j = pi.copy(), pj.copy()
     sx, sy = px.copy(), py.copy()
     qx, qy = qx.copy(), qy.copy()
@@ -236,7 +237,14 @@ def trace_paths(px, py, pi, pj, qx, qy, xe, ye, wet, iw, edges_mode, max_refl):
     oi, oj = pi.copy(), pj.copy()
     done = np.zeros(n)
     refl = np.zeros(n, np.int64)
-    act = np.flatnonzero(np.isfinite(qx) & np.isfinite(qy))
+    with np.errstate(invalid="ignore"):
+        ci = np.clip(pi - (qx < xe[pi]) + (qx >= xe[pi + 1]), 0, ncx - 1)
+        cj = np.clip(pj - (qy < ye[pj]) + (qy >= ye[pj + 1]), 0, ncy - 1)
+        near = (xe[ci] <= qx) & (qx < xe[ci + 1]) & (ye[cj] <= qy) & (qy < ye[cj + 1])
+    near &= (wet[iw, cj, ci] != 0) & (wet[iw, pj, ci] != 0) & (wet[iw, cj, pi] != 0)
+    placed = near.copy()
+    ox[near], oy[near], oi[near], oj[near] = qx[near], qy[near], ci[near], cj[near]
+    act = np.flatnonzero(~near & np.isfinite(qx) & np.isfinite(qy))
     for _ in range((ncx + ncy + 2) * (max_refl + 1)):
         if act.size == 0:
             break
