@@ -92,6 +92,31 @@ def _rate(
     return statistics.median(walls), statistics.median(cpus), out
 
 
+def _paired_ratios(
+    base: tuple[mover.KernelInputs, ParticleState],
+    other: tuple[mover.KernelInputs, ParticleState],
+    steps: int,
+    pairs: int,
+) -> tuple[float, float]:
+    """Median speed of ``other`` over ``base`` per wall and per CPU second, from runs of the two
+    back to back on one thread: the speed of a shared virtual machine drifts (on this one by up
+    to a factor of two over tens of seconds), and a ratio of medians taken minutes apart carries
+    that drift; a ratio of neighbours does not."""
+    walls, cpus = [], []
+    for _ in range(pairs):
+        timed = []
+        for inputs, start in (base, other):
+            out = start.copy()
+
+            def go(out=out, inputs=inputs):
+                mover.advance(out, inputs, 0.0, DT, steps, 0, KEY)
+
+            timed.append(_timed(go))
+        walls.append(timed[0][0] / timed[1][0])
+        cpus.append(timed[0][1] / max(timed[1][1], 1e-9))
+    return statistics.median(walls), statistics.median(cpus)
+
+
 def _engine_rates(
     flow: FlowField,
     transport: Transport,
@@ -355,7 +380,7 @@ def run_benchmark(
         rk4 = dataclasses.replace(s_transport, scheme="rk4")
         note("scenario workload with RK4, 1 thread")
         numba.set_num_threads(1)
-        rk4_wall, rk4_cpu, _ = _rate(s_flow, _inputs(s_flow, rk4), s_start, nsteps, reps)
+        rk4_wall, _, _ = _rate(s_flow, _inputs(s_flow, rk4), s_start, nsteps, reps)
         note("numpy twin, scenario workload")
         s_twin = _rate(s_flow, _inputs(s_flow, s_transport), s_start, twin_steps, 1, "reference")[2]
         c_flow, c_transport = curvilinear_workload()
@@ -364,9 +389,7 @@ def run_benchmark(
         note("reference workload with K on the grid, 1 thread")
         g_flow, g_transport = gridded_workload()
         numba.set_num_threads(1)
-        gridded_wall, gridded_cpu, _ = _rate(
-            g_flow, _inputs(g_flow, g_transport), start, nsteps, reps
-        )
+        gridded_wall, _, _ = _rate(g_flow, _inputs(g_flow, g_transport), start, nsteps, reps)
         m_flow, m_transport = mesh_workload()
         m_start = initial_state(n, m_flow)
         m_inputs = mesh_inputs.mesh_kernel_inputs(
@@ -378,10 +401,31 @@ def run_benchmark(
         mesh_wall, mesh_cpu, _ = _rate(m_flow, m_inputs, m_start, nsteps, reps)
         note("compiled engine, three-dimensional workload, 1 thread")
         t_inputs, t_start = threed_workload(flow, transport, start)
-        threed_wall, threed_cpu, _ = _rate(flow, t_inputs, t_start, nsteps, reps)
+        threed_wall, _, _ = _rate(flow, t_inputs, t_start, nsteps, reps)
         note("numpy twin, curvilinear workload")
         numba.set_num_threads(1)
         c_twin = _rate(c_flow, _inputs(c_flow, c_transport), c_start, twin_steps, 1, "reference")[2]
+        note("ratios to the reference workload, back-to-back pairs, 1 thread")
+        base = (inputs, start)
+        pairs = max(reps, 7)
+        ratio = {
+            name: _paired_ratios(base, other, nsteps, pairs)
+            for name, other in (
+                ("scenario", (_inputs(s_flow, s_transport), s_start)),
+                ("curvilinear", (_inputs(c_flow, c_transport), c_start)),
+                ("mesh", (m_inputs, m_start)),
+                ("threed", (t_inputs, t_start)),
+            )
+        }
+        rk4_speed = _paired_ratios(
+            (_inputs(s_flow, s_transport), s_start), (_inputs(s_flow, rk4), s_start), nsteps, pairs
+        )
+        gridded_speed = _paired_ratios(
+            (_inputs(g_flow, g_transport), start),
+            (_inputs(c_flow, c_transport), c_start),
+            nsteps,
+            pairs,
+        )
     finally:
         numba.set_num_threads(threads_before)
     difference = _largest_difference(flow, transport, start, twin_steps, twin_out)
@@ -413,30 +457,31 @@ def run_benchmark(
         "scenario_steps_per_s_1thread": sce["one_wall"],
         "scenario_steps_per_cpu_s_1thread": sce["one_cpu"],
         "scenario_steps_per_s_2threads": sce["two_wall"],
-        "scenario_over_reference": sce["one_wall"] / ref["one_wall"],
-        "scenario_over_reference_cpu": sce["one_cpu"] / ref["one_cpu"],
+        "ratio_pairs": pairs,
+        "scenario_over_reference": ratio["scenario"][0],
+        "scenario_over_reference_cpu": ratio["scenario"][1],
         "scenario_speedup_1_to_2_threads": sce["two_wall"] / sce["one_wall"],
         "scenario_rk4_steps_per_s_1thread": rk4_wall,
-        "rk4_over_euler_cost": sce["one_wall"] / rk4_wall,
-        "rk4_over_euler_cost_cpu": sce["one_cpu"] / rk4_cpu,
+        "rk4_over_euler_cost": 1.0 / rk4_speed[0],
+        "rk4_over_euler_cost_cpu": 1.0 / rk4_speed[1],
         "scenario_compiled_minus_numpy_max_m": s_difference,
         "curvilinear_workload": _workload(c_flow, c_transport, n, nsteps, twin_steps, reps),
         "curvilinear_steps_per_s_1thread": cur["one_wall"],
         "curvilinear_steps_per_cpu_s_1thread": cur["one_cpu"],
         "curvilinear_steps_per_s_2threads": cur["two_wall"],
-        "curvilinear_over_reference": cur["one_wall"] / ref["one_wall"],
-        "curvilinear_over_reference_cpu": cur["one_cpu"] / ref["one_cpu"],
+        "curvilinear_over_reference": ratio["curvilinear"][0],
+        "curvilinear_over_reference_cpu": ratio["curvilinear"][1],
         "curvilinear_compiled_minus_numpy_max_cells": c_difference,
         "gridded_steps_per_s_1thread": gridded_wall,
         "mesh_steps_per_s_1thread": mesh_wall,
         "mesh_steps_per_cpu_s_1thread": mesh_cpu,
-        "mesh_over_reference": mesh_wall / ref["one_wall"],
-        "mesh_over_reference_cpu": mesh_cpu / ref["one_cpu"],
+        "mesh_over_reference": ratio["mesh"][0],
+        "mesh_over_reference_cpu": ratio["mesh"][1],
         "threed_steps_per_s_1thread": threed_wall,
-        "threed_over_reference": threed_wall / ref["one_wall"],
-        "threed_over_reference_cpu": threed_cpu / ref["one_cpu"],
-        "curvilinear_over_gridded": cur["one_wall"] / gridded_wall,
-        "curvilinear_over_gridded_cpu": cur["one_cpu"] / gridded_cpu,
+        "threed_over_reference": ratio["threed"][0],
+        "threed_over_reference_cpu": ratio["threed"][1],
+        "curvilinear_over_gridded": gridded_speed[0],
+        "curvilinear_over_gridded_cpu": gridded_speed[1],
         "bytes_per_particle": start.nbytes // len(start),
         "peak_memory_10m_bytes": peak_10m,
         "peak_memory_method": method,
@@ -483,7 +528,8 @@ def format_report(r: dict) -> str:
         f"load average {m['load_average_before'][0]:.2f} -> {m['load_average_after'][0]:.2f}",
         f"workload: {w['grid_cells'][0]} x {w['grid_cells'][1]} cells, {w['frames']} frames, "
         f"{w['particles']:,} particles, {w['steps_compiled']} steps of {w['dt_s']:g} s "
-        f"(twin {w['steps_twin']}), medians of {w['repeats']}",
+        f"(twin {w['steps_twin']}), medians of {w['repeats']}; ratios X / reference: medians of "
+        f"{r['ratio_pairs']} back-to-back pairs",
         f"compiled, 1 thread    {r['compiled_steps_per_s_1thread'] / 1e6:8.1f} M particle-steps/s "
         f"{mark('compiled_steps_per_s_1thread')}; "
         f"{r['compiled_steps_per_cpu_s_1thread'] / 1e6:.1f} M per CPU-second",

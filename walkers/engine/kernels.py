@@ -304,16 +304,21 @@ def column_sweep(step, lo, sigma, settling, params, walk, bst, mode, scratch):
         most = max(most, nsub)
     for j in range(most):
         offset = (np.uint64(step) * np.uint64(VERTICAL_COMPONENTS) + np.uint64(2 * j)) * GOLDEN
+        rest = 0
         for k in range(nk):
             h = mix64(vstreams[k] + offset)
             hashes[k] = h
             i = h & np.uint64(255)
             x = float(np.int64(h >> np.uint64(11))) * INV_2_53 * ZIG_X[i]
             r[k] = x * float(1 - 2 * np.int64((h >> np.uint64(8)) & np.uint64(1)))
-            flag[k] = np.int8(x >= ZIG_X[i + np.uint64(1)])
-        for k in range(nk):
-            if flag[k]:
-                r[k] = ziggurat_rest(hashes[k])
+            tail = int(x >= ZIG_X[i + np.uint64(1)])
+            flag[k] = np.int8(tail)
+            rest |= tail
+        if rest:
+            for k in range(nk):
+                if flag[k]:
+                    r[k] = ziggurat_rest(hashes[k])
+        seen = 0
         for k in range(nk):
             zk = z[k]
             dt = sub[k]
@@ -333,10 +338,13 @@ def column_sweep(step, lo, sigma, settling, params, walk, bst, mode, scratch):
             zf[k] = zn
             z[k] = min(max(zn, 0.0), depth[k]) if take else zk
             # 1: below the bed, 2: still outside the column, 4: K of the step is 0
-            flag[k] = np.int8(take) * np.int8(
-                int(below) + 2 * int(zn < 0.0) + 4 * int(not kk > 0.0)
-            )
+            mark = int(take) * (int(below) + 2 * int(zn < 0.0) + 4 * int(not kk > 0.0))
+            flag[k] = np.int8(mark)
+            seen |= mark
             r[k] = kk
+        # the particles one by one only when one needs it (most substeps: none)
+        if not (seen & 2 or (wd > 0.0 and seen & 1)):
+            continue
         for k in range(nk):
             if flag[k] & 2:
                 zn = zf[k]
@@ -811,11 +819,13 @@ def bridge_test(stream, step, px, py, qx, qy, sx, sy, kxx, kyy, h, ndim, edges_m
 def frame_value(arr, it, wt, n):
     """Value n of a (nf, 1, n) mesh variable, linear in time between frames it and it+1 (a
     single frame as is); the arithmetic of :func:`bilinear` in time."""
+    un = np.uint64(n)  # unsigned: no wrap-around of negative indices
     if arr.shape[0] == 1:
-        return arr[0, 0, n]
-    f = arr[it, 0, n]
+        return arr[0, 0, un]
+    t0 = np.uint64(it)
+    f = arr[t0, 0, un]
     if wt > 0.0:
-        f = f + wt * (arr[it + 1, 0, n] - f)
+        f = f + wt * (arr[t0 + np.uint64(1), 0, un] - f)
     return f
 
 

@@ -59,6 +59,12 @@ def corner_count(face_nodes, f):
 
 
 @nb.njit(**INLINE)
+def next_corner(k, nv):
+    """(k + 1) mod nv for 0 <= k < nv, without an integer division (tens of cycles)."""
+    return k + 1 if k + 1 < nv else 0
+
+
+@nb.njit(**INLINE)
 def edge_side(node_x, node_y, a, b, px, py):
     """(b - a) × (p - a), m2: positive when p lies left of the edge a→b (inside a
     counter-clockwise face), zero on its line."""
@@ -73,7 +79,7 @@ def inside_face(node_x, node_y, face_nodes, f, px, py):
     nv = corner_count(face_nodes, f)
     for k in range(nv):
         a = face_nodes[f, k]
-        b = face_nodes[f, (k + 1) % nv]
+        b = face_nodes[f, next_corner(k, nv)]
         if edge_side(node_x, node_y, a, b, px, py) < 0.0:
             return False
     return True
@@ -103,7 +109,7 @@ def walk_to_face(node_x, node_y, face_nodes, neighbours, start, px, py):
         out_of_mesh = False
         for k in range(nv):
             a = face_nodes[f, k]
-            b = face_nodes[f, (k + 1) % nv]
+            b = face_nodes[f, next_corner(k, nv)]
             side = edge_side(node_x, node_y, a, b, px, py)
             if side < 0.0:
                 g = neighbours[f, k]
@@ -295,19 +301,28 @@ def cross_faces(
         nv = corner_count(face_nodes, f)
         tbest = 2.0
         kbest = -1
+        inside = True  # q on the inner side of every edge tested
         for k in range(nv):
             if k == skip:
                 continue
             a = face_nodes[f, k]
-            b = face_nodes[f, (k + 1) % nv]
+            b = face_nodes[f, next_corner(k, nv)]
             sq = edge_side(node_x, node_y, a, b, qx, qy)
             if sq < 0.0:
+                inside = False
                 ss = edge_side(node_x, node_y, a, b, sx, sy)
                 t = max(ss / (ss - sq), 0.0)
                 if t < tbest:
                     tbest = t
                     kbest = k
         if kbest < 0:
+            if inside and skip >= 0:
+                # :func:`inside_face` needs only the edge not tested (the one the path came in
+                # through), which round-off may leave q a few ulps outside
+                a = face_nodes[f, skip]
+                b = face_nodes[f, next_corner(skip, nv)]
+                if not edge_side(node_x, node_y, a, b, qx, qy) < 0.0:
+                    return -1, 1.0, True, qx, qy, f
             x, y = nudge_inside(node_x, node_y, face_nodes, f, qx, qy)
             return -1, 1.0, True, x, y, f
         cx = sx + tbest * (qx - sx)
@@ -321,7 +336,7 @@ def cross_faces(
                 break
             reflections += 1
             a = face_nodes[f, kbest]
-            b = face_nodes[f, (kbest + 1) % nv]
+            b = face_nodes[f, next_corner(kbest, nv)]
             ex = node_x[b] - node_x[a]
             ey = node_y[b] - node_y[a]
             along = ((qx - node_x[a]) * ex + (qy - node_y[a]) * ey) / (ex * ex + ey * ey)
@@ -377,7 +392,7 @@ def green_gauss(node_x, node_y, face_nodes, area, values, f):
     gy = 0.0
     for k in range(nv):
         a = face_nodes[f, k]
-        b = face_nodes[f, (k + 1) % nv]
+        b = face_nodes[f, next_corner(k, nv)]
         mean = 0.5 * (values[a] + values[b])
         # outward normal times length of a counter-clockwise edge a→b: (dy, -dx)
         gx += mean * (node_y[b] - node_y[a])

@@ -81,13 +81,18 @@ def cell_frame_value(arr, it, wt, j, i):
     """Value (j, i) of (nf, ny, nx) frames, linear in time between frames it and it+1 (a single
     frame as is; at wt = 1 frame it+1 itself, so that the twin, which locates a time on a frame
     as (it+1, 0), finds the same bits: u* near 0 enters the step through a square root)."""
+    # unsigned indices (never negative here): no wrap-around of negative ones
+    uj = np.uint64(j)
+    ui = np.uint64(i)
     if arr.shape[0] == 1:
-        return arr[0, j, i]
+        return arr[0, uj, ui]
+    t0 = np.uint64(it)
+    t1 = t0 + np.uint64(1)
     if wt >= 1.0:
-        return arr[it + 1, j, i]
-    f = arr[it, j, i]
+        return arr[t1, uj, ui]
+    f = arr[t0, uj, ui]
     if wt > 0.0:
-        f = f + wt * (arr[it + 1, j, i] - f)
+        f = f + wt * (arr[t1, uj, ui] - f)
     return f
 
 
