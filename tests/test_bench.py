@@ -5,7 +5,7 @@ import json
 import numpy as np
 import pytest
 
-from walkers import bench
+from walkers import bench, scaling
 from walkers.engine import mover
 
 FIELDS = {
@@ -112,7 +112,7 @@ def test_text_report_names_each_target(small_result):
 
 
 def test_scaling_slope_of_a_power_law():
-    assert bench.fit_slope([1.0, 2.0, 4.0], [3.0, 6.0, 12.0]) == pytest.approx(1.0)
+    assert scaling.fit_slope([1.0, 2.0, 4.0], [3.0, 6.0, 12.0]) == pytest.approx(1.0)
 
 
 def test_cli_bench_command_prints_json():
