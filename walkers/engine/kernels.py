@@ -278,22 +278,28 @@ def column_walk(most, step, lo, sigma, settling, params, walk, profiles, bst, mo
 
 @nb.njit(**JIT)
 def column_sweep(step, lo, sigma, settling, params, walk, bst, mode, scratch):
-    """:func:`column_walk` for a constant or parabolic K_z without w (``mode`` 1 or 2), in
-    sweeps over the whole block that the compiler turns into vector instructions. First each
-    particle's substeps (Visser's criterion, :func:`column_substeps`) and their length from the
-    step's length, which ``walk[7]`` holds on entry, and 1/depth (``walk[2]``); then per substep,
-    the fast path of the ziggurat for every particle, then the few deviates that need the rest
-    of it (:func:`ziggurat_rest`), then :func:`vertical.column_step`'s arithmetic with the
-    first reflection at the bed and at the surface written without branches, applied where the
-    particle takes the substep; the rare steps that need more reflections, and the deposition
-    of those that ended below a depositing bed, follow one by one. The same numbers as
-    :func:`column_walk`, bit for bit (``scratch``: four arrays of the block's length)."""
+    """:func:`column_walk` for a constant or parabolic K_z without w (``mode`` 1 or 2), in one
+    sweep per substep over the whole block that the compiler turns into vector instructions.
+
+    First each particle's substeps (Visser's criterion, :func:`column_substeps`) and their
+    length, from the step's length that ``walk[7]`` holds on entry, and 1/depth (``walk[2]``).
+    Then per substep, for every particle at once: the hash, the ziggurat's fast path, and
+    :func:`vertical.column_step`'s arithmetic with the first reflection at the bed and at the
+    surface written without branches, kept where the particle takes the substep. A particle
+    whose deviate needs the rest of the ziggurat, whose step needs more reflections, or that
+    ended below a depositing bed is marked, and only these are stepped again, one by one, from
+    their height before the substep, by :func:`vertical.column_step` itself (with the
+    deposition draw of :func:`column_walk`). The same numbers as :func:`column_walk`, bit for
+    bit (``scratch``: the height before the substep and the marks, arrays of the block's
+    length; ``tests/test_column_sweep.py``)."""
     z, depth, inv_depth, ustar, vstreams, on, n, sub = walk
-    r, zf, flag, hashes = scratch
+    before, mark = scratch
     nk = on.shape[0]
     k_const = params[vertical.P_K0]
     drift = params[vertical.P_DRIFT]
-    wd = params[vertical.P_WD]
+    depositing = params[vertical.P_WD] > 0.0
+    none = np.zeros(0)
+    rows = np.zeros((1, 1))
     most = 0
     for k in range(nk):
         longest = vertical.column_longest(depth[k], ustar[k], params)
@@ -304,22 +310,13 @@ def column_sweep(step, lo, sigma, settling, params, walk, bst, mode, scratch):
         most = max(most, nsub)
     for j in range(most):
         offset = (np.uint64(step) * np.uint64(VERTICAL_COMPONENTS) + np.uint64(2 * j)) * GOLDEN
-        rest = 0
-        for k in range(nk):
-            h = mix64(vstreams[k] + offset)
-            hashes[k] = h
-            i = h & np.uint64(255)
-            x = float(np.int64(h >> np.uint64(11))) * INV_2_53 * ZIG_X[i]
-            r[k] = x * float(1 - 2 * np.int64((h >> np.uint64(8)) & np.uint64(1)))
-            tail = int(x >= ZIG_X[i + np.uint64(1)])
-            flag[k] = np.int8(tail)
-            rest |= tail
-        if rest:
-            for k in range(nk):
-                if flag[k]:
-                    r[k] = ziggurat_rest(hashes[k])
         seen = 0
         for k in range(nk):
+            h = mix64(vstreams[k] + offset)
+            i = h & np.uint64(255)
+            x = float(np.int64(h >> np.uint64(11))) * INV_2_53 * ZIG_X[i]
+            r = x * float(1 - 2 * np.int64((h >> np.uint64(8)) & np.uint64(1)))
+            tail = x >= ZIG_X[i + np.uint64(1)]
             zk = z[k]
             dt = sub[k]
             if mode == vertical.KZ_CONSTANT:
@@ -330,48 +327,43 @@ def column_sweep(step, lo, sigma, settling, params, walk, bst, mode, scratch):
                 dk = a * (1.0 - 2.0 * zk * inv_depth[k]) * drift
                 zm = min(max(zk + 0.5 * dk * dt, 0.0), depth[k])
                 kk = a * zm * (1.0 - zm * inv_depth[k])
-            zn = zk + (dk - settling[lo + k]) * dt + r[k] * math.sqrt(2.0 * kk * dt)
+            zn = zk + (dk - settling[lo + k]) * dt + r * math.sqrt(2.0 * kk * dt)
             below = zn < 0.0
             zn = abs(zn)
             zn = min(zn, 2.0 * depth[k] - zn)
             take = on[k] and j < n[k]
-            zf[k] = zn
+            before[k] = zk
             z[k] = min(max(zn, 0.0), depth[k]) if take else zk
-            # 1: below the bed, 2: still outside the column, 4: K of the step is 0
-            mark = int(take) * (int(below) + 2 * int(zn < 0.0) + 4 * int(not kk > 0.0))
-            flag[k] = np.int8(mark)
-            seen |= mark
-            r[k] = kk
-        # the particles one by one only when one needs it (most substeps: none)
-        if not (seen & 2 or (wd > 0.0 and seen & 1)):
+            again = int(take and (tail or zn < 0.0 or (below and depositing)))
+            mark[k] = np.int8(again)
+            seen |= again
+        if not seen:
             continue
         for k in range(nk):
-            if flag[k] & 2:
-                zn = zf[k]
-                below = (flag[k] & 1) != 0
-                # the turns :func:`vertical.column_step` has left: two were taken if the
-                # first was at the bed, one (at the surface) otherwise
-                for _ in range(vertical.MAX_COLUMN_REFLECTIONS - 1 - int(below)):
-                    if zn < 0.0:
-                        zn = -zn
-                        below = True
-                    elif zn > depth[k]:
-                        zn = 2.0 * depth[k] - zn
-                    else:
-                        break
-                z[k] = min(max(zn, 0.0), depth[k])
-                flag[k] |= np.int8(below)
-            if wd > 0.0 and flag[k] & 1:
-                if not flag[k] & 4:
-                    chance = min(wd * math.sqrt(math.pi * sub[k] / r[k]), 1.0)
-                elif settling[lo + k] > 0.0:
-                    chance = min(wd / settling[lo + k], 1.0)
-                else:
-                    chance = 1.0
-                if chance > 0.0 and open_unit(column_hash(vstreams[k], step, 2 * j + 1)) < chance:
-                    z[k] = 0.0
-                    on[k] = False
-                    bst[k] = STATUS_ON_BED
+            if not mark[k]:
+                continue
+            zn, chance = vertical.column_step(
+                before[k],
+                depth[k],
+                inv_depth[k],
+                ustar[k],
+                settling[lo + k],
+                params,
+                sub[k],
+                normal_from(mix64(vstreams[k] + offset)),
+                none,
+                rows,
+                none,
+                rows,
+                0,
+                mode,
+                False,
+            )
+            z[k] = zn
+            if chance > 0.0 and open_unit(column_hash(vstreams[k], step, 2 * j + 1)) < chance:
+                z[k] = 0.0
+                on[k] = False
+                bst[k] = STATUS_ON_BED
     for k in range(nk):
         if n[k] > 0:
             sigma[lo + k] = z[k] / depth[k]
@@ -1065,10 +1057,8 @@ def compiled_mover(
             wcols = np.zeros((nv, max(c_wlev.shape[0], 1)))
             for k in range(nv):
                 v_streams[k] = mix64(streams[k] ^ VERTICAL_SALT)
-            v_r = np.empty(nv)
-            v_zf = np.empty(nv)
-            v_flag = np.zeros(nv, np.int8)
-            v_hash = np.empty(nv, np.uint64)
+            v_before = np.empty(nv)
+            v_mark = np.zeros(nv, np.int8)
             # The block's state, gathered so that it stays in the L1 cache.
             bx = np.empty(nb_)
             by = np.empty(nb_)
@@ -1359,7 +1349,7 @@ def compiled_mover(
                         (v_z, v_depth, v_inv, v_ustar, v_streams, v_on, v_n, v_sub),
                         bst,
                         kz_mode,
-                        (v_r, v_zf, v_flag, v_hash),
+                        (v_before, v_mark),
                     )
                 elif vertical_mode:
                     column_walk(
