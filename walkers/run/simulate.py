@@ -507,9 +507,12 @@ def _advance_interval(
 def _particle_depths_at(
     particles: ParticleState, flow: FlowField, t: float, xe: np.ndarray, ye: np.ndarray
 ) -> np.ndarray:
-    """The water depth (m) at each particle at time ``t``: the flow frame nearest in time."""
-    window_now = flow.window(t, t)
-    frame = 0 if window_now.depth.shape[0] == 1 else int(np.argmin(np.abs(window_now.times - t)))
+    """The water depth (m) at each particle at time ``t``: the flow frame nearest in time (only
+    the depth's frames are read)."""
+    i0, i1 = flow.frame_range(t, t)
+    depth = flow.depth.frames(i0, i1)
+    times = flow.times[i0 : i1 + 1]
+    frame = 0 if depth.shape[0] == 1 else int(np.argmin(np.abs(times - t)))
     if is_mesh_flow(flow):
-        return mesh_inputs.depths_at(flow, window_now.depth[frame], particles)
-    return reduce.particle_depths(particles, window_now.depth[frame], xe, ye)
+        return mesh_inputs.depths_at(flow, depth[frame], particles)
+    return reduce.particle_depths(particles, depth[frame], xe, ye)
