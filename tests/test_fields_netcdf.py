@@ -124,6 +124,17 @@ def test_frames_are_read_only_when_a_window_asks(tmp_path):
     assert w.u.shape[0] == 2
     assert flow.u.data.frames_read - after_open == 2  # u, v, depth, wet of a window: one read
     assert flow.u.data.frames_read < times.size
+    # a frame of the window just read is taken from it, unread, and is the frame a fresh read
+    # gives
+    before = flow.u.data.frames_read
+    u_21 = flow.u.frames(21, 21)
+    assert flow.u.data.frames_read == before
+    fresh = open_flow(ff.write_flow(tmp_path / "again.nc", times=times))
+    np.testing.assert_array_equal(u_21, fresh.u.frames(21, 21))
+    np.testing.assert_array_equal(flow.v.frames(20, 20), fresh.v.frames(20, 20))
+    # a frame outside it is read
+    flow.u.frames(30, 30)
+    assert flow.u.data.frames_read == before + 1
 
 
 def test_several_files_along_time_join_like_one(tmp_path):

@@ -93,6 +93,7 @@ class DispersionFrames:
 
 
 CACHE_ENTRIES = 96  # windows of dispersion frames kept per flow (ensemble members reuse them)
+FRAME_CACHE_ENTRIES = 8  # frames of the drift kept per flow (neighbouring windows share frames)
 
 
 def dispersion_frames(
@@ -147,7 +148,17 @@ def _dispersion_frames(
         return DispersionFrames(
             drift_x, drift_y, np.full((1, 1, 1), d.k1), np.full((1, 1, 1), d.k2), True, False
         )
+    # A frame's drift depends on that frame alone: kept per frame time, so a frame that several
+    # windows hold (each output interval's window shares its ends) is computed once.
+    per_frame = flow.__dict__.setdefault("_drift_frame_cache", OrderedDict())
+    fields = (d.k1_field, d.k2_field)
     for f in range(nf):
+        when = float(window.times[f]) if nf == window.times.size else None
+        key = (when, window.times.size if when is None else 0, d.mode, d.k1, d.k2, *map(id, fields))
+        if when is not None and key in per_frame:
+            per_frame.move_to_end(key)
+            drift_x[f], drift_y[f] = per_frame[key][0]
+            continue
         wet = window.wet[min(f, window.wet.shape[0] - 1)] > 0
         h = _fill_land(window.depth[min(f, window.depth.shape[0] - 1)], wet)
         h = np.maximum(h, MIN_DRIFT_DEPTH)
@@ -177,6 +188,11 @@ def _dispersion_frames(
 
         drift_x[f] = (gx(hkxx) + gy(hkxy)) / h
         drift_y[f] = (gx(hkxy) + gy(hkyy)) / h
+        if when is not None:
+            # the field arrays are held with the entry so that their ids cannot be reused
+            per_frame[key] = ((drift_x[f].copy(), drift_y[f].copy()), fields)
+            while len(per_frame) > FRAME_CACHE_ENTRIES:
+                per_frame.popitem(last=False)
     if flow.ndim == 1:
         drift_y[:] = 0.0
     k1f = np.ascontiguousarray(k1, dtype=np.float64)[None]

@@ -4,6 +4,7 @@ wet cells from the mask or the velocities.
 
 from __future__ import annotations
 
+from collections import OrderedDict
 from typing import Any
 
 import netCDF4
@@ -111,12 +112,18 @@ def _readable(variable: netCDF4.Variable, index: Any) -> bool:
     return True
 
 
+#: blocks of frames a flow source keeps: the window being stepped through and the one before
+#: (the frames of a window serve the depth at its output time without a read)
+BLOCKS_KEPT = 2
+
+
 class _FlowSource:
     """Reads frames of every role from one or more files and derives depth and wet per frame.
 
     Static (time-less) variables are read once when the source is built; time-varying ones are
-    read a block of frames at a time, and the last block is kept so that u, v, depth and wet of
-    one window cost one read. ``frames_read`` counts frames read from disk (for tests and logs).
+    read a block of frames at a time, and the last BLOCKS_KEPT blocks are kept, so that u, v,
+    depth and wet of one window cost one read and a frame of a window just read (the depth at an
+    output time) costs none. ``frames_read`` counts frames read from disk (for tests and logs).
     """
 
     def __init__(
@@ -160,7 +167,8 @@ class _FlowSource:
         self.frames_read = 0
         #: turns velocities into index-space components on a curvilinear grid (else None)
         self.index_velocity: Any = None
-        self._cache: tuple[tuple[int, int], dict[str, np.ndarray]] | None = None
+        #: the last blocks derived, newest last: (i0, i1) -> variables (``block``)
+        self._blocks: OrderedDict[tuple[int, int], dict[str, np.ndarray]] = OrderedDict()
         self._handles: dict[int, netCDF4.Dataset] = {}
         self.static: dict[str, np.ndarray] = {}
         path = paths[int(frame_file[0]) if frame_file.size else 0]
@@ -192,7 +200,7 @@ class _FlowSource:
     def __getstate__(self) -> dict[str, Any]:
         # sent to other processes without the cached block; files are reopened there
         state = dict(self.__dict__)
-        state["_cache"] = None
+        state["_blocks"] = OrderedDict()
         state["_handles"] = {}
         return state
 
@@ -254,9 +262,11 @@ class _FlowSource:
         return raw[role] if role in raw else self.static[role]
 
     def block(self, i0: int, i1: int) -> dict[str, np.ndarray]:
-        """u, v, depth, wet for frames i0..i1, derived and checked (cached for the last block)."""
-        if self._cache is not None and self._cache[0] == (i0, i1):
-            return self._cache[1]
+        """u, v, depth, wet for frames i0..i1, derived and checked (the last BLOCKS_KEPT blocks
+        are kept; frames inside a kept block are taken from it)."""
+        kept = self._kept(i0, i1)
+        if kept is not None:
+            return kept
         raw = self._read_raw(i0, i1) if self.varying else {}
         u = self._get(raw, "u")
         v = self._get(raw, "v") if self.ndim == 2 else np.zeros_like(u[:1])
@@ -295,8 +305,33 @@ class _FlowSource:
             "wet": wet.astype(np.float64),
             **column,
         }
-        self._cache = ((i0, i1), result)
+        self._blocks[(i0, i1)] = result
+        while len(self._blocks) > BLOCKS_KEPT:
+            self._blocks.popitem(last=False)
         return result
+
+    def _kept(self, i0: int, i1: int) -> dict[str, np.ndarray] | None:
+        """Frames i0..i1 from a kept block that holds them (the newest first), or None. Every
+        variable is derived frame by frame, so a part of a block is what a read would give; the
+        layered columns (levels in the frame axis) are only taken whole."""
+        for (a, b), result in reversed(self._blocks.items()):
+            if (a, b) == (i0, i1):
+                self._blocks.move_to_end((a, b))
+                return result
+            if a <= i0 and i1 <= b and not self.keep_column:
+                n = b - a + 1
+                if all(arr.shape[0] in (1, n) for arr in result.values()):
+                    return {
+                        key: arr if arr.shape[0] == 1 else arr[i0 - a : i1 - a + 1]
+                        for key, arr in result.items()
+                    }
+        return None
+
+    def latest(self) -> dict[str, np.ndarray]:
+        """The newest block kept, or frame 0 read (a steady variable's one frame)."""
+        if self._blocks:
+            return next(reversed(self._blocks.values()))
+        return self.block(0, 0)
 
     def _surface_and_bed(
         self, raw: dict[str, np.ndarray], depth: np.ndarray, vc: VerticalCoordinate
@@ -478,8 +513,7 @@ class _LazyFrames:
             head, rest = item, ()
         if self.shape[0] == 1:
             # steady: the same frame whatever the time, from any block already derived
-            cached = self.source._cache
-            frames = (cached[1] if cached is not None else self.source.block(0, 0))[self.key]
+            frames = self.source.latest()[self.key]
             if isinstance(head, (int, np.integer)):
                 return np.asarray(frames[(0, *rest)])
             return np.asarray(frames[:1][(head, *rest)])
