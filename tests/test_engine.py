@@ -4,7 +4,7 @@ import numba
 import numpy as np
 import pytest
 
-from walkers.engine import kernels, mover, twin
+from walkers.engine import drift, kernels, mover, twin
 from walkers.engine.state import EXITED, IN_WATER, WAITING, ParticleState
 from walkers.errors import InputError
 from walkers.fields.analytic import analytic_flow, grid_flow
@@ -263,7 +263,7 @@ def test_drift_on_a_geographic_grid_uses_the_meridian_arc():
 
     from scipy import integrate
 
-    from walkers.engine.mover import dispersion_frames
+    from walkers.engine.drift import dispersion_frames
     from walkers.fields.analytic import grid_flow
     from walkers.fields.geo import metres_per_degree
     from walkers.scenario.config import Dispersion, Transport
@@ -287,17 +287,17 @@ def test_drift_on_a_geographic_grid_uses_the_meridian_arc():
 
 
 def test_drift_of_a_frame_shared_by_windows_is_the_drift_computed_afresh():
-    """The drift of each frame is kept per frame time (``mover._dispersion_frames``): the drift
+    """The drift of each frame is kept per frame time (``drift._dispersion_frames``): the drift
     of a window whose first frame the previous window computed equals the drift of the same
     window on a fresh copy of the flow, bit for bit (the scenario workload: estimated K aligned
     with the flow over drying flats, so K and the drift change from frame to frame)."""
     from walkers import workloads
 
     flow, transport = workloads.scenario_workload(nx=40, ny=20, frames=4)
-    mover.dispersion_frames(flow, flow.window(0.0, 3600.0), transport)
-    shared = mover.dispersion_frames(flow, flow.window(3600.0, 7200.0), transport)
+    drift.dispersion_frames(flow, flow.window(0.0, 3600.0), transport)
+    shared = drift.dispersion_frames(flow, flow.window(3600.0, 7200.0), transport)
     fresh_flow, fresh_transport = workloads.scenario_workload(nx=40, ny=20, frames=4)
-    fresh = mover.dispersion_frames(fresh_flow, fresh_flow.window(3600.0, 7200.0), fresh_transport)
+    fresh = drift.dispersion_frames(fresh_flow, fresh_flow.window(3600.0, 7200.0), fresh_transport)
     assert shared.drift_x.shape[0] == 2 and np.any(shared.drift_x[0] != shared.drift_x[1])
     np.testing.assert_array_equal(shared.drift_x, fresh.drift_x)
     np.testing.assert_array_equal(shared.drift_y, fresh.drift_y)

@@ -16,14 +16,13 @@ from __future__ import annotations
 import numpy as np
 
 from walkers.engine import meshwalk
-from walkers.engine.mover import KernelInputs, aligned_tensor
+from walkers.engine.drift import MIN_DRIFT_DEPTH, aligned_tensor
+from walkers.engine.mover import KernelInputs
 from walkers.engine.state import ParticleState
 from walkers.errors import InputError
 from walkers.fields.base import FlowField, FlowWindow
 from walkers.fields.mesh import NODE, MeshFlow
 from walkers.scenario.config import Transport
-
-MIN_DRIFT_DEPTH = 0.05  # m; as on grids (walkers.engine.mover)
 
 
 def _on_nodes(mesh: MeshFlow, location: str, values: np.ndarray) -> np.ndarray:

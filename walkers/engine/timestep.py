@@ -21,7 +21,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from walkers.engine.mover import metres_per_grid_unit
+from walkers.engine.drift import metres_per_grid_unit
 from walkers.errors import InputError
 from walkers.fields.base import FlowField
 from walkers.scenario.config import Transport

@@ -28,7 +28,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from walkers.engine import mesh_inputs, mover
+from walkers.engine import drift, mesh_inputs, mover
 from walkers.engine.coefficients import shear_velocity
 from walkers.engine.state import ParticleState
 from walkers.errors import InputError
@@ -142,7 +142,7 @@ def cell_shear_velocity(flow: FlowField, window: FlowWindow, vertical: Vertical)
     nf = max(window.u.shape[0], window.v.shape[0], window.depth.shape[0])
     out = np.zeros((nf, ny, nx))
     for f in range(nf):
-        u, v = mover._velocity_at_centres(flow, window, f)
+        u, v = drift.velocity_at_centres(flow, window, f)
         if flow.curvilinear:
             jac = flow.grid.jacobian
             u, v = (
