@@ -142,7 +142,7 @@ def _dispersion_frames(
     fields = (d.k1_field, d.k2_field)
     for f in range(nf):
         when = float(window.times[f]) if nf == window.times.size else None
-        key = (when, window.times.size if when is None else 0, d.mode, d.k1, d.k2, *map(id, fields))
+        key = (when, d.mode, d.k1, d.k2, *map(id, fields))
         if when is not None and key in per_frame:
             per_frame.move_to_end(key)
             drift_x[f], drift_y[f] = per_frame[key][0]

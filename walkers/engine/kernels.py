@@ -232,6 +232,40 @@ def column_substeps(h, longest):
     return min(int(math.ceil(h / longest)), MAX_SUBSTEPS)
 
 
+@nb.njit(**INLINE)
+def particle_substep(
+    k, j, step, lo, z0, r, settling, params, walk, profiles, row, bst, mode, with_w
+):
+    """Substep j of particle k of a block from height z0 (m) with the standard normal deviate r:
+    ``vertical.column_step`` in the particle's column (``walk`` and ``profiles`` as in
+    :func:`column_walk`, the profiles in row ``row``), then the deposition draw; a particle
+    that deposits goes "on the bed" (``bst``, height 0) and leaves the water."""
+    z, depth, inv_depth, ustar, vstreams, on, _, sub = walk
+    klev, kcols, wlev, wcols = profiles
+    zn, chance = vertical.column_step(
+        z0,
+        depth[k],
+        inv_depth[k],
+        ustar[k],
+        settling[lo + k],
+        params,
+        sub[k],
+        r,
+        klev,
+        kcols,
+        wlev,
+        wcols,
+        row,
+        mode,
+        with_w,
+    )
+    z[k] = zn
+    if chance > 0.0 and open_unit(column_hash(vstreams[k], step, 2 * j + 1)) < chance:
+        z[k] = 0.0
+        on[k] = False
+        bst[k] = STATUS_ON_BED
+
+
 @nb.njit(inline="always", **JIT)
 def column_walk(most, step, lo, sigma, settling, params, walk, profiles, bst, mode, with_w):
     """The vertical motion over a step of the particles lo.. of a block that take it
@@ -242,35 +276,15 @@ def column_walk(most, step, lo, sigma, settling, params, walk, profiles, bst, mo
     over particles, so consecutive iterations are independent. A particle that deposits
     goes "on the bed" (``bst``, sigma 0) and stops; the others' sigma is z / h at the
     end."""
-    z, depth, inv_depth, ustar, vstreams, on, n, sub = walk
-    klev, kcols, wlev, wcols = profiles
+    z, depth, _, _, vstreams, on, n, _ = walk
     for j in range(most):
         for k in range(on.shape[0]):
             if not on[k] or j >= n[k]:
                 continue
             r = normal_from(column_hash(vstreams[k], step, 2 * j))
-            zn, chance = vertical.column_step(
-                z[k],
-                depth[k],
-                inv_depth[k],
-                ustar[k],
-                settling[lo + k],
-                params,
-                sub[k],
-                r,
-                klev,
-                kcols,
-                wlev,
-                wcols,
-                k,
-                mode,
-                with_w,
+            particle_substep(
+                k, j, step, lo, z[k], r, settling, params, walk, profiles, k, bst, mode, with_w
             )
-            z[k] = zn
-            if chance > 0.0 and open_unit(column_hash(vstreams[k], step, 2 * j + 1)) < chance:
-                z[k] = 0.0
-                on[k] = False
-                bst[k] = STATUS_ON_BED
     for k in range(on.shape[0]):
         if n[k] > 0:
             sigma[lo + k] = z[k] / depth[k]
@@ -292,6 +306,10 @@ def column_sweep(step, lo, sigma, settling, params, walk, bst, mode, scratch):
     deposition draw of :func:`column_walk`). The same numbers as :func:`column_walk`, bit for
     bit (``scratch``: the height before the substep and the marks, arrays of the block's
     length; ``tests/test_column_sweep.py``)."""
+    # views without a reference of their own (the step kernel holds the arrays): passed on to
+    # the inlined ``particle_substep``, they cost no reference counting (``borrowed``)
+    walk, scratch = borrowed(walk), borrowed(scratch)
+    sigma, settling, params, bst = borrowed((sigma, settling, params, bst))
     z, depth, inv_depth, ustar, vstreams, on, n, sub = walk
     before, mark = scratch
     nk = on.shape[0]
@@ -300,6 +318,7 @@ def column_sweep(step, lo, sigma, settling, params, walk, bst, mode, scratch):
     depositing = params[vertical.P_WD] > 0.0
     none = np.zeros(0)
     rows = np.zeros((1, 1))
+    no_profiles = (none, rows, none, rows)
     most = 0
     for k in range(nk):
         longest = vertical.column_longest(depth[k], ustar[k], params)
@@ -342,28 +361,23 @@ def column_sweep(step, lo, sigma, settling, params, walk, bst, mode, scratch):
         for k in range(nk):
             if not mark[k]:
                 continue
-            zn, chance = vertical.column_step(
+            r = normal_from(mix64(vstreams[k] + offset))
+            particle_substep(
+                k,
+                j,
+                step,
+                lo,
                 before[k],
-                depth[k],
-                inv_depth[k],
-                ustar[k],
-                settling[lo + k],
+                r,
+                settling,
                 params,
-                sub[k],
-                normal_from(mix64(vstreams[k] + offset)),
-                none,
-                rows,
-                none,
-                rows,
+                walk,
+                no_profiles,
                 0,
+                bst,
                 mode,
                 False,
             )
-            z[k] = zn
-            if chance > 0.0 and open_unit(column_hash(vstreams[k], step, 2 * j + 1)) < chance:
-                z[k] = 0.0
-                on[k] = False
-                bst[k] = STATUS_ON_BED
     for k in range(nk):
         if n[k] > 0:
             sigma[lo + k] = z[k] / depth[k]
