@@ -50,7 +50,7 @@ def walk(block, mode, step, sweep, drift=1.0):
             np.zeros(nk, np.int64),
             step_length.copy(),
         )
-        scratch = (np.empty(nk), np.zeros(nk, np.int8))
+        scratch = (np.empty(nk), np.zeros(8 * ((nk + 7) // 8), np.int8))
         kernels.column_sweep(step, 0, sigma, settling, params, state, status, mode, scratch)
     else:
         n = np.array(

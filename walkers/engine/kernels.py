@@ -304,15 +304,20 @@ def column_sweep(step, lo, sigma, settling, params, walk, bst, mode, scratch):
     ended below a depositing bed is marked, and only these are stepped again, one by one, from
     their height before the substep, by :func:`vertical.column_step` itself (with the
     deposition draw of :func:`column_walk`). The same numbers as :func:`column_walk`, bit for
-    bit (``scratch``: the height before the substep and the marks, arrays of the block's
-    length; ``tests/test_column_sweep.py``)."""
+    bit (``scratch``: the height before the substep, an array of the block's length, and the
+    marks, int8, zero, of the block's length rounded up to a multiple of 8, read eight at a
+    time; ``tests/test_column_sweep.py``)."""
     # views without a reference of their own (the step kernel holds the arrays): passed on to
     # the inlined ``particle_substep``, they cost no reference counting (``borrowed``)
     walk, scratch = borrowed(walk), borrowed(scratch)
     sigma, settling, params, bst = borrowed((sigma, settling, params, bst))
     z, depth, inv_depth, ustar, vstreams, on, n, sub = walk
     before, mark = scratch
+    words = mark.view(np.uint64)
     nk = on.shape[0]
+    # the block's settling velocities as a view from its first particle: indexed by the loop's
+    # counter (never negative), they load as one vector, not element by element
+    ws = settling[lo : lo + nk]
     k_const = params[vertical.P_K0]
     drift = params[vertical.P_DRIFT]
     depositing = params[vertical.P_WD] > 0.0
@@ -346,7 +351,7 @@ def column_sweep(step, lo, sigma, settling, params, walk, bst, mode, scratch):
                 dk = a * (1.0 - 2.0 * zk * inv_depth[k]) * drift
                 zm = min(max(zk + 0.5 * dk * dt, 0.0), depth[k])
                 kk = a * zm * (1.0 - zm * inv_depth[k])
-            zn = zk + (dk - settling[lo + k]) * dt + r * math.sqrt(2.0 * kk * dt)
+            zn = zk + (dk - ws[k]) * dt + r * math.sqrt(2.0 * kk * dt)
             below = zn < 0.0
             zn = abs(zn)
             zn = min(zn, 2.0 * depth[k] - zn)
@@ -358,26 +363,30 @@ def column_sweep(step, lo, sigma, settling, params, walk, bst, mode, scratch):
             seen |= again
         if not seen:
             continue
-        for k in range(nk):
-            if not mark[k]:
+        # the marks read eight at a time: a block has few marked particles
+        for q in range(words.shape[0]):
+            if words[q] == 0:
                 continue
-            r = normal_from(mix64(vstreams[k] + offset))
-            particle_substep(
-                k,
-                j,
-                step,
-                lo,
-                before[k],
-                r,
-                settling,
-                params,
-                walk,
-                no_profiles,
-                0,
-                bst,
-                mode,
-                False,
-            )
+            for k in range(8 * q, min(8 * q + 8, nk)):
+                if not mark[k]:
+                    continue
+                r = normal_from(mix64(vstreams[k] + offset))
+                particle_substep(
+                    k,
+                    j,
+                    step,
+                    lo,
+                    before[k],
+                    r,
+                    settling,
+                    params,
+                    walk,
+                    no_profiles,
+                    0,
+                    bst,
+                    mode,
+                    False,
+                )
     for k in range(nk):
         if n[k] > 0:
             sigma[lo + k] = z[k] / depth[k]
@@ -1072,7 +1081,7 @@ def compiled_mover(
             for k in range(nv):
                 v_streams[k] = mix64(streams[k] ^ VERTICAL_SALT)
             v_before = np.empty(nv)
-            v_mark = np.zeros(nv, np.int8)
+            v_mark = np.zeros(8 * ((nv + 7) // 8), np.int8)
             # The block's state, gathered so that it stays in the L1 cache.
             bx = np.empty(nb_)
             by = np.empty(nb_)
@@ -1146,6 +1155,14 @@ def compiled_mover(
                         continue
                     px = bx[k]
                     py = by[k]
+                    if vertical_mode:
+                        # the column's depth and u* where the step starts, loaded early so that
+                        # their wait overlaps the horizontal step
+                        hd = vertical.cell_frame_value(c_depth, it, wt, pj, pi)
+                        us = vertical.cell_frame_value(c_ustar, it, wt, pj, pi)
+                    else:
+                        hd = 0.0
+                        us = 0.0
                     lay = (1, 0, 0.0)
                     if vertical_mode and n_levels > 1:
                         lk, lw = layer_weight(c_levels, sigma[p], c_params, c_depth, it, wt, pj, pi)
@@ -1322,8 +1339,6 @@ def compiled_mover(
                         cell_i[k] = ci
                         cell_j[k] = cj
                     if vertical_mode:
-                        hd = vertical.cell_frame_value(c_depth, it, wt, pj, pi)
-                        us = vertical.cell_frame_value(c_ustar, it, wt, pj, pi)
                         if hd >= vertical.MIN_COLUMN_DEPTH and sweep:
                             # the substeps are counted in ``column_sweep``; v_sub holds the
                             # step's length until then
