@@ -17,7 +17,8 @@ flow, bilinear in space and linear in time, with land, reflecting and absorbing 
 - the time from a fresh interpreter to the first kernel call's return (kernels cached on disk).
 
 Rates are medians over repeats; the load average is reported and one-thread rates are also given
-per CPU-second of this process. How cost grows with particles, steps, grid and members:
+per CPU-second of this process. Ratios (a workload over the reference, RK4 over Euler, two
+threads over one) are medians of back-to-back pairs (:func:`_paired_ratios`). How cost grows with particles, steps, grid and members:
 :mod:`walkers.scaling`.
 """
 
@@ -32,6 +33,7 @@ import subprocess
 import sys
 import time
 from collections.abc import Callable
+from concurrent.futures import ThreadPoolExecutor
 from typing import Any, Literal
 
 import numba
@@ -98,15 +100,17 @@ def _paired_ratios(
     other: tuple[mover.KernelInputs, ParticleState],
     steps: int,
     pairs: int,
+    threads: tuple[int, int] = (1, 1),
 ) -> tuple[float, float]:
     """Median speed of ``other`` over ``base`` per wall and per CPU second, from runs of the two
-    back to back on one thread: the speed of a shared virtual machine drifts (on this one by up
-    to a factor of two over tens of seconds), and a ratio of medians taken minutes apart carries
-    that drift; a ratio of neighbours does not."""
+    back to back, on ``threads`` (base's, other's) threads: the speed of a shared virtual
+    machine drifts (on this one by up to a factor of two over tens of seconds), and a ratio of
+    medians taken minutes apart carries that drift; a ratio of neighbours does not."""
     walls, cpus = [], []
     for _ in range(pairs):
         timed = []
-        for inputs, start in (base, other):
+        for (inputs, start), count in zip((base, other), threads, strict=True):
+            numba.set_num_threads(count)
             out = start.copy()
 
             def go(out=out, inputs=inputs):
@@ -301,14 +305,33 @@ def _peak_memory(n_mem: int) -> tuple[dict, float, str]:
     return peak, peak_10m, method
 
 
-def _machine(load_before: tuple[float, float, float]) -> dict[str, Any]:
-    """The machine the figures were measured on, and its load before and after."""
+def _compute_speedup(two: int, pairs: int, rounds: int = 20_000_000) -> float:
+    """How much of ``two`` cores the machine gives now: the throughput of ``two`` threads each
+    running ``kernels.hash_chain`` (arithmetic only, no memory, no shared data) over that of
+    one, median of back-to-back pairs. On a virtual machine whose cores the host shares, this
+    falls below ``two`` and bounds what any code gets from a second thread."""
+    kernels.hash_chain(1, 10)
+    ratios = []
+    with ThreadPoolExecutor(two) as pool:
+        for _ in range(pairs):
+            one = _timed(lambda: kernels.hash_chain(1, rounds))[0]
+            both = _timed(
+                lambda: list(pool.map(lambda k: kernels.hash_chain(k, rounds), range(two)))
+            )[0]
+            ratios.append(two * one / both)
+    return statistics.median(ratios)
+
+
+def _machine(load_before: tuple[float, float, float], compute_speedup: float) -> dict[str, Any]:
+    """The machine the figures were measured on, its load before and after, and the speed-up of
+    a compute-only loop from one thread to two (:func:`_compute_speedup`)."""
     return {
         "nproc": os.cpu_count(),
         "cpu_model": _cpu_model(),
         "numba_threads_available": int(MAX_THREADS),
         "load_average_before": [round(v, 2) for v in load_before],
         "load_average_after": [round(v, 2) for v in os.getloadavg()],
+        "compute_only_1_to_2_threads": round(compute_speedup, 3),
     }
 
 
@@ -427,6 +450,13 @@ def run_benchmark(
             nsteps,
             pairs,
         )
+        note("1 -> 2 threads, back-to-back pairs, and a compute-only loop the same way")
+        compute_speedup = _compute_speedup(two, pairs)
+        s_base = (_inputs(s_flow, s_transport), s_start)
+        speedup = {
+            name: _paired_ratios(pair, pair, nsteps, pairs, threads=(1, two))[0]
+            for name, pair in (("reference", base), ("scenario", s_base))
+        }
     finally:
         numba.set_num_threads(threads_before)
     difference = _largest_difference(flow, transport, start, twin_steps, twin_out)
@@ -442,7 +472,7 @@ def run_benchmark(
     return {
         "walkers_version": walkers.__version__,
         "caution": walkers.CAUTION,
-        "machine": _machine(load_before),
+        "machine": _machine(load_before, compute_speedup),
         "workload": _workload(flow, transport, n, nsteps, twin_steps, reps),
         "scenario_workload": _workload(s_flow, s_transport, n, nsteps, twin_steps, reps),
         "compiled_steps_per_s_1thread": ref["one_wall"],
@@ -453,7 +483,7 @@ def run_benchmark(
         "numpy_steps_per_cpu_s": twin_cpu,
         "compiled_over_numpy": ref["one_wall"] / twin_wall,
         "compiled_over_numpy_cpu": ref["one_cpu"] / twin_cpu,
-        "speedup_1_to_2_threads": ref["two_wall"] / ref["one_wall"],
+        "speedup_1_to_2_threads": speedup["reference"],
         "compiled_minus_numpy_max_m": difference,
         "scenario_steps_per_s_1thread": sce["one_wall"],
         "scenario_steps_per_cpu_s_1thread": sce["one_cpu"],
@@ -461,7 +491,7 @@ def run_benchmark(
         "ratio_pairs": pairs,
         "scenario_over_reference": ratio["scenario"][0],
         "scenario_over_reference_cpu": ratio["scenario"][1],
-        "scenario_speedup_1_to_2_threads": sce["two_wall"] / sce["one_wall"],
+        "scenario_speedup_1_to_2_threads": speedup["scenario"],
         "scenario_rk4_steps_per_s_1thread": rk4_wall,
         "rk4_over_euler_cost": 1.0 / rk4_speed[0],
         "rk4_over_euler_cost_cpu": 1.0 / rk4_speed[1],
@@ -526,11 +556,13 @@ def format_report(r: dict) -> str:
 
     lines = [
         f"walkers {r['walkers_version']} benchmark — {m['cpu_model']}, {m['nproc']} CPUs, "
-        f"load average {m['load_average_before'][0]:.2f} -> {m['load_average_after'][0]:.2f}",
+        f"load average {m['load_average_before'][0]:.2f} -> {m['load_average_after'][0]:.2f}; "
+        f"a compute-only loop ran {m['compute_only_1_to_2_threads']:.2f} x faster on "
+        f"{r['threads_used_for_2']} threads than on 1 (the most a second thread can give now)",
         f"workload: {w['grid_cells'][0]} x {w['grid_cells'][1]} cells, {w['frames']} frames, "
         f"{w['particles']:,} particles, {w['steps_compiled']} steps of {w['dt_s']:g} s "
         f"(twin {w['steps_twin']}), medians of {w['repeats']}; ratios X / reference: medians of "
-        f"{r['ratio_pairs']} back-to-back pairs",
+        f"{r['ratio_pairs']} back-to-back pairs, as is 1 -> 2 threads",
         f"compiled, 1 thread    {r['compiled_steps_per_s_1thread'] / 1e6:8.1f} M particle-steps/s "
         f"{mark('compiled_steps_per_s_1thread')}; "
         f"{r['compiled_steps_per_cpu_s_1thread'] / 1e6:.1f} M per CPU-second",

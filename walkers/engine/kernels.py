@@ -146,6 +146,17 @@ def mix64(z):
 
 
 @nb.njit(**JIT)
+def hash_chain(seed, rounds):
+    """``rounds`` SplitMix64 hashes, each of the one before: arithmetic only, no memory. The
+    benchmark runs it on one and on two threads at once to see how much of a second core the
+    machine gives at that moment (``walkers.bench``)."""
+    z = np.uint64(seed)
+    for _ in range(rounds):
+        z = mix64(z + GOLDEN)
+    return z
+
+
+@nb.njit(**JIT)
 def particle_stream(key, particle):
     """The per-particle base of the counter-based generator."""
     return mix64(np.uint64(key) ^ (np.uint64(particle) * GOLDEN))
