@@ -128,3 +128,25 @@ def test_cli_bench_command_prints_json():
     assert result.exit_code == 0, result.output
     data = json.loads(result.output)
     assert FIELDS <= set(data)
+
+
+def test_compute_only_loop_is_the_splitmix64_chain():
+    """The machine check's loop computes what it says: its first round is SplitMix64's first
+    output from state 0, 0xe220a8397b1dcdaf (Steele, Lea & Flood 2014, "Fast splittable
+    pseudorandom number generators", OOPSLA; the value of the reference implementation, from
+    memory), and later rounds follow the numpy twin's mix64 (a chain one round short differs)."""
+    from walkers.engine import kernels, twin
+
+    assert int(kernels.hash_chain(0, 1)) == 0xE220A8397B1DCDAF
+    z = np.array([7], dtype=np.uint64)
+    for _ in range(5):
+        z = twin.mix64(z + np.uint64(0x9E3779B97F4A7C15))
+    assert int(kernels.hash_chain(7, 5)) == int(z[0])
+    assert int(kernels.hash_chain(7, 4)) != int(z[0])
+
+
+def test_machine_check_reports_a_second_core(small_result):
+    """The compute-only speed-up is reported beside the load (it bounds the 1 -> 2 threads
+    figures): a ratio between the one-thread and the two-thread throughput, 0 < s <= 2.2."""
+    s = small_result["machine"]["compute_only_1_to_2_threads"]
+    assert 0.0 < s <= 2.2
