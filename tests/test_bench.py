@@ -5,7 +5,7 @@ import json
 import numpy as np
 import pytest
 
-from walkers import bench, scaling
+from walkers import bench, bench_report, scaling
 from walkers.engine import mover
 
 FIELDS = {
@@ -105,7 +105,7 @@ def test_benchmark_engines_can_disagree():
 
 
 def test_text_report_names_each_target(small_result):
-    text = bench.format_report(small_result)
+    text = bench_report.format_report(small_result)
     for word in ("particle-steps/s", "threads", "bytes", "GB", "gridding", "first step"):
         assert word in text
     assert small_result["caution"] in text

@@ -35,6 +35,7 @@ STAGES: list[tuple[str, tuple[str, ...]]] = [
             "walkers.cli_outputs",
             "walkers.cli_trace",
             "walkers.bench",
+            "walkers.bench_report",
             "walkers.scaling",
             "walkers.inspect",
             "walkers.workloads",

@@ -459,7 +459,8 @@ def bench_command(quick: bool, as_json: bool, particles: int | None, repeats: in
     """Measure the engine's speed, memory and start-up on a reference workload."""
     import json
 
-    from walkers.bench import format_report, run_benchmark
+    from walkers.bench import run_benchmark
+    from walkers.bench_report import format_report
 
     progress = None if as_json else (lambda note: click.echo(f"... {note}", err=True))
     result = run_benchmark(quick=quick, particles=particles, repeats=repeats, progress=progress)
