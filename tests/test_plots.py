@@ -110,3 +110,19 @@ def test_times_outside_the_run_and_missing_folders_are_input_errors(tmp_path):
         plot_results(ds, tmp_path, times=[1.0e9])
     with pytest.raises(InputError, match="does not exist"):
         plot_results(ds, tmp_path / "absent")
+
+
+def test_a_small_result_is_read_whole_a_large_one_frame_by_frame(tmp_path, monkeypatch):
+    """Fields within the run's memory budget are read at once; above it they stay on disk as
+    one dask chunk per output time, so a result larger than memory can still be drawn. Both
+    give the same numbers."""
+    from walkers.outputs import figures
+    from walkers.run import store
+
+    path = write_results(gaussian_puff_results(nt=NT), tmp_path / "puff.nc")
+    whole = figures._load(path, None, None).ds["concentration"]
+    monkeypatch.setattr(store, "FIELD_MEMORY_BUDGET", 0)
+    streamed = figures._load(path, None, None).ds["concentration"]
+    assert whole.chunks is None
+    assert streamed.chunks is not None and streamed.chunks[0] == (1,) * NT
+    np.testing.assert_array_equal(whole.values, streamed.values)

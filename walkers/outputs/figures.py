@@ -55,6 +55,7 @@ from walkers.outputs.mapping import (
     legend_handles,
 )
 from walkers.outputs.reader import open_results
+from walkers.run import store
 
 CONC_CMAP = "viridis"
 FOOTER_FONT = 6.0  # points
@@ -96,7 +97,14 @@ class _Run:
 def _load(
     ds_or_path: xr.Dataset | str | os.PathLike, land: xr.DataArray | None, units: str | None
 ) -> _Run:
-    ds = ds_or_path if isinstance(ds_or_path, xr.Dataset) else open_results(ds_or_path, stream=True)
+    if isinstance(ds_or_path, xr.Dataset):
+        ds = ds_or_path
+    else:
+        ds = open_results(ds_or_path, stream=True)
+        if sum(v.nbytes for v in ds.variables.values() if v.ndim >= 3) <= store.FIELD_MEMORY_BUDGET:
+            # fields as small as a run keeps in memory are read whole, at once: read frame by
+            # frame, the estuary demo's figures made 200 reads (docs/performance.md)
+            ds = ds.load()
     if "concentration" not in ds:
         raise InputError("result has no 'concentration' variable; is this a walkers result?")
     mask = None
