@@ -1167,8 +1167,8 @@ def compiled_mover(
                     px = bx[k]
                     py = by[k]
                     if vertical_mode:
-                        # the column's depth and u* where the step starts, loaded early so that
-                        # their wait overlaps the horizontal step
+                        # the column's depth and u* where the step starts, read here with the
+                        # particle's cell rather than after the horizontal step
                         hd = vertical.cell_frame_value(c_depth, it, wt, pj, pi)
                         us = vertical.cell_frame_value(c_ustar, it, wt, pj, pi)
                     else:
