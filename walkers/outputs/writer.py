@@ -40,6 +40,8 @@ from contextlib import contextmanager
 from pathlib import Path
 from typing import Any
 
+import dask
+import dask.array
 import netCDF4
 import numpy as np
 import xarray as xr
@@ -364,19 +366,6 @@ def _chunk_cache(data: xr.Dataset, encoding: dict[str, dict]) -> Iterator[None]:
         netCDF4.set_chunk_cache(*before)
 
 
-@contextmanager
-def _in_this_thread(data: xr.Dataset) -> Iterator[None]:
-    """dask's synchronous scheduler while ``data`` is written, where it holds dask arrays (the
-    fields streamed from the run's store); dask is imported only then: it takes about 2 s."""
-    if all(var.chunks is None for var in data.variables.values()):
-        yield
-        return
-    import dask
-
-    with dask.config.set(scheduler="synchronous"):
-        yield
-
-
 def estimated_bytes(data: xr.Dataset) -> int:
     """About how many bytes ``data`` takes in a file: the values of the (time, y, x) fields that
     are not zero (compression leaves little of the zeros), every other variable whole, and 16 kB
@@ -386,8 +375,6 @@ def estimated_bytes(data: xr.Dataset) -> int:
         if var.ndim >= 3 and var.chunks is None:
             total += int(np.count_nonzero(var.values)) * var.dtype.itemsize
         elif var.ndim >= 3:
-            import dask.array
-
             with dask.config.set(scheduler="synchronous"):
                 nonzero = int(dask.array.count_nonzero(var.data).compute())
             total += nonzero * var.dtype.itemsize
@@ -413,7 +400,7 @@ def _write_atomic(
                 with failures_named(final, need[final]):
                     # fields streamed to disk are dask arrays: written one chunk (output time) at
                     # a time, in this thread (the store's files are read under one lock)
-                    with _in_this_thread(data), _chunk_cache(data, encoding):
+                    with dask.config.set(scheduler="synchronous"), _chunk_cache(data, encoding):
                         data.to_netcdf(temp, format="NETCDF4", encoding=encoding)
                     _fsync_file(temp)
             for temp, final in zip(temps, finals, strict=True):

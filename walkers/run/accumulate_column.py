@@ -14,6 +14,7 @@ import dataclasses
 from collections.abc import Sequence
 from typing import Any
 
+import dask.array
 import numpy as np
 
 from walkers.run import column_reduce as column
@@ -230,12 +231,7 @@ class ColumnSeries:
         """The water-column variables of the result."""
         names = [band_field(b) for b in range(len(self.output.bands))]
         parts = [fields.data(n) for n in names]
-        if isinstance(fields, DiskFields):
-            import dask.array  # only for fields streamed to disk (MemoryFields.data: numpy)
-
-            stack = dask.array.stack
-        else:
-            stack = np.stack
+        stack = dask.array.stack if isinstance(fields, DiskFields) else np.stack
         data: dict[str, Any] = {
             "concentration_in_band": (
                 ("time", "band", "y", "x"),

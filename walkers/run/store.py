@@ -15,16 +15,15 @@ import weakref
 from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
-from typing import TYPE_CHECKING, Any, Literal
+from typing import Any, Literal
 
+import dask
+import dask.array
 import netCDF4
 import numpy as np
 
 from walkers.errors import InputError
 from walkers.files import _fsync_dir, _fsync_file, check_folder, failures_named
-
-if TYPE_CHECKING:
-    import dask.array
 
 # --------------------------------------------------------------------------------------------
 # field store: the 3-D fields of a run while it goes on
@@ -273,10 +272,6 @@ class DiskFields:
     def data(self, name: str) -> dask.array.Array:
         """The stored variable ``name`` (time, y, x) as a lazy dask array, one chunk per output
         time, read from the segment files when computed. Seals the segment being written."""
-        # dask is imported here, not with the module: it takes about 2 s, and a run whose
-        # fields stay in memory never needs it (docs/performance.md)
-        import dask.array
-
         self.seal()
         _, ny, nx = self.shape
         dtype = self.variables[name]
