@@ -38,6 +38,8 @@ def walk(block, mode, step, sweep, drift=1.0):
     z, on = z.copy(), on.copy()
     status = np.ones(nk, np.int8)
     sigma = np.full(nk, -1.0)
+    # K_z and w profiles: unused by these modes
+    profiles = (np.zeros(0), np.zeros((nk, 1)), np.zeros(0), np.zeros((nk, 1)))
     if sweep:
         # the sweep turns the step's length into the substeps' length in place
         state = (
@@ -51,7 +53,9 @@ def walk(block, mode, step, sweep, drift=1.0):
             step_length.copy(),
         )
         scratch = (np.empty(nk), np.zeros(8 * ((nk + 7) // 8), np.int8))
-        kernels.column_sweep(step, 0, sigma, settling, params, state, status, mode, scratch)
+        kernels.column_sweep(
+            step, 0, sigma, settling, params, state, profiles, status, mode, scratch
+        )
     else:
         n = np.array(
             [
@@ -64,7 +68,6 @@ def walk(block, mode, step, sweep, drift=1.0):
             ]
         )
         state = (z, depth, 1.0 / depth, ustar, streams, on, n, step_length / np.maximum(n, 1))
-        profiles = (np.zeros(0), np.zeros((nk, 1)), np.zeros(0), np.zeros((nk, 1)))
         most = int(n.max())
         kernels.column_walk(
             most, step, 0, sigma, settling, params, state, profiles, status, mode, False

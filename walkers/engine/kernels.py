@@ -302,7 +302,7 @@ def column_walk(most, step, lo, sigma, settling, params, walk, profiles, bst, mo
 
 
 @nb.njit(**JIT)
-def column_sweep(step, lo, sigma, settling, params, walk, bst, mode, scratch):
+def column_sweep(step, lo, sigma, settling, params, walk, profiles, bst, mode, scratch):
     """:func:`column_walk` for a constant or parabolic K_z without w (``mode`` 1 or 2), in one
     sweep per substep over the whole block that the compiler turns into vector instructions.
 
@@ -315,12 +315,13 @@ def column_sweep(step, lo, sigma, settling, params, walk, bst, mode, scratch):
     ended below a depositing bed is marked, and only these are stepped again, one by one, from
     their height before the substep, by :func:`vertical.column_step` itself (with the
     deposition draw of :func:`column_walk`). The same numbers as :func:`column_walk`, bit for
-    bit (``scratch``: the height before the substep, an array of the block's length, and the
-    marks, int8, zero, of the block's length rounded up to a multiple of 8, read eight at a
-    time; ``tests/test_column_sweep.py``)."""
+    bit (``profiles`` as in :func:`column_walk`, not read by these modes; ``scratch``: the
+    height before the substep, an array of the block's length, and the marks, int8, zero, of
+    the block's length rounded up to a multiple of 8, read eight at a time;
+    ``tests/test_column_sweep.py``)."""
     # views without a reference of their own (the step kernel holds the arrays): passed on to
     # the inlined ``particle_substep``, they cost no reference counting (``borrowed``)
-    walk, scratch = borrowed(walk), borrowed(scratch)
+    walk, profiles, scratch = borrowed(walk), borrowed(profiles), borrowed(scratch)
     sigma, settling, params, bst = borrowed((sigma, settling, params, bst))
     z, depth, inv_depth, ustar, vstreams, on, n, sub = walk
     before, mark = scratch
@@ -332,9 +333,6 @@ def column_sweep(step, lo, sigma, settling, params, walk, bst, mode, scratch):
     k_const = params[vertical.P_K0]
     drift = params[vertical.P_DRIFT]
     depositing = params[vertical.P_WD] > 0.0
-    none = np.zeros(0)
-    rows = np.zeros((1, 1))
-    no_profiles = (none, rows, none, rows)
     most = 0
     for k in range(nk):
         longest = vertical.column_longest(depth[k], ustar[k], params)
@@ -392,7 +390,7 @@ def column_sweep(step, lo, sigma, settling, params, walk, bst, mode, scratch):
                     settling,
                     params,
                     walk,
-                    no_profiles,
+                    profiles,
                     0,
                     bst,
                     mode,
@@ -1093,6 +1091,11 @@ def compiled_mover(
                 v_streams[k] = mix64(streams[k] ^ VERTICAL_SALT)
             v_before = np.empty(nv)
             v_mark = np.zeros(8 * ((nv + 7) // 8), np.int8)
+            # the walk's tuples made once per block: made at each step's call, they took a
+            # reference to each of their arrays every step
+            v_walk = (v_z, v_depth, v_inv, v_ustar, v_streams, v_on, v_n, v_sub)
+            v_profiles = (c_klev, kcols, c_wlev, wcols)
+            v_scratch = (v_before, v_mark)
             # The block's state, gathered so that it stays in the L1 cache.
             bx = np.empty(nb_)
             by = np.empty(nb_)
@@ -1386,10 +1389,11 @@ def compiled_mover(
                         sigma,
                         settling,
                         c_params,
-                        (v_z, v_depth, v_inv, v_ustar, v_streams, v_on, v_n, v_sub),
+                        v_walk,
+                        v_profiles,
                         bst,
                         kz_mode,
-                        (v_before, v_mark),
+                        v_scratch,
                     )
                 elif vertical_mode:
                     column_walk(
@@ -1399,8 +1403,8 @@ def compiled_mover(
                         sigma,
                         settling,
                         c_params,
-                        (v_z, v_depth, v_inv, v_ustar, v_streams, v_on, v_n, v_sub),
-                        (c_klev, kcols, c_wlev, wcols),
+                        v_walk,
+                        v_profiles,
                         bst,
                         kz_mode,
                         with_w,
