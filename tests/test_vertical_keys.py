@@ -60,6 +60,9 @@ def test_stokes_settling_balances_the_buoyant_weight_against_the_drag():
             r"vertical\.diffusivity = 'constant'.*resuspension .* needs the bed roughness",
         ),
         ({"diffusivity": "sideways"}, None, r"vertical\.diffusivity = 'sideways'"),
+        ({**PARABOLIC, "substep_fraction": 0.5}, None, r"vertical\.substep_fraction = 0\.5: must"),
+        ({**PARABOLIC, "substep_fraction": 0}, None, r"vertical\.substep_fraction"),
+        ({**PARABOLIC, "substep_fraction": "small"}, None, r"vertical\.substep_fraction"),
         (
             {"diffusivity": "constant", "coefficient": "0.01 m2/s", "bed": "depositing"},
             None,
@@ -198,6 +201,45 @@ def test_inspect_of_a_scenario_says_whether_its_run_is_3d(tmp_path):
     assert "r: settling (50 % at 0.1 mm/s, 50 % at 1 mm/s), from 1 m above the bed" in out["deep"]
     assert f"up to {math.ceil(60.0 / (0.01 * H / (2 * 0.41 * 0.015)))} (Visser" in out["deep"]
     assert "Run: depth-averaged" in out["flat"] and "three-dimensional" not in out["flat"]
+
+
+def test_the_substep_fraction_reaches_the_step_and_inspect(tmp_path):
+    """vertical.substep_fraction = 0.0025 (default 0.01): the kernel's parameters carry it, and
+    `walkers inspect` counts four times the substeps of Visser's criterion (u* = 0.015 m/s in
+    4 m: substeps of at most 0.0025 h / (2 κ u*) = 0.81 s, so 74 for a step of 60 s); the
+    default's count is the twin."""
+    from click.testing import CliRunner
+
+    from walkers.cli import main
+    from walkers.engine import mover, vertical
+    from walkers.fields.analytic import grid_flow
+    from walkers.scenario.config import Transport
+
+    counts = {}
+    for fraction in (0.0025, None):
+        table = {**PARABOLIC, **({"substep_fraction": fraction} if fraction else {})}
+        path = tmp_path / f"case_{fraction}.toml"
+        path.write_text(
+            toml_text(scenario(vertical=table, release=SETTLING, u=0.3)), encoding="utf-8"
+        )
+        res = CliRunner().invoke(main, ["inspect", str(path)])
+        assert res.exit_code == 0, res.output
+        counts[fraction] = res.output
+    quarter = math.ceil(60.0 / (0.0025 * H / (2 * 0.41 * 0.015)))
+    assert f"up to {quarter} (Visser 1997: each at most 0.0025 /" in counts[0.0025]
+    assert f"up to {quarter} (Visser" not in counts[None]
+    assert "each at most 0.01 /" in counts[None]
+
+    xc = [0.0, 100.0, 200.0]
+    flow = grid_flow(xc, xc, [0.0, 1e9], lambda X, Y, t: (0.0 * X, 0.0 * Y), depth=H)
+    window = flow.window(0.0, 1e9)
+    inputs = mover.kernel_inputs(flow, window, Transport(dt=60.0))
+    for fraction, expected in ((0.0025, 0.0025), (None, vertical.VISSER_FRACTION)):
+        settings = Vertical(
+            drag_coefficient=0.0025, **({"substep_fraction": fraction} if fraction else {})
+        )
+        column_inputs = mover.column_inputs(inputs, flow, window, settings, 0.015, 60.0)
+        assert column_inputs.column[2][vertical.P_FRACTION] == expected
 
 
 def test_the_roughness_of_an_estimated_dispersion_reaches_a_constant_kz_too(tmp_path):

@@ -198,6 +198,7 @@ def with_column(
     erosion_rate: float = 0.0,
     water_density: float = 1025.0,
     bed_log: tuple[float, float] = (0.0, 0.0),
+    substep_fraction: float = vertical.VISSER_FRACTION,
 ) -> KernelInputs:
     """The kernel inputs of a window with the vertical step (``walkers.engine.vertical``).
 
@@ -213,7 +214,8 @@ def with_column(
     and water_density ρ (kg m-3): the return of particles on the bed to the water
     (``vertical.resuspension_chance``); bed_log : (a, b) of ln(h/z0) = 1 + a h^b, the law of the
     wall of layered velocities below their lowest layer centre (``vertical.bed_log_law``; a = 0:
-    the lowest layer's value down to the bed).
+    the lowest layer's value down to the bed); substep_fraction : the longest vertical substep
+    as a fraction of 1/max|d²K_z/dz²| (Visser's criterion).
     """
     if mode not in (vertical.KZ_CONSTANT, vertical.KZ_PARABOLIC, vertical.KZ_FILE):
         raise InputError(
@@ -237,7 +239,14 @@ def with_column(
     h = np.ascontiguousarray(np.broadcast_to(h, shape))
     u = np.ascontiguousarray(np.broadcast_to(u, shape))
     params = vertical.column_params(
-        mode, kz, deposition_velocity, critical_shear_stress, erosion_rate, water_density, bed_log
+        mode,
+        kz,
+        deposition_velocity,
+        critical_shear_stress,
+        erosion_rate,
+        water_density,
+        bed_log,
+        substep_fraction,
     )
     none, flat = np.zeros(0), np.zeros((1, 1, 1))
     levels, wlev, w, klev, kzf = np.zeros(1), none, flat, none, flat
@@ -285,7 +294,8 @@ def column_inputs(
     "file", ``coefficient`` K_z (m2 s-1), ``deposition_velocity`` (m s-1),
     ``critical_shear_stress`` (Pa; None: no resuspension), ``erosion_rate`` (s-1),
     ``water_density`` (kg m-3), the bed roughness ``manning_n`` or ``drag_coefficient`` of the
-    law of the wall below the lowest layer centre, ``vertical.bed_log_law``); ustar : u* frames
+    law of the wall below the lowest layer centre, ``vertical.bed_log_law``, and the
+    ``substep_fraction`` of Visser's criterion); ustar : u* frames
     on the cells (m s-1); dt : the step (s); depth : the columns' depth frames (m; None:
     ``window.depth``, the cells'; on a mesh the faces', (nf or 1, 1, nface),
     ``mesh_inputs.column_depths``).
@@ -319,6 +329,7 @@ def column_inputs(
         bed_log=vertical.bed_log_law(
             getattr(settings, "manning_n", None), getattr(settings, "drag_coefficient", None)
         ),
+        substep_fraction=float(getattr(settings, "substep_fraction", vertical.VISSER_FRACTION)),
     )
 
 

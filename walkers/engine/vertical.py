@@ -25,8 +25,9 @@ particles in a turbulent water column", Mar. Ecol. Prog. Ser. 158, 275-281):
 with R a standard normal deviate and w_s the settling velocity (m s-1, > 0 down, < 0 rising).
 Without the drift dK/dz the particles gather where K is low (the test's twin that fails). Visser
 asks Δt ≪ 1/max|d²K/dz²|; for the parabolic profile |d²K/dz²| = 2 κ u*/h, and each particle's
-step is split into substeps of at most VISSER_FRACTION h / (2 κ u*) in its own column
-(:func:`column_longest`; ``kernels.column_walk``).
+step is split into substeps of at most f h / (2 κ u*) in its own column, f the scenario's
+``vertical.substep_fraction`` (default VISSER_FRACTION, 0.01; ``params[P_FRACTION]``;
+:func:`column_longest`; ``kernels.column_walk``).
 
 Boundaries: the surface reflects; the bed reflects, or, with a deposition velocity w_d > 0, a
 particle whose step ends below the bed deposits with probability
@@ -52,14 +53,10 @@ import numpy as np
 from walkers.engine.coefficients import GRAVITY
 from walkers.engine.kernels import JIT
 from walkers.errors import InputError
+from walkers.scenario.config import VISSER_FRACTION
 
 #: von Kármán's constant (common practice; the value of walkers.engine.coefficients' Elder law).
 KAPPA = 0.41
-#: Visser's Δt ≪ 1/max|K''| taken as Δt ≤ VISSER_FRACTION / max|K''|: at 0.08 a well-mixed
-#: column of 20 000 particles lost 25 % of the bottom and top twentieths, at 0.02 10 %, at 0.004
-#: nothing detectable (tests/test_vertical.py, measured); 0.01 keeps the loss below the test's
-#: 5-sigma resolution.
-VISSER_FRACTION = 0.01
 #: Reflections of one step at the bed and the surface before the end is clamped into the column.
 MAX_COLUMN_REFLECTIONS = 8
 #: Diffusivity modes (the ``vertical`` option of ``kernels.compiled_mover``).
@@ -233,18 +230,19 @@ def column_params(
     erosion_rate: float = 0.0,
     water_density: float = 1025.0,
     bed_log: tuple[float, float] = (0.0, 0.0),
+    substep_fraction: float = VISSER_FRACTION,
 ) -> np.ndarray:
     """The ``params`` array of :func:`column_step` (indices ``P_*``): (mode, K0 (m2 s-1), w_d
-    (m s-1), drift factor 1, Visser's fraction of 1/|d²K_z/dz²| that a substep may last, τ_c
-    (Pa; 0 no resuspension), M_e (s-1), ρ (kg m-3), and the (a, b) of :func:`bed_log_law`; see
-    :func:`resuspension_chance`)."""
+    (m s-1), drift factor 1, Visser's fraction of 1/|d²K_z/dz²| that a substep may last
+    (``substep_fraction``), τ_c (Pa; 0 no resuspension), M_e (s-1), ρ (kg m-3), and the (a, b)
+    of :func:`bed_log_law`; see :func:`resuspension_chance`)."""
     return np.array(
         [
             float(mode),
             float(kz),
             float(deposition_velocity),
             1.0,
-            VISSER_FRACTION,
+            float(substep_fraction),
             float(critical_shear_stress),
             float(erosion_rate),
             float(water_density),
@@ -343,7 +341,8 @@ def check_substeps(
         raise InputError(
             f"transport.dt = {dt:g} s would need {n} vertical substeps of {longest:.3g} s "
             f"(Visser's criterion with the K_z curvature of the worst column deeper "
-            f"than {SHALLOW_COLUMN:g} m); at most {MAX_SUBSTEPS} are allowed: shorten dt to at "
-            f"most {MAX_SUBSTEPS * longest:.4g} s"
+            f"than {SHALLOW_COLUMN:g} m, substeps of at most {params[4]:g} / max|d2K_z/dz2|); at "
+            f"most {MAX_SUBSTEPS} are allowed: shorten dt to at most "
+            f"{MAX_SUBSTEPS * longest:.4g} s, or raise vertical.substep_fraction"
         )
     return n

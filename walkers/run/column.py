@@ -210,7 +210,9 @@ def describe_scenario_column(scenario: Scenario, flow: FlowField) -> list[str]:
     ustar = cell_shear_velocity(flow, window, v)
     h = column_depth(flow, window)
     shape = np.broadcast_shapes(h.shape, ustar.shape)
-    params = column_step.column_params(v.kz_mode, v.coefficient, v.deposition_velocity)
+    params = column_step.column_params(
+        v.kz_mode, v.coefficient, v.deposition_velocity, substep_fraction=v.substep_fraction
+    )
     substeps = column_step.check_substeps(
         scenario.dt,
         np.ascontiguousarray(np.broadcast_to(h, shape)),
@@ -221,7 +223,7 @@ def describe_scenario_column(scenario: Scenario, flow: FlowField) -> list[str]:
         f"Run: three-dimensional: {describe_vertical(v, flow)}",
         f"  releases in the water column: {describe_releases(scenario.releases)}",
         f"  vertical substeps per time step of {scenario.dt:g} s: up to {substeps} (Visser 1997: "
-        f"each at most {column_step.VISSER_FRACTION:g} / max|d2K_z/dz2| in columns deeper than "
+        f"each at most {v.substep_fraction:g} / max|d2K_z/dz2| in columns deeper than "
         f"{column_step.SHALLOW_COLUMN:g} m)",
     ]
 

@@ -356,6 +356,7 @@ def _build_vertical(v: dict[str, Any] | None, dispersion: DispersionSpec) -> Ver
         deposition_velocity=v["deposition_velocity"] or 0.0,
         critical_shear_stress=v["critical_shear_stress"],
         erosion_rate=v["erosion_rate"] or 0.0,
+        substep_fraction=v["substep_fraction"],
     )
 
 
