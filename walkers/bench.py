@@ -74,7 +74,6 @@ def _timed(fn: Callable[[], object]) -> tuple[float, float]:
 
 
 def _rate(
-    flow: FlowField,
     inputs: mover.KernelInputs,
     start: ParticleState,
     steps: int,
@@ -124,8 +123,7 @@ def _paired_ratios(
 
 
 def _engine_rates(
-    flow: FlowField,
-    transport: Transport,
+    inputs: mover.KernelInputs,
     start: ParticleState,
     steps: int,
     repeats: int,
@@ -134,27 +132,31 @@ def _engine_rates(
     name: str,
 ) -> dict[str, Any]:
     """One workload through the compiled engine on one and on ``two`` threads (the kernel is
-    compiled or loaded first): wall and CPU rates of one thread, wall rate of two, and the state
+    compiled or loaded first): wall and CPU rates of one thread, wall rate of two, the state
     after the last run on two threads."""
-    inputs = _inputs(flow, transport)
     note(f"compiling or loading the kernels, {name} workload")
     mover.advance(start.copy(), inputs, 0.0, DT, 2, 0, KEY)
     note(f"compiled engine, {name} workload, 1 thread")
     numba.set_num_threads(1)
-    one_wall, one_cpu, _ = _rate(flow, inputs, start, steps, repeats)
+    one_wall, one_cpu, _ = _rate(inputs, start, steps, repeats)
     note(f"compiled engine, {name} workload, {two} threads")
     numba.set_num_threads(two)
-    two_wall, _, moved = _rate(flow, inputs, start, steps, repeats)
-    return {"one_wall": one_wall, "one_cpu": one_cpu, "two_wall": two_wall, "moved": moved}
+    two_wall, _, moved = _rate(inputs, start, steps, repeats)
+    return {
+        "one_wall": one_wall,
+        "one_cpu": one_cpu,
+        "two_wall": two_wall,
+        "moved": moved,
+    }
 
 
 def _largest_difference(
-    flow: FlowField, transport: Transport, start: ParticleState, steps: int, twin: ParticleState
+    inputs: mover.KernelInputs, start: ParticleState, steps: int, twin: ParticleState
 ) -> float:
     """Largest difference (grid units) between the compiled engine and the numpy twin's state
     ``twin`` after the same steps from ``start``."""
     same = start.copy()
-    mover.advance(same, _inputs(flow, transport), 0.0, DT, steps, 0, KEY, "fast")
+    mover.advance(same, inputs, 0.0, DT, steps, 0, KEY, "fast")
     return max(float(np.max(np.abs(same.x - twin.x))), float(np.max(np.abs(same.y - twin.y))))
 
 
@@ -395,26 +397,30 @@ def run_benchmark(
     threads_before = numba.get_num_threads()
     two = min(2, MAX_THREADS)
     try:
-        ref = _engine_rates(flow, transport, start, nsteps, reps, two, note, "reference")
+        ref = _engine_rates(inputs, start, nsteps, reps, two, note, "reference")
         note("numpy twin, reference workload")
         numba.set_num_threads(1)
-        twin_wall, twin_cpu, twin_out = _rate(flow, inputs, start, twin_steps, reps, "reference")
+        twin_wall, twin_cpu, twin_out = _rate(inputs, start, twin_steps, reps, "reference")
         s_flow, s_transport = scenario_workload()
         s_start = initial_state(n, s_flow)
-        sce = _engine_rates(s_flow, s_transport, s_start, nsteps, reps, two, note, "scenario")
+        s_inputs = _inputs(s_flow, s_transport)
+        sce = _engine_rates(s_inputs, s_start, nsteps, reps, two, note, "scenario")
         rk4 = dataclasses.replace(s_transport, scheme="rk4")
         note("scenario workload with RK4, 1 thread")
         numba.set_num_threads(1)
-        rk4_wall, _, _ = _rate(s_flow, _inputs(s_flow, rk4), s_start, nsteps, reps)
+        rk4_inputs = _inputs(s_flow, rk4)
+        rk4_wall, _, _ = _rate(rk4_inputs, s_start, nsteps, reps)
         note("numpy twin, scenario workload")
-        s_twin = _rate(s_flow, _inputs(s_flow, s_transport), s_start, twin_steps, 1, "reference")[2]
+        s_twin = _rate(s_inputs, s_start, twin_steps, 1, "reference")[2]
         c_flow, c_transport = curvilinear_workload()
         c_start = initial_state(n, c_flow)
-        cur = _engine_rates(c_flow, c_transport, c_start, nsteps, reps, two, note, "curvilinear")
+        c_inputs = _inputs(c_flow, c_transport)
+        cur = _engine_rates(c_inputs, c_start, nsteps, reps, two, note, "curvilinear")
         note("reference workload with K on the grid, 1 thread")
         g_flow, g_transport = gridded_workload()
         numba.set_num_threads(1)
-        gridded_wall, _, _ = _rate(g_flow, _inputs(g_flow, g_transport), start, nsteps, reps)
+        g_inputs = _inputs(g_flow, g_transport)
+        gridded_wall, _, _ = _rate(g_inputs, start, nsteps, reps)
         m_flow, m_transport = mesh_workload()
         m_start = initial_state(n, m_flow)
         m_inputs = mesh_inputs.mesh_kernel_inputs(
@@ -423,46 +429,43 @@ def run_benchmark(
         note("compiled engine, mesh workload, 1 thread")
         mesh_inputs.locate_particles(m_flow, m_start)
         mover.advance(m_start.copy(), m_inputs, 0.0, DT, 2, 0, KEY)
-        mesh_wall, mesh_cpu, _ = _rate(m_flow, m_inputs, m_start, nsteps, reps)
+        mesh_wall, mesh_cpu, _ = _rate(m_inputs, m_start, nsteps, reps)
         note("compiled engine, three-dimensional workload, 1 thread")
         t_inputs, t_start = threed_workload(flow, transport, start)
-        threed_wall, _, _ = _rate(flow, t_inputs, t_start, nsteps, reps)
+        threed_wall, _, _ = _rate(t_inputs, t_start, nsteps, reps)
         note("numpy twin, curvilinear workload")
         numba.set_num_threads(1)
-        c_twin = _rate(c_flow, _inputs(c_flow, c_transport), c_start, twin_steps, 1, "reference")[2]
+        c_twin = _rate(c_inputs, c_start, twin_steps, 1, "reference")[2]
         note("ratios to the reference workload, back-to-back pairs, 1 thread")
         base = (inputs, start)
         pairs = max(reps, 7)
         ratio = {
             name: _paired_ratios(base, other, nsteps, pairs)
             for name, other in (
-                ("scenario", (_inputs(s_flow, s_transport), s_start)),
-                ("curvilinear", (_inputs(c_flow, c_transport), c_start)),
+                ("scenario", (s_inputs, s_start)),
+                ("curvilinear", (c_inputs, c_start)),
                 ("mesh", (m_inputs, m_start)),
                 ("threed", (t_inputs, t_start)),
             )
         }
-        rk4_speed = _paired_ratios(
-            (_inputs(s_flow, s_transport), s_start), (_inputs(s_flow, rk4), s_start), nsteps, pairs
-        )
+        rk4_speed = _paired_ratios((s_inputs, s_start), (rk4_inputs, s_start), nsteps, pairs)
         gridded_speed = _paired_ratios(
-            (_inputs(g_flow, g_transport), start),
-            (_inputs(c_flow, c_transport), c_start),
+            (g_inputs, start),
+            (c_inputs, c_start),
             nsteps,
             pairs,
         )
         note("1 -> 2 threads, back-to-back pairs, and a compute-only loop the same way")
         compute_speedup = _compute_speedup(two, pairs)
-        s_base = (_inputs(s_flow, s_transport), s_start)
         speedup = {
             name: _paired_ratios(pair, pair, nsteps, pairs, threads=(1, two))[0]
-            for name, pair in (("reference", base), ("scenario", s_base))
+            for name, pair in (("reference", base), ("scenario", (s_inputs, s_start)))
         }
     finally:
         numba.set_num_threads(threads_before)
-    difference = _largest_difference(flow, transport, start, twin_steps, twin_out)
-    s_difference = _largest_difference(s_flow, s_transport, s_start, twin_steps, s_twin)
-    c_difference = _largest_difference(c_flow, c_transport, c_start, twin_steps, c_twin)
+    difference = _largest_difference(inputs, start, twin_steps, twin_out)
+    s_difference = _largest_difference(s_inputs, s_start, twin_steps, s_twin)
+    c_difference = _largest_difference(c_inputs, c_start, twin_steps, c_twin)
     moved = ref["moved"]
     note("gridding")
     gridding, concentration = _gridding_rates(flow, moved, max(reps, 5))

@@ -340,9 +340,9 @@ def check_substeps(
     if n > MAX_SUBSTEPS:
         raise InputError(
             f"transport.dt = {dt:g} s would need {n} vertical substeps of {longest:.3g} s "
-            f"(Visser's criterion with the K_z curvature of the worst column deeper "
-            f"than {SHALLOW_COLUMN:g} m, substeps of at most {params[4]:g} / max|d2K_z/dz2|); at "
-            f"most {MAX_SUBSTEPS} are allowed: shorten dt to at most "
+            f"(Visser's criterion with the K_z curvature of the worst column deeper than "
+            f"{SHALLOW_COLUMN:g} m, substeps of at most {params[P_FRACTION]:g} / "
+            f"max|d2K_z/dz2|); at most {MAX_SUBSTEPS} are allowed: shorten dt to at most "
             f"{MAX_SUBSTEPS * longest:.4g} s, or raise vertical.substep_fraction"
         )
     return n

@@ -29,8 +29,8 @@ SEA_WATER_DENSITY = 1026.0
 #: the loss shows at 0.01: a tenth of the depth at the surface or the bed holds about 3 % too
 #: little, at 0.0025 about 1 % (docs/method.md).
 VISSER_FRACTION = 0.01
-#: The largest substep fraction a scenario may give ("≪ 1"; at 0.08 a quarter of the mass near
-#: the surface and the bed was lost).
+#: The largest substep fraction a scenario may give (Visser's "≪ 1"; at 0.08 the end fortieths
+#: of a well-mixed column lost 18 % of their mass, docs/method.md).
 MAX_VISSER_FRACTION = 0.1
 
 

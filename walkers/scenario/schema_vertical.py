@@ -4,7 +4,7 @@ column (neutral, settling, rising) and start height."""
 
 from __future__ import annotations
 
-from walkers.scenario.config import VISSER_FRACTION
+from walkers.scenario.config import MAX_VISSER_FRACTION, VISSER_FRACTION
 from walkers.scenario.keys import Choice, Key, Section
 
 VERTICAL = Section(
@@ -46,7 +46,8 @@ VERTICAL = Section(
         "substep_fraction": Key(
             "number",
             "The longest vertical substep as a fraction of 1/max|d2K_z/dz2| (Visser 1997: a "
-            "substep much shorter than that; at most 0.1). The walk loses a little mass at the "
+            f"substep much shorter than that; at most {MAX_VISSER_FRACTION:g}). The walk loses a "
+            "little mass at the "
             "surface and the bed, where K_z = 0: at 0.01 a tenth of the depth there holds about "
             "3 % too little in a well-mixed column, at 0.0025 about 1 %, with four times the "
             "substeps (docs/method.md).",
