@@ -7,6 +7,7 @@ compared variable by variable with an uninterrupted run (np.array_equal, NaN equ
 
 from __future__ import annotations
 
+import contextlib
 import signal
 import subprocess
 import sys
@@ -306,6 +307,38 @@ def test_a_failed_checkpoint_write_keeps_the_previous_one_and_no_temporary(
         checkpoint.save_checkpoint(ckpt, state, {}, "later")
     assert ckpt.read_bytes() == before
     assert leftovers(tmp_path) == []
+
+
+def test_an_interrupt_during_a_checkpoint_write_waits_for_the_whole_file(
+    scenario, tmp_path, monkeypatch
+):
+    """Ctrl-C while the checkpoint is being written is raised once the file is whole and in
+    place: the run stops as interrupted (not as a defect of zipfile's cleanup) and can resume
+    from it. The twin: the same interrupt outside the hold stops the write before any file."""
+    out = tmp_path / "run.nc"
+    ckpt = _interrupt_after_first_checkpoint(scenario, out)
+    fingerprint = checkpoint.read_checkpoint_meta(ckpt)["fingerprint"]
+    state = checkpoint.load_checkpoint(ckpt, fingerprint)
+    real_savez = np.savez
+    handler = signal.getsignal(signal.SIGINT)
+
+    def interrupted_savez(fh, **arrays):
+        signal.raise_signal(signal.SIGINT)  # arrives while the zip is being written
+        return real_savez(fh, **arrays)
+
+    monkeypatch.setattr(checkpoint.np, "savez", interrupted_savez)
+    later = tmp_path / "later.npz"
+    with pytest.raises(KeyboardInterrupt):
+        checkpoint.save_checkpoint(later, state, fingerprint, "later")
+    assert checkpoint.load_checkpoint(later, fingerprint).next_output == state.next_output
+    assert leftovers(tmp_path) == []
+    assert signal.getsignal(signal.SIGINT) is handler
+
+    monkeypatch.setattr(checkpoint, "interrupts_held", contextlib.nullcontext)
+    twin = tmp_path / "twin.npz"
+    with pytest.raises(KeyboardInterrupt):
+        checkpoint.save_checkpoint(twin, state, fingerprint, "later")
+    assert not twin.exists()
 
 
 def test_checkpoints_fall_on_output_times_every_duration_but_not_after_the_last(monkeypatch):

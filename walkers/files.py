@@ -7,6 +7,8 @@ from __future__ import annotations
 import errno
 import os
 import shutil
+import signal
+import threading
 import uuid
 from collections.abc import Iterable, Iterator
 from contextlib import contextmanager
@@ -138,6 +140,31 @@ def check_room(path: Path, need: int) -> None:
             f"are free in {str(path.parent)!r}; free at least {_size(need - free)} there or "
             "choose another folder. Nothing was written"
         )
+
+
+@contextmanager
+def interrupts_held() -> Iterator[None]:
+    """Within: Ctrl-C (SIGINT) and SIGTERM are held until the block ends, then raised as
+    KeyboardInterrupt. For a file that must be written whole: an interrupt inside a library's
+    writer can leave it unable to clean up, and its own error then hides the interrupt (zipfile
+    under numpy.savez: "Can't close the ZIP file while there is an open writing handle"). Only
+    the main thread receives signals; elsewhere the block runs as it is."""
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    held: list[int] = []
+
+    def hold(signum, _frame):
+        held.append(signum)
+
+    previous = {s: signal.signal(s, hold) for s in (signal.SIGINT, signal.SIGTERM)}
+    try:
+        yield
+    finally:
+        for s, handler in previous.items():
+            signal.signal(s, handler)
+    if held:
+        raise KeyboardInterrupt
 
 
 @contextmanager

@@ -35,6 +35,7 @@ import numpy as np
 import walkers
 from walkers.engine.state import ParticleState
 from walkers.errors import InputError
+from walkers.files import interrupts_held
 from walkers.run.accumulate import _Accumulator
 from walkers.run.simulate import RunState
 from walkers.run.store import DiskFields
@@ -105,14 +106,17 @@ def save_checkpoint(
     arrays.update({_PARTICLE + k: v for k, v in state.particles.arrays().items()})
     arrays.update({_RESULT + k: v for k, v in state.results.arrays().items()})
     temp = _temporary(path)
-    try:
-        with open(temp, "wb") as fh:
-            np.savez(fh, **arrays)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(temp, path)
-    finally:
-        temp.unlink(missing_ok=True)
+    # a Ctrl-C or SIGTERM waits for the file to be whole (well under a second) and is raised
+    # after it: the interrupted run then resumes from this checkpoint
+    with interrupts_held():
+        try:
+            with open(temp, "wb") as fh:
+                np.savez(fh, **arrays)
+                fh.flush()
+                os.fsync(fh.fileno())
+            os.replace(temp, path)
+        finally:
+            temp.unlink(missing_ok=True)
     listed = {seg[0] for seg in meta["fields"]["segments"]} if meta["fields"] else set()
     _prune(folder, listed)
     return path
