@@ -314,30 +314,33 @@ def test_an_interrupt_during_a_checkpoint_write_waits_for_the_whole_file(
 ):
     """Ctrl-C while the checkpoint is being written is raised once the file is whole and in
     place: the run stops as interrupted (not as a defect of zipfile's cleanup) and can resume
-    from it. The twin: the same interrupt outside the hold stops the write before any file."""
+    from it. The twin: the same interrupt outside the hold stops the write before any file.
+    Python's Ctrl-C handler is installed for the test (a process started in the background
+    inherits SIGINT ignored)."""
     out = tmp_path / "run.nc"
     ckpt = _interrupt_after_first_checkpoint(scenario, out)
     fingerprint = checkpoint.read_checkpoint_meta(ckpt)["fingerprint"]
     state = checkpoint.load_checkpoint(ckpt, fingerprint)
     real_savez = np.savez
-    handler = signal.getsignal(signal.SIGINT)
 
     def interrupted_savez(fh, **arrays):
         signal.raise_signal(signal.SIGINT)  # arrives while the zip is being written
         return real_savez(fh, **arrays)
 
     monkeypatch.setattr(checkpoint.np, "savez", interrupted_savez)
-    later = tmp_path / "later.npz"
-    with pytest.raises(KeyboardInterrupt):
-        checkpoint.save_checkpoint(later, state, fingerprint, "later")
+    later, twin = tmp_path / "later.npz", tmp_path / "twin.npz"
+    handler = signal.signal(signal.SIGINT, signal.default_int_handler)
+    try:
+        with pytest.raises(KeyboardInterrupt):
+            checkpoint.save_checkpoint(later, state, fingerprint, "later")
+        assert signal.getsignal(signal.SIGINT) is signal.default_int_handler
+        monkeypatch.setattr(checkpoint, "interrupts_held", contextlib.nullcontext)
+        with pytest.raises(KeyboardInterrupt):
+            checkpoint.save_checkpoint(twin, state, fingerprint, "later")
+    finally:
+        signal.signal(signal.SIGINT, handler)
     assert checkpoint.load_checkpoint(later, fingerprint).next_output == state.next_output
     assert leftovers(tmp_path) == []
-    assert signal.getsignal(signal.SIGINT) is handler
-
-    monkeypatch.setattr(checkpoint, "interrupts_held", contextlib.nullcontext)
-    twin = tmp_path / "twin.npz"
-    with pytest.raises(KeyboardInterrupt):
-        checkpoint.save_checkpoint(twin, state, fingerprint, "later")
     assert not twin.exists()
 
 

@@ -144,11 +144,13 @@ def check_room(path: Path, need: int) -> None:
 
 @contextmanager
 def interrupts_held() -> Iterator[None]:
-    """Within: Ctrl-C (SIGINT) and SIGTERM are held until the block ends, then raised as
-    KeyboardInterrupt. For a file that must be written whole: an interrupt inside a library's
-    writer can leave it unable to clean up, and its own error then hides the interrupt (zipfile
-    under numpy.savez: "Can't close the ZIP file while there is an open writing handle"). Only
-    the main thread receives signals; elsewhere the block runs as it is."""
+    """Within: Ctrl-C (SIGINT) and SIGTERM are held until the block ends, then delivered to the
+    handlers they were held from (Python's Ctrl-C handler and ``walkers run``'s SIGTERM handler
+    raise KeyboardInterrupt; an ignored signal stays ignored). For a file that must be written
+    whole: an interrupt inside a library's writer can leave it unable to clean up, and its own
+    error then hides the interrupt (zipfile under numpy.savez: "Can't close the ZIP file while
+    there is an open writing handle"). Only the main thread receives signals; elsewhere the
+    block runs as it is."""
     if threading.current_thread() is not threading.main_thread():
         yield
         return
@@ -163,8 +165,8 @@ def interrupts_held() -> Iterator[None]:
     finally:
         for s, handler in previous.items():
             signal.signal(s, handler)
-    if held:
-        raise KeyboardInterrupt
+    for signum in dict.fromkeys(held):
+        signal.raise_signal(signum)
 
 
 @contextmanager
