@@ -9,6 +9,13 @@ other work on its core takes fewer ranges). The number of threads is numba's
 Particles are independent and their random numbers are keyed by particle and step, so the split
 does not change a bit of the result.
 
+Each worker thread reads its own copy of the call's fields (velocity, dispersion, drift, wet and
+column frames; :func:`own_fields`), made by that thread when the fields change and kept until
+they do: two threads that read the same cache-sized arrays ran at 0.5–0.75 of the speed of two
+threads that read copies of them, on this project's two-core virtual machine, while arrays read
+from memory cost the same either way (docs/performance.md). Fields larger than
+``COPIED_FIELD_BYTES`` are shared.
+
 One serial kernel per option set replaced a numba ``parallel=True`` kernel beside the serial one
 that runs of a block or less used: numba compiled the parallel loop three times slower, and
 every option set that a run used was compiled twice (docs/performance.md).
@@ -23,6 +30,14 @@ from concurrent.futures import ThreadPoolExecutor
 from typing import Any
 
 import numba
+import numpy as np
+
+#: Fields up to this size (bytes, all arrays of a call) are copied for each worker thread: about
+#: the size of a cache (larger fields are read from memory, where sharing costs nothing).
+COPIED_FIELD_BYTES = 64 * 2**20
+
+#: Each worker thread's copy of the last fields it was given, with the fields it copies.
+_OWN = threading.local()
 
 #: The worker threads of ``spread_blocks`` (threads - 1 of them), with the process that made them
 #: (a pool is not carried into a forked child).
@@ -42,28 +57,59 @@ def _workers(count: int) -> ThreadPoolExecutor:
         return _POOL["pool"]
 
 
-def spread_blocks(nblocks: int, run: Callable[[int, int], None]) -> None:
-    """Call ``run(first, last)`` for ranges of blocks covering ``range(nblocks)``, on numba's
-    number of threads (``numba.get_num_threads``): the calling thread and threads - 1 workers
-    each take the next range of about nblocks / (8 threads) blocks until none is left."""
+def _arrays(fields: Any) -> list[np.ndarray]:
+    """The arrays of a nested tuple, in order."""
+    if isinstance(fields, tuple):
+        return [a for item in fields for a in _arrays(item)]
+    return [fields]
+
+
+def _copied(fields: Any) -> Any:
+    """A nested tuple of arrays with each array copied."""
+    if isinstance(fields, tuple):
+        return tuple(_copied(item) for item in fields)
+    return fields.copy()
+
+
+def own_fields(fields: Any) -> Any:
+    """This thread's copy of ``fields`` (a nested tuple of arrays), made on the first call with
+    these arrays and kept until it is called with others; ``fields`` itself when larger than
+    ``COPIED_FIELD_BYTES``."""
+    arrays = _arrays(fields)
+    if sum(a.nbytes for a in arrays) > COPIED_FIELD_BYTES:
+        return fields
+    last = getattr(_OWN, "last", None)
+    if last is None or len(last[0]) != len(arrays) or any(
+        a is not b for a, b in zip(last[0], arrays, strict=True)
+    ):
+        _OWN.last = last = (arrays, _copied(fields))
+    return last[1]
+
+
+def spread_blocks(nblocks: int, run: Callable[[int, int, Any], None], fields: Any) -> None:
+    """Call ``run(first, last, fields)`` for ranges of blocks covering ``range(nblocks)``, on
+    numba's number of threads (``numba.get_num_threads``): the calling thread, with ``fields``,
+    and threads - 1 workers, each with its own copy (:func:`own_fields`), take the next range
+    of about nblocks / (8 threads) blocks until none is left."""
     threads = min(numba.get_num_threads(), nblocks)
     if threads <= 1:
-        run(0, nblocks)
+        run(0, nblocks, fields)
         return
     size = max(1, nblocks // (8 * threads))
     ranges = iter([(lo, min(lo + size, nblocks)) for lo in range(0, nblocks, size)])
     lock = threading.Lock()
 
-    def work() -> None:
+    def work(worker: bool) -> None:
+        own = own_fields(fields) if worker else fields
         while True:
             with lock:
                 span = next(ranges, None)
             if span is None:
                 return
-            run(*span)
+            run(*span, own)
 
     pool = _workers(threads - 1)
-    futures = [pool.submit(work) for _ in range(threads - 1)]
-    work()
+    futures = [pool.submit(work, True) for _ in range(threads - 1)]
+    work(False)
     for future in futures:
         future.result()

@@ -1480,10 +1480,11 @@ def advance(
         of frame f at f nl + k); the heights and layered frames of the upward velocity w
         (m s-1; no heights: none) and of K_z (m2 s-1; mode 3) on the cells. None:
         depth-averaged.
-    spread : a function ``spread(nblocks, run)`` that calls ``run(first, last)`` for ranges of
-        blocks of ``BLOCK`` particles that cover ``range(nblocks)`` once, on threads of its
-        choosing (``blocks.spread_blocks``); None: one call for all blocks on this thread. The
-        kernel releases the GIL.
+    spread : a function ``spread(nblocks, run, fields)`` that calls ``run(first, last, fields)``
+        for ranges of blocks of ``BLOCK`` particles that cover ``range(nblocks)`` once, on
+        threads of its choosing, each with ``fields`` (the call's read-only fields, a nested
+        tuple of arrays) or its own copy of them (``blocks.spread_blocks``); None: one call for
+        all blocks on this thread. The kernel releases the GIL.
 
     Particles are independent, so any split over threads gives the same numbers bitwise.
     """
@@ -1520,7 +1521,13 @@ def advance(
     tables = (np.zeros((nsteps, 3), np.int64), np.zeros((nsteps, 3)), np.ones(nsteps))
     step_tables(times, float(t0), float(dt), nsteps, float(decay_rate), *tables)
 
-    def run(first, last):
+    # The read-only fields of the call, apart from the per-particle arrays (the dispersion
+    # multipliers, sigma and settling velocity, the last face), which ``spread`` may hand to
+    # each thread as its own copy (``blocks.spread_blocks``).
+    fields = (flow, cells, disp[:6], times, column[2:], topology[:3])
+
+    def run(first, last, fields):
+        flow, cells, disp_fields, times, column_fields, topology_fields = fields
         move(
             x,
             y,
@@ -1531,7 +1538,7 @@ def advance(
             status,
             flow,
             cells,
-            disp,
+            (*disp_fields, disp[6]),
             times,
             edges_mode,
             float(t0),
@@ -1542,8 +1549,8 @@ def advance(
             float(decay_rate),
             int(opts[5]),
             bool(opts[4]),
-            topology,
-            column,
+            (*topology_fields, topology[3]),
+            (column[0], column[1], *column_fields),
             tables,
             first,
             last,
@@ -1551,9 +1558,9 @@ def advance(
 
     nblocks = (x.shape[0] + BLOCK - 1) // BLOCK
     if spread is None:
-        run(0, nblocks)
+        run(0, nblocks, fields)
     else:
-        spread(nblocks, run)
+        spread(nblocks, run, fields)
 
 
 @nb.njit(**JIT)
