@@ -137,6 +137,34 @@ def test_frames_are_read_only_when_a_window_asks(tmp_path):
     assert flow.u.data.frames_read == before + 1
 
 
+def test_a_flow_that_fits_is_read_once_over_the_passes_of_a_run(tmp_path, monkeypatch):
+    """A run passes over its flow frame by frame (the dispersion estimate reads the speed, the
+    ever-wet cells the wet mask) and then window by window (the step): frames kept from the first pass serve the others, and
+    windows put together from single frames equal windows read fresh."""
+    from walkers.fields.netcdf import frames
+
+    times = np.arange(12) * 600.0
+    path = ff.write_flow(tmp_path / "passes.nc", times=times, land=ff.island)
+
+    def three_passes():
+        flow = open_flow(path)
+        for k in range(times.size):
+            flow.u.frames(k, k)
+        for k in range(times.size):
+            flow.v.frames(k, k)
+        windows = [flow.window(t + 1.0, t + 599.0) for t in times[:-1]]
+        return flow.u.data.frames_read, windows
+
+    read, windows = three_passes()
+    assert read == times.size
+    monkeypatch.setattr(frames, "KEPT_BYTES", 0)  # the twin: only the newest blocks kept
+    read_again, fresh = three_passes()
+    assert read_again > 2 * times.size
+    for kept, new in zip(windows, fresh, strict=True):
+        for name in ("u", "v", "depth", "wet", "times"):
+            np.testing.assert_array_equal(getattr(kept, name), getattr(new, name))
+
+
 def test_several_files_along_time_join_like_one(tmp_path):
     whole = open_flow(ff.write_flow(tmp_path / "whole.nc", times=np.arange(9) * 1800.0))
     parts = [

@@ -112,18 +112,24 @@ def _readable(variable: netCDF4.Variable, index: Any) -> bool:
     return True
 
 
-#: blocks of frames a flow source keeps: the window being stepped through and the one before
-#: (the frames of a window serve the depth at its output time without a read)
+#: blocks of frames a flow source always keeps: the window being stepped through and the one
+#: before (the frames of a window serve the depth at its output time without a read)
 BLOCKS_KEPT = 2
+
+#: bytes of derived frames a flow source keeps beyond its newest BLOCKS_KEPT blocks (the oldest
+#: go first): a flow that fits is read from its files once, although a run goes through it three
+#: times (the dispersion estimate, the ever-wet cells, the step)
+KEPT_BYTES = 32 * 2**20
 
 
 class _FlowSource:
     """Reads frames of every role from one or more files and derives depth and wet per frame.
 
     Static (time-less) variables are read once when the source is built; time-varying ones are
-    read a block of frames at a time, and the last BLOCKS_KEPT blocks are kept, so that u, v,
-    depth and wet of one window cost one read and a frame of a window just read (the depth at an
-    output time) costs none. ``frames_read`` counts frames read from disk (for tests and logs).
+    read a block of frames at a time, and the last BLOCKS_KEPT blocks are kept, with older ones
+    up to KEPT_BYTES, so that u, v, depth and wet of one window cost one read, a frame of a
+    window just read (the depth at an output time) costs none, and frames kept from an earlier
+    pass over the flow are not read again. ``frames_read`` counts frames read from disk (for tests and logs).
     """
 
     def __init__(
@@ -263,7 +269,8 @@ class _FlowSource:
 
     def block(self, i0: int, i1: int) -> dict[str, np.ndarray]:
         """u, v, depth, wet for frames i0..i1, derived and checked (the last BLOCKS_KEPT blocks
-        are kept; frames inside a kept block are taken from it)."""
+        are kept, and older ones up to KEPT_BYTES; frames that kept blocks hold are taken from
+        them)."""
         kept = self._kept(i0, i1)
         if kept is not None:
             return kept
@@ -306,14 +313,23 @@ class _FlowSource:
             **column,
         }
         self._blocks[(i0, i1)] = result
-        while len(self._blocks) > BLOCKS_KEPT:
-            self._blocks.popitem(last=False)
+        self._forget_old_blocks()
         return result
 
+    def _forget_old_blocks(self) -> None:
+        """Drop the oldest blocks beyond the newest BLOCKS_KEPT while all take more than
+        KEPT_BYTES."""
+        size = sum(a.nbytes for block in self._blocks.values() for a in block.values())
+        while len(self._blocks) > BLOCKS_KEPT and size > KEPT_BYTES:
+            _, old = self._blocks.popitem(last=False)
+            size -= sum(a.nbytes for a in old.values())
+
     def _kept(self, i0: int, i1: int) -> dict[str, np.ndarray] | None:
-        """Frames i0..i1 from a kept block that holds them (the newest first), or None. Every
-        variable is derived frame by frame, so a part of a block is what a read would give; the
-        layered columns (levels in the frame axis) are only taken whole."""
+        """Frames i0..i1 from a kept block that holds them (the newest first), else put together
+        frame by frame from the kept blocks, else None. Every variable is derived frame by frame,
+        so a part of a block, or frames of several blocks put together, are what a read would
+        give (a steady variable may come with one frame or with one per frame: readers take
+        either); the layered columns (levels in the frame axis) are only taken whole."""
         for (a, b), result in reversed(self._blocks.items()):
             if (a, b) == (i0, i1):
                 self._blocks.move_to_end((a, b))
@@ -325,6 +341,26 @@ class _FlowSource:
                         key: arr if arr.shape[0] == 1 else arr[i0 - a : i1 - a + 1]
                         for key, arr in result.items()
                     }
+        if self.keep_column:
+            return None
+        parts = [self._kept_frame(k) for k in range(i0, i1 + 1)]
+        if any(part is None for part in parts):
+            return None
+        return {
+            key: np.concatenate([np.broadcast_to(p[key], (1, *arr.shape[1:])) for p in parts])
+            for key, arr in parts[0].items()
+        }
+
+    def _kept_frame(self, k: int) -> dict[str, np.ndarray] | None:
+        """Frame k from the newest kept block that holds it (a steady variable's one frame as
+        it is), or None."""
+        for (a, b), result in reversed(self._blocks.items()):
+            n = b - a + 1
+            if a <= k <= b and all(arr.shape[0] in (1, n) for arr in result.values()):
+                return {
+                    key: arr if arr.shape[0] == 1 else arr[k - a : k - a + 1]
+                    for key, arr in result.items()
+                }
         return None
 
     def latest(self) -> dict[str, np.ndarray]:
