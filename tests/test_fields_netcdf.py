@@ -155,14 +155,25 @@ def test_a_flow_that_fits_is_read_once_over_the_passes_of_a_run(tmp_path, monkey
         windows = [flow.window(t + 1.0, t + 599.0) for t in times[:-1]]
         return flow.u.data.frames_read, windows
 
+    # each window from a flow opened for it alone: read at once (after the first, whose frame 0
+    # the opening has read)
+    truth = [open_flow(path).window(t + 1.0, t + 599.0) for t in times[:-1]]
     read, windows = three_passes()
     assert read == times.size
     monkeypatch.setattr(frames, "KEPT_BYTES", 0)  # the twin: only the newest blocks kept
     read_again, fresh = three_passes()
     assert read_again > 2 * times.size
-    for kept, new in zip(windows, fresh, strict=True):
+    for kept, new, true in zip(windows, fresh, truth, strict=True):
         for name in ("u", "v", "depth", "wet", "times"):
-            np.testing.assert_array_equal(getattr(kept, name), getattr(new, name))
+            np.testing.assert_array_equal(getattr(kept, name), getattr(true, name))
+            np.testing.assert_array_equal(getattr(new, name), getattr(true, name))
+    # a flow too large to keep: each window reads only the frame the window before lacks
+    flow = open_flow(path)
+    stepped = [flow.window(t + 1.0, t + 599.0) for t in times[:-1]]
+    assert flow.u.data.frames_read == times.size
+    for a, b in zip(stepped, truth, strict=True):
+        for name in ("u", "v", "depth", "wet", "times"):
+            np.testing.assert_array_equal(getattr(a, name), getattr(b, name))
 
 
 def test_several_files_along_time_join_like_one(tmp_path):

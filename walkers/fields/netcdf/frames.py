@@ -270,10 +270,22 @@ class _FlowSource:
     def block(self, i0: int, i1: int) -> dict[str, np.ndarray]:
         """u, v, depth, wet for frames i0..i1, derived and checked (the last BLOCKS_KEPT blocks
         are kept, and older ones up to KEPT_BYTES; frames that kept blocks hold are taken from
-        them)."""
+        them; a window whose first frames are kept reads only the rest)."""
         kept = self._kept(i0, i1)
         if kept is not None:
             return kept
+        first_missing = i0
+        while (
+            first_missing < i1
+            and not self.keep_column
+            and self._kept_frame(first_missing) is not None
+        ):
+            first_missing += 1
+        if first_missing > i0:
+            self.block(first_missing, i1)
+            kept = self._kept(i0, i1)
+            if kept is not None:
+                return kept
         raw = self._read_raw(i0, i1) if self.varying else {}
         u = self._get(raw, "u")
         v = self._get(raw, "v") if self.ndim == 2 else np.zeros_like(u[:1])
@@ -353,10 +365,11 @@ class _FlowSource:
 
     def _kept_frame(self, k: int) -> dict[str, np.ndarray] | None:
         """Frame k from the newest kept block that holds it (a steady variable's one frame as
-        it is), or None."""
+        it is; the block becomes the newest), or None."""
         for (a, b), result in reversed(self._blocks.items()):
             n = b - a + 1
             if a <= k <= b and all(arr.shape[0] in (1, n) for arr in result.values()):
+                self._blocks.move_to_end((a, b))
                 return {
                     key: arr if arr.shape[0] == 1 else arr[k - a : k - a + 1]
                     for key, arr in result.items()
