@@ -32,8 +32,9 @@ from typing import Any
 import numba
 import numpy as np
 
-#: Fields up to this size (bytes, all arrays of a call) are copied for each worker thread: about
-#: the size of a cache (larger fields are read from memory, where sharing costs nothing).
+#: Fields up to this size (bytes, all arrays of a call) are copied for each worker thread. The
+#: cells a plume covers may fit a cache while the whole grid does not, so the bound is set by
+#: what a copy costs (memory, and some 10 ms each time the window changes), not by a cache.
 COPIED_FIELD_BYTES = 64 * 2**20
 
 #: Each worker thread's copy of the last fields it was given, with the fields it copies.
