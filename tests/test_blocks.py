@@ -57,7 +57,8 @@ def test_every_block_is_run_once_and_only_the_workers_read_copies(threads):
             # a copy: the same values, none of the same arrays
             assert given is not fields
             mine, theirs = blocks._arrays(given), blocks._arrays(fields)
-            assert all(a is not b and np.array_equal(a, b) for a, b in zip(mine, theirs))
+            pairs = zip(mine, theirs, strict=True)
+            assert all(a is not b and np.array_equal(a, b) for a, b in pairs)
 
 
 def test_a_worker_copies_fields_once_and_again_only_when_they_change():
@@ -92,7 +93,7 @@ def test_two_threads_with_copied_fields_move_particles_as_one_thread_does(thread
     for count in (1, threads):
         numba.set_num_threads(count)
         state = start.copy()
-        for w, ((t0, _), window) in enumerate(zip(windows, inputs)):
+        for w, ((t0, _), window) in enumerate(zip(windows, inputs, strict=True)):
             for call in range(3):  # the second and third calls reuse the worker's copy
                 step0 = 120 * w + 20 * call
                 mover.advance(state, window, t0 + call * 600.0, 30.0, 20, step0, 11)

@@ -139,8 +139,10 @@ def test_frames_are_read_only_when_a_window_asks(tmp_path):
 
 def test_a_flow_that_fits_is_read_once_over_the_passes_of_a_run(tmp_path, monkeypatch):
     """A run passes over its flow frame by frame (the dispersion estimate reads the speed, the
-    ever-wet cells the wet mask) and then window by window (the step): frames kept from the first pass serve the others, and
-    windows put together from single frames equal windows read fresh."""
+    ever-wet cells the wet mask) and then window by window (the step): frames kept from the
+    first pass serve the others, and windows put together from single frames equal windows read
+    fresh. A flow that does not fit still reads a frame once in the step's pass: the frame a
+    window shares with the one before is kept."""
     from walkers.fields.netcdf import frames
 
     times = np.arange(12) * 600.0

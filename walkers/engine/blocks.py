@@ -80,8 +80,10 @@ def own_fields(fields: Any) -> Any:
     if sum(a.nbytes for a in arrays) > COPIED_FIELD_BYTES:
         return fields
     last = getattr(_OWN, "last", None)
-    if last is None or len(last[0]) != len(arrays) or any(
-        a is not b for a, b in zip(last[0], arrays, strict=True)
+    if (
+        last is None
+        or len(last[0]) != len(arrays)
+        or any(a is not b for a, b in zip(last[0], arrays, strict=True))
     ):
         _OWN.last = last = (arrays, _copied(fields))
     return last[1]

@@ -129,7 +129,8 @@ class _FlowSource:
     read a block of frames at a time, and the last BLOCKS_KEPT blocks are kept, with older ones
     up to KEPT_BYTES, so that u, v, depth and wet of one window cost one read, a frame of a
     window just read (the depth at an output time) costs none, and frames kept from an earlier
-    pass over the flow are not read again. ``frames_read`` counts frames read from disk (for tests and logs).
+    pass over the flow are not read again. ``frames_read`` counts frames read from disk (for
+    tests and logs).
     """
 
     def __init__(
