@@ -356,8 +356,9 @@ class _FlowSource:
                     }
         if self.keep_column:
             return None
-        parts = [self._kept_frame(k) for k in range(i0, i1 + 1)]
-        if any(part is None for part in parts):
+        frames = [self._kept_frame(k) for k in range(i0, i1 + 1)]
+        parts = [part for part in frames if part is not None]
+        if len(parts) < len(frames):
             return None
         return {
             key: np.concatenate([np.broadcast_to(p[key], (1, *arr.shape[1:])) for p in parts])
