@@ -101,3 +101,28 @@ def test_two_threads_with_copied_fields_move_particles_as_one_thread_does(thread
     for name, arr in results[0].arrays().items():
         assert np.array_equal(arr, results[1].arrays()[name], equal_nan=True), name
     assert np.ptp(results[0].x) > 0.0
+
+
+def test_a_window_is_copied_once_over_the_calls_that_step_through_it(threads, monkeypatch):
+    """Calls with the same kernel inputs (depth-averaged, on a lattice) give the worker the same
+    fields, so it copies them at the first call only; a new window is copied again."""
+    if threads < 2:
+        pytest.skip("numba has one thread here")
+    copies = []
+    copied = blocks._copied
+
+    def counted(fields):
+        if isinstance(fields, tuple) and isinstance(fields[0], tuple):  # a call's, not a part
+            copies.append(fields)
+        return copied(fields)
+
+    monkeypatch.setattr(blocks, "_copied", counted)
+    flow, transport = workloads.reference_workload(nx=60, ny=30, frames=3)
+    state = workloads.initial_state(20_000, flow)
+    first = mover.kernel_inputs(flow, flow.window(0.0, 3600.0), transport)
+    for call in range(4):
+        mover.advance(state, first, 300.0 * call, 30.0, 10, 10 * call, 3)
+    assert len(copies) == 1
+    second = mover.kernel_inputs(flow, flow.window(3600.0, 7200.0), transport)
+    mover.advance(state, second, 3600.0, 30.0, 10, 120, 3)
+    assert len(copies) == 2

@@ -1420,6 +1420,22 @@ def compiled_mover(
     return move
 
 
+#: The topology tables and column fields of a call on a lattice, depth-averaged (never read
+#: there): made once, so that a worker thread's copy of a call's fields
+#: (``blocks.own_fields``) is kept from one call to the next.
+_NO_TOPOLOGY = (np.zeros((1, 4), np.int64),) * 3
+_NO_COLUMN = (
+    np.zeros((1, 1, 1)),
+    np.zeros((1, 1, 1)),
+    np.zeros(4),
+    np.zeros(1),
+    np.zeros(0),
+    np.zeros((1, 1, 1)),
+    np.zeros(0),
+    np.zeros((1, 1, 1)),
+)
+
+
 def advance(
     x,
     y,
@@ -1493,14 +1509,10 @@ def advance(
     shared = bool(np.array_equal(ux, vx) and np.array_equal(uy, vy))
     centred = bool(shared and np.array_equal(ux, cx) and np.array_equal(uy, cy))
     if topology is None:
-        none = np.zeros((1, 4), np.int64)
-        topology = (none, none, none, np.zeros(1, np.int64))
+        topology = (*_NO_TOPOLOGY, np.zeros(1, np.int64))
     vertical_mode = 0
     if column is None:
-        flat = np.zeros((1, 1, 1))
-        none = np.zeros(0)
-        column = (np.zeros(1), np.zeros(1), flat, flat, np.zeros(4), np.zeros(1))
-        column = (*column, none, flat, none, flat)
+        column = (np.zeros(1), np.zeros(1), *_NO_COLUMN)
     else:
         vertical_mode = int(column[4][0]) + (4 if column[6].shape[0] > 0 else 0)
     move = compiled_mover(
