@@ -73,12 +73,17 @@ def test_a_worker_copies_fields_once_and_again_only_when_they_change():
     assert blocks.own_fields(first) is not a
 
 
-def test_fields_larger_than_the_limit_are_shared(monkeypatch):
-    fields = fields_of(size=1000)
+def test_fields_larger_than_the_limits_are_shared(monkeypatch):
+    """Shared above the bound of one copy, or of all workers' copies together (many cores)."""
+    fields = fields_of(size=1000)  # 24 024 bytes
+    own = blocks._workers(1)
     monkeypatch.setattr(blocks, "COPIED_FIELD_BYTES", 1000)
-    assert blocks._workers(1).submit(blocks.own_fields, fields).result() is fields
+    assert own.submit(blocks.own_fields, fields).result() is fields
     monkeypatch.setattr(blocks, "COPIED_FIELD_BYTES", 10**6)
-    assert blocks._workers(1).submit(blocks.own_fields, fields).result() is not fields
+    assert own.submit(blocks.own_fields, fields).result() is not fields
+    monkeypatch.setattr(blocks, "COPIED_TOTAL_BYTES", 10**5)
+    assert own.submit(blocks.own_fields, fields, 3).result() is not fields  # 3 copies: 72 072 bytes
+    assert own.submit(blocks.own_fields, fields, 7).result() is fields  # 7 copies: 168 168 bytes
 
 
 def test_two_threads_with_copied_fields_move_particles_as_one_thread_does(threads):

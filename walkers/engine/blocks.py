@@ -13,8 +13,9 @@ Each worker thread reads its own copy of the call's fields (velocity, dispersion
 column frames; :func:`own_fields`), made by that thread when the fields change and kept until
 they do: two threads that read the same cache-sized arrays ran at 0.5–0.75 of the speed of two
 threads that read copies of them, on this project's two-core virtual machine, while arrays read
-from memory cost the same either way (docs/performance.md). Fields larger than
-``COPIED_FIELD_BYTES`` are shared.
+from memory cost the same either way (docs/performance.md). Fields are shared when they are
+larger than ``COPIED_FIELD_BYTES``, or when the copies of all workers together would be larger
+than ``COPIED_TOTAL_BYTES`` (a machine with many cores).
 
 One serial kernel per option set replaced a numba ``parallel=True`` kernel beside the serial one
 that runs of a block or less used: numba compiled the parallel loop three times slower, and
@@ -36,6 +37,10 @@ import numpy as np
 #: cells a plume covers may fit a cache while the whole grid does not, so the bound is set by
 #: what a copy costs (memory, and some 10 ms each time the window changes), not by a cache.
 COPIED_FIELD_BYTES = 64 * 2**20
+
+#: Most bytes of the copies of all worker threads together (the fields of one call times the
+#: worker threads): on many cores, smaller fields only are copied.
+COPIED_TOTAL_BYTES = 256 * 2**20
 
 #: Each worker thread's copy of the last fields it was given, with the fields it copies.
 _OWN = threading.local()
@@ -72,12 +77,15 @@ def _copied(fields: Any) -> Any:
     return fields.copy()
 
 
-def own_fields(fields: Any) -> Any:
+def own_fields(fields: Any, workers: int = 1) -> Any:
     """This thread's copy of ``fields`` (a nested tuple of arrays), made on the first call with
     these arrays and kept until it is called with others; ``fields`` itself when larger than
-    ``COPIED_FIELD_BYTES``."""
+    ``COPIED_FIELD_BYTES``, or when ``workers`` threads' copies of them would be larger than
+    ``COPIED_TOTAL_BYTES``."""
     arrays = _arrays(fields)
-    if sum(a.nbytes for a in arrays) > COPIED_FIELD_BYTES:
+    size = sum(a.nbytes for a in arrays)
+    if size > COPIED_FIELD_BYTES or size * workers > COPIED_TOTAL_BYTES:
+        _OWN.last = None  # an older copy is not kept for nothing
         return fields
     last = getattr(_OWN, "last", None)
     if (
@@ -103,7 +111,7 @@ def spread_blocks(nblocks: int, run: Callable[[int, int, Any], None], fields: An
     lock = threading.Lock()
 
     def work(worker: bool) -> None:
-        own = own_fields(fields) if worker else fields
+        own = own_fields(fields, threads - 1) if worker else fields
         while True:
             with lock:
                 span = next(ranges, None)
