@@ -301,3 +301,46 @@ def test_drift_of_a_frame_shared_by_windows_is_the_drift_computed_afresh():
     assert shared.drift_x.shape[0] == 2 and np.any(shared.drift_x[0] != shared.drift_x[1])
     np.testing.assert_array_equal(shared.drift_x, fresh.drift_x)
     np.testing.assert_array_equal(shared.drift_y, fresh.drift_y)
+
+
+def _land_cases():
+    """Fields and wet masks for the land filling: a coast with islands and inland cells beyond
+    the reach of the sweeps, a wet cell holding NaN, one row, one cell of water, all land."""
+    rng = np.random.default_rng(7)
+    ny, nx = 30, 45
+    yy, xx = np.mgrid[0:ny, 0:nx]
+    coast = (xx + 3.0 * np.sin(yy / 4.0) < 25.0) & ~((yy - 8) ** 2 + (xx - 10) ** 2 < 9)
+    field = rng.normal(3.0, 1.0, (ny, nx))
+    holed = field.copy()
+    holed[5, 5] = np.nan
+    one_cell = np.zeros((ny, nx), bool)
+    one_cell[12, 40] = True
+    row = rng.random((1, 60)) < 0.3
+    return [
+        (field, coast),
+        (holed, coast),
+        (field, one_cell),
+        (rng.normal(size=(1, 60)), row),
+        (field, np.zeros((ny, nx), bool)),
+        (field, rng.random((ny, nx)) < 0.5),
+    ]
+
+
+def test_land_filling_kernel_equals_its_numpy_twin():
+    """``kernels.fill_land`` (through ``drift._fill_land``) against ``twin.fill_land``: the
+    values carried onto land, and the mean given to cells beyond the sweeps, bit for bit."""
+    for a, wet in _land_cases():
+        compiled = drift._fill_land(a, wet)
+        reference = twin.fill_land(a, wet, drift.FILL_SWEEPS)
+        assert np.all(np.isfinite(compiled))
+        np.testing.assert_array_equal(compiled, reference)
+        np.testing.assert_array_equal(compiled[wet & np.isfinite(a)], a[wet & np.isfinite(a)])
+
+
+def test_land_filling_check_can_fail():
+    """The twin of the check above: with one sweep fewer the twin gives other values (cells two
+    and three cells from the water then take the field's mean), and the check sees it."""
+    a, wet = _land_cases()[0]
+    compiled = drift._fill_land(a, wet)
+    fewer = twin.fill_land(a, wet, drift.FILL_SWEEPS - 1)
+    assert not np.array_equal(compiled, fewer)

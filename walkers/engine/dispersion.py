@@ -73,6 +73,8 @@ def _on_cells(var: GriddedVariable, frame: np.ndarray, xc: np.ndarray, yc: np.nd
     Missing values (land) count as still water.
     """
     a = np.nan_to_num(np.asarray(frame, dtype=np.float64), nan=0.0)
+    if np.array_equal(var.x, xc) and np.array_equal(var.y, yc):
+        return a  # already on the cells (interpolating at the nodes gives the same values)
     if len(var.x) > 1:
         a = np.stack([np.interp(xc, var.x, row) for row in a])
     else:

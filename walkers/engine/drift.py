@@ -11,6 +11,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from walkers.engine import kernels
 from walkers.fields.base import FlowField, FlowWindow
 from walkers.fields.geo import metres_per_degree
 from walkers.scenario.config import Transport
@@ -29,22 +30,20 @@ def metres_per_grid_unit(flow: FlowField) -> tuple[np.ndarray, np.ndarray]:
     return metres_per_degree(flow.y)
 
 
+#: Sweeps of ``kernels.fill_land``: land cells up to this many cells from water take values
+#: carried from it; those further inland take the mean of the field.
+FILL_SWEEPS = 3
+
+
 def _fill_land(a: np.ndarray, wet: np.ndarray) -> np.ndarray:
     """Copy values of wet neighbours onto land cells (a few sweeps), so that finite differences
-    across a coast see no jump: no diffusive flux through walls."""
-    out = np.where(wet, a, np.nan)
-    for _ in range(3):
-        missing = np.isnan(out)
-        if not missing.any():
-            break
-        padded = np.pad(out, 1, mode="edge")
-        neighbours = np.stack(
-            [padded[:-2, 1:-1], padded[2:, 1:-1], padded[1:-1, :-2], padded[1:-1, 2:]]
-        )
-        count = np.sum(~np.isnan(neighbours), axis=0)
-        mean = np.nansum(neighbours, axis=0) / np.maximum(count, 1)
-        out = np.where(missing & (count > 0), mean, out)
-    return np.where(np.isnan(out), np.nanmean(out) if np.isfinite(out).any() else 0.0, out)
+    across a coast see no jump: no diffusive flux through walls (``kernels.fill_land``; its
+    numpy twin is ``twin.fill_land``)."""
+    out = np.empty(np.shape(wet))
+    a64 = np.ascontiguousarray(np.broadcast_to(a, out.shape), dtype=np.float64)
+    if kernels.fill_land(a64, np.ascontiguousarray(wet, dtype=np.bool_), FILL_SWEEPS, out):
+        out[np.isnan(out)] = np.nanmean(out) if np.isfinite(out).any() else 0.0
+    return out
 
 
 def aligned_tensor(u, v, k_along, k_across):
@@ -248,8 +247,6 @@ def _index_space_dispersion(
 
 def velocity_at_centres(flow: FlowField, window: FlowWindow, f: int):
     """u and v of frame f interpolated to cell centres (for the flow-aligned tensor)."""
-    from scipy.interpolate import RegularGridInterpolator
-
     X, Y = np.meshgrid(flow.x, flow.y)
     pts = np.stack([Y.ravel(), X.ravel()], axis=-1)
     out = []
@@ -262,6 +259,8 @@ def velocity_at_centres(flow: FlowField, window: FlowWindow, f: int):
         ):
             out.append(frame)
             continue
+        from scipy.interpolate import RegularGridInterpolator  # only when off the centres
+
         ys = var.y if var.y.size > 1 else np.array([var.y[0] - 1.0, var.y[0] + 1.0])
         grid = frame if var.y.size > 1 else np.vstack([frame, frame])
         interp = RegularGridInterpolator(

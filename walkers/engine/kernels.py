@@ -1597,6 +1597,56 @@ def grid_mass(x, y, w, status, x0, dx, nx, y0, dy, ny, out, count):
 
 
 @nb.njit(**JIT)
+def fill_land(a, wet, sweeps, out):
+    """Values of a (ny, nx) field carried from wet cells onto land, for finite differences that
+    see no jump at a coast: ``out`` takes ``a`` on wet cells and NaN elsewhere (and where ``a`` is
+    NaN); then, ``sweeps`` times, each NaN cell with a neighbour that is not NaN (above, below,
+    left, right, as the previous sweep left them) takes their mean. Returns whether NaN cells
+    remain (the caller gives them the mean of the rest). The numpy twin is ``twin.fill_land``:
+    the same sums in the same order, so the two agree bitwise."""
+    ny, nx = a.shape
+    for j in range(ny):
+        for i in range(nx):
+            out[j, i] = a[j, i] if wet[j, i] else np.nan
+    before = np.empty_like(out)
+    for _ in range(sweeps):
+        before[:] = out
+        missing = False
+        for j in range(ny):
+            for i in range(nx):
+                if not np.isnan(before[j, i]):
+                    continue
+                missing = True
+                # the neighbours in the order of the twin's sum; beyond the grid a cell is its
+                # own neighbour (NaN here), as numpy's "edge" padding makes it
+                total = 0.0
+                count = 0
+                for k in range(4):
+                    if k == 0:
+                        v = before[max(j - 1, 0), i]
+                    elif k == 1:
+                        v = before[min(j + 1, ny - 1), i]
+                    elif k == 2:
+                        v = before[j, max(i - 1, 0)]
+                    else:
+                        v = before[j, min(i + 1, nx - 1)]
+                    if np.isnan(v):
+                        v = 0.0
+                    else:
+                        count += 1
+                    total = v if k == 0 else total + v
+                if count > 0:
+                    out[j, i] = total / count
+        if not missing:
+            return False
+    for j in range(ny):
+        for i in range(nx):
+            if np.isnan(out[j, i]):
+                return True
+    return False
+
+
+@nb.njit(**JIT)
 def depth_at_particles(x, y, depth, xe, ye, out):
     """Depth (m; cross-section m2 in 1-D) of the flow cell holding each particle (one thread:
     a lookup per particle; no kernel here compiles numba's parallel loops)."""

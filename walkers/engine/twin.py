@@ -542,3 +542,22 @@ def advance(
             )
     if mesh:
         hint[:] = faces_all
+
+
+def fill_land(a: np.ndarray, wet: np.ndarray, sweeps: int) -> np.ndarray:
+    """:func:`walkers.engine.kernels.fill_land` and its caller ``drift._fill_land`` in numpy:
+    values of wet neighbours copied onto land cells (``sweeps`` sweeps, each NaN cell taking the
+    mean of its neighbours that are not NaN), then the rest take the mean of the field."""
+    out = np.where(wet, a, np.nan)
+    for _ in range(sweeps):
+        missing = np.isnan(out)
+        if not missing.any():
+            break
+        padded = np.pad(out, 1, mode="edge")
+        neighbours = np.stack(
+            [padded[:-2, 1:-1], padded[2:, 1:-1], padded[1:-1, :-2], padded[1:-1, 2:]]
+        )
+        count = np.sum(~np.isnan(neighbours), axis=0)
+        mean = np.nansum(neighbours, axis=0) / np.maximum(count, 1)
+        out = np.where(missing & (count > 0), mean, out)
+    return np.where(np.isnan(out), np.nanmean(out) if np.isfinite(out).any() else 0.0, out)

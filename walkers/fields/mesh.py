@@ -28,7 +28,6 @@ from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
-from scipy.spatial import cKDTree
 
 from walkers.errors import InputError
 
@@ -89,6 +88,8 @@ class MeshGeometry:
         """The face whose centroid is nearest to each point (a first guess for the face walk:
         a k-d tree on face centroids, scipy.spatial.cKDTree)."""
         if self._tree is None:
+            from scipy.spatial import cKDTree  # (scipy.spatial takes 0.1 s to import)
+
             self._tree = cKDTree(np.column_stack([self.centroid_x, self.centroid_y]))
         _, idx = self._tree.query(np.column_stack([np.ravel(x), np.ravel(y)]))
         return np.asarray(idx, dtype=np.int64).reshape(np.shape(x))

@@ -12,7 +12,6 @@ from __future__ import annotations
 from collections.abc import Sequence
 
 import numpy as np
-from scipy.ndimage import gaussian_filter
 
 from walkers.engine import kernels
 from walkers.engine.state import (
@@ -73,6 +72,8 @@ def smoothed(conc: np.ndarray, grid: OutputGrid, metres_per_unit: tuple[float, f
     """Gaussian-kernel estimate: box counts convolved with a kernel of ``grid.bandwidth`` metres."""
     sx = grid.bandwidth / (grid.dx * metres_per_unit[0])
     sy = grid.bandwidth / (grid.dy * metres_per_unit[1]) if grid.ny > 1 else 0.0
+    from scipy.ndimage import gaussian_filter  # imported only by runs that smooth
+
     return gaussian_filter(conc, sigma=(sy, sx), mode="constant", truncate=4.0)
 
 
