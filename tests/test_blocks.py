@@ -73,6 +73,21 @@ def test_a_worker_copies_fields_once_and_again_only_when_they_change():
     assert blocks.own_fields(first) is not a
 
 
+def test_a_workers_copy_has_the_numba_types_of_the_fields():
+    """A read-only field (a broadcast K, a depth frame of a file) is copied read-only, a
+    writable one writable: numba types the two apart, so a copy of another type would make the
+    step kernel compile, and load from its cache, a second time for the worker threads."""
+    readonly = np.broadcast_to(np.arange(6.0), (2, 6))[None].copy()
+    readonly.flags.writeable = False
+    fields = ((np.ones((1, 2, 6)), readonly), (np.zeros(3),))
+    copy = blocks._workers(1).submit(blocks.own_fields, fields).result()
+    originals, copies = blocks._arrays(fields), blocks._arrays(copy)
+    assert all(a is not b for a, b in zip(originals, copies, strict=True))
+    assert [numba.typeof(a) for a in copies] == [numba.typeof(a) for a in originals]
+    # the check can fail: a plain copy of the read-only array is another numba type
+    assert numba.typeof(readonly.copy()) != numba.typeof(readonly)
+
+
 def test_fields_larger_than_the_limits_are_shared(monkeypatch):
     """Shared above the bound of one copy, or of all workers' copies together (many cores)."""
     fields = fields_of(size=1000)  # 24 024 bytes

@@ -71,10 +71,14 @@ def _arrays(fields: Any) -> list[np.ndarray]:
 
 
 def _copied(fields: Any) -> Any:
-    """A nested tuple of arrays with each array copied."""
+    """A nested tuple of arrays with each array copied, read-only where the original is: numba
+    types a read-only array apart from a writable one, so a copy that differed would make the
+    step kernel compile (and load) once more for the worker threads."""
     if isinstance(fields, tuple):
         return tuple(_copied(item) for item in fields)
-    return fields.copy()
+    copy = fields.copy()
+    copy.flags.writeable = fields.flags.writeable
+    return copy
 
 
 def own_fields(fields: Any, workers: int = 1) -> Any:
