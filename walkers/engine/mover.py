@@ -238,6 +238,10 @@ def with_column(
     shape = np.broadcast_shapes(h.shape, u.shape)
     h = np.ascontiguousarray(np.broadcast_to(h, shape))
     u = np.ascontiguousarray(np.broadcast_to(u, shape))
+    # read-only whatever the shapes given (a view of the caller's frames is, a broadcast copy
+    # would not be): numba types the two apart and would compile the step kernel for each
+    h.flags.writeable = False
+    u.flags.writeable = False
     params = vertical.column_params(
         mode,
         kz,
