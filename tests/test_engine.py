@@ -305,7 +305,8 @@ def test_drift_of_a_frame_shared_by_windows_is_the_drift_computed_afresh():
 
 def _land_cases():
     """Fields and wet masks for the land filling: a coast with islands and inland cells beyond
-    the reach of the sweeps, a wet cell holding NaN, one row, one cell of water, all land."""
+    the reach of the sweeps, a wet cell holding NaN, a dike one cell thick between two waters, a
+    channel one cell wide through land, one row, one cell of water, all land."""
     rng = np.random.default_rng(7)
     ny, nx = 30, 45
     yy, xx = np.mgrid[0:ny, 0:nx]
@@ -316,9 +317,13 @@ def _land_cases():
     one_cell = np.zeros((ny, nx), bool)
     one_cell[12, 40] = True
     row = rng.random((1, 60)) < 0.3
+    dike = xx != 20
+    channel = yy == 15
     return [
         (field, coast),
         (holed, coast),
+        (field, dike),
+        (field, channel),
         (field, one_cell),
         (rng.normal(size=(1, 60)), row),
         (field, np.zeros((ny, nx), bool)),
@@ -335,6 +340,9 @@ def test_land_filling_kernel_equals_its_numpy_twin():
         assert np.all(np.isfinite(compiled))
         np.testing.assert_array_equal(compiled, reference)
         np.testing.assert_array_equal(compiled[wet & np.isfinite(a)], a[wet & np.isfinite(a)])
+    # a dike one cell thick takes the mean of the water on its two sides
+    a, dike = _land_cases()[2]
+    np.testing.assert_array_equal(drift._fill_land(a, dike)[:, 20], (a[:, 19] + a[:, 21]) / 2)
 
 
 def test_land_filling_check_can_fail():
